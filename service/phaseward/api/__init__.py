@@ -1,0 +1,1 @@
+"""FastAPI app, routers, pydantic schemas and error rendering."""

@@ -1,0 +1,34 @@
+"""Dependencies as ``Annotated`` aliases; everything comes from ``app.state``."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from typing import Annotated
+
+from fastapi import Depends, Request
+from sqlalchemy.orm import Session, sessionmaker
+
+from phaseward.settings import Settings
+
+
+def _settings(request: Request) -> Settings:
+    settings: Settings = request.app.state.settings
+    return settings
+
+
+def _sessions(request: Request) -> sessionmaker[Session]:
+    sessions: sessionmaker[Session] = request.app.state.sessions
+    return sessions
+
+
+def _read_session(
+    sessions: Annotated[sessionmaker[Session], Depends(_sessions)],
+) -> Iterator[Session]:
+    """A session for reads; it never commits (writes go through monitor services)."""
+    with sessions() as session, session.begin():
+        yield session
+
+
+SettingsDep = Annotated[Settings, Depends(_settings)]
+SessionsDep = Annotated[sessionmaker[Session], Depends(_sessions)]
+ReadSessionDep = Annotated[Session, Depends(_read_session)]

@@ -1,0 +1,77 @@
+"""One handler per error family, all rendering ``{"error", "detail", "field"}``."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from pydantic import ValidationError
+from sqlalchemy.exc import OperationalError
+
+from phaseward.api.schemas.common import ErrorBody
+from phaseward.errors import PhasewardError
+
+_LOCATION_PREFIXES = ("body", "query", "path", "header")
+
+
+def field_path(loc: tuple[Any, ...]) -> str:
+    """('body', 0, 'phases', 1, 'index') -> '[0].phases[1].index'."""
+    parts = list(loc)
+    if parts and parts[0] in _LOCATION_PREFIXES:
+        parts = parts[1:]
+    out = ""
+    for part in parts:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        elif isinstance(part, str) and part.startswith(("function-", "union[")):
+            continue  # pydantic's internal validator names say nothing to a client
+        else:
+            out += f".{part}" if out else str(part)
+    return out or "body"
+
+
+def _render(status: int, error: str, detail: str, field: str | None, **extra: Any) -> JSONResponse:
+    body = ErrorBody(error=error, detail=detail, field=field).model_dump()
+    return JSONResponse(status_code=status, content={**body, **extra})
+
+
+def validation_response(errors: list[Any]) -> JSONResponse:
+    first = errors[0]
+    field = field_path(tuple(first["loc"]))
+    items = [{"field": field_path(tuple(e["loc"])), "detail": str(e["msg"])} for e in errors[:50]]
+    return _render(422, "invalid_input", f"{field}: {first['msg']}", field, errors=items)
+
+
+def install(app: FastAPI) -> None:
+    @app.exception_handler(PhasewardError)
+    async def _ours(_: Request, err: PhasewardError) -> JSONResponse:
+        return _render(err.status_code, err.error, err.detail, err.field)
+
+    @app.exception_handler(RequestValidationError)
+    async def _request(_: Request, err: RequestValidationError) -> JSONResponse:
+        return validation_response(list(err.errors()))
+
+    @app.exception_handler(ValidationError)
+    async def _model(_: Request, err: ValidationError) -> JSONResponse:
+        return validation_response(list(err.errors()))
+
+    @app.exception_handler(OperationalError)
+    async def _database(_: Request, err: OperationalError) -> JSONResponse:
+        text = str(err.orig) if err.orig is not None else str(err)
+        return _render(503, "service_unavailable", f"database unavailable: {text}", None)
+
+
+ERROR_RESPONSES: dict[int | str, dict[str, Any]] = {
+    code: {"model": ErrorBody, "description": text}
+    for code, text in {
+        400: "Malformed body",
+        404: "Unknown rail or event",
+        409: "Conflict with what is stored",
+        413: "Body or batch too large",
+        415: "Unsupported content type",
+        422: "A value that cannot be right; `field` names it",
+        503: "Database unavailable",
+    }.items()
+}

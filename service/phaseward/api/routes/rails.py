@@ -1,0 +1,69 @@
+"""Rail definitions and the operator's status view."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Path, Query, Response, status
+
+from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
+from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.schemas.events import iso
+from phaseward.api.schemas.rails import RailBody, RailCreate, RailOut
+from phaseward.api.schemas.status import RailStatus
+from phaseward.monitor import rails as rail_service
+from phaseward.monitor.status import rail_status
+from phaseward.store import rails as rail_store
+from phaseward.store.models import Rail
+
+router = APIRouter(prefix="/v1/rails", tags=["rails"], responses=ERROR_RESPONSES)
+RailId = Annotated[str, Path(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)]
+
+
+def _out(rail: Rail, spec: dict[str, object]) -> RailOut:
+    return RailOut(
+        id=rail.id, version=rail.version, created=iso(rail.created_s), updated=iso(rail.updated_s),
+        spec=spec,
+    )  # fmt: skip
+
+
+@router.post("", status_code=status.HTTP_201_CREATED)
+def create_rail(body: RailCreate, sessions: SessionsDep) -> RailOut:
+    spec = RailBody.model_validate(body.model_dump(exclude={"id"})).stored()
+    rail, spec = rail_service.create(sessions, body.id, spec)
+    return _out(rail, spec)
+
+
+@router.get("")
+def list_rails(
+    session: ReadSessionDep,
+    settings: SettingsDep,
+    after: Annotated[str | None, Query(max_length=64, description="cursor: last id seen")] = None,
+    limit: Annotated[int, Query(ge=1, le=1000)] = 100,
+) -> list[RailOut]:
+    page = rail_store.list_page(session, after=after, limit=min(limit, settings.max_page_size))
+    specs = rail_store.specs(session, page)
+    return [_out(r, specs[r.id]) for r in page]
+
+
+@router.get("/{rail_id}")
+def get_rail(rail_id: RailId, session: ReadSessionDep) -> RailOut:
+    rail, spec = rail_service.get(session, rail_id)
+    return _out(rail, spec)
+
+
+@router.put("/{rail_id}")
+def put_rail(rail_id: RailId, body: RailBody, sessions: SessionsDep, response: Response) -> RailOut:
+    rail, spec, created = rail_service.put_version(sessions, rail_id, body.stored())
+    response.status_code = status.HTTP_201_CREATED if created else status.HTTP_200_OK
+    return _out(rail, spec)
+
+
+@router.delete("/{rail_id}", status_code=status.HTTP_204_NO_CONTENT)
+def delete_rail(rail_id: RailId, sessions: SessionsDep) -> None:
+    rail_service.delete(sessions, rail_id)
+
+
+@router.get("/{rail_id}/status")
+def get_status(rail_id: RailId, session: ReadSessionDep) -> RailStatus:
+    return RailStatus.model_validate(rail_status(session, rail_id))

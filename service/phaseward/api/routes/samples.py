@@ -1,0 +1,126 @@
+"""Telemetry ingest: JSON object, JSON array or NDJSON, all-or-nothing per request."""
+
+from __future__ import annotations
+
+import json
+from typing import Annotated, Any
+
+import numpy as np
+from fastapi import APIRouter, Query, Request
+from fastapi.concurrency import run_in_threadpool
+
+from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
+from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.routes.rails import RailId
+from phaseward.api.schemas.samples import BODY_SCHEMA, SAMPLES, IngestOut, SampleWindow, to_incoming
+from phaseward.errors import BadRequest, PayloadTooLarge, UnsupportedMediaType
+from phaseward.monitor import rails as rail_service
+from phaseward.monitor.ingest import ingest
+from phaseward.settings import Settings
+from phaseward.store import samples as sample_store
+
+router = APIRouter(prefix="/v1/rails", tags=["telemetry"], responses=ERROR_RESPONSES)
+
+NDJSON = "application/x-ndjson"
+_BODY_DOC = {
+    "requestBody": {
+        "required": True,
+        "content": {"application/json": {"schema": BODY_SCHEMA}, NDJSON: {"schema": BODY_SCHEMA}},
+    }
+}
+
+
+async def read_limited(request: Request, limit: int) -> bytes:
+    """The body, refused with 413 as soon as it passes ``limit`` (never buffered whole)."""
+    declared = request.headers.get("content-length")
+    if declared is not None and declared.isdigit() and int(declared) > limit:
+        raise PayloadTooLarge(
+            f"body of {declared} bytes exceeds the limit of {limit}", field="body"
+        )
+    chunks: list[bytes] = []
+    size = 0
+    async for chunk in request.stream():
+        size += len(chunk)
+        if size > limit:
+            raise PayloadTooLarge(f"body exceeds the limit of {limit} bytes", field="body")
+        chunks.append(chunk)
+    return b"".join(chunks)
+
+
+def parse_items(body: bytes, content_type: str, settings: Settings) -> list[Any]:
+    media = content_type.split(";")[0].strip().lower()
+    if media == NDJSON:
+        items = []
+        for number, line in enumerate(body.splitlines(), start=1):
+            if not line.strip():
+                continue
+            try:
+                items.append(json.loads(line))
+            except ValueError as err:
+                raise BadRequest(
+                    f"NDJSON line {number} is not JSON: {err}", field=f"line {number}"
+                ) from err
+    elif media in ("application/json", ""):
+        try:
+            doc = json.loads(body)
+        except ValueError as err:
+            raise BadRequest(f"body is not JSON: {err}", field="body") from err
+        items = doc if isinstance(doc, list) else [doc]
+    else:
+        raise UnsupportedMediaType(
+            f"send application/json or {NDJSON}, not {media}", field="content-type"
+        )
+    if not items:
+        raise BadRequest("no samples in the body", field="body")
+    if len(items) > settings.max_batch_samples:
+        raise PayloadTooLarge(
+            f"{len(items)} samples exceed the batch limit of {settings.max_batch_samples}",
+            field="body",
+        )
+    return items
+
+
+@router.post("/{rail_id}/samples", openapi_extra=_BODY_DOC)
+async def post_samples(
+    rail_id: RailId, request: Request, sessions: SessionsDep, settings: SettingsDep
+) -> IngestOut:
+    """Store samples and advance the rail's live state. The answer comes after the commit."""
+    body = await read_limited(request, settings.max_body_bytes)
+    items = SAMPLES.validate_python(
+        parse_items(body, request.headers.get("content-type", ""), settings)
+    )
+    # Database work runs off the event loop: the driver blocks.
+    result = await run_in_threadpool(ingest, sessions, rail_id, to_incoming(items))
+    return IngestOut(
+        stored=result.stored, duplicates=result.duplicates, late=result.late,
+        condition=result.condition, version=result.version,
+    )  # fmt: skip
+
+
+def _nullable(a: np.ndarray) -> list[Any]:  # type: ignore[type-arg]
+    return [None if not np.isfinite(x) else float(x) for x in a]
+
+
+@router.get("/{rail_id}/samples")
+def get_samples(
+    rail_id: RailId,
+    session: ReadSessionDep,
+    settings: SettingsDep,
+    since: Annotated[float, Query(ge=0, description="epoch seconds, inclusive")],
+    until: Annotated[float, Query(gt=0, description="epoch seconds, exclusive")],
+    limit: Annotated[int, Query(ge=1, le=100_000)] = 1000,
+) -> SampleWindow:
+    """A time window of stored samples (a history window reads only its own rows)."""
+    rail_service.get(session, rail_id)
+    size = min(limit, settings.max_page_size)
+    rows = sample_store.window(session, rail_id, start_s=since, end_s=until, limit=size + 1)
+    n = min(len(rows.seq), size)
+    return SampleWindow(
+        rail_id=rail_id, count=n, truncated=len(rows.seq) > size,
+        seq=rows.seq[:n].tolist(), time_s=rows.t_s[:n].tolist(), version=rows.version[:n].tolist(),
+        vin_v=rows.vin_v[:n].tolist(), vout_v=rows.vout_v[:n].tolist(),
+        iout_a=_nullable(rows.iout_a[:n]), ambient_c=_nullable(rows.ambient_c[:n]),
+        current_a=[_nullable(r) for r in rows.current_a[:n]],
+        temp_c=[_nullable(r) for r in rows.temp_c[:n]],
+        flags=rows.flags[:n].astype(int).tolist(),
+    )  # fmt: skip

@@ -1,0 +1,1 @@
+"""Pydantic models: the API's contract."""

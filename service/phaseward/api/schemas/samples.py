@@ -1,0 +1,139 @@
+"""Telemetry as it arrives: one sample, an array, or NDJSON lines of samples."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Annotated, Self
+
+import numpy as np
+from pydantic import AwareDatetime, Field, TypeAdapter, model_validator
+
+from phaseward.api.schemas.common import Celsius, Contract, NonNegative
+from phaseward.monitor.telemetry import FLAG_NAMES, NO_WORD, IncomingSamples
+from phaseward.physics.pmbus import status_word_flags
+
+EPOCH_MAX_S = 1.0e11  # far beyond any real clock; catches milliseconds sent as seconds
+Word = Annotated[int, Field(ge=0, le=0xFFFF)]
+
+
+class PhaseReading(Contract):
+    """One phase in one sample. Give the current as exactly one of ``current_a``, ``sense_v``
+    (voltage across the inductor DCR, converted with the temperature-compensated DCR) or
+    ``read_iout`` (a raw PMBus READ_IOUT word, LINEAR11)."""
+
+    index: Annotated[int, Field(ge=0, le=63)]
+    current_a: float | None = None
+    sense_v: float | None = None
+    read_iout: Word | None = None
+    temp_c: Celsius | None = None
+    breaker_tripped: bool = False
+    driver_disabled: bool = False
+    overcurrent: bool = False
+    overtemperature: bool = False
+    status_word: Word | None = Field(
+        default=None,
+        description="PMBus STATUS_WORD: OFF sets driver_disabled, IOUT_OC_FAULT overcurrent, "
+        "TEMPERATURE overtemperature.",
+    )
+
+    @model_validator(mode="after")
+    def _one_current(self) -> Self:
+        given = [v is not None for v in (self.current_a, self.sense_v, self.read_iout)]
+        if sum(given) != 1:
+            raise ValueError("give exactly one of current_a, sense_v or read_iout")
+        return self
+
+
+class SampleIn(Contract):
+    time: AwareDatetime | Annotated[float, Field(gt=0, lt=EPOCH_MAX_S)] = Field(
+        description="RFC 3339 with an offset, or epoch seconds"
+    )
+    seq: Annotated[int, Field(ge=0, le=2**62)]
+    vin_v: NonNegative
+    vout_v: NonNegative
+    iout_a: float | None = None
+    ambient_c: Celsius | None = None
+    phases: list[PhaseReading] = Field(min_length=1, max_length=64)
+
+    @property
+    def t_s(self) -> float:
+        return self.time.timestamp() if isinstance(self.time, datetime) else float(self.time)
+
+
+SAMPLES = TypeAdapter(list[SampleIn])
+BODY_SCHEMA = TypeAdapter(SampleIn | list[SampleIn]).json_schema(ref_template="#/$defs/{model}")
+
+
+def to_incoming(items: list[SampleIn]) -> IncomingSamples:
+    """Long-form arrays for the monitor (one row per phase reading)."""
+    readings = [(k, j, r) for k, s in enumerate(items) for j, r in enumerate(s.phases)]
+
+    def per_sample(get: object) -> np.ndarray:  # type: ignore[type-arg]
+        return np.array([get(s) for s in items], dtype=np.float64)  # type: ignore[operator]
+
+    def nan(x: float | None) -> float:
+        return np.nan if x is None else x
+
+    flags = np.array(
+        [sum(bit for name, bit in FLAG_NAMES.items() if getattr(r, name)) for _, _, r in readings],
+        dtype=np.uint8,
+    )
+    words = np.array([NO_WORD if r.status_word is None else r.status_word for _, _, r in readings])
+    decoded = status_word_flags(np.where(words == NO_WORD, 0, words))
+    has_word = words != NO_WORD
+    flags |= np.where(has_word & decoded["OFF"], FLAG_NAMES["driver_disabled"], 0).astype(np.uint8)
+    flags |= np.where(has_word & decoded["IOUT_OC_FAULT"], FLAG_NAMES["overcurrent"], 0).astype(
+        np.uint8
+    )
+    flags |= np.where(has_word & decoded["TEMPERATURE"], FLAG_NAMES["overtemperature"], 0).astype(
+        np.uint8
+    )
+    return IncomingSamples(
+        seq=np.array([s.seq for s in items], dtype=np.int64),
+        t_s=per_sample(lambda s: s.t_s),
+        vin_v=per_sample(lambda s: s.vin_v),
+        vout_v=per_sample(lambda s: s.vout_v),
+        iout_a=per_sample(lambda s: nan(s.iout_a)),
+        ambient_c=per_sample(lambda s: nan(s.ambient_c)),
+        item=np.array([k for k, _, _ in readings], dtype=np.int64),
+        slot=np.array([j for _, j, _ in readings], dtype=np.int64),
+        phase=np.array([r.index for _, _, r in readings], dtype=np.int64),
+        current_a=np.array([nan(r.current_a) for _, _, r in readings], dtype=np.float64),
+        sense_v=np.array([nan(r.sense_v) for _, _, r in readings], dtype=np.float64),
+        iout_word=np.array(
+            [NO_WORD if r.read_iout is None else r.read_iout for _, _, r in readings],
+            dtype=np.int64,
+        ),
+        temp_c=np.array([nan(r.temp_c) for _, _, r in readings], dtype=np.float64),
+        flags=flags,
+    )
+
+
+class IngestOut(Contract):
+    stored: int
+    duplicates: int
+    late: int
+    rejected: list[dict[str, str | None]] = Field(
+        default_factory=list,
+        description="Always empty on success: a batch with any bad item is refused whole (4xx).",
+    )
+    condition: str | None
+    version: int
+
+
+class SampleWindow(Contract):
+    """Stored samples, oldest first; per-phase lists are indexed by phase (None: not reported)."""
+
+    rail_id: str
+    count: int
+    truncated: bool
+    seq: list[int]
+    time_s: list[float]
+    version: list[int]
+    vin_v: list[float]
+    vout_v: list[float]
+    iout_a: list[float | None]
+    ambient_c: list[float | None]
+    current_a: list[list[float | None]]
+    temp_c: list[list[float | None]]
+    flags: list[list[int]]

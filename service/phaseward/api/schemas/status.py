@@ -1,0 +1,76 @@
+"""What a rail can still do, as operators read it."""
+
+from __future__ import annotations
+
+from pydantic import BaseModel, Field
+
+from phaseward.api.schemas.common import CAUTION
+
+
+class PhaseStatus(BaseModel):
+    index: int
+    condition: str = Field(description="active, isolated, suspect or silent")
+    current_a: float | None
+    temp_c: float | None
+    share: float = Field(description="fraction of the rail current this phase carries")
+    rated_current_a: float
+    junction_limit_c: float
+    flags: list[str]
+
+
+class LastSample(BaseModel):
+    seq: int
+    time_s: float
+    age_s: float
+    vin_v: float
+    vout_v: float
+    ambient_c: float
+
+
+class CapacityStatus(BaseModel):
+    capacity_a: float = Field(
+        description="largest total current the active phases carry in steady state"
+    )
+    binding_phase: int | None
+    binding: str = Field(
+        description="current (a phase's rating), thermal (its junction limit), none"
+    )
+    headroom_a: float = Field(description="capacity minus the present load")
+    headroom_rated_a: float = Field(description="capacity minus the load the rail must deliver")
+
+
+class ThermalStatus(BaseModel):
+    hottest_phase: int | None
+    hottest_temp_c: float | None
+    margin_k: float | None = Field(description="junction limit minus the hottest reading")
+    margin_to_warning_k: float | None
+    steady_junction_c: list[float | None] = Field(description="steady state at the present load")
+    time_to_limit_s: float | None = Field(description="None: not reached within the horizon")
+    limit_phase: int | None
+    runaway: bool
+    model_nodes_c: list[float]
+
+
+class WeakLoss(BaseModel):
+    lose_phase: int
+    capacity_a: float
+
+
+class Screening(BaseModel):
+    n1_secure: bool = Field(description="any single further loss leaves capacity for the load")
+    weakest: list[WeakLoss]
+
+
+class RailStatus(BaseModel):
+    rail_id: str
+    version: int
+    state_version: int | None = None
+    condition: str | None = Field(description="nominal, exposed, degraded, overloaded, down")
+    rated_load_a: float
+    load_a: float | None = None
+    last_sample: LastSample | None
+    capacity: CapacityStatus | None
+    thermal: ThermalStatus | None
+    screening: Screening | None
+    phases: list[PhaseStatus]
+    caution: str = CAUTION

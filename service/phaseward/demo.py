@@ -1,0 +1,159 @@
+"""The demo: an invented rail in an invented lab, and a scripted day on its test rack.
+
+Orrery Instruments' bring-up lab runs the "Tern" accelerator card on rack B4. Its 0.75 V core
+rail has six phases behind per-phase breakers. The script: steady running, a high-side switch
+short that trips phase 2's breaker, a load step, then the rack's inlet air warming slowly.
+Telemetry temperatures come from phaseward's own thermal model driven by the scripted
+currents, plus sensor noise, so the numbers hang together. All data here is invented.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import httpx
+import numpy as np
+
+from phaseward.monitor.assess import phase_power
+from phaseward.monitor.rail_model import build
+from phaseward.physics.thermal import simulate_c, steady_state_c
+
+RAIL_ID = "demo-core"
+N_PHASES = 6
+FAILED_PHASE = 2
+T_FAULT, T_STEP, T_WARM, T_END = 60, 120, 180, 600  # s from the start of the script
+
+DEMO_RAIL: dict[str, Any] = {
+    "id": RAIL_ID,
+    "name": "Tern card core rail, rack B4, Orrery Instruments bring-up lab",
+    "vin_v": 12.0,
+    "vout_v": 0.75,
+    "switching_hz": 600e3,
+    "load_a": 180.0,
+    "ambient_c": 30.0,
+    "phase_count": N_PHASES,
+    "phase": {
+        "rated_current_a": 45.0,
+        "overcurrent_limit_a": 60.0,
+        "junction_limit_c": 125.0,
+        "warning_margin_k": 15.0,
+        "inductor": {"inductance_h": 150e-9, "dcr_ohm": 0.25e-3, "dcr_ref_c": 20.0},
+        "power_stage": {
+            "rds_high_ohm": 4.0e-3,
+            "rds_low_ohm": 1.2e-3,
+            "rds_ref_c": 25.0,
+            "rds_tc_per_k": 0.004,
+            "rise_time_s": 4e-9,
+            "fall_time_s": 4e-9,
+            "gate_charge_c": 25e-9,
+            "drive_v": 5.0,
+            "dead_time_s": 15e-9,
+            "diode_drop_v": 0.7,
+        },
+        "core_loss_w": 0.25,
+        "thermal": [
+            {"r_k_per_w": 1.2, "tau_s": 0.02},
+            {"r_k_per_w": 4.0, "tau_s": 2.0},
+            {"r_k_per_w": 4.5, "tau_s": 30.0},
+        ],
+    },
+    "board": {"to_ambient_k_per_w": 0.9, "capacitance_j_per_k": 300.0},
+    "monitor": {"debounce_samples": 2, "forecast_horizon_s": 900.0},
+}
+
+
+def scenario_samples(start_s: float, seed: int = 7) -> list[dict[str, Any]]:
+    """One sample a second for the whole script, as the rack would post them."""
+    rng = np.random.default_rng(seed)
+    t = np.arange(T_END, dtype=np.float64)
+    load = np.where(t < T_STEP, 140.0, 175.0)
+    ambient = 30.0 + np.clip((t - T_WARM) / (T_END - T_WARM), 0.0, 1.0) * 14.0
+    active = np.ones((t.size, N_PHASES), dtype=bool)
+    active[t >= T_FAULT, FAILED_PHASE] = False
+    skew = 1.0 + np.array([0.02, -0.01, 0.0, 0.015, -0.02, 0.015])  # layout-dependent sharing
+    share = np.where(active, skew, 0.0)
+    current = load[:, None] * share / share.sum(axis=1, keepdims=True)
+
+    spec = {k: v for k, v in DEMO_RAIL.items() if k != "id"}
+    model = build(RAIL_ID, 0, spec)
+    p0, slope = phase_power(model, current, active)
+    states = [steady_state_c(model.network, p0[0], slope[0], float(ambient[0]))]
+    # The inlet air warms in steps of about a kelvin; each step's ambient is held exactly.
+    edges = np.flatnonzero(np.diff(np.round(ambient)) != 0) + 1
+    for lo, hi in zip(np.r_[0, edges], np.r_[edges, t.size], strict=True):
+        run = simulate_c(model.network, states[-1], np.ones(hi - lo), p0[lo:hi], slope[lo:hi],
+                         float(ambient[lo]))  # fmt: skip
+        states.extend(run[1:])
+    trajectory = np.asarray(states[: t.size])
+    junction = trajectory[:, model.network.junction_node]
+    sensor = junction - 3.0 + rng.normal(0.0, 0.3, junction.shape)  # sensor beside the die
+
+    vin = 12.0 + rng.normal(0.0, 0.01, t.size)
+    vout = 0.75 + rng.normal(0.0, 0.0008, t.size)
+    vin[T_FAULT] -= 2.6  # the short pulls the input down until the breaker opens
+    vout[T_FAULT] += 0.03
+    samples = []
+    for k in range(t.size):
+        phases = []
+        for i in range(N_PHASES):
+            tripped = not active[k, i]
+            amps = 0.0 if tripped else current[k, i] + rng.normal(0.0, 0.15)
+            phases.append({
+                "index": i,
+                "current_a": round(float(amps), 3),
+                "temp_c": round(float(sensor[k, i]), 2),
+                "breaker_tripped": bool(tripped),
+            })  # fmt: skip
+        samples.append({
+            "time": start_s + float(t[k]),
+            "seq": k,
+            "vin_v": round(float(vin[k]), 4),
+            "vout_v": round(float(vout[k]), 5),
+            "ambient_c": round(float(ambient[k]), 2),
+            "phases": phases,
+        })  # fmt: skip
+    return samples
+
+
+def run_scenario(base_url: str, *, pace_s: float, chunk: int = 5) -> bool:
+    """Create the demo rail afresh and post the script, printing what phaseward makes of it.
+    Returns whether the service reported what the script implies (the isolation and a
+    capacity drop)."""
+    import time
+
+    samples = scenario_samples(time.time() - T_END)
+    with httpx.Client(base_url=base_url, timeout=30.0) as client:
+        client.delete(f"/v1/rails/{RAIL_ID}")
+        client.post("/v1/rails", json=DEMO_RAIL).raise_for_status()
+        print(f"rail {RAIL_ID}: {DEMO_RAIL['name']}")
+        print(f"{'t':>5}  {'condition':<10} {'load A':>7} {'capacity A':>10} {'binding':<8} "
+              f"{'hottest C':>9} {'margin K':>8}")  # fmt: skip
+        seen_event = 0
+        capacities: list[float] = []
+        isolated = False
+        last_line = None
+        for k in range(0, len(samples), chunk):
+            answer = client.post(f"/v1/rails/{RAIL_ID}/samples", json=samples[k : k + chunk])
+            answer.raise_for_status()
+            status = client.get(f"/v1/rails/{RAIL_ID}/status").json()
+            page = client.get(f"/v1/rails/{RAIL_ID}/events", params={"limit": 50}).json()
+            fresh = [e for e in reversed(page["items"]) if e["id"] > seen_event]
+            for e in fresh:
+                seen_event = max(seen_event, e["id"])
+                phase = "" if e["phase"] is None else f" phase {e['phase']}"
+                print(f"      ! {e['severity']:<8} {e['kind']}{phase}: {e['message']}")
+                isolated |= e["kind"] == "phase.isolated" and e["phase"] == FAILED_PHASE
+            cap, th = status["capacity"], status["thermal"]
+            capacities.append(cap["capacity_a"])
+            line = (status["condition"], round(cap["capacity_a"]), cap["binding"])
+            if line != last_line or fresh or k % 60 == 0:
+                hottest = th["hottest_temp_c"]
+                print(f"{k + chunk:>5}  {status['condition']:<10} {status['load_a']:>7.1f} "
+                      f"{cap['capacity_a']:>10.1f} {cap['binding']:<8} "
+                      f"{hottest if hottest is None else round(hottest, 1)!s:>9} "
+                      f"{th['margin_k'] if th['margin_k'] is None else round(th['margin_k'], 1)!s:>8}")  # fmt: skip
+                last_line = line
+            if pace_s:
+                time.sleep(pace_s * chunk)
+        print(f"\n{status['caution']}")
+    return isolated and min(capacities) < capacities[0]

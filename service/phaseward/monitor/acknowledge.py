@@ -1,0 +1,27 @@
+"""Operators acknowledge events; the record says who, when, and why."""
+
+from __future__ import annotations
+
+import time
+
+from sqlalchemy.orm import Session, sessionmaker
+
+from phaseward.errors import Conflict, NotFound
+from phaseward.store import events
+from phaseward.store.db import transaction
+from phaseward.store.models import Event
+
+
+def acknowledge(
+    sessions: sessionmaker[Session], event_id: int, *, by: str, note: str | None
+) -> Event:
+    with transaction(sessions) as session:
+        event = events.get(session, event_id)
+        if event is None:
+            raise NotFound(f"no event {event_id}", field="event_id")
+        if event.acked_by is not None:
+            raise Conflict(
+                f"event {event_id} was acknowledged by {event.acked_by} already", field="event_id"
+            )
+        event.acked_by, event.ack_note, event.acked_s = by, note, time.time()
+    return event

@@ -1,0 +1,131 @@
+"""Rail-level judgement at one instant: remaining capacity, N-1 screening, thermal margin
+and forecast, and the rail condition that follows from them."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from phaseward.monitor.conditions import ACTIVE
+from phaseward.monitor.rail_model import RailModel
+from phaseward.physics.capacity import loss_cases, remaining_capacity
+from phaseward.physics.losses import loss_coefficients
+from phaseward.physics.thermal import ThermalRunaway, steady_state_c, time_to_limit_s
+
+F64 = npt.NDArray[np.float64]
+
+RAIL_CONDITIONS = ("nominal", "exposed", "degraded", "overloaded", "down")
+OUTPUT_COLLAPSED_FRACTION = 0.5  # of nominal Vout: below this the rail is not delivering
+
+
+@dataclass(frozen=True)
+class Assessment:
+    condition: str
+    load_a: float
+    capacity_a: float
+    binding_phase: int | None
+    binding: str
+    n1_secure: bool
+    n1_weakest: list[dict[str, Any]]
+    steady_junction_c: list[float | None]
+    runaway: bool
+    time_to_limit_s: float | None
+    limit_phase: int | None
+
+    def as_dict(self) -> dict[str, Any]:
+        return dict(self.__dict__)
+
+
+def phase_power(model: RailModel, current_a: F64, active: npt.NDArray[np.bool_]) -> tuple[F64, F64]:
+    """Loss of each phase as p0 + slope*T; an isolated phase dissipates nothing."""
+    p0, slope = loss_coefficients(model.losses, np.where(active, np.abs(current_a), 0.0))
+    return np.where(active, p0, 0.0), np.where(active, slope, 0.0)
+
+
+def assess(
+    model: RailModel,
+    *,
+    codes: npt.NDArray[np.int8],
+    current_a: F64,
+    load_a: float,
+    vout_v: float,
+    weights: F64,
+    nodes_c: F64,
+    ambient_c: float,
+) -> Assessment:
+    """Judge the rail at one instant. ``codes``, ``current_a``, ``weights``: (n_phases,);
+    ``nodes_c``: the thermal network's node temperatures now."""
+    active = codes == ACTIVE
+    limit = model.temp_limit_c
+    load = float(load_a) if np.isfinite(load_a) else 0.0
+    cap = remaining_capacity(
+        model.network, model.losses,
+        active=active[None, :], weights=weights, rated_current_a=model.rated_current_a,
+        temp_limit_c=limit, ambient_c=ambient_c,
+    )  # fmt: skip
+    capacity = float(cap.capacity_a[0])
+    kind = str(cap.binding_kind[0])
+    binding_phase = int(cap.binding_phase[0]) if kind != "none" else None
+
+    n1_secure, weakest = _screen(model, active, weights, ambient_c, load)
+
+    current = np.where(np.isfinite(current_a), current_a, 0.0)
+    p0, slope = phase_power(model, current, active)
+    try:
+        steady = steady_state_c(model.network, p0, slope, ambient_c)
+        steady_j: list[float | None] = [float(x) for x in steady[model.network.junction_node]]
+        runaway = False
+    except ThermalRunaway:
+        steady_j, runaway = [None] * model.n_phases, True
+    crossing = time_to_limit_s(
+        model.network, nodes_c, p0, slope, ambient_c, np.where(active, limit, np.inf),
+        horizon_s=model.rules.forecast_horizon_s,
+    )  # fmt: skip
+    ttl_value = float(crossing.time_s) if np.isfinite(crossing.time_s) else None
+    runaway = runaway or crossing.runaway
+
+    if not active.any() or vout_v < OUTPUT_COLLAPSED_FRACTION * model.vout_v:
+        condition = "down"
+    elif load > capacity or runaway or ttl_value is not None:
+        condition = "overloaded"
+    elif not active.all():
+        condition = "degraded"
+    elif not n1_secure:
+        condition = "exposed"
+    else:
+        condition = "nominal"
+    return Assessment(
+        condition=condition,
+        load_a=load,
+        capacity_a=capacity,
+        binding_phase=binding_phase,
+        binding=kind,
+        n1_secure=n1_secure,
+        n1_weakest=weakest,
+        steady_junction_c=steady_j,
+        runaway=runaway,
+        time_to_limit_s=ttl_value,
+        limit_phase=crossing.phase if ttl_value is not None else None,
+    )
+
+
+def _screen(
+    model: RailModel, active: npt.NDArray[np.bool_], weights: F64, ambient_c: float, load: float
+) -> tuple[bool, list[dict[str, Any]]]:
+    """N-1 screening: the capacity left after losing each active phase, in one call."""
+    if active.sum() < 1:
+        return False, []
+    masks, lost = loss_cases(model.n_phases, 1, active=active)
+    cases = remaining_capacity(
+        model.network, model.losses,
+        active=masks, weights=weights, rated_current_a=model.rated_current_a,
+        temp_limit_c=model.temp_limit_c, ambient_c=ambient_c,
+    )  # fmt: skip
+    order = np.argsort(cases.capacity_a)
+    weakest = [
+        {"lose_phase": int(lost[j, 0]), "capacity_a": float(cases.capacity_a[j])} for j in order[:3]
+    ]
+    return bool((cases.capacity_a >= load).all()), weakest

@@ -1,0 +1,173 @@
+"""A stored rail definition turned into arrays and a thermal network for the physics kernels."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping
+from dataclasses import dataclass
+from functools import lru_cache
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from phaseward.physics.losses import PhaseLossParams
+from phaseward.physics.thermal import (
+    FosterStages,
+    ThermalNetwork,
+    build_coupled_network,
+    foster_to_cauer,
+)
+
+F64 = npt.NDArray[np.float64]
+
+# Fields of a phase override that replace the default loss model as a whole.
+_LOSS_MODELS = ("power_stage", "loss_table")
+
+
+@dataclass(frozen=True)
+class MonitorRules:
+    debounce_samples: int
+    collapse_fraction: float
+    imbalance_pct: float
+    min_share_load_fraction: float
+    undervoltage_fraction: float
+    excursion_fraction: float
+    gap_s: float
+    forecast_horizon_s: float
+    hysteresis_k: float
+
+
+@dataclass(frozen=True)
+class RailModel:
+    """Everything the monitor needs of one rail version. Per-phase arrays are (n_phases,)."""
+
+    rail_id: str
+    version: int
+    vin_v: float
+    vout_v: float
+    load_a: float
+    ambient_c: float
+    rated_current_a: F64
+    overcurrent_limit_a: F64
+    junction_limit_c: F64
+    warning_margin_k: F64
+    dcr_ohm: F64
+    dcr_ref_c: F64
+    losses: PhaseLossParams
+    network: ThermalNetwork
+    rules: MonitorRules
+
+    @property
+    def n_phases(self) -> int:
+        return int(self.rated_current_a.shape[0])
+
+    @property
+    def temp_limit_c(self) -> F64:
+        """The temperature capacity and forecasts hold the junctions below."""
+        return self.junction_limit_c - self.warning_margin_k
+
+
+def phase_specs(spec: Mapping[str, Any]) -> list[dict[str, Any]]:
+    """The effective definition of every phase: defaults with that phase's override on top."""
+    phases = [dict(spec["phase"]) for _ in range(int(spec["phase_count"]))]
+    for override in spec.get("overrides", []):
+        given = {k: v for k, v in override.items() if k != "index" and v is not None}
+        target = phases[int(override["index"])]
+        if any(k in given for k in _LOSS_MODELS):
+            for k in _LOSS_MODELS:
+                target[k] = None
+        target.update(given)
+    return phases
+
+
+def build(rail_id: str, version: int, spec: Mapping[str, Any]) -> RailModel:
+    """Cached on the canonical JSON of the definition: a rail version never changes, but a
+    deleted and re-created rail may reuse an id and version number with a new definition."""
+    return _build_cached(rail_id, version, json.dumps(spec, sort_keys=True))
+
+
+@lru_cache(maxsize=256)
+def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
+    spec: dict[str, Any] = json.loads(spec_json)
+    phases = phase_specs(spec)
+
+    def arr(get: Any) -> F64:
+        return np.array([float(get(p)) for p in phases], dtype=np.float64)
+
+    losses = _loss_params(spec, phases)
+    chains = [
+        foster_to_cauer(
+            FosterStages(
+                r_k_per_w=np.array([s["r_k_per_w"] for s in p["thermal"]], dtype=np.float64),
+                tau_s=np.array([s["tau_s"] for s in p["thermal"]], dtype=np.float64),
+            )
+        )
+        for p in phases
+    ]
+    network = build_coupled_network(
+        chains,
+        board_to_ambient_k_per_w=float(spec["board"]["to_ambient_k_per_w"]),
+        board_c_j_per_k=float(spec["board"]["capacitance_j_per_k"]),
+    )
+    return RailModel(
+        rail_id=rail_id,
+        version=version,
+        vin_v=float(spec["vin_v"]),
+        vout_v=float(spec["vout_v"]),
+        load_a=float(spec["load_a"]),
+        ambient_c=float(spec["ambient_c"]),
+        rated_current_a=arr(lambda p: p["rated_current_a"]),
+        overcurrent_limit_a=arr(lambda p: p["overcurrent_limit_a"]),
+        junction_limit_c=arr(lambda p: p["junction_limit_c"]),
+        warning_margin_k=arr(lambda p: p["warning_margin_k"]),
+        dcr_ohm=arr(lambda p: p["inductor"]["dcr_ohm"]),
+        dcr_ref_c=arr(lambda p: p["inductor"]["dcr_ref_c"]),
+        losses=losses,
+        network=network,
+        rules=MonitorRules(**spec["monitor"]),
+    )
+
+
+def _loss_params(spec: Mapping[str, Any], phases: list[dict[str, Any]]) -> PhaseLossParams:
+    n = len(phases)
+    stage = [p.get("power_stage") or {} for p in phases]
+    table = [p.get("loss_table") for p in phases]
+    uses_table = np.array([t is not None for t in table])
+    n_points = max((len(t["current_a"]) for t in table if t is not None), default=2)
+
+    def col(rows: list[dict[str, Any]], key: str, default: float) -> F64:
+        return np.array([float(r.get(key, default)) for r in rows], dtype=np.float64)
+
+    def table_rows(key: str) -> F64:
+        out = np.full((n, n_points), np.nan)
+        for i, t in enumerate(table):
+            if t is not None:
+                out[i, : len(t[key])] = t[key]
+        return out
+
+    table_meta = [t or {} for t in table]
+    return PhaseLossParams(
+        vin_v=np.full(n, float(spec["vin_v"])),
+        vout_v=np.full(n, float(spec["vout_v"])),
+        fsw_hz=np.full(n, float(spec["switching_hz"])),
+        inductance_h=np.array([p["inductor"]["inductance_h"] for p in phases], dtype=np.float64),
+        dcr_ohm=np.array([p["inductor"]["dcr_ohm"] for p in phases], dtype=np.float64),
+        dcr_ref_c=np.array([p["inductor"]["dcr_ref_c"] for p in phases], dtype=np.float64),
+        rds_high_ohm=col(stage, "rds_high_ohm", 0.0),
+        rds_low_ohm=col(stage, "rds_low_ohm", 0.0),
+        rds_ref_c=col(stage, "rds_ref_c", 25.0),
+        rds_tc_per_k=col(stage, "rds_tc_per_k", 0.0),
+        rise_time_s=col(stage, "rise_time_s", 0.0),
+        fall_time_s=col(stage, "fall_time_s", 0.0),
+        gate_charge_c=col(stage, "gate_charge_c", 0.0),
+        drive_v=col(stage, "drive_v", 0.0),
+        dead_time_s=col(stage, "dead_time_s", 0.0),
+        diode_drop_v=col(stage, "diode_drop_v", 0.0),
+        core_loss_w=np.array([p["core_loss_w"] for p in phases], dtype=np.float64),
+        table_current_a=table_rows("current_a"),
+        table_loss_w=table_rows("loss_w"),
+        table_ref_c=col(table_meta, "ref_c", 25.0),
+        table_tc_per_k=col(table_meta, "tc_per_k", 0.0),
+        uses_table=uses_table,
+    )

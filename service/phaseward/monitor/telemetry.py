@@ -1,0 +1,154 @@
+"""Telemetry as arrays: the API hands samples over in long form, the monitor scatters them
+into (n_samples, n_phases) arrays and turns every current reading into amps."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import numpy.typing as npt
+
+from phaseward.errors import InvalidInput
+from phaseward.monitor.rail_model import RailModel
+from phaseward.physics.pmbus import linear11_decode
+from phaseward.physics.sensing import dcr_sense_to_current_a
+
+F64 = npt.NDArray[np.float64]
+I64 = npt.NDArray[np.int64]
+
+# Per-phase flag bits as stored in the samples table (one byte per phase).
+FLAG_BREAKER = 1  # input circuit breaker (hot-swap) tripped
+FLAG_DRIVER_OFF = 2  # driver disabled
+FLAG_OVERCURRENT = 4
+FLAG_OVERTEMP = 8
+FLAG_NAMES = {
+    "breaker_tripped": FLAG_BREAKER,
+    "driver_disabled": FLAG_DRIVER_OFF,
+    "overcurrent": FLAG_OVERCURRENT,
+    "overtemperature": FLAG_OVERTEMP,
+}
+ISOLATING_FLAGS = FLAG_BREAKER | FLAG_DRIVER_OFF
+NO_WORD = -1
+
+
+@dataclass(frozen=True)
+class IncomingSamples:
+    """Samples as the API validated them, in long form.
+
+    Per sample (n,): seq, t_s, vin_v, vout_v, iout_a (NaN if absent), ambient_c (NaN).
+    Per reading (m,): item (which sample), slot (position in its phase list), phase index,
+    current_a, sense_v (NaN if absent), iout_word (NO_WORD if absent), temp_c (NaN), flags.
+    Exactly one of current_a, sense_v and iout_word is given per reading (the schema checks).
+    """
+
+    seq: I64
+    t_s: F64
+    vin_v: F64
+    vout_v: F64
+    iout_a: F64
+    ambient_c: F64
+    item: I64
+    slot: I64
+    phase: I64
+    current_a: F64
+    sense_v: F64
+    iout_word: I64
+    temp_c: F64
+    flags: npt.NDArray[np.uint8]
+
+    @property
+    def n(self) -> int:
+        return int(self.seq.shape[0])
+
+
+@dataclass(frozen=True)
+class SampleBatch:
+    """Samples in engineering units, (n,) per sample and (n, n_phases) per phase.
+    ``present`` is False where a phase was not reported (its values are NaN, flags 0)."""
+
+    seq: I64
+    t_s: F64
+    vin_v: F64
+    vout_v: F64
+    iout_a: F64
+    ambient_c: F64
+    present: npt.NDArray[np.bool_]
+    current_a: F64
+    temp_c: F64
+    flags: npt.NDArray[np.uint8]
+
+    @property
+    def n(self) -> int:
+        return int(self.seq.shape[0])
+
+    def take(self, rows: npt.NDArray[np.intp] | npt.NDArray[np.bool_]) -> SampleBatch:
+        return SampleBatch(
+            **{f: getattr(self, f)[rows] for f in self.__dataclass_fields__}  # type: ignore[arg-type]
+        )
+
+
+def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
+    """Check phase indexes against the rail and convert sense voltages and READ_IOUT words.
+
+    A sense voltage is converted with the DCR at the phase's reported temperature (the
+    inductor sits beside the power stage), else the sample's ambient, else the rail's.
+    """
+    n, p = incoming.n, model.n_phases
+    bad = np.nonzero(incoming.phase >= p)[0]
+    if bad.size:
+        k = int(bad[0])
+        raise InvalidInput(
+            f"phase index {int(incoming.phase[k])} is out of range: rail '{model.rail_id}' "
+            f"has {p} phases (0..{p - 1})",
+            field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].index",
+        )
+    seen = np.zeros((n, p), dtype=bool)
+    dup = np.zeros(incoming.item.shape, dtype=bool)
+    flat = incoming.item * p + incoming.phase
+    _, first = np.unique(flat, return_index=True)
+    dup[:] = True
+    dup[first] = False
+    if dup.any():
+        k = int(np.nonzero(dup)[0][0])
+        raise InvalidInput(
+            f"phase {int(incoming.phase[k])} appears twice in one sample",
+            field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].index",
+        )
+
+    ambient = np.where(np.isfinite(incoming.ambient_c), incoming.ambient_c, model.ambient_c)
+    temp_for_dcr = np.where(np.isfinite(incoming.temp_c), incoming.temp_c, ambient[incoming.item])
+    from_sense = dcr_sense_to_current_a(
+        incoming.sense_v,
+        model.dcr_ohm[incoming.phase],
+        temp_for_dcr,
+        ref_temp_c=model.dcr_ref_c[incoming.phase],
+    )
+    has_word = incoming.iout_word != NO_WORD
+    from_word = np.where(
+        has_word, linear11_decode(np.where(has_word, incoming.iout_word, 0)), np.nan
+    )
+    amps = np.where(
+        np.isfinite(incoming.current_a),
+        incoming.current_a,
+        np.where(np.isfinite(incoming.sense_v), from_sense, from_word),
+    )
+
+    current = np.full((n, p), np.nan)
+    temp = np.full((n, p), np.nan)
+    flags = np.zeros((n, p), dtype=np.uint8)
+    current[incoming.item, incoming.phase] = amps
+    temp[incoming.item, incoming.phase] = incoming.temp_c
+    flags[incoming.item, incoming.phase] = incoming.flags
+    seen[incoming.item, incoming.phase] = True
+    return SampleBatch(
+        seq=incoming.seq,
+        t_s=incoming.t_s,
+        vin_v=incoming.vin_v,
+        vout_v=incoming.vout_v,
+        iout_a=incoming.iout_a,
+        ambient_c=incoming.ambient_c,
+        present=seen,
+        current_a=current,
+        temp_c=temp,
+        flags=flags,
+    )

@@ -1,0 +1,223 @@
+"""Loss of one buck-converter phase, affine in its junction temperature.
+
+Source: Erickson and Maksimovic, *Fundamentals of Power Electronics* (synchronous buck in
+continuous conduction). With D = Vout/Vin, ripple dI (peak-to-peak, :mod:`ripple`) and
+I_rms^2 = I^2 + dI^2/12 for a phase carrying mean current I:
+
+* high-side conduction  D I_rms^2 Rds_h(T)
+* low-side conduction   (1 - D) I_rms^2 Rds_l(T)
+* switching             0.5 Vin |I| (t_r + t_f) fsw
+* gate drive            Q_g V_drv fsw (Q_g: total charge of both switches)
+* dead time             2 V_d |I| t_dead fsw (body diode conducts twice per period)
+* inductor copper       I_rms^2 DCR(T), DCR(T) by the copper law of :mod:`sensing`
+* core                  a per-phase parameter
+
+with Rds(T) = Rds_ref (1 + tc (T - T_ref)). Alternatively a phase may give its power-stage
+loss (switches, driver, dead time) as a table of loss versus |I| from a datasheet, scaled by
+(1 + tc (T - T_ref)); the table is taken to cover the power stage only, so inductor copper
+and core loss are added to it. The table is interpolated linearly and extrapolated linearly
+from its end segments (not held flat as ``np.interp`` would): stage loss grows faster than
+linearly with current, so a flat tail would understate it exactly where the capacity search
+probes above the table; the linear tail still understates a convex curve, so tables should
+reach the rated current. Interpolated loss is clipped at 0 W.
+
+Modelling decision: every term is affine in temperature (the resistance laws) or does not
+depend on it, so for a given current the phase loss is exactly P(T) = p0 + s T with T in
+degC. T is the phase's junction temperature: as a lumped simplification the inductor winding
+is taken at the junction temperature too. This keeps the coupled thermal network linear
+(:mod:`thermal`). Switching, gate, dead-time and core loss are taken as independent of T.
+
+A phase at zero current still switches, so it has gate, core and ripple losses; the caller
+zeroes the loss of an isolated phase itself.
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+import numpy.typing as npt
+
+FloatArray = npt.NDArray[np.float64]
+BoolArray = npt.NDArray[np.bool_]
+
+_PROBE_C = 100.0  # degC, second temperature at which the affine loss is sampled
+_POSITIVE = ("vin_v", "vout_v", "fsw_hz", "inductance_h")
+_NONNEGATIVE = (
+    "dcr_ohm",
+    "rds_high_ohm",
+    "rds_low_ohm",
+    "rise_time_s",
+    "fall_time_s",
+    "gate_charge_c",
+    "drive_v",
+    "dead_time_s",
+    "diode_drop_v",
+    "core_loss_w",
+)
+_ANY_FINITE = ("dcr_ref_c", "rds_ref_c", "rds_tc_per_k", "table_ref_c", "table_tc_per_k")
+
+
+@dataclass(frozen=True, eq=False)
+class PhaseLossParams:
+    """Per-phase loss parameters; every field is an array of shape (n_phases,) unless noted.
+
+    Volts, hertz, henry, ohm, seconds, coulomb, watt; reference temperatures in degC and
+    temperature coefficients in 1/K. ``table_current_a`` and ``table_loss_w`` have shape
+    (n_phases, n_points): for a phase with ``uses_table`` its finite entries (at least two,
+    currents strictly increasing, NaN padding at the end of a row) give the power-stage loss
+    in W versus |I| in A at ``table_ref_c``. :meth:`build` broadcasts scalars.
+    ValueError naming the field for a wrong shape, a non-finite value, L or fsw <= 0, a
+    negative resistance, time, charge or loss, or not 0 < vout_v < vin_v.
+    """
+
+    vin_v: FloatArray
+    vout_v: FloatArray
+    fsw_hz: FloatArray
+    inductance_h: FloatArray
+    dcr_ohm: FloatArray
+    dcr_ref_c: FloatArray
+    rds_high_ohm: FloatArray
+    rds_low_ohm: FloatArray
+    rds_ref_c: FloatArray
+    rds_tc_per_k: FloatArray
+    rise_time_s: FloatArray
+    fall_time_s: FloatArray
+    gate_charge_c: FloatArray
+    drive_v: FloatArray
+    dead_time_s: FloatArray
+    diode_drop_v: FloatArray
+    core_loss_w: FloatArray
+    table_current_a: FloatArray
+    table_loss_w: FloatArray
+    table_ref_c: FloatArray
+    table_tc_per_k: FloatArray
+    uses_table: BoolArray
+
+    def __post_init__(self) -> None:
+        n = np.shape(self.vin_v)[0] if np.ndim(self.vin_v) == 1 else 0
+        if n == 0:
+            raise ValueError("vin_v must have shape (n_phases,) with n_phases >= 1")
+        for name in (*_POSITIVE, *_NONNEGATIVE, *_ANY_FINITE):
+            arr = np.array(getattr(self, name), dtype=np.float64)
+            if arr.shape != (n,):
+                raise ValueError(f"{name} must have shape (n_phases,) = ({n},)")
+            if not np.all(np.isfinite(arr)):
+                raise ValueError(f"{name} must be finite")
+            if name in _POSITIVE and not np.all(arr > 0.0):
+                raise ValueError(f"{name} must be > 0")
+            if name in _NONNEGATIVE and not np.all(arr >= 0.0):
+                raise ValueError(f"{name} must be >= 0")
+            self._store(name, arr)
+        if not np.all(self.vout_v < self.vin_v):
+            raise ValueError("vout_v must be below vin_v (0 < vout_v < vin_v)")
+        uses = np.array(self.uses_table)
+        if uses.shape != (n,) or uses.dtype != np.bool_:
+            raise ValueError(f"uses_table must be a boolean array of shape ({n},)")
+        self._store("uses_table", uses)
+        current = np.array(self.table_current_a, dtype=np.float64)
+        loss = np.array(self.table_loss_w, dtype=np.float64)
+        for name, arr in (("table_current_a", current), ("table_loss_w", loss)):
+            if arr.ndim != 2 or arr.shape[0] != n or arr.shape != current.shape:
+                raise ValueError(f"{name} must have shape (n_phases, n_points) with n_phases={n}")
+            if np.any(np.isinf(arr)):
+                raise ValueError(f"{name} must be finite (NaN only as padding)")
+        valid = ~np.isnan(current[uses])
+        count = valid.sum(axis=1)
+        if np.any(count < 2) or np.any(valid[:, 1:] & ~valid[:, :-1]):
+            raise ValueError("table_current_a needs >= 2 points per table phase, NaN only at the end")
+        if not np.array_equal(valid, ~np.isnan(loss[uses])):
+            raise ValueError("table_loss_w must have a value wherever table_current_a has one")
+        if np.any(np.diff(current[uses], axis=1) <= 0.0):
+            raise ValueError("table_current_a must be strictly increasing along each row")
+        if np.any(loss[uses][valid] < 0.0):
+            raise ValueError("table_loss_w must be >= 0")
+        self._store("table_current_a", current)
+        self._store("table_loss_w", loss)
+
+    def _store(self, name: str, arr: npt.NDArray[np.generic]) -> None:
+        arr.setflags(write=False)
+        object.__setattr__(self, name, arr)
+
+    @property
+    def n_phases(self) -> int:
+        """Number of phases."""
+        return int(self.vin_v.size)
+
+    @classmethod
+    def build(
+        cls,
+        n_phases: int,
+        *,
+        vin_v: npt.ArrayLike,
+        vout_v: npt.ArrayLike,
+        fsw_hz: npt.ArrayLike,
+        inductance_h: npt.ArrayLike,
+        dcr_ohm: npt.ArrayLike,
+        dcr_ref_c: npt.ArrayLike = 20.0,
+        rds_high_ohm: npt.ArrayLike = 0.0,
+        rds_low_ohm: npt.ArrayLike = 0.0,
+        rds_ref_c: npt.ArrayLike = 25.0,
+        rds_tc_per_k: npt.ArrayLike = 0.0,
+        rise_time_s: npt.ArrayLike = 0.0,
+        fall_time_s: npt.ArrayLike = 0.0,
+        gate_charge_c: npt.ArrayLike = 0.0,
+        drive_v: npt.ArrayLike = 0.0,
+        dead_time_s: npt.ArrayLike = 0.0,
+        diode_drop_v: npt.ArrayLike = 0.0,
+        core_loss_w: npt.ArrayLike = 0.0,
+        table_current_a: npt.ArrayLike | None = None,
+        table_loss_w: npt.ArrayLike | None = None,
+        table_ref_c: npt.ArrayLike = 25.0,
+        table_tc_per_k: npt.ArrayLike = 0.0,
+        uses_table: npt.ArrayLike = False,
+    ) -> "PhaseLossParams":
+        """Parameters with scalars (or (n_points,) tables) broadcast to ``n_phases`` phases.
+
+        Terms left at their default contribute nothing; ``uses_table`` defaults to False
+        (and to True where a table is given and ``uses_table`` is not).
+
+        >>> p = PhaseLossParams.build(4, vin_v=12.0, vout_v=1.0, fsw_hz=500e3,
+        ...                           inductance_h=150e-9, dcr_ohm=0.2e-3)
+        >>> p.n_phases, p.dcr_ohm.shape, p.table_current_a.shape
+        (4, (4,), (4, 0))
+        """
+        if isinstance(n_phases, bool) or not isinstance(n_phases, int) or n_phases < 1:
+            raise ValueError("n_phases must be an int >= 1")
+        if (table_current_a is None) != (table_loss_w is None):
+            raise ValueError("table_current_a and table_loss_w must be given together")
+        if table_current_a is None or table_loss_w is None:
+            table_current_a = table_loss_w = np.zeros((n_phases, 0))
+        elif uses_table is False:
+            uses_table = True
+        width = np.shape(table_current_a)[-1]
+
+        def each(name: str, value: npt.ArrayLike, *, table: bool = False) -> FloatArray:
+            shape = (n_phases, width) if table else (n_phases,)
+            try:
+                return np.broadcast_to(np.asarray(value, dtype=np.float64), shape)
+            except ValueError:
+                raise ValueError(f"{name} must broadcast to shape {shape}") from None
+
+        return cls(
+            vin_v=each("vin_v", vin_v),
+            vout_v=each("vout_v", vout_v),
+            fsw_hz=each("fsw_hz", fsw_hz),
+            inductance_h=each("inductance_h", inductance_h),
+            dcr_ohm=each("dcr_ohm", dcr_ohm),
+            dcr_ref_c=each("dcr_ref_c", dcr_ref_c),
+            rds_high_ohm=each("rds_high_ohm", rds_high_ohm),
+            rds_low_ohm=each("rds_low_ohm", rds_low_ohm),
+            rds_ref_c=each("rds_ref_c", rds_ref_c),
+            rds_tc_per_k=each("rds_tc_per_k", rds_tc_per_k),
+            rise_time_s=each("rise_time_s", rise_time_s),
+            fall_time_s=each("fall_time_s", fall_time_s),
+            gate_charge_c=each("gate_charge_c", gate_charge_c),
+            drive_v=each("drive_v", drive_v),
+            dead_time_s=each("dead_time_s", dead_time_s),
+            diode_drop_v=each("diode_drop_v", diode_drop_v),
+            core_loss_w=each("core_loss_w", core_loss_w),
+            table_current_a=each("table_current_a", table_current_a, table=True),
+            table_loss_w=each("table_loss_w", table_loss_w, table=True),
+            table_ref_c=each("table_ref_c", table_ref_c),
+            table_tc_per_k=each("table_tc_per_k", table_tc_per_k),
+            uses_table=each("uses_table", uses_table).astype(np.bool_),
+        )

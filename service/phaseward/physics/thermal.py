@@ -1,0 +1,721 @@
+"""Thermal networks: Foster and Cauer stages, the coupled phase/board network, exact solutions.
+
+Terms follow the JEDEC JESD51 series: ``Zth(t)`` is the junction temperature rise per watt
+after a power step at t = 0 from thermal equilibrium (K/W); a Foster model writes it as
+``sum_i R_i (1 - exp(-t / tau_i))``, a Cauer model is the physical ladder (node capacitance
+to the thermal reference, resistances in series, the last one to the reference). Only the
+Cauer form may be chained, so per-phase Foster fits are converted before coupling.
+
+Network model
+-------------
+Each node n has heat capacity C_n (J/K). Nodes exchange heat through the node-to-node
+conductance matrix G (W/K: symmetric, zero row sums, off-diagonal entries <= 0) and lose it
+to ambient through g_amb (W/K). Phase k injects its loss at its junction node; losses are
+affine in junction temperature, P_k = p0_k + s_k T_j,k (see :mod:`losses`), so
+
+    C dT/dt = -(G + diag(g_amb) - E diag(s) E^T) T + E p0 + g_amb T_amb = -A T + f
+
+is linear (E places phase values at junction nodes). With D = diag(C)^-1/2 the matrix
+M = D A D is symmetric, M = V diag(lam) V^T, and with Phi = D V the exact solution for
+constant p0 and s is
+
+    T(t) = Phi [exp(-lam t) z0 + t exprel(-lam t) u],   z0 = Phi^T C T(0),   u = Phi^T f,
+
+exprel(x) = (e^x - 1) / x. A steady state exists iff A is positive definite (all lam > 0);
+otherwise the conduction-loss feedback outgrows the conductance to ambient (thermal runaway).
+:func:`_modes` is the one eigen-decomposition behind Cauer Zth, :func:`simulate_c` and
+:func:`time_to_limit_batch_s`; :func:`_system_matrix` and :func:`_injection` build A and f for
+every solver.
+
+Failure policy: invalid arguments raise ValueError naming the argument; a missing steady
+state or a diverging temperature feedback raises :class:`ThermalRunaway` (or is flagged).
+"""
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from itertools import pairwise
+from typing import Literal, overload
+
+import numpy as np
+import numpy.typing as npt
+from scipy import linalg, signal, special
+
+FloatArray = npt.NDArray[np.float64]
+BoolArray = npt.NDArray[np.bool_]
+IntArray = npt.NDArray[np.intp]
+
+_SETTLED = 40.0  # time constants after which exp(-t/tau) < 5e-18: the state has settled
+_GROWTH = 700.0  # largest exponent of a growing mode that float64 still holds (e^709 max)
+_GRID_PER_DECADE = 64  # log-grid density used to bracket the first limit crossing
+_GRID_MAX = 2048  # grid points at most (only a near-singular system spans > 32 decades)
+
+
+class ThermalRunaway(ArithmeticError):
+    """No stable steady state, or a temperature feedback that does not settle.
+
+    ``mask`` is a boolean array over the batch shape of the call (shape () for one case)
+    that marks the runaway cases; ``cases`` lists their indices.
+    """
+
+    def __init__(self, message: str, mask: BoolArray) -> None:
+        super().__init__(message)
+        self.mask = mask
+
+    @property
+    def cases(self) -> IntArray:
+        """Indices of the runaway cases, (n_runaway, batch ndim)."""
+        return np.argwhere(self.mask)
+
+
+def _finite(
+    name: str, value: npt.ArrayLike, *, positive: bool = False, nonnegative: bool = False
+) -> FloatArray:
+    """``value`` as a read-only float64 copy; ValueError naming ``name`` unless finite etc."""
+    arr = np.array(value, dtype=np.float64)
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} must be finite")
+    if positive and not np.all(arr > 0.0):
+        raise ValueError(f"{name} must be > 0")
+    if nonnegative and not np.all(arr >= 0.0):
+        raise ValueError(f"{name} must be >= 0")
+    arr.setflags(write=False)
+    return arr
+
+
+def _conductance_matrix(n_nodes: int, i: IntArray, j: IntArray, g: FloatArray) -> FloatArray:
+    """Node-to-node conductance matrix (n_nodes, n_nodes) of edges i-j with conductance g."""
+    out = np.zeros((n_nodes, n_nodes))
+    np.add.at(out, (i, i), g)
+    np.add.at(out, (j, j), g)
+    np.add.at(out, (i, j), -g)
+    np.add.at(out, (j, i), -g)
+    return out
+
+
+def _modes(a_w_per_k: FloatArray, c_j_per_k: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """Decay rates lam (..., n) in 1/s and mode shapes Phi = C^-1/2 V (..., n, n).
+
+    ``a_w_per_k`` (..., n, n) symmetric, ``c_j_per_k`` (n,) > 0; lam ascending.
+    """
+    d = 1.0 / np.sqrt(c_j_per_k)
+    lam, v = np.linalg.eigh(d[:, None] * a_w_per_k * d[None, :])
+    return lam, d[:, None] * v
+
+
+def _chain_matrix(r_k_per_w: FloatArray) -> FloatArray:
+    """System matrix (n, n) of a lone Cauer chain whose last resistance goes to the reference."""
+    n = r_k_per_w.size
+    idx = np.arange(n - 1)
+    a = _conductance_matrix(n, idx, idx + 1, 1.0 / r_k_per_w[:-1])
+    a[-1, -1] += 1.0 / r_k_per_w[-1]
+    return a
+
+
+@dataclass(frozen=True, eq=False)
+class FosterStages:
+    """Foster model, Zth(t) = sum_i R_i (1 - exp(-t / tau_i)).
+
+    ``r_k_per_w`` (n_stages,) > 0 in K/W, ``tau_s`` (n_stages,) > 0 in s.
+
+    >>> f = FosterStages(np.array([0.5, 1.5]), np.array([0.01, 1.0]))
+    >>> print(f"{f.zth_k_per_w(1.0):.4f}")
+    1.4482
+    >>> np.round(f.zth_k_per_w([0.0, 100.0]), 4)
+    array([0., 2.])
+    """
+
+    r_k_per_w: FloatArray
+    tau_s: FloatArray
+
+    def __post_init__(self) -> None:
+        r = _finite("r_k_per_w", self.r_k_per_w, positive=True)
+        tau = _finite("tau_s", self.tau_s, positive=True)
+        if r.ndim != 1 or r.size == 0:
+            raise ValueError("r_k_per_w must have shape (n_stages,) with n_stages >= 1")
+        if tau.shape != r.shape:
+            raise ValueError("tau_s must have the shape of r_k_per_w")
+        object.__setattr__(self, "r_k_per_w", r)
+        object.__setattr__(self, "tau_s", tau)
+
+    def zth_k_per_w(self, t_s: npt.ArrayLike) -> FloatArray:
+        """Zth at times ``t_s`` >= 0 (any shape), K/W, same shape as ``t_s``."""
+        t = _finite("t_s", t_s, nonnegative=True)
+        return np.asarray(np.sum(self.r_k_per_w * -np.expm1(-t[..., None] / self.tau_s), axis=-1))
+
+
+@dataclass(frozen=True, eq=False)
+class CauerStages:
+    """Cauer ladder: C_1 at the junction, R_1 to node 2 (C_2), ..., R_n to the reference.
+
+    ``r_k_per_w`` (n_stages,) > 0 in K/W, ``c_j_per_k`` (n_stages,) > 0 in J/K.
+
+    >>> c = CauerStages(np.array([1.0]), np.array([2.0]))
+    >>> print(f"{c.zth_k_per_w(2.0):.4f}")  # 1 - exp(-1)
+    0.6321
+    """
+
+    r_k_per_w: FloatArray
+    c_j_per_k: FloatArray
+
+    def __post_init__(self) -> None:
+        r = _finite("r_k_per_w", self.r_k_per_w, positive=True)
+        c = _finite("c_j_per_k", self.c_j_per_k, positive=True)
+        if r.ndim != 1 or r.size == 0:
+            raise ValueError("r_k_per_w must have shape (n_stages,) with n_stages >= 1")
+        if c.shape != r.shape:
+            raise ValueError("c_j_per_k must have the shape of r_k_per_w")
+        object.__setattr__(self, "r_k_per_w", r)
+        object.__setattr__(self, "c_j_per_k", c)
+
+    def zth_k_per_w(self, t_s: npt.ArrayLike) -> FloatArray:
+        """Zth at times ``t_s`` >= 0 (any shape), K/W, exact from the ladder's eigen-modes."""
+        return cauer_to_foster(self).zth_k_per_w(t_s)
+
+
+def cauer_to_foster(cauer: CauerStages) -> FosterStages:
+    """Foster model with the same Zth(t) as ``cauer`` (eigen-decomposition of the ladder).
+
+    Mode k of the ladder contributes R_k = Phi_1k^2 / lam_k and tau_k = 1 / lam_k; stages
+    are returned in ascending tau.
+
+    >>> f = cauer_to_foster(CauerStages(np.array([1.0, 2.0]), np.array([0.1, 5.0])))
+    >>> print(f"{f.r_k_per_w.sum():.6f}")  # steady state: the sum of the ladder resistances
+    3.000000
+    """
+    lam, phi = _modes(_chain_matrix(cauer.r_k_per_w), cauer.c_j_per_k)
+    return FosterStages(phi[0, ::-1] ** 2 / lam[::-1], 1.0 / lam[::-1])
+
+
+def foster_to_cauer(foster: FosterStages) -> CauerStages:
+    """Cauer ladder with the same Zth(t) as ``foster`` (needs distinct time constants).
+
+    The ladder's scaled system matrix is a Jacobi (tridiagonal) matrix whose eigenvalues are
+    1/tau_i and whose eigenvectors have first components w_i = sqrt(C_1 R_i / tau_i); that
+    inverse eigenvalue problem is solved by Householder tridiagonalisation of diag(1/tau)
+    seen from the start vector w (``scipy.linalg.hessenberg``), which is backward stable,
+    instead of the ill-conditioned polynomial continued fraction. Invariants: the initial
+    slope gives C_1 = 1 / sum(R_i / tau_i), the steady state gives sum of Cauer R = sum of
+    Foster R. Intended for 1 to about 6 stages; ArithmeticError if rounding leaves no
+    positive ladder (time constants too close together).
+
+    >>> c = foster_to_cauer(FosterStages(np.array([0.5, 1.5]), np.array([0.01, 1.0])))
+    >>> np.round(c.r_k_per_w, 4), np.round(c.c_j_per_k, 4)
+    (array([0.5303, 1.4697]), array([0.0194, 0.6608]))
+    """
+    tau = np.sort(foster.tau_s)
+    if np.any(tau[1:] <= tau[:-1] * (1.0 + 1e-9)):
+        raise ValueError("tau_s must be distinct to convert a Foster model to Cauer form")
+    lam = 1.0 / foster.tau_s
+    weight = foster.r_k_per_w * lam
+    c_first = 1.0 / weight.sum()
+    start = np.sqrt(weight * c_first)
+    # Householder reflector H with H e1 = -start (no cancellation since start > 0).
+    v = start.copy()
+    v[0] += 1.0
+    h = np.eye(lam.size) - np.outer(v, v) / (1.0 + start[0])
+    jacobi = linalg.hessenberg(h @ np.diag(lam) @ h)
+    diag = np.diag(jacobi)
+    off_sq = np.diag(jacobi, -1) ** 2
+    # Row i of the Jacobi matrix: J_ii C_i = g_{i-1} + g_i, J_{i,i+1}^2 = g_i^2 / (C_i C_{i+1}).
+    g = np.empty(lam.size)
+    c = np.empty(lam.size)
+    c[0], g_prev = c_first, 0.0
+    for i in range(lam.size):
+        g[i] = diag[i] * c[i] - g_prev
+        if not g[i] > 0.0:
+            raise ArithmeticError("no positive Cauer ladder: Foster time constants too close")
+        if i + 1 < lam.size:
+            c[i + 1] = g[i] ** 2 / (c[i] * off_sq[i])
+        g_prev = g[i]
+    return CauerStages(1.0 / g, c)
+
+
+@dataclass(frozen=True, eq=False)
+class ThermalNetwork:
+    """Linear thermal network of phases coupled through nodes (see the module docstring).
+
+    conductance_w_per_k: (n_nodes, n_nodes) node-to-node G, symmetric, zero row sums,
+        off-diagonal <= 0 (positive semi-definite).
+    capacitance_j_per_k: (n_nodes,) > 0.
+    ambient_conductance_w_per_k: (n_nodes,) >= 0; every node needs a path to ambient.
+    junction_node: (n_phases,) distinct node indices where phase losses enter.
+    board_node: index of the shared board node.
+    """
+
+    conductance_w_per_k: FloatArray
+    capacitance_j_per_k: FloatArray
+    ambient_conductance_w_per_k: FloatArray
+    junction_node: IntArray
+    board_node: int
+
+    def __post_init__(self) -> None:
+        g = _finite("conductance_w_per_k", self.conductance_w_per_k)
+        c = _finite("capacitance_j_per_k", self.capacitance_j_per_k, positive=True)
+        g_amb = _finite(
+            "ambient_conductance_w_per_k", self.ambient_conductance_w_per_k, nonnegative=True
+        )
+        n = c.size
+        if c.ndim != 1 or n == 0:
+            raise ValueError("capacitance_j_per_k must have shape (n_nodes,) with n_nodes >= 1")
+        scale = float(np.abs(g).max(initial=0.0) + g_amb.max())
+        if g.shape != (n, n) or not np.allclose(g, g.T, rtol=0.0, atol=1e-12 * scale):
+            raise ValueError("conductance_w_per_k must be a symmetric (n_nodes, n_nodes) matrix")
+        if np.any(g[~np.eye(n, dtype=bool)] > 0.0) or np.any(np.abs(g.sum(axis=1)) > 1e-9 * scale):
+            raise ValueError(
+                "conductance_w_per_k must be node-to-node: off-diagonal <= 0, zero row sums"
+            )
+        if g_amb.shape != (n,):
+            raise ValueError("ambient_conductance_w_per_k must have shape (n_nodes,)")
+        junction = np.array(self.junction_node)
+        if (
+            junction.ndim != 1
+            or junction.dtype.kind not in "iu"
+            or np.unique(junction).size != junction.size
+            or np.any((junction < 0) | (junction >= n))
+        ):
+            raise ValueError(f"junction_node must hold distinct node indices in 0..{n - 1}")
+        if not 0 <= int(self.board_node) < n:
+            raise ValueError(f"board_node must be a node index in 0..{n - 1}")
+        junction = junction.astype(np.intp)
+        junction.setflags(write=False)
+        for name, arr in (
+            ("conductance_w_per_k", g),
+            ("capacitance_j_per_k", c),
+            ("ambient_conductance_w_per_k", g_amb),
+            ("junction_node", junction),
+        ):
+            object.__setattr__(self, name, arr)
+        object.__setattr__(self, "board_node", int(self.board_node))
+        if not _solve_stable(g + np.diag(g_amb), np.zeros(n))[1]:
+            raise ValueError("every node needs a conductive path to ambient")
+
+    @property
+    def n_nodes(self) -> int:
+        """Number of nodes."""
+        return int(self.capacitance_j_per_k.size)
+
+    @property
+    def n_phases(self) -> int:
+        """Number of phases (junction nodes)."""
+        return int(self.junction_node.size)
+
+
+def build_coupled_network(
+    phase_chains: Sequence[CauerStages],
+    *,
+    board_to_ambient_k_per_w: float,
+    board_c_j_per_k: float,
+) -> ThermalNetwork:
+    """Phases as Cauer chains junction -> ... -> shared board node -> ambient.
+
+    Each chain describes one phase from its junction to the board (its last resistance ends
+    on the board node); chains may have different lengths. Nodes are numbered phase by phase,
+    junction first, and the board node comes last.
+
+    >>> chain = CauerStages(np.array([2.0, 3.0]), np.array([0.1, 1.0]))
+    >>> net = build_coupled_network([chain, chain], board_to_ambient_k_per_w=1.0,
+    ...                             board_c_j_per_k=50.0)
+    >>> net.n_nodes, net.junction_node.tolist(), net.board_node
+    (5, [0, 2], 4)
+    """
+    if len(phase_chains) == 0:
+        raise ValueError("phase_chains must hold at least one chain")
+    r_board = _finite("board_to_ambient_k_per_w", board_to_ambient_k_per_w, positive=True)
+    c_board = _finite("board_c_j_per_k", board_c_j_per_k, positive=True)
+    sizes = np.array([chain.r_k_per_w.size for chain in phase_chains])
+    starts = np.concatenate([[0], np.cumsum(sizes)])
+    board = int(starts[-1])
+    upper = [np.append(np.arange(s + 1, e), board) for s, e in pairwise(starts)]
+    lower = np.arange(board)
+    r = np.concatenate([chain.r_k_per_w for chain in phase_chains])
+    g_amb = np.zeros(board + 1)
+    g_amb[board] = 1.0 / r_board
+    return ThermalNetwork(
+        conductance_w_per_k=_conductance_matrix(board + 1, lower, np.concatenate(upper), 1.0 / r),
+        capacitance_j_per_k=np.append(np.concatenate([ch.c_j_per_k for ch in phase_chains]), c_board),
+        ambient_conductance_w_per_k=g_amb,
+        junction_node=starts[:-1].astype(np.intp),
+        board_node=board,
+    )
+
+
+def _phase_values(net: ThermalNetwork, name: str, value: npt.ArrayLike) -> FloatArray:
+    arr = _finite(name, value)
+    if arr.ndim == 0 or arr.shape[-1] != net.n_phases:
+        raise ValueError(f"{name} must have shape (..., n_phases) with n_phases={net.n_phases}")
+    return arr
+
+
+def _system_matrix(net: ThermalNetwork, slope_w_per_k: FloatArray) -> FloatArray:
+    """A = G + diag(g_amb) - E diag(s) E^T, shape slope.shape[:-1] + (n_nodes, n_nodes)."""
+    a0 = net.conductance_w_per_k + np.diag(net.ambient_conductance_w_per_k)
+    a = np.array(np.broadcast_to(a0, (*slope_w_per_k.shape[:-1], *a0.shape)))
+    a[..., net.junction_node, net.junction_node] -= slope_w_per_k
+    return a
+
+
+def _injection(net: ThermalNetwork, p0_w: FloatArray, ambient_c: FloatArray) -> FloatArray:
+    """f = E p0 + g_amb T_amb in W, shape broadcast(p0.shape[:-1], ambient.shape) + (n_nodes,)."""
+    f = ambient_c[..., None] * net.ambient_conductance_w_per_k
+    f = np.array(np.broadcast_to(f, (*np.broadcast_shapes(f.shape[:-1], p0_w.shape[:-1]), f.shape[-1])))
+    f[..., net.junction_node] += p0_w
+    return f
+
+
+def _solve_stable(a: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArray]:
+    """Solve A x = rhs for a stack of symmetric Z-matrices, flagging those not positive definite.
+
+    A symmetric matrix with non-positive off-diagonal entries is positive definite iff it is
+    a non-singular M-matrix, iff A^-1 >= 0 elementwise (Berman and Plemmons, Nonnegative
+    Matrices in the Mathematical Sciences, ch. 6). So a probe solve A y = 1 gives y > 0
+    exactly for the stable cases: one LU per case instead of an eigen-decomposition.
+    Returns x (NaN where unstable) and the stable mask (batch shape).
+    """
+    both = np.stack(np.broadcast_arrays(rhs, np.ones_like(rhs)), axis=-1)
+    try:
+        sol = np.linalg.solve(a, both)
+    except np.linalg.LinAlgError:  # an exactly singular case somewhere in the stack
+        sol = np.full(np.broadcast_shapes(a.shape, both.shape), np.nan)
+        a = np.broadcast_to(a, (*sol.shape[:-2], *a.shape[-2:]))
+        regular = np.linalg.eigvalsh(a)[..., 0] > 0.0
+        sol[regular] = np.linalg.solve(a[regular], np.broadcast_to(both, sol.shape)[regular])
+    stable = np.all(sol[..., 1] > 0.0, axis=-1) & np.all(np.isfinite(sol[..., 0]), axis=-1)
+    return np.where(stable[..., None], sol[..., 0], np.nan), stable
+
+
+@overload
+def steady_state_c(
+    net: ThermalNetwork,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: npt.ArrayLike,
+    *,
+    runaway: Literal["raise"] = ...,
+) -> FloatArray: ...
+
+
+@overload
+def steady_state_c(
+    net: ThermalNetwork,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: npt.ArrayLike,
+    *,
+    runaway: Literal["flag"],
+) -> tuple[FloatArray, BoolArray]: ...
+
+
+def steady_state_c(
+    net: ThermalNetwork,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: npt.ArrayLike,
+    *,
+    runaway: Literal["raise", "flag"] = "raise",
+) -> FloatArray | tuple[FloatArray, BoolArray]:
+    """Steady-state node temperatures (..., n_nodes) in degC for losses P = p0 + s T_j.
+
+    Solves (G + diag(g_amb) - E diag(s) E^T) T = g_amb T_amb + E p0 per case.
+    ``p0_w``, ``slope_w_per_k``: (..., n_phases) in W and W/K, broadcast together;
+    ``ambient_c`` broadcasts against the batch shape. With ``runaway="raise"`` a case without
+    a stable steady state raises :class:`ThermalRunaway`; with ``"flag"`` the result is
+    ``(temps, runaway_mask)`` with NaN rows for those cases.
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.1]))
+    >>> net = build_coupled_network([chain], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> np.round(steady_state_c(net, [1.0], [0.0], 25.0), 3)  # 1 W through 2 + 1 K/W
+    array([28., 26.])
+    >>> temps, bad = steady_state_c(net, [[1.0], [1.0]], [[0.1], [0.5]], 25.0, runaway="flag")
+    >>> bad.tolist(), np.round(temps[0], 3).tolist()
+    ([False, True], [40.0, 30.0])
+    """
+    p0 = _phase_values(net, "p0_w", p0_w)
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    p0, slope = np.broadcast_arrays(p0, slope)
+    temps, stable = _solve_stable(
+        _system_matrix(net, slope), _injection(net, p0, _finite("ambient_c", ambient_c))
+    )
+    if runaway == "flag":
+        return temps, ~stable
+    if runaway != "raise":
+        raise ValueError('runaway must be "raise" or "flag"')
+    if not np.all(stable):
+        raise ThermalRunaway(
+            "no stable steady state: conduction-loss feedback exceeds the network's "
+            f"conductance to ambient in case(s) {np.argwhere(~stable).tolist()}",
+            ~stable,
+        )
+    return temps
+
+
+def _propagate(a: FloatArray, b: FloatArray, z0: FloatArray, u: FloatArray) -> FloatArray:
+    """z_{k+1} = a z_k + b u_k per mode; u (n_modes, n_steps) -> z_1..z_n (n_modes, n_steps).
+
+    One first-order IIR filter per mode (``scipy.signal.lfilter`` runs the samples; lfilter
+    takes one coefficient set per call, so the loop is over modes, never over samples).
+    """
+    z = np.empty_like(u)
+    for k in range(a.size):
+        z[k], _ = signal.lfilter(b[k : k + 1], np.array([1.0, -a[k]]), u[k], zi=a[k : k + 1] * z0[k])
+    return z
+
+
+def simulate_c(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    dt_s: float,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: npt.ArrayLike,
+    *,
+    tol_k: float = 1e-7,
+    max_iter: int = 100,
+) -> FloatArray:
+    """Node temperatures (n_steps + 1, n_nodes) in degC over a trace of constant step ``dt_s``.
+
+    Over step k the loss is held at P_k = p0_k + s_k T_j(t_k) (zero-order hold: losses are
+    re-evaluated at the temperature reached at the start of each step) and the network is
+    propagated exactly over the step (matrix exponential in modal form, decomposed once).
+    The temperature feedback is resolved by Picard iteration over the whole trace until the
+    junction temperatures change by less than ``tol_k``; :class:`ThermalRunaway` if it
+    diverges or has not settled after ``max_iter`` sweeps. Only a constant step is supported
+    (a per-step dt would need a time-varying filter, i.e. a loop over samples).
+
+    initial_c: (n_nodes,); p0_w, slope_w_per_k: (n_steps, n_phases) in W and W/K;
+    ambient_c: float or (n_steps,) degC held over each step.
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    >>> net = build_coupled_network([chain], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> temps = simulate_c(net, [25.0, 25.0], 1.0, np.full((600, 1), 2.0), np.zeros((600, 1)), 25.0)
+    >>> temps.shape, np.round(temps[-1], 3).tolist()  # settles at 25 + 2 W x (2 + 1) K/W
+    ((601, 2), [31.0, 27.0])
+    """
+    dt = float(_finite("dt_s", dt_s, positive=True))
+    temp0 = _finite("initial_c", initial_c)
+    if temp0.shape != (net.n_nodes,):
+        raise ValueError(f"initial_c must have shape (n_nodes,) = ({net.n_nodes},)")
+    p0 = _phase_values(net, "p0_w", p0_w)
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    if p0.ndim != 2 or slope.shape != p0.shape or p0.shape[0] == 0:
+        raise ValueError("p0_w and slope_w_per_k must both have shape (n_steps, n_phases)")
+    ambient = _finite("ambient_c", ambient_c)
+    if ambient.shape not in ((), (p0.shape[0],)):
+        raise ValueError("ambient_c must be a float or have shape (n_steps,)")
+    if max_iter < 1 or not tol_k > 0.0:
+        raise ValueError("max_iter must be >= 1 and tol_k > 0")
+    junction = net.junction_node
+    lam, phi = _modes(_system_matrix(net, np.zeros(net.n_phases)), net.capacitance_j_per_k)
+    decay = np.exp(-lam * dt)
+    gain = dt * special.exprel(-lam * dt)
+    z0 = phi.T @ (net.capacitance_j_per_k * temp0)
+    phi_j = phi[junction]
+    u_ambient = np.outer(phi.T @ net.ambient_conductance_w_per_k, np.atleast_1d(ambient))
+    p0_t, slope_t = p0.T, slope.T
+    tj = np.repeat(temp0[junction][:, None], p0.shape[0], axis=1)
+    history: list[float] = []
+    for _ in range(max_iter):
+        z = _propagate(decay, gain, z0, phi_j.T @ (p0_t + slope_t * tj) + u_ambient)
+        tj_new = np.concatenate([temp0[junction][:, None], phi_j @ z[:, :-1]], axis=1)
+        history.append(float(np.max(np.abs(tj_new - tj))))
+        tj = tj_new
+        change = history[-1]
+        if change < tol_k:
+            return np.concatenate([temp0[None, :], (phi @ z).T])
+        if not np.isfinite(change) or (len(history) > 3 and history[-4] < change):
+            break
+    raise ThermalRunaway(
+        f"junction temperatures did not settle ({len(history)} Picard sweeps, last change "
+        f"{history[-1]:.3g} K): the conduction-loss feedback diverges over this trace",
+        np.array(True),
+    )
+
+
+def bracketed_root(
+    func: Callable[[FloatArray], FloatArray],
+    lo: FloatArray,
+    hi: FloatArray,
+    *,
+    rtol: float,
+    atol: float = 0.0,
+    max_iter: int = 400,
+) -> tuple[FloatArray, FloatArray]:
+    """Vectorised root bracketing: shrink [lo, hi] elementwise around a sign change.
+
+    ``func`` maps x (n,) to f (n,) with f(lo) <= 0 < f(hi) (f may be +inf); elements are
+    independent. Illinois-modified regula falsi with every fifth step a bisection, each
+    point kept half a tolerance inside the bracket; stops when hi - lo <= atol + rtol |hi|.
+    Returns the final (lo, hi) with f(lo) <= 0 < f(hi). ArithmeticError if ``max_iter`` is
+    exhausted.
+
+    >>> lo, hi = bracketed_root(lambda x: x**2 - 2.0, np.array([0.0]), np.array([2.0]),
+    ...                         rtol=1e-12)
+    >>> print(f"{lo[0]:.10f} {hi[0]:.10f}")
+    1.4142135624 1.4142135624
+    """
+    lo, hi = np.array(lo, dtype=np.float64), np.array(hi, dtype=np.float64)
+    f_lo, f_hi = func(lo), func(hi)
+    if np.any(f_lo > 0.0) or not np.all(f_hi > 0.0):
+        raise ValueError("lo and hi must bracket a sign change: f(lo) <= 0 < f(hi)")
+    kept = np.zeros(lo.shape, dtype=np.int8)  # side kept last step: -1 lo, +1 hi, 0 none
+    for step in range(max_iter):
+        tol = atol + rtol * np.abs(hi)
+        open_ = hi - lo > tol
+        if not np.any(open_):
+            return lo, hi
+        secant = np.isfinite(f_lo) & np.isfinite(f_hi) & (step % 5 != 4)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            x = np.where(secant, lo - f_lo * (hi - lo) / (f_hi - f_lo), 0.5 * (lo + hi))
+        x = np.where(open_, np.clip(x, lo + 0.5 * tol, hi - 0.5 * tol), lo)
+        f = func(x)
+        above = open_ & (f > 0.0)
+        below = open_ & ~above
+        # Illinois: halve the stale end's value when the same end is kept twice running.
+        f_lo = np.where(above & (kept == -1), 0.5 * f_lo, f_lo)
+        f_hi = np.where(below & (kept == 1), 0.5 * f_hi, f_hi)
+        hi, f_hi = np.where(above, x, hi), np.where(above, f, f_hi)
+        lo, f_lo = np.where(below, x, lo), np.where(below, f, f_lo)
+        kept = np.where(above, -1, np.where(below, 1, kept)).astype(np.int8)
+    raise ArithmeticError(f"root bracketing did not converge in {max_iter} steps")
+
+
+@dataclass(frozen=True, eq=False)
+class LimitCrossing:
+    """First time a junction reaches its limit, for one case.
+
+    time_s: seconds from now (np.inf if never, or not within the horizon); phase: the phase
+    that gets there first (-1 if none); runaway: the loss feedback has no stable steady
+    state, so temperatures grow without bound (the crossing time is then still finite).
+    """
+
+    time_s: float
+    phase: int
+    runaway: bool
+
+
+@dataclass(frozen=True, eq=False)
+class LimitCrossings:
+    """:class:`LimitCrossing` fields as arrays of shape (n_cases,)."""
+
+    time_s: FloatArray
+    phase: IntArray
+    runaway: BoolArray
+
+
+def time_to_limit_batch_s(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    limit_c: npt.ArrayLike,
+    *,
+    horizon_s: float | None = None,
+) -> LimitCrossings:
+    """First crossing of any junction limit with losses P = p0 + s T_j held, per case.
+
+    The linear system including -E diag(s) E^T is solved exactly (sums of exponentials);
+    the first crossing is bracketed on a log-spaced time grid spanning the case's time
+    constants (64 points per decade, from a thousandth of the fastest to 40 of the slowest,
+    or to where a growing mode has risen by e^700) and refined by :func:`bracketed_root` to
+    1e-12 relative. A junction that crosses and drops back within one grid interval would be
+    missed; with 64 points per decade that needs a pathological network.
+
+    initial_c: (n_nodes,) or (n_cases, n_nodes); p0_w, slope_w_per_k: (n_cases, n_phases) or
+    (n_phases,); limit_c: (n_phases,) or (n_cases, n_phases), np.inf for a phase to ignore;
+    horizon_s: crossings later than this count as never (np.inf).
+    """
+    p0 = _phase_values(net, "p0_w", p0_w)
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    limit = np.array(limit_c, dtype=np.float64)
+    if np.any(np.isnan(limit)) or limit.ndim == 0 or limit.shape[-1] != net.n_phases:
+        raise ValueError("limit_c must have shape (..., n_phases) and no NaN")
+    temp0 = _finite("initial_c", initial_c)
+    if temp0.ndim == 0 or temp0.shape[-1] != net.n_nodes:
+        raise ValueError("initial_c must have shape (..., n_nodes)")
+    horizon = np.inf if horizon_s is None else float(_finite("horizon_s", horizon_s, positive=True))
+    shapes = (p0.shape[:-1], slope.shape[:-1], limit.shape[:-1], temp0.shape[:-1])
+    batch = np.broadcast_shapes(*shapes)
+    if len(batch) > 1:
+        raise ValueError("time_to_limit_batch_s takes at most one batch axis (n_cases)")
+    n_cases = batch[0] if batch else 1
+    p0, slope, limit = (np.broadcast_to(x, (n_cases, net.n_phases)) for x in (p0, slope, limit))
+    temp0 = np.broadcast_to(temp0, (n_cases, net.n_nodes))
+    lam, phi = _modes(_system_matrix(net, slope), net.capacitance_j_per_k)
+    z0 = np.einsum("bnm,bn->bm", phi, net.capacitance_j_per_k * temp0)
+    u = np.einsum("bnm,bn->bm", phi, _injection(net, p0, _finite("ambient_c", ambient_c)))
+    phi_j = phi[:, net.junction_node, :]
+
+    def junction_c(rows: IntArray, t: FloatArray) -> FloatArray:
+        """Junction temperatures (len(rows), n_t, n_phases) at times t (len(rows), n_t)."""
+        x = -lam[rows, None, :] * t[..., None]
+        coef = np.exp(x) * z0[rows, None, :] + t[..., None] * special.exprel(x) * u[rows, None, :]
+        return np.einsum("bgm,bpm->bgp", coef, phi_j[rows])
+
+    def excess(rows: IntArray, t: FloatArray) -> FloatArray:
+        return np.max(junction_c(rows, t) - limit[rows, None, :], axis=-1)
+
+    rate = np.maximum(np.abs(lam), 1e-300)
+    runaway = lam[:, 0] <= 0.0
+    t_first = 1e-3 / rate.max(axis=1)
+    t_end = np.where(runaway, _GROWTH / rate[:, 0], _SETTLED / rate.min(axis=1))
+    t_end = np.maximum(np.minimum(t_end, horizon), t_first)
+    decades = float(np.log10(t_end / t_first).max())
+    n_grid = min(int(np.ceil(_GRID_PER_DECADE * decades)), _GRID_MAX) + 2
+    frac = np.linspace(0.0, 1.0, n_grid)
+    grid = t_first[:, None] * (t_end / t_first)[:, None] ** frac
+    grid = np.concatenate([np.zeros((n_cases, 1)), grid], axis=1)
+    reached = excess(np.arange(n_cases), grid) >= 0.0
+    found = reached.any(axis=1)
+    first = np.argmax(reached, axis=1)
+    time = np.where(found & (first == 0), 0.0, np.inf)
+    rows = np.flatnonzero(found & (first > 0))
+    if rows.size:
+        _, time[rows] = bracketed_root(
+            lambda t: excess(rows, t[:, None])[:, 0],
+            grid[rows, first[rows] - 1],
+            grid[rows, first[rows]],
+            rtol=1e-12,
+        )
+    time = np.where(time <= horizon, time, np.inf)
+    hit = np.isfinite(time)
+    margin = junction_c(np.arange(n_cases), np.where(hit, time, 0.0)[:, None])[:, 0] - limit
+    phase = np.where(hit, np.argmax(margin, axis=1), -1).astype(np.intp)
+    return LimitCrossings(time_s=time, phase=phase, runaway=runaway)
+
+
+def time_to_limit_s(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    limit_c: npt.ArrayLike,
+    *,
+    horizon_s: float | None = None,
+) -> LimitCrossing:
+    """First crossing of any junction limit for one case; see :func:`time_to_limit_batch_s`.
+
+    initial_c: (n_nodes,); p0_w, slope_w_per_k, limit_c: (n_phases,).
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    >>> net = build_coupled_network([chain], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> hit = time_to_limit_s(net, [25.0, 25.0], [2.0], [0.0], 25.0, [30.0])
+    >>> print(f"{hit.time_s:.3f} s, phase {hit.phase}, runaway {hit.runaway}")
+    5.981 s, phase 0, runaway False
+    >>> time_to_limit_s(net, [25.0, 25.0], [2.0], [0.0], 25.0, [32.0]).time_s  # settles at 31
+    inf
+    """
+    for name, value, ndim in (
+        ("initial_c", initial_c, 1),
+        ("p0_w", p0_w, 1),
+        ("slope_w_per_k", slope_w_per_k, 1),
+        ("limit_c", limit_c, 1),
+    ):
+        if np.ndim(value) != ndim:
+            raise ValueError(f"{name} must be one-dimensional for a single case")
+    batch = time_to_limit_batch_s(
+        net, initial_c, p0_w, slope_w_per_k, ambient_c, limit_c, horizon_s=horizon_s
+    )
+    return LimitCrossing(
+        time_s=float(batch.time_s[0]), phase=int(batch.phase[0]), runaway=bool(batch.runaway[0])
+    )

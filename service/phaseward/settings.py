@@ -1,0 +1,42 @@
+"""The one settings object. Every setting comes from here (environment prefix ``PHASEWARD_``)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Literal
+
+from pydantic import Field, model_validator
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+LOOPBACK_HOSTS = frozenset({"127.0.0.1", "::1", "localhost"})
+
+
+class Settings(BaseSettings):
+    """Service settings; tests build one directly instead of touching the environment."""
+
+    model_config = SettingsConfigDict(env_prefix="PHASEWARD_", extra="forbid")
+
+    data_dir: Path = Path("phaseward-data")
+    database_url: str = ""  # empty: a SQLite file inside data_dir
+    host: str = "127.0.0.1"
+    port: int = Field(default=8470, ge=1, le=65535)
+    log_level: Literal["debug", "info", "warning", "error"] = "info"
+
+    # SQLite durability: FULL survives power loss, NORMAL survives process crashes only.
+    sqlite_synchronous: Literal["FULL", "NORMAL"] = "FULL"
+    sqlite_busy_timeout_ms: int = Field(default=10_000, ge=0)
+
+    max_body_bytes: int = Field(default=4 * 1024 * 1024, ge=1024)
+    max_batch_samples: int = Field(default=2000, ge=1)
+    max_page_size: int = Field(default=1000, ge=1)
+    max_phases: int = Field(default=32, ge=1)
+
+    @model_validator(mode="after")
+    def _default_database(self) -> Settings:
+        if not self.database_url:
+            self.database_url = f"sqlite:///{(self.data_dir / 'phaseward.db').as_posix()}"
+        return self
+
+    @property
+    def is_sqlite(self) -> bool:
+        return self.database_url.startswith("sqlite")

@@ -1,0 +1,71 @@
+"""Engine and sessions built from the settings object, and migrations applied on start."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any
+
+from alembic import command
+from alembic.config import Config
+from sqlalchemy import Engine, create_engine, event
+from sqlalchemy.engine.url import make_url
+from sqlalchemy.orm import Session, sessionmaker
+
+from phaseward.settings import Settings
+
+MIGRATIONS_DIR = Path(__file__).parent / "migrations"
+
+
+def build_engine(settings: Settings) -> Engine:
+    url = make_url(settings.database_url)
+    if url.get_backend_name() != "sqlite":
+        return create_engine(url, pool_pre_ping=True)
+    if url.database and url.database != ":memory:":
+        Path(url.database).parent.mkdir(parents=True, exist_ok=True)
+    engine = create_engine(url, connect_args={"check_same_thread": False, "isolation_level": None})
+    _configure_sqlite(engine, settings)
+    return engine
+
+
+def _configure_sqlite(engine: Engine, settings: Settings) -> None:
+    """WAL, foreign keys, a busy timeout, and BEGIN IMMEDIATE for every transaction.
+
+    pysqlite's own transaction handling is switched off (isolation_level=None) so that we
+    emit BEGIN ourselves: IMMEDIATE takes the write lock at the start, so two writers queue
+    on the busy timeout instead of one failing on lock upgrade in the middle of a request.
+    """
+
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_conn: Any, _record: Any) -> None:
+        cur = dbapi_conn.cursor()
+        cur.execute("PRAGMA journal_mode=WAL")
+        cur.execute(f"PRAGMA synchronous={settings.sqlite_synchronous}")
+        cur.execute("PRAGMA foreign_keys=ON")
+        cur.execute(f"PRAGMA busy_timeout={int(settings.sqlite_busy_timeout_ms)}")
+        cur.close()
+
+    @event.listens_for(engine, "begin")
+    def _on_begin(conn: Any) -> None:
+        conn.exec_driver_sql("BEGIN IMMEDIATE")
+
+
+def build_sessionmaker(engine: Engine) -> sessionmaker[Session]:
+    return sessionmaker(engine, expire_on_commit=False, autoflush=False)
+
+
+def migrate(engine: Engine) -> None:
+    """Bring the schema to the newest migration (idempotent; runs on every start)."""
+    cfg = Config()
+    cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
+    with engine.connect() as conn:
+        cfg.attributes["connection"] = conn
+        command.upgrade(cfg, "head")
+
+
+@contextmanager
+def transaction(sessions: sessionmaker[Session]) -> Iterator[Session]:
+    """One unit of work: commit on success, roll back on any error."""
+    with sessions() as session, session.begin():
+        yield session

@@ -1,0 +1,53 @@
+"""Derived events: append, filter with a cursor, acknowledge."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+from sqlalchemy import insert, select
+from sqlalchemy.orm import Session
+
+from phaseward.store.models import Event
+
+
+@dataclass(frozen=True)
+class EventFilter:
+    rail_id: str | None = None
+    kinds: tuple[str, ...] = ()
+    severities: tuple[str, ...] = ()
+    phase: int | None = None
+    since_s: float | None = None
+    until_s: float | None = None
+
+
+def add_many(session: Session, rows: list[dict[str, Any]]) -> None:
+    if rows:
+        session.execute(insert(Event), rows)
+
+
+def page(
+    session: Session, flt: EventFilter, *, before_id: int | None, limit: int
+) -> Sequence[Event]:
+    """Newest first; ``before_id`` is the cursor (ids only grow, so it is stable under inserts)."""
+    stmt = select(Event).order_by(Event.id.desc()).limit(limit)
+    if flt.rail_id is not None:
+        stmt = stmt.where(Event.rail_id == flt.rail_id)
+    if flt.kinds:
+        stmt = stmt.where(Event.kind.in_(flt.kinds))
+    if flt.severities:
+        stmt = stmt.where(Event.severity.in_(flt.severities))
+    if flt.phase is not None:
+        stmt = stmt.where(Event.phase == flt.phase)
+    if flt.since_s is not None:
+        stmt = stmt.where(Event.t_s >= flt.since_s)
+    if flt.until_s is not None:
+        stmt = stmt.where(Event.t_s < flt.until_s)
+    if before_id is not None:
+        stmt = stmt.where(Event.id < before_id)
+    return session.scalars(stmt).all()
+
+
+def get(session: Session, event_id: int) -> Event | None:
+    return session.get(Event, event_id)

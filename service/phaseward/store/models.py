@@ -1,0 +1,135 @@
+"""Typed SQLAlchemy 2 models.
+
+Sample layout: one row per sample, with the per-phase columns (current, temperature, flags)
+packed as little-endian arrays in binary columns. A sample of a 12-phase rail is then one
+INSERT instead of twelve, the unique (rail, seq) key absorbs resends, and a time window reads
+back with one indexed range scan into ``np.frombuffer`` without pivoting per-phase rows.
+Per-phase history queries across many samples are rarer than windows, so this trade fits.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy import (
+    JSON,
+    BigInteger,
+    Float,
+    ForeignKey,
+    ForeignKeyConstraint,
+    Index,
+    Integer,
+    LargeBinary,
+    MetaData,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+
+NAMING_CONVENTION = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING_CONVENTION)
+
+
+class Rail(Base):
+    __tablename__ = "rails"
+
+    id: Mapped[str] = mapped_column(String(64), primary_key=True)
+    version: Mapped[int] = mapped_column(Integer)
+    created_s: Mapped[float] = mapped_column(Float)
+    updated_s: Mapped[float] = mapped_column(Float)
+
+    versions: Mapped[list[RailVersion]] = relationship(
+        back_populates="rail", lazy="raise", cascade="all, delete-orphan", passive_deletes=True
+    )
+
+
+class RailVersion(Base):
+    """Definitions are never edited in place: samples and events name the version they used."""
+
+    __tablename__ = "rail_versions"
+
+    rail_id: Mapped[str] = mapped_column(
+        ForeignKey("rails.id", ondelete="CASCADE"), primary_key=True
+    )
+    version: Mapped[int] = mapped_column(Integer, primary_key=True)
+    spec: Mapped[dict[str, Any]] = mapped_column(JSON)
+    created_s: Mapped[float] = mapped_column(Float)
+
+    rail: Mapped[Rail] = relationship(back_populates="versions", lazy="raise")
+
+
+class Sample(Base):
+    __tablename__ = "samples"
+    __table_args__ = (
+        UniqueConstraint("rail_id", "seq", name="uq_samples_rail_seq"),
+        Index("ix_samples_rail_time", "rail_id", "t_s"),
+        ForeignKeyConstraint(
+            ["rail_id", "version"],
+            ["rail_versions.rail_id", "rail_versions.version"],
+            ondelete="CASCADE",
+            name="fk_samples_rail_version",
+        ),
+    )
+
+    id: Mapped[int] = mapped_column(
+        BigInteger().with_variant(Integer, "sqlite"), primary_key=True, autoincrement=True
+    )
+    rail_id: Mapped[str] = mapped_column(String(64))
+    seq: Mapped[int] = mapped_column(BigInteger)
+    t_s: Mapped[float] = mapped_column(Float)
+    version: Mapped[int] = mapped_column(Integer)
+    vin_v: Mapped[float] = mapped_column(Float)
+    vout_v: Mapped[float] = mapped_column(Float)
+    iout_a: Mapped[float | None] = mapped_column(Float)
+    ambient_c: Mapped[float | None] = mapped_column(Float)
+    current_a: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE, NaN = not reported
+    temp_c: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE, NaN = not reported
+    flags: Mapped[bytes] = mapped_column(LargeBinary)  # uint8 bit set per phase, see monitor
+
+
+class Event(Base):
+    __tablename__ = "events"
+    __table_args__ = (
+        Index("ix_events_rail_id_desc", "rail_id", "id"),
+        Index("ix_events_kind", "kind"),
+    )
+
+    id: Mapped[int] = mapped_column(
+        BigInteger().with_variant(Integer, "sqlite"), primary_key=True, autoincrement=True
+    )
+    rail_id: Mapped[str] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"))
+    version: Mapped[int] = mapped_column(Integer)
+    t_s: Mapped[float] = mapped_column(Float)
+    kind: Mapped[str] = mapped_column(String(40))
+    severity: Mapped[str] = mapped_column(String(16))
+    phase: Mapped[int | None] = mapped_column(Integer)
+    message: Mapped[str] = mapped_column(Text)
+    details: Mapped[dict[str, Any]] = mapped_column(JSON)
+    acked_by: Mapped[str | None] = mapped_column(String(120))
+    ack_note: Mapped[str | None] = mapped_column(Text)
+    acked_s: Mapped[float | None] = mapped_column(Float)
+
+
+class RailState(Base):
+    """The live state of a rail after the newest sample; one row, updated under a lock."""
+
+    __tablename__ = "rail_state"
+
+    rail_id: Mapped[str] = mapped_column(
+        ForeignKey("rails.id", ondelete="CASCADE"), primary_key=True
+    )
+    version: Mapped[int] = mapped_column(Integer)
+    last_seq: Mapped[int | None] = mapped_column(BigInteger)
+    last_t_s: Mapped[float | None] = mapped_column(Float)
+    state: Mapped[dict[str, Any]] = mapped_column(JSON)
+    updated_s: Mapped[float] = mapped_column(Float)

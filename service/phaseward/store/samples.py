@@ -1,0 +1,92 @@
+"""Telemetry samples: bulk insert with resend detection, and time windows as numpy arrays."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+from sqlalchemy import func, insert, select
+from sqlalchemy.orm import Session
+
+from phaseward.store.models import Sample
+
+F64 = npt.NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class SampleRows:
+    """Samples of one rail as arrays: per-sample (n,), per-phase (n, n_phases)."""
+
+    seq: npt.NDArray[np.int64]
+    t_s: F64
+    version: npt.NDArray[np.int64]
+    vin_v: F64
+    vout_v: F64
+    iout_a: F64
+    ambient_c: F64
+    current_a: F64
+    temp_c: F64
+    flags: npt.NDArray[np.uint8]
+
+
+def pack(values: npt.NDArray[Any], dtype: str) -> bytes:
+    return np.ascontiguousarray(values, dtype=dtype).tobytes()
+
+
+def existing(session: Session, rail_id: str, seqs: Sequence[int]) -> dict[int, Sample]:
+    found: dict[int, Sample] = {}
+    for start in range(0, len(seqs), 500):  # stay under bound-parameter limits
+        chunk = seqs[start : start + 500]
+        stmt = select(Sample).where(Sample.rail_id == rail_id, Sample.seq.in_(chunk))
+        found.update((s.seq, s) for s in session.scalars(stmt))
+    return found
+
+
+def insert_rows(session: Session, rows: list[dict[str, Any]]) -> None:
+    if rows:
+        session.execute(insert(Sample), rows)
+
+
+def count(session: Session, rail_id: str) -> int:
+    return session.scalar(select(func.count()).where(Sample.rail_id == rail_id)) or 0
+
+
+def window(
+    session: Session, rail_id: str, *, start_s: float, end_s: float, limit: int
+) -> SampleRows:
+    """Samples with start_s <= t < end_s, oldest first, at most ``limit``."""
+    cols = (
+        Sample.seq, Sample.t_s, Sample.version, Sample.vin_v, Sample.vout_v, Sample.iout_a,
+        Sample.ambient_c, Sample.current_a, Sample.temp_c, Sample.flags,
+    )  # fmt: skip
+    stmt = (
+        select(*cols)
+        .where(Sample.rail_id == rail_id, Sample.t_s >= start_s, Sample.t_s < end_s)
+        .order_by(Sample.t_s, Sample.seq)
+        .limit(limit)
+    )
+    rows = session.execute(stmt).all()
+    n = len(rows)
+
+    def column(i: int) -> F64:
+        return np.array([np.nan if r[i] is None else r[i] for r in rows], dtype=np.float64)
+
+    def blobs(i: int, dtype: str) -> npt.NDArray[Any]:
+        joined = b"".join(r[i] for r in rows)
+        return np.frombuffer(joined, dtype=dtype).reshape(n, -1) if n else np.empty((0, 0))
+
+    return SampleRows(
+        seq=np.array([r[0] for r in rows], dtype=np.int64),
+        t_s=column(1),
+        version=np.array([r[2] for r in rows], dtype=np.int64),
+        vin_v=column(3),
+        vout_v=column(4),
+        iout_a=column(5),
+        ambient_c=column(6),
+        current_a=blobs(7, "<f8").astype(np.float64),
+        temp_c=blobs(8, "<f8").astype(np.float64),
+        flags=blobs(9, "u1").astype(np.uint8),
+    )

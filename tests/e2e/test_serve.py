@@ -1,0 +1,66 @@
+"""The real ``phaseward serve`` on a free loopback port, driven over HTTP."""
+
+from __future__ import annotations
+
+import os
+import socket
+import subprocess
+import sys
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import httpx
+import pytest
+from tests.factories import SMALL_RAIL, sample
+
+pytestmark = pytest.mark.e2e
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port: int = s.getsockname()[1]
+        return port
+
+
+@pytest.fixture
+def server(tmp_path: Path) -> Iterator[str]:
+    port = free_port()
+    env = os.environ | {
+        "PHASEWARD_DATA_DIR": str(tmp_path),
+        "PHASEWARD_PORT": str(port),
+        "PHASEWARD_LOG_LEVEL": "warning",
+    }
+    env.pop("PHASEWARD_DATABASE_URL", None)
+    proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)
+    base = f"http://127.0.0.1:{port}"
+    try:
+        deadline = time.monotonic() + 30
+        while True:
+            try:
+                if httpx.get(f"{base}/healthz", timeout=1).status_code == 200:
+                    break
+            except httpx.TransportError:
+                pass
+            assert proc.poll() is None, "server exited"
+            assert time.monotonic() < deadline, "server did not come up"
+            time.sleep(0.1)
+        yield base
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)
+    assert (tmp_path / "phaseward.db").exists()
+
+
+def test_rail_samples_status_over_real_http(server: str) -> None:
+    with httpx.Client(base_url=server, timeout=10) as c:
+        assert c.post("/v1/rails", json=SMALL_RAIL).status_code == 201
+        body = [sample(k, [20.0] * 4) for k in range(3)]
+        answer = c.post("/v1/rails/bench-a/samples", json=body)
+        assert answer.status_code == 200, answer.text
+        assert answer.json()["stored"] == 3
+        status = c.get("/v1/rails/bench-a/status").json()
+        assert status["condition"] == "nominal"
+        assert status["capacity"]["capacity_a"] == pytest.approx(120.0, rel=1e-5)
+        assert c.get("/openapi.json").json()["info"]["title"] == "phaseward"

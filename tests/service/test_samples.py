@@ -1,0 +1,184 @@
+"""Telemetry ingest: formats, resends, late samples, and bad input that changes nothing."""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+import httpx
+import pytest
+from tests.factories import SMALL_RAIL, sample
+
+pytestmark = pytest.mark.anyio
+EVEN = [20.0, 20.0, 20.0, 20.0]
+
+
+@pytest.fixture
+async def rail(client: httpx.AsyncClient) -> str:
+    answer = await client.post("/v1/rails", json=SMALL_RAIL)
+    assert answer.status_code == 201, answer.text
+    return "/v1/rails/bench-a"
+
+
+async def stored(client: httpx.AsyncClient) -> list[int]:
+    window = await client.get(
+        "/v1/rails/bench-a/samples", params={"since": 0, "until": 1e10, "limit": 1000}
+    )
+    assert window.status_code == 200, window.text
+    seqs: list[int] = window.json()["seq"]
+    return seqs
+
+
+async def post(client: httpx.AsyncClient, rail: str, body: Any, **kw: Any) -> httpx.Response:
+    return await client.post(f"{rail}/samples", json=body, **kw)
+
+
+async def test_one_sample_array_and_ndjson(client: httpx.AsyncClient, rail: str) -> None:
+    one = await post(client, rail, sample(0, EVEN))
+    assert one.status_code == 200, one.text
+    assert one.json()["stored"] == 1
+    assert one.json()["condition"] == "nominal"
+    many = await post(client, rail, [sample(1, EVEN), sample(2, EVEN)])
+    assert many.json()["stored"] == 2
+    lines = "\n".join(json.dumps(sample(k, EVEN)) for k in (3, 4)) + "\n"
+    nd = await client.post(
+        f"{rail}/samples", content=lines, headers={"content-type": "application/x-ndjson"}
+    )
+    assert nd.status_code == 200, nd.text
+    assert nd.json()["stored"] == 2
+    assert await stored(client) == [0, 1, 2, 3, 4]
+
+
+async def test_rfc3339_time_and_per_phase_values_round_trip(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    body = sample(0, [19.0, 20.0, 21.0, 20.5])
+    body["time"] = "2027-01-15T08:30:00+01:00"
+    assert (await post(client, rail, body)).status_code == 200
+    window = (await client.get(f"{rail}/samples", params={"since": 0, "until": 1e10})).json()
+    # 2027-01-01T00:00Z is epoch 1798761600; plus 14 days and 7.5 h (07:30 UTC) by hand.
+    assert window["time_s"] == [1798761600.0 + 14 * 86400 + 7.5 * 3600]
+    assert window["current_a"] == [[19.0, 20.0, 21.0, 20.5]]
+
+
+async def test_resend_is_absorbed(client: httpx.AsyncClient, rail: str) -> None:
+    await post(client, rail, [sample(0, EVEN), sample(1, EVEN)])
+    again = await post(client, rail, [sample(1, EVEN), sample(2, EVEN)])
+    assert again.status_code == 200
+    assert again.json() | {"condition": None} == {
+        "stored": 1, "duplicates": 1, "late": 0, "rejected": [], "condition": None, "version": 1,
+    }  # fmt: skip
+    assert await stored(client) == [0, 1, 2]
+
+
+async def test_same_seq_other_content_conflicts(client: httpx.AsyncClient, rail: str) -> None:
+    await post(client, rail, sample(0, EVEN))
+    clash = await post(client, rail, [sample(1, EVEN), sample(0, [1.0, 1.0, 1.0, 1.0])])
+    assert clash.status_code == 409
+    assert clash.json()["field"] == "[1].seq"
+    assert await stored(client) == [0]
+
+
+async def test_late_sample_is_stored_but_does_not_roll_back(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    await post(client, rail, [sample(10, EVEN), sample(11, EVEN)])
+    late = await post(client, rail, sample(5, [0.0, 0.0, 0.0, 0.0]))
+    assert late.json()["late"] == 1
+    status = (await client.get(f"{rail}/status")).json()
+    assert status["last_sample"]["seq"] == 11
+    assert all(p["condition"] == "active" for p in status["phases"])
+    assert sorted(await stored(client)) == [5, 10, 11]
+
+
+async def test_sense_voltage_and_read_iout_become_amps(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    body = sample(0, EVEN)
+    # DCR 0.3 mOhm at 20 degC; at 60 degC copper is 1 + 0.00393 * 40 = 1.1572 times that.
+    body["phases"][1] = {"index": 1, "sense_v": 20.0 * 0.3e-3 * 1.1572, "temp_c": 60.0}
+    # LINEAR11: N = -3 (11101b), Y = 160 -> 160 / 8 = 20 A; word = 0xE8A0.
+    body["phases"][2] = {"index": 2, "read_iout": 0xE8A0, "temp_c": 60.0}
+    assert (await post(client, rail, body)).status_code == 200
+    window = (await client.get(f"{rail}/samples", params={"since": 0, "until": 1e10})).json()
+    assert window["current_a"][0] == pytest.approx([20.0, 20.0, 20.0, 20.0], rel=1e-9)
+
+
+BAD: list[tuple[str, Any, int, str]] = [
+    ("missing field", {k: v for k, v in sample(9, EVEN).items() if k != "vin_v"}, 422, "[0].vin_v"),
+    ("wrong type", sample(9, EVEN, vout_v="one"), 422, "[0].vout_v"),
+    ("naive time", sample(9, EVEN) | {"time": "2027-01-15T08:30:00"}, 422, "[0].time"),
+    ("two currents", sample(9, EVEN) | {"phases": [{"index": 0, "current_a": 1.0, "sense_v": 0.01}]},
+     422, "[0].phases[0]"),
+    ("phase out of range", sample(9, [*EVEN, 20.0]), 422, "[0].phases[4].index"),
+    ("phase twice", sample(9, EVEN) | {"phases": [{"index": 1, "current_a": 1.0}] * 2}, 422,
+     "[0].phases[1].index"),
+    ("duplicate seq in batch", [sample(9, EVEN), sample(9, EVEN)], 422, "[1].seq"),
+]  # fmt: skip
+
+
+@pytest.mark.parametrize(("case", "body", "code", "field"), BAD, ids=[b[0] for b in BAD])
+async def test_bad_input_changes_nothing(
+    client: httpx.AsyncClient, rail: str, case: str, body: Any, code: int, field: str
+) -> None:
+    await post(client, rail, [sample(0, EVEN), sample(1, EVEN)])
+    before = (await client.get(f"{rail}/status")).json()
+    answer = await post(client, rail, [sample(2, EVEN), body] if isinstance(body, dict) else body)
+    assert answer.status_code == code, answer.text
+    shown = answer.json()["field"]
+    assert shown == (field.replace("[0]", "[1]") if isinstance(body, dict) else field)
+    assert answer.json()["detail"]
+    assert await stored(client) == [0, 1]
+    after = (await client.get(f"{rail}/status")).json()
+    assert after["last_sample"] == before["last_sample"] | {"age_s": after["last_sample"]["age_s"]}
+
+
+@pytest.mark.parametrize("token", ["NaN", "Infinity"])
+async def test_non_finite_reading_is_refused(
+    client: httpx.AsyncClient, rail: str, token: str
+) -> None:
+    text = json.dumps(sample(0, EVEN)).replace('"current_a": 20.0', f'"current_a": {token}', 1)
+    answer = await client.post(
+        f"{rail}/samples", content=text, headers={"content-type": "application/json"}
+    )
+    assert answer.status_code == 422
+    assert answer.json()["field"] == "[0].phases[0].current_a"
+    assert await stored(client) == []
+
+
+async def test_unknown_rail(client: httpx.AsyncClient) -> None:
+    answer = await client.post("/v1/rails/nope/samples", json=sample(0, EVEN))
+    assert answer.status_code == 404
+    assert answer.json()["field"] == "rail_id"
+
+
+async def test_batch_over_the_limit_is_413(client: httpx.AsyncClient, rail: str) -> None:
+    answer = await post(client, rail, [sample(k, EVEN) for k in range(51)])
+    assert answer.status_code == 413
+    assert "50" in answer.json()["detail"]
+    assert await stored(client) == []
+
+
+async def test_body_over_the_limit_is_413(client: httpx.AsyncClient, rail: str) -> None:
+    answer = await client.post(
+        f"{rail}/samples", content=b"[" + b" " * 70_000 + b"]",
+        headers={"content-type": "application/json"},
+    )  # fmt: skip
+    assert answer.status_code == 413
+
+
+async def test_malformed_ndjson_line_names_the_line(client: httpx.AsyncClient, rail: str) -> None:
+    lines = json.dumps(sample(0, EVEN)) + "\n{not json\n" + json.dumps(sample(2, EVEN)) + "\n"
+    answer = await client.post(
+        f"{rail}/samples", content=lines, headers={"content-type": "application/x-ndjson"}
+    )
+    assert answer.status_code == 400
+    assert answer.json()["field"] == "line 2"
+    assert await stored(client) == []
+
+
+async def test_rejected_batch_leaves_an_event(client: httpx.AsyncClient, rail: str) -> None:
+    await post(client, rail, [sample(0, EVEN), sample(0, EVEN)])
+    page = (await client.get(f"{rail}/events", params={"kind": "telemetry.rejected"})).json()
+    assert len(page["items"]) == 1
+    assert page["items"][0]["details"]["field"] == "[1].seq"

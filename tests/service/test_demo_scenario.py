@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import httpx
 import pytest
 
-from phaseward.demo import DEMO_RAIL, FAILED_PHASE, RAIL_ID, T_FAULT, T_STEP, scenario_samples
+from phaseward.demo import DEMO_RAIL, FAILED_PHASE, RAIL_ID, SKEW, T_FAULT, T_STEP, scenario_samples
 
 pytestmark = pytest.mark.anyio
+RATED = DEMO_RAIL["phase"]["rated_current_a"]
 
 
 async def test_demo_scenario(client: httpx.AsyncClient) -> None:
@@ -15,37 +18,48 @@ async def test_demo_scenario(client: httpx.AsyncClient) -> None:
     samples = scenario_samples(start_s=1.8e9)
     rail = f"/v1/rails/{RAIL_ID}"
 
-    async def run(lo: int, hi: int) -> dict[str, object]:
+    async def run(lo: int, hi: int) -> dict[str, Any]:
         for k in range(lo, hi, 40):
             answer = await client.post(f"{rail}/samples", json=samples[k : min(k + 40, hi)])
             assert answer.status_code == 200, answer.text
-        status: dict[str, object] = (await client.get(f"{rail}/status")).json()
+        status: dict[str, Any] = (await client.get(f"{rail}/status")).json()
         return status
 
+    # With the thermal limit not binding, the phase with the largest share reaches its rating
+    # first: capacity = rating x sum(shares) / max(share), worked out from the script's skew.
+    # The shares are learned from telemetry with 0.15 A of noise on ~25 A: within 1 %.
     healthy = await run(0, T_FAULT)
     assert healthy["condition"] == "nominal"
-    cap = healthy["capacity"]
-    assert isinstance(cap, dict)
-    # Six 45 A phases with the thermal limit not binding: 6 x 45 A.
-    assert cap["capacity_a"] == pytest.approx(270.0, rel=1e-5)
+    assert healthy["capacity"]["binding"] == "current"
+    assert healthy["capacity"]["capacity_a"] == pytest.approx(
+        RATED * sum(SKEW) / max(SKEW), rel=1e-2
+    )
 
     degraded = await run(T_FAULT, T_STEP)
     assert degraded["condition"] == "degraded"
-    phases = degraded["phases"]
-    assert isinstance(phases, list)
-    assert phases[FAILED_PHASE]["condition"] == "isolated"
-    after = degraded["capacity"]
-    assert isinstance(after, dict)
-    # Losing one of six equal phases takes one rating away, while current still binds.
-    assert after["capacity_a"] == pytest.approx(225.0, rel=1e-5)
+    assert degraded["phases"][FAILED_PHASE]["condition"] == "isolated"
+    assert degraded["phases"][FAILED_PHASE]["share"] == 0.0
+    survivors = sum(SKEW) - SKEW[FAILED_PHASE]
+    assert degraded["capacity"]["capacity_a"] == pytest.approx(
+        RATED * survivors / max(SKEW), rel=1e-2
+    )
+    drop = healthy["capacity"]["capacity_a"] - degraded["capacity"]["capacity_a"]
+    assert drop == pytest.approx(RATED * SKEW[FAILED_PHASE] / max(SKEW), rel=5e-2)
 
     end = await run(T_STEP, len(samples))
+    assert end["condition"] == "overloaded"
+    assert end["capacity"]["binding"] == "thermal"
+    assert end["capacity"]["capacity_a"] < end["load_a"]
+
     page = (await client.get(f"{rail}/events", params={"limit": 200})).json()
-    order = [(e["kind"], e["phase"]) for e in reversed(page["items"])]
-    assert order[0] == ("rail.condition", None)
-    assert order[1] == ("phase.isolated", FAILED_PHASE)
-    assert order.index(("phase.isolated", FAILED_PHASE)) < order.index(("thermal.warning", 0)) if (
-        "thermal.warning", 0) in order else True  # fmt: skip
+    order = [(e["kind"], e["details"].get("to")) for e in reversed(page["items"])]
     kinds = [k for k, _ in order]
-    assert "thermal.warning" in kinds or "thermal.forecast" in kinds
-    assert end["condition"] in ("degraded", "overloaded")
+    assert order[0] == ("rail.condition", "nominal")
+    assert kinds[1:6] == [
+        "phase.isolated", "input.undervoltage", "output.excursion",
+        "input.undervoltage", "output.excursion",
+    ]  # fmt: skip
+    assert order[6] == ("rail.condition", "degraded")
+    assert order.index(("rail.condition", "overloaded")) > 6
+    assert {"capacity.short", "thermal.forecast"} <= set(kinds[7:])
+    assert "phase.restored" not in kinds

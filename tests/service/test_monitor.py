@@ -60,9 +60,10 @@ async def test_collapsed_current_isolates_only_after_debounce(
     client: httpx.AsyncClient, rail: str
 ) -> None:
     await client.post(f"{rail}/samples", json=[sample(k, EVEN) for k in range(3)])
-    one = await client.post(f"{rail}/samples", json=sample(3, [20.0, 0.1, 30.0, 30.0]))
-    assert one.json()["condition"] == "nominal"  # a single low reading is not enough
-    two = await client.post(f"{rail}/samples", json=sample(4, [30.0, 0.1, 30.0, 30.0]))
+    await client.post(f"{rail}/samples", json=sample(3, [26.0, 0.1, 26.0, 26.0]))
+    status = (await client.get(f"{rail}/status")).json()
+    assert status["phases"][1]["condition"] == "active"  # one low reading is not enough
+    two = await client.post(f"{rail}/samples", json=sample(4, [26.0, 0.1, 26.0, 26.0]))
     assert two.json()["condition"] == "degraded"
     status = (await client.get(f"{rail}/status")).json()
     assert status["phases"][1]["condition"] == "isolated"

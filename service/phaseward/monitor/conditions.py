@@ -47,7 +47,7 @@ class Watch:
         return cls(
             codes=[ACTIVE] * n_phases,
             tail=[],
-            weights=[1.0 / n_phases] * n_phases,
+            weights=[1.0] * n_phases,
             thermal=[False] * n_phases,
         )
 
@@ -218,30 +218,30 @@ def _sharing(
 ) -> tuple[F64, F64, npt.NDArray[np.intp]]:
     """Running sharing weights (end of batch), per-sample imbalance in % and worst phase.
 
-    Only samples carrying a real load teach the weights: at light load the phase currents
-    are dominated by ripple and offsets and say little about sharing at full load.
+    A weight is a phase's share relative to an equal share (1.0 = equal), so what a phase
+    teaches while another is isolated still holds when it returns; capacity renormalises
+    over whichever phases are active. Only samples carrying a real load teach the weights:
+    at light load phase currents are dominated by ripple and offsets. An isolated phase keeps
+    the weight it had.
     """
     active = codes == ACTIVE
     carried = np.where(active, cur, 0.0)
     total = carried.sum(axis=1)
+    n_active = active.sum(axis=1)
     rated_active = np.where(active, model.rated_current_a, 0.0).sum(axis=1)
-    informative = (total > model.rules.min_share_load_fraction * rated_active) & (
-        active.sum(axis=1) > 1
-    )
+    informative = (total > model.rules.min_share_load_fraction * rated_active) & (n_active > 1)
     with np.errstate(invalid="ignore", divide="ignore"):
-        shares = carried / total[:, None]
-        equal = 1.0 / active.sum(axis=1)
-        deviation = np.where(active, np.abs(shares / equal[:, None] - 1.0), 0.0) * 100.0
-    imbalance = np.where(informative, deviation.max(axis=1), 0.0)
+        relative = carried / total[:, None] * n_active[:, None]
+    deviation = np.where(active & informative[:, None], np.abs(relative - 1.0), 0.0) * 100.0
+    imbalance = deviation.max(axis=1)
     worst = deviation.argmax(axis=1)
-    weights = prev_weights.copy()
-    rows = shares[informative]
-    if rows.shape[0]:
-        # Exponential smoothing over the informative samples, written in closed form.
-        decay = (1.0 - SHARE_SMOOTHING) ** np.arange(rows.shape[0] - 1, -1, -1)
-        weights = (1.0 - SHARE_SMOOTHING) ** rows.shape[0] * weights + SHARE_SMOOTHING * (
-            decay[:, None] * rows
-        ).sum(axis=0)
+    # Exponential smoothing per phase over the samples that teach it, in closed form: a
+    # sample's weight decays with the number of teaching samples that came after it.
+    teach = active & informative[:, None]
+    later = teach[::-1].cumsum(axis=0)[::-1] - teach
+    keep = 1.0 - SHARE_SMOOTHING
+    contribution = np.where(teach, SHARE_SMOOTHING * keep**later * relative, 0.0).sum(axis=0)
+    weights = keep ** teach.sum(axis=0) * prev_weights + contribution
     return weights, imbalance, worst
 
 
@@ -265,17 +265,16 @@ def _phase_findings(
         }
         if new == ISOLATED:
             why = "fault flag" if flags[k, i] & ISOLATING_FLAGS else "current collapsed"
-            out.append(Finding(int(k), "phase.isolated", "critical", int(i),
-                               f"phase {i} isolated ({why})", details))  # fmt: skip
+            kind, severity, message = "phase.isolated", "critical", f"phase {i} isolated ({why})"
         elif new == SUSPECT:
-            out.append(Finding(int(k), "phase.suspect", "warning", int(i),
-                               f"phase {i} reads implausibly without a fault flag", details))  # fmt: skip
+            kind, severity = "phase.suspect", "warning"
+            message = f"phase {i} reads implausibly without a fault flag"
         elif new == SILENT:
-            out.append(Finding(int(k), "telemetry.gap", "warning", int(i),
-                               f"phase {i} stopped reporting", details))  # fmt: skip
+            kind, severity, message = "telemetry.gap", "warning", f"phase {i} stopped reporting"
         else:
-            out.append(Finding(int(k), "phase.restored", "info", int(i),
-                               f"phase {i} active again (was {PHASE_CONDITIONS[old]})", details))  # fmt: skip
+            kind, severity = "phase.restored", "info"
+            message = f"phase {i} active again (was {PHASE_CONDITIONS[old]})"
+        out.append(Finding(int(k), kind, severity, int(i), message, details))
     return out
 
 

@@ -11,13 +11,14 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass
+from itertools import pairwise
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
 from sqlalchemy.orm import Session, sessionmaker
 
-from phaseward.errors import Conflict, InvalidInput, NotFound
+from phaseward.errors import Conflict, InvalidInput, NotFound, PhasewardError
 from phaseward.monitor import rail_model
 from phaseward.monitor.assess import Assessment, assess, phase_power
 from phaseward.monitor.conditions import PHASE_CONDITIONS, Finding, Watch, judge
@@ -46,7 +47,7 @@ def ingest(
         with transaction(sessions) as session:
             return _ingest(session, rail_id, incoming)
     except (InvalidInput, Conflict) as err:
-        _record_rejection(sessions, rail_id, incoming, err)
+        record_rejection(sessions, rail_id, samples=incoming.n, error=err)
         raise
 
 
@@ -148,20 +149,21 @@ def advance(
     current = np.where(np.isfinite(batch.current_a), batch.current_a, 0.0)
     nodes = _thermal_trajectory(model, batch, judgement.codes, current, ambient, previous)
 
-    # Judge the rail where the phase conditions change and at the end of the batch: the
-    # rail can only change its verdict with its phases or its load, and between those
-    # points the newest sample speaks for the run.
+    # Judge the rail where the phase conditions change and at the end of the batch: between
+    # those points the verdict moves only with load and temperature, which the newest
+    # sample speaks for.
     change = np.any(judgement.codes[1:] != judgement.codes[:-1], axis=1)
-    points = sorted({*(np.nonzero(change)[0] + 1).tolist(), batch.n - 1})
-    weights = np.asarray(judgement.watch.weights)
     prior = previous.get("rail", {})
+    first = [] if prior else [0]  # a rail's first verdict belongs to its first sample
+    points = sorted({*first, *(np.nonzero(change)[0] + 1).tolist(), batch.n - 1})
+    weights = np.asarray(judgement.watch.weights)
     findings = list(judgement.findings)
     verdict: Assessment | None = None
     for k in points:
         verdict = assess(
-            model, codes=judgement.codes[k], current_a=current[k], load_a=float(judgement.load_a[k]),
-            vout_v=float(batch.vout_v[k]), weights=weights, nodes_c=nodes[k + 1],
-            ambient_c=float(ambient[k]),
+            model, codes=judgement.codes[k], current_a=current[k],
+            load_a=float(judgement.load_a[k]), vout_v=float(batch.vout_v[k]), weights=weights,
+            nodes_c=nodes[k + 1], ambient_c=float(ambient[k]),
         )  # fmt: skip
         findings += _rail_findings(k, verdict, prior)
         prior = verdict.as_dict()
@@ -258,7 +260,7 @@ def _similar_runs(dt: F64) -> list[tuple[int, int]]:
     """
     bucket = np.round(np.log(np.maximum(dt, 1e-9)) / np.log1p(SIMILAR_STEP))
     edges = np.concatenate([[0], np.flatnonzero(np.diff(bucket) != 0) + 1, [dt.size]])
-    return [(int(a), int(b)) for a, b in zip(edges[:-1], edges[1:], strict=True)]
+    return [(int(a), int(b)) for a, b in pairwise(edges)]
 
 
 def _rail_findings(k: int, verdict: Assessment, prior: dict[str, Any]) -> list[Finding]:
@@ -324,8 +326,8 @@ def _event_row(model: RailModel, batch: SampleBatch, f: Finding) -> dict[str, An
     }
 
 
-def _record_rejection(
-    sessions: sessionmaker[Session], rail_id: str, incoming: IncomingSamples, err: PhasewardError
+def record_rejection(
+    sessions: sessionmaker[Session], rail_id: str, *, samples: int, error: PhasewardError
 ) -> None:
     """Leave a trace of a refused batch on a known rail, in its own transaction."""
     with transaction(sessions) as session:
@@ -339,7 +341,7 @@ def _record_rejection(
             "kind": "telemetry.rejected",
             "severity": "warning",
             "phase": None,
-            "message": f"batch of {incoming.n} samples refused: {err.detail}",
-            "details": {"field": err.field, "error": err.error, "samples": incoming.n},
+            "message": f"batch of {samples} samples refused: {error.detail}",
+            "details": {"field": error.field, "error": error.error, "samples": samples},
         }
         events.add_many(session, [row])

@@ -64,4 +64,5 @@ def changes(
 ) -> tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]]:
     """(sample, column) positions where the state differs from the one before it."""
     before = np.concatenate([np.asarray(prev)[None, :], np.asarray(states)[:-1]])
-    return np.nonzero(np.asarray(states) != before)
+    rows, cols = np.nonzero(np.asarray(states) != before)
+    return rows, cols

@@ -82,9 +82,7 @@ class SampleBatch:
         return int(self.seq.shape[0])
 
     def take(self, rows: npt.NDArray[np.intp] | npt.NDArray[np.bool_]) -> SampleBatch:
-        return SampleBatch(
-            **{f: getattr(self, f)[rows] for f in self.__dataclass_fields__}  # type: ignore[arg-type]
-        )
+        return SampleBatch(**{f: getattr(self, f)[rows] for f in self.__dataclass_fields__})
 
 
 def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:

@@ -36,6 +36,9 @@ from dataclasses import dataclass
 import numpy as np
 import numpy.typing as npt
 
+from phaseward.physics.ripple import duty_cycle, inductor_ripple_pp_a, rms_current_a
+from phaseward.physics.sensing import copper_resistance_ohm
+
 FloatArray = npt.NDArray[np.float64]
 BoolArray = npt.NDArray[np.bool_]
 
@@ -123,7 +126,9 @@ class PhaseLossParams:
         valid = ~np.isnan(current[uses])
         count = valid.sum(axis=1)
         if np.any(count < 2) or np.any(valid[:, 1:] & ~valid[:, :-1]):
-            raise ValueError("table_current_a needs >= 2 points per table phase, NaN only at the end")
+            raise ValueError(
+                "table_current_a needs >= 2 points per table phase, NaN only at the end"
+            )
         if not np.array_equal(valid, ~np.isnan(loss[uses])):
             raise ValueError("table_loss_w must have a value wherever table_current_a has one")
         if np.any(np.diff(current[uses], axis=1) <= 0.0):
@@ -221,3 +226,138 @@ class PhaseLossParams:
             table_tc_per_k=each("table_tc_per_k", table_tc_per_k),
             uses_table=each("uses_table", uses_table).astype(np.bool_),
         )
+
+
+@dataclass(frozen=True, eq=False)
+class LossBreakdown:
+    """Loss terms in W, each of the broadcast shape (..., n_phases) of the call.
+
+    A table phase reports its power-stage loss in ``stage_table_w`` and zero in the five
+    switch terms; a formula phase reports zero in ``stage_table_w``.
+    """
+
+    high_side_w: FloatArray
+    low_side_w: FloatArray
+    switching_w: FloatArray
+    gate_w: FloatArray
+    dead_time_w: FloatArray
+    inductor_copper_w: FloatArray
+    core_w: FloatArray
+    stage_table_w: FloatArray
+
+    @property
+    def total_w(self) -> FloatArray:
+        """Sum of all terms, W, shape (..., n_phases)."""
+        return np.asarray(
+            self.high_side_w
+            + self.low_side_w
+            + self.switching_w
+            + self.gate_w
+            + self.dead_time_w
+            + self.inductor_copper_w
+            + self.core_w
+            + self.stage_table_w
+        )
+
+
+def _tempco(temp_c: FloatArray, ref_c: FloatArray, tc_per_k: FloatArray) -> FloatArray:
+    """Linear temperature factor 1 + tc (T - T_ref) of Rds(on) and of loss tables."""
+    return np.asarray(1.0 + tc_per_k * (temp_c - ref_c))
+
+
+def _table_loss_w(params: PhaseLossParams, current_a: FloatArray) -> FloatArray:
+    """Power-stage loss from the tables at |I| (..., n_phases), W at the table reference.
+
+    Piecewise linear through the finite points, continued linearly beyond both ends,
+    clipped at 0 W; zero for phases without a table.
+    """
+    out = np.zeros(current_a.shape)
+    rows = np.flatnonzero(params.uses_table)
+    if rows.size == 0:
+        return out
+    x, y = params.table_current_a[rows], params.table_loss_w[rows]
+    mag = np.abs(current_a[..., rows])
+    last = np.sum(~np.isnan(x), axis=1) - 2
+    # Segment index: points at or below |I| (NaN padding never counts), kept on the table.
+    seg = np.clip(np.sum(mag[..., None] >= x, axis=-1) - 1, 0, last)
+    ph = np.arange(rows.size)
+    x0, x1, y0, y1 = x[ph, seg], x[ph, seg + 1], y[ph, seg], y[ph, seg + 1]
+    out[..., rows] = np.maximum(y0 + (mag - x0) * (y1 - y0) / (x1 - x0), 0.0)
+    return out
+
+
+def phase_losses(
+    params: PhaseLossParams, current_a: npt.ArrayLike, temp_c: npt.ArrayLike
+) -> LossBreakdown:
+    """Loss terms of every phase at mean phase current ``current_a`` and junction ``temp_c``.
+
+    ``current_a`` (A) and ``temp_c`` (degC) broadcast against (n_phases,), e.g. both of
+    shape (n_samples, n_phases); every term has the broadcast shape.
+
+    >>> p = PhaseLossParams.build(2, vin_v=12.0, vout_v=1.0, fsw_hz=500e3,
+    ...     inductance_h=150e-9, dcr_ohm=0.2e-3, rds_high_ohm=4e-3, rds_low_ohm=1e-3,
+    ...     rds_tc_per_k=0.004, rise_time_s=5e-9, fall_time_s=5e-9, gate_charge_c=40e-9,
+    ...     drive_v=5.0, dead_time_s=20e-9, diode_drop_v=0.7, core_loss_w=0.3)
+    >>> loss = phase_losses(p, [20.0, 30.0], 25.0)
+    >>> np.round(loss.total_w, 3)
+    array([1.88 , 3.047])
+    >>> print(f"{loss.switching_w[0]:.3f} W switching, {loss.gate_w[0]:.3f} W gate")
+    0.600 W switching, 0.100 W gate
+    """
+    current = np.asarray(current_a, dtype=np.float64)
+    temp = np.asarray(temp_c, dtype=np.float64)
+    if not np.all(np.isfinite(current)):
+        raise ValueError("current_a must be finite")
+    if not np.all(np.isfinite(temp)):
+        raise ValueError("temp_c must be finite")
+    try:
+        shape = np.broadcast_shapes(current.shape, temp.shape, (params.n_phases,))
+    except ValueError:
+        raise ValueError(
+            f"current_a and temp_c must broadcast to (..., {params.n_phases}) (n_phases)"
+        ) from None
+    current, temp = np.broadcast_to(current, shape), np.broadcast_to(temp, shape)
+    p = params
+    duty = duty_cycle(p.vin_v, p.vout_v)
+    rms_sq = (
+        rms_current_a(current, inductor_ripple_pp_a(p.vin_v, p.vout_v, p.inductance_h, p.fsw_hz))
+        ** 2
+    )
+    mag = np.abs(current)
+    formula = ~p.uses_table
+    rds = rms_sq * _tempco(temp, p.rds_ref_c, p.rds_tc_per_k)
+    zero = np.zeros(shape)
+    return LossBreakdown(
+        high_side_w=np.where(formula, duty * rds * p.rds_high_ohm, 0.0),
+        low_side_w=np.where(formula, (1.0 - duty) * rds * p.rds_low_ohm, 0.0),
+        switching_w=np.where(
+            formula, 0.5 * p.vin_v * mag * (p.rise_time_s + p.fall_time_s) * p.fsw_hz, 0.0
+        ),
+        gate_w=np.where(formula, p.gate_charge_c * p.drive_v * p.fsw_hz, zero),
+        dead_time_w=np.where(formula, 2.0 * p.diode_drop_v * mag * p.dead_time_s * p.fsw_hz, 0.0),
+        inductor_copper_w=rms_sq
+        * p.dcr_ohm
+        * copper_resistance_ohm(1.0, temp, ref_temp_c=p.dcr_ref_c),
+        core_w=np.broadcast_to(p.core_loss_w, shape).copy(),
+        stage_table_w=_table_loss_w(p, current) * _tempco(temp, p.table_ref_c, p.table_tc_per_k),
+    )
+
+
+def loss_coefficients(
+    params: PhaseLossParams, current_a: npt.ArrayLike
+) -> tuple[FloatArray, FloatArray]:
+    """(p0_w, slope_w_per_k) with phase loss P(T) = p0 + slope T (T in degC) at ``current_a``.
+
+    Every term of :func:`phase_losses` is affine in T, so sampling the total at 0 degC and at
+    100 degC gives the line exactly (up to rounding). Shapes: ``current_a`` broadcast against
+    (n_phases,).
+
+    >>> p = PhaseLossParams.build(1, vin_v=12.0, vout_v=1.0, fsw_hz=500e3,
+    ...     inductance_h=150e-9, dcr_ohm=0.2e-3, rds_low_ohm=1e-3, rds_tc_per_k=0.004)
+    >>> p0, slope = loss_coefficients(p, [30.0])
+    >>> print(f"{p0[0]:.4f} W + {slope[0] * 1e3:.4f} mW/K x T")
+    0.9209 W + 4.0628 mW/K x T
+    """
+    at_zero = phase_losses(params, current_a, 0.0).total_w
+    at_probe = phase_losses(params, current_a, _PROBE_C).total_w
+    return at_zero, (at_probe - at_zero) / _PROBE_C

@@ -244,7 +244,7 @@ def output_ripple_voltage_pp_from_waveform_v(
 
     >>> v = output_ripple_voltage_pp_from_waveform_v(
     ...     12.0, 1.8, 1.0e-6, 300e3, [0, 90, 180, 270], capacitance_f=1.0e-3, esr_ohm=0.5e-3)
-    >>> print(f"{v * 1e3:.3f}")  # mV; the simple sum above gives 1.450
+    >>> print(f"{v * 1e3:.3f}")  # mV; output_ripple_voltage_pp_v gives 1.450 here
     1.200
     """
     single = inductor_ripple_pp_a(vin_v, vout_v, inductance_h, fsw_hz)

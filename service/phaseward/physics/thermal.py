@@ -332,7 +332,9 @@ def build_coupled_network(
     g_amb[board] = 1.0 / r_board
     return ThermalNetwork(
         conductance_w_per_k=_conductance_matrix(board + 1, lower, np.concatenate(upper), 1.0 / r),
-        capacitance_j_per_k=np.append(np.concatenate([ch.c_j_per_k for ch in phase_chains]), c_board),
+        capacitance_j_per_k=np.append(
+            np.concatenate([ch.c_j_per_k for ch in phase_chains]), c_board
+        ),
         ambient_conductance_w_per_k=g_amb,
         junction_node=starts[:-1].astype(np.intp),
         board_node=board,
@@ -357,7 +359,9 @@ def _system_matrix(net: ThermalNetwork, slope_w_per_k: FloatArray) -> FloatArray
 def _injection(net: ThermalNetwork, p0_w: FloatArray, ambient_c: FloatArray) -> FloatArray:
     """f = E p0 + g_amb T_amb in W, shape broadcast(p0.shape[:-1], ambient.shape) + (n_nodes,)."""
     f = ambient_c[..., None] * net.ambient_conductance_w_per_k
-    f = np.array(np.broadcast_to(f, (*np.broadcast_shapes(f.shape[:-1], p0_w.shape[:-1]), f.shape[-1])))
+    f = np.array(
+        np.broadcast_to(f, (*np.broadcast_shapes(f.shape[:-1], p0_w.shape[:-1]), f.shape[-1]))
+    )
     f[..., net.junction_node] += p0_w
     return f
 
@@ -375,10 +379,13 @@ def _solve_stable(a: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArray
     try:
         sol = np.linalg.solve(a, both)
     except np.linalg.LinAlgError:  # an exactly singular case somewhere in the stack
-        sol = np.full(np.broadcast_shapes(a.shape, both.shape), np.nan)
-        a = np.broadcast_to(a, (*sol.shape[:-2], *a.shape[-2:]))
-        regular = np.linalg.eigvalsh(a)[..., 0] > 0.0
-        sol[regular] = np.linalg.solve(a[regular], np.broadcast_to(both, sol.shape)[regular])
+        batch = np.broadcast_shapes(a.shape[:-2], both.shape[:-2])
+        a_flat = np.broadcast_to(a, (*batch, *a.shape[-2:])).reshape(-1, *a.shape[-2:])
+        b_flat = np.broadcast_to(both, (*batch, *both.shape[-2:])).reshape(-1, *both.shape[-2:])
+        regular = np.linalg.eigvalsh(a_flat)[:, 0] > 0.0
+        sol = np.full(b_flat.shape, np.nan)
+        sol[regular] = np.linalg.solve(a_flat[regular], b_flat[regular])
+        sol = sol.reshape(*batch, *both.shape[-2:])
     stable = np.all(sol[..., 1] > 0.0, axis=-1) & np.all(np.isfinite(sol[..., 0]), axis=-1)
     return np.where(stable[..., None], sol[..., 0], np.nan), stable
 
@@ -456,7 +463,9 @@ def _propagate(a: FloatArray, b: FloatArray, z0: FloatArray, u: FloatArray) -> F
     """
     z = np.empty_like(u)
     for k in range(a.size):
-        z[k], _ = signal.lfilter(b[k : k + 1], np.array([1.0, -a[k]]), u[k], zi=a[k : k + 1] * z0[k])
+        z[k], _ = signal.lfilter(
+            b[k : k + 1], np.array([1.0, -a[k]]), u[k], zi=a[k : k + 1] * z0[k]
+        )
     return z
 
 
@@ -510,7 +519,7 @@ def simulate_c(
     z0 = phi.T @ (net.capacitance_j_per_k * temp0)
     phi_j = phi[junction]
     u_ambient = np.outer(phi.T @ net.ambient_conductance_w_per_k, np.atleast_1d(ambient))
-    p0_t, slope_t = p0.T, slope.T
+    p0_t, slope_t = np.ascontiguousarray(p0.T), np.ascontiguousarray(slope.T)
     tj = np.repeat(temp0[junction][:, None], p0.shape[0], axis=1)
     history: list[float] = []
     for _ in range(max_iter):
@@ -649,10 +658,10 @@ def time_to_limit_batch_s(
         """Junction temperatures (len(rows), n_t, n_phases) at times t (len(rows), n_t)."""
         x = -lam[rows, None, :] * t[..., None]
         coef = np.exp(x) * z0[rows, None, :] + t[..., None] * special.exprel(x) * u[rows, None, :]
-        return np.einsum("bgm,bpm->bgp", coef, phi_j[rows])
+        return np.asarray(np.einsum("bgm,bpm->bgp", coef, phi_j[rows]))
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
-        return np.max(junction_c(rows, t) - limit[rows, None, :], axis=-1)
+        return np.asarray(np.max(junction_c(rows, t) - limit[rows, None, :], axis=-1))
 
     rate = np.maximum(np.abs(lam), 1e-300)
     runaway = lam[:, 0] <= 0.0

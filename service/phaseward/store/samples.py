@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 import numpy.typing as npt
@@ -75,7 +75,7 @@ def window(
         return np.array([np.nan if r[i] is None else r[i] for r in rows], dtype=np.float64)
 
     def blobs(i: int, dtype: str) -> npt.NDArray[Any]:
-        joined = b"".join(r[i] for r in rows)
+        joined = b"".join(cast(bytes, r[i]) for r in rows)
         return np.frombuffer(joined, dtype=dtype).reshape(n, -1) if n else np.empty((0, 0))
 
     return SampleRows(

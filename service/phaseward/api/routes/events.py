@@ -85,7 +85,7 @@ def _page(
 _CSV_DOC = {"200": {"content": {"text/csv": {"schema": {"type": "string"}}}}}
 
 
-@router.get("/v1/events", responses=_CSV_DOC)  # type: ignore[arg-type]
+@router.get("/v1/events", response_model=EventPage, responses=_CSV_DOC)  # type: ignore[arg-type]
 def list_events(
     request: Request,
     session: ReadSessionDep,
@@ -104,7 +104,7 @@ def list_events(
     )  # fmt: skip
 
 
-@router.get("/v1/rails/{rail_id}/events", responses=_CSV_DOC)  # type: ignore[arg-type]
+@router.get("/v1/rails/{rail_id}/events", response_model=EventPage, responses=_CSV_DOC)  # type: ignore[arg-type]
 def list_rail_events(
     rail_id: RailId,
     request: Request,

@@ -6,16 +6,18 @@ import json
 from typing import Annotated, Any
 
 import numpy as np
+import numpy.typing as npt
 from fastapi import APIRouter, Query, Request
 from fastapi.concurrency import run_in_threadpool
+from pydantic import ValidationError
 
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
-from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.errors import ERROR_RESPONSES, field_path
 from phaseward.api.routes.rails import RailId
 from phaseward.api.schemas.samples import BODY_SCHEMA, SAMPLES, IngestOut, SampleWindow, to_incoming
-from phaseward.errors import BadRequest, PayloadTooLarge, UnsupportedMediaType
+from phaseward.errors import BadRequest, InvalidInput, PayloadTooLarge, UnsupportedMediaType
 from phaseward.monitor import rails as rail_service
-from phaseward.monitor.ingest import ingest
+from phaseward.monitor.ingest import ingest, record_rejection
 from phaseward.settings import Settings
 from phaseward.store import samples as sample_store
 
@@ -86,9 +88,16 @@ async def post_samples(
 ) -> IngestOut:
     """Store samples and advance the rail's live state. The answer comes after the commit."""
     body = await read_limited(request, settings.max_body_bytes)
-    items = SAMPLES.validate_python(
-        parse_items(body, request.headers.get("content-type", ""), settings)
-    )
+    raw = parse_items(body, request.headers.get("content-type", ""), settings)
+    try:
+        items = SAMPLES.validate_python(raw)
+    except ValidationError as err:
+        first = err.errors()[0]
+        refusal = InvalidInput(str(first["msg"]), field=field_path(tuple(first["loc"])))
+        await run_in_threadpool(
+            record_rejection, sessions, rail_id, samples=len(raw), error=refusal
+        )
+        raise
     # Database work runs off the event loop: the driver blocks.
     result = await run_in_threadpool(ingest, sessions, rail_id, to_incoming(items))
     return IngestOut(
@@ -97,7 +106,7 @@ async def post_samples(
     )  # fmt: skip
 
 
-def _nullable(a: np.ndarray) -> list[Any]:  # type: ignore[type-arg]
+def _nullable(a: npt.NDArray[np.float64]) -> list[float | None]:
     return [None if not np.isfinite(x) else float(x) for x in a]
 
 

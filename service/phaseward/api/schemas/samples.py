@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from datetime import datetime
 from typing import Annotated, Self
 
 import numpy as np
-from pydantic import AwareDatetime, Field, TypeAdapter, model_validator
+import numpy.typing as npt
+from pydantic import BeforeValidator, Field, TypeAdapter, WithJsonSchema, model_validator
 
 from phaseward.api.schemas.common import Celsius, Contract, NonNegative
 from phaseward.monitor.telemetry import FLAG_NAMES, NO_WORD, IncomingSamples
@@ -44,20 +46,46 @@ class PhaseReading(Contract):
         return self
 
 
+def _epoch_seconds(value: object) -> float:
+    """RFC 3339 with an offset, or epoch seconds; naive times are refused (their zone is a
+    guess, and telemetry must never carry a guessed time)."""
+    if isinstance(value, bool):
+        raise ValueError("time must be RFC 3339 with an offset or epoch seconds")
+    if isinstance(value, int | float):
+        seconds = float(value)
+    elif isinstance(value, str):
+        try:
+            moment = datetime.fromisoformat(value)
+        except ValueError:
+            raise ValueError(f"time '{value}' is not RFC 3339") from None
+        if moment.tzinfo is None:
+            raise ValueError("time needs a UTC offset (e.g. +00:00 or Z)")
+        seconds = moment.timestamp()
+    else:
+        raise ValueError("time must be RFC 3339 with an offset or epoch seconds")
+    if not 0.0 < seconds < EPOCH_MAX_S:
+        raise ValueError(f"time {seconds} s is outside 1970..5138 (milliseconds sent as seconds?)")
+    return seconds
+
+
+Timestamp = Annotated[
+    float,
+    BeforeValidator(_epoch_seconds),
+    WithJsonSchema(
+        {"anyOf": [{"type": "string", "format": "date-time"}, {"type": "number"}],
+         "description": "RFC 3339 with an offset, or epoch seconds"}
+    ),
+]  # fmt: skip
+
+
 class SampleIn(Contract):
-    time: AwareDatetime | Annotated[float, Field(gt=0, lt=EPOCH_MAX_S)] = Field(
-        description="RFC 3339 with an offset, or epoch seconds"
-    )
+    time: Timestamp
     seq: Annotated[int, Field(ge=0, le=2**62)]
     vin_v: NonNegative
     vout_v: NonNegative
     iout_a: float | None = None
     ambient_c: Celsius | None = None
     phases: list[PhaseReading] = Field(min_length=1, max_length=64)
-
-    @property
-    def t_s(self) -> float:
-        return self.time.timestamp() if isinstance(self.time, datetime) else float(self.time)
 
 
 SAMPLES = TypeAdapter(list[SampleIn])
@@ -68,8 +96,8 @@ def to_incoming(items: list[SampleIn]) -> IncomingSamples:
     """Long-form arrays for the monitor (one row per phase reading)."""
     readings = [(k, j, r) for k, s in enumerate(items) for j, r in enumerate(s.phases)]
 
-    def per_sample(get: object) -> np.ndarray:  # type: ignore[type-arg]
-        return np.array([get(s) for s in items], dtype=np.float64)  # type: ignore[operator]
+    def per_sample(get: Callable[[SampleIn], float]) -> npt.NDArray[np.float64]:
+        return np.array([get(s) for s in items], dtype=np.float64)
 
     def nan(x: float | None) -> float:
         return np.nan if x is None else x
@@ -90,7 +118,7 @@ def to_incoming(items: list[SampleIn]) -> IncomingSamples:
     )
     return IncomingSamples(
         seq=np.array([s.seq for s in items], dtype=np.int64),
-        t_s=per_sample(lambda s: s.t_s),
+        t_s=per_sample(lambda s: s.time),
         vin_v=per_sample(lambda s: s.vin_v),
         vout_v=per_sample(lambda s: s.vout_v),
         iout_a=per_sample(lambda s: nan(s.iout_a)),

@@ -1,0 +1,182 @@
+"""Remaining capacity of a rail: the largest total current its active phases can carry.
+
+With sharing weights w_i (observed from telemetry) renormalised over the active phases of a
+case, phase i carries w_i I of the rail current I. The capacity is the largest I such that
+every active phase stays within its current rating, w_i I <= I_rated,i, and within its
+junction temperature limit (the caller passes limit minus margin) in steady state, computed
+with the coupled network of :mod:`thermal` and the temperature-dependent losses of
+:mod:`losses`. Lost phases carry no current and dissipate nothing but remain passive heat
+paths in the network.
+
+Steady-state junction temperature grows monotonically with I (losses grow with |I|, and
+the network's inverse system matrix is elementwise non-negative), so the thermal bound is
+the root of g(I) = max_i (T_j,i(I) - limit_i) over the active phases. All cases are solved
+at once by vectorised bracketing (:func:`thermal.bracketed_root`) to a relative tolerance of
+1e-6, reporting the lower (safe) end. Where the loss feedback would run away below the
+current limit, g is +inf there and the capacity is the largest I with a stable steady state
+under the limit (the temperature diverges as the runaway point is approached, so the limit
+is crossed first).
+"""
+
+from dataclasses import dataclass
+from itertools import combinations
+
+import numpy as np
+import numpy.typing as npt
+
+from phaseward.physics.losses import PhaseLossParams, loss_coefficients
+from phaseward.physics.thermal import ThermalNetwork, bracketed_root, steady_state_c
+
+FloatArray = npt.NDArray[np.float64]
+BoolArray = npt.NDArray[np.bool_]
+IntArray = npt.NDArray[np.intp]
+StrArray = npt.NDArray[np.str_]
+
+
+@dataclass(frozen=True, eq=False)
+class CapacityResult:
+    """Per case (n_cases,): capacity in A, the binding phase (-1 if none) and what binds.
+
+    binding_kind: "current" (a phase reaches its rating), "thermal" (a junction reaches its
+    limit), or "none" (no active phase: capacity 0). junction_c_at_capacity: (n_cases,
+    n_phases) steady-state junction temperatures in degC at the capacity, NaN for lost phases.
+    """
+
+    capacity_a: FloatArray
+    binding_phase: IntArray
+    binding_kind: StrArray
+    junction_c_at_capacity: FloatArray
+
+
+def remaining_capacity(
+    net: ThermalNetwork,
+    params: PhaseLossParams,
+    *,
+    active: npt.ArrayLike,
+    weights: npt.ArrayLike,
+    rated_current_a: npt.ArrayLike,
+    temp_limit_c: npt.ArrayLike,
+    ambient_c: float,
+    rtol: float = 1e-6,
+) -> CapacityResult:
+    """Remaining capacity of every case (an active-phase mask) in one call.
+
+    active: (n_cases, n_phases) bool; weights: (n_cases, n_phases) or (n_phases,) >= 0 (only
+    their ratios over the active phases matter); rated_current_a: (n_phases,) > 0 in A;
+    temp_limit_c: (n_phases,) junction limit minus margin in degC; ambient_c in degC.
+
+    >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
+    >>> chain = CauerStages(np.array([4.0, 6.0]), np.array([0.2, 2.0]))
+    >>> net = build_coupled_network([chain] * 4, board_to_ambient_k_per_w=0.5,
+    ...                             board_c_j_per_k=200.0)
+    >>> params = PhaseLossParams.build(4, vin_v=12.0, vout_v=1.0, fsw_hz=500e3,
+    ...     inductance_h=150e-9, dcr_ohm=0.2e-3, rds_high_ohm=4e-3, rds_low_ohm=1e-3,
+    ...     rds_tc_per_k=0.004)
+    >>> active = np.array([[True] * 4, [False, True, True, True]])  # all, then phase 0 lost
+    >>> res = remaining_capacity(net, params, active=active, weights=np.ones(4),
+    ...     rated_current_a=np.full(4, 40.0), temp_limit_c=np.full(4, 56.0), ambient_c=25.0)
+    >>> np.round(res.capacity_a, 2), res.binding_kind.tolist(), res.binding_phase.tolist()
+    (array([158.45, 120.  ]), ['thermal', 'current'], [0, 1])
+    >>> np.round(res.junction_c_at_capacity[1], 2)  # the board runs cooler with one phase out
+    array([ nan, 55.2, 55.2, 55.2])
+    """
+    n = net.n_phases
+    if params.n_phases != n:
+        raise ValueError(f"params describe {params.n_phases} phases, the network {n}")
+    act = np.asarray(active)
+    if act.dtype != np.bool_ or act.ndim != 2 or act.shape[1] != n:
+        raise ValueError(f"active must be a boolean array of shape (n_cases, {n})")
+    share = np.array(np.broadcast_to(_per_phase("weights", weights, n, ndim=(1, 2)), act.shape))
+    if np.any(share < 0.0):
+        raise ValueError("weights must be >= 0")
+    rated = _per_phase("rated_current_a", rated_current_a, n)
+    if not np.all(rated > 0.0):
+        raise ValueError("rated_current_a must be > 0")
+    limit = _per_phase("temp_limit_c", temp_limit_c, n)
+    ambient = float(_per_phase("ambient_c", ambient_c, n, ndim=(0,)))
+    if not 0.0 < rtol < 1.0:
+        raise ValueError("rtol must lie in (0, 1)")
+    share *= act
+    total = share.sum(axis=1)
+    if np.any(act.any(axis=1) & (total <= 0.0)):
+        raise ValueError("weights must be positive for at least one active phase of each case")
+    share /= np.where(total > 0.0, total, 1.0)[:, None]
+
+    def junction_c(rows: IntArray, current_a: FloatArray) -> FloatArray:
+        """Steady junction temperatures (len(rows), n_phases) at rail currents (len(rows),)."""
+        p0, slope = loss_coefficients(params, share[rows] * current_a[:, None])
+        on = act[rows]
+        temps, runaway = steady_state_c(net, p0 * on, slope * on, ambient, runaway="flag")
+        return np.where(runaway[:, None], np.inf, temps[:, net.junction_node])
+
+    def excess(rows: IntArray, current_a: FloatArray) -> FloatArray:
+        over = np.where(act[rows], junction_c(rows, current_a) - limit, -np.inf)
+        return np.asarray(over.max(axis=1))
+
+    n_cases = act.shape[0]
+    every = np.arange(n_cases)
+    some = act.any(axis=1)
+    with np.errstate(divide="ignore"):
+        per_phase_limit = np.where(share > 0.0, rated / share, np.inf)
+    current_limit = np.where(some, per_phase_limit.min(axis=1), 0.0)
+    current_phase = np.argmin(per_phase_limit, axis=1)
+    cold = excess(every, np.zeros(n_cases)) > 0.0
+    at_rating = excess(every, current_limit) <= 0.0
+    kind = np.where(~some, "none", np.where(at_rating & ~cold, "current", "thermal"))
+    capacity = np.where(kind == "current", current_limit, 0.0)
+    rows = np.flatnonzero((kind == "thermal") & ~cold)
+    if rows.size:
+        capacity[rows], _ = bracketed_root(
+            lambda i: excess(rows, i), np.zeros(rows.size), current_limit[rows], rtol=rtol
+        )
+    temps = np.where(act, junction_c(every, capacity), np.nan)
+    hottest = np.argmax(np.where(act, temps - limit, -np.inf), axis=1)
+    phase = np.where(kind == "current", current_phase, np.where(kind == "thermal", hottest, -1))
+    return CapacityResult(
+        capacity_a=capacity,
+        binding_phase=phase.astype(np.intp),
+        binding_kind=kind,
+        junction_c_at_capacity=temps,
+    )
+
+
+def _per_phase(
+    name: str, value: npt.ArrayLike, n_phases: int, *, ndim: tuple[int, ...] = (1,)
+) -> FloatArray:
+    arr = np.asarray(value, dtype=np.float64)
+    if arr.ndim not in ndim or (arr.ndim > 0 and arr.shape[-1] != n_phases):
+        raise ValueError(f"{name} has the wrong shape (n_phases={n_phases})")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} must be finite")
+    return arr
+
+
+def loss_cases(
+    n_phases: int, depth: int, active: npt.ArrayLike | None = None
+) -> tuple[BoolArray, IntArray]:
+    """Every way to lose ``depth`` more of the active phases, as active masks.
+
+    Returns ``(masks, lost)``: masks (n_cases, n_phases) bool, the remaining active phases
+    of each case, and lost (n_cases, depth) int, the phases lost in it, in lexicographic
+    order. ``active`` (n_phases,) bool defaults to all phases. Depth 1 gives every single
+    loss, depth 2 every pair, so an N-1 or N-2 screening is one :func:`remaining_capacity`
+    call.
+
+    >>> masks, lost = loss_cases(4, 2, active=np.array([True, True, False, True]))
+    >>> lost.tolist()
+    [[0, 1], [0, 3], [1, 3]]
+    >>> masks.astype(int).tolist()[0]
+    [0, 0, 0, 1]
+    """
+    if isinstance(n_phases, bool) or not isinstance(n_phases, int) or n_phases < 1:
+        raise ValueError("n_phases must be an int >= 1")
+    if isinstance(depth, bool) or not isinstance(depth, int) or depth < 1:
+        raise ValueError("depth must be an int >= 1")
+    act = np.ones(n_phases, dtype=bool) if active is None else np.asarray(active)
+    if act.dtype != np.bool_ or act.shape != (n_phases,):
+        raise ValueError(f"active must be a boolean array of shape ({n_phases},)")
+    lost = np.array(list(combinations(np.flatnonzero(act).tolist(), depth)), dtype=np.intp)
+    lost = lost.reshape(-1, depth)
+    masks = np.repeat(act[None, :], lost.shape[0], axis=0)
+    masks[np.arange(lost.shape[0])[:, None], lost] = False
+    return masks, lost

@@ -2,12 +2,16 @@
 
 from __future__ import annotations
 
-from collections.abc import AsyncIterator
+import os
+import uuid
+from collections.abc import AsyncIterator, Iterator
 from pathlib import Path
 
 import httpx
 import pytest
 from fastapi import FastAPI
+from sqlalchemy import create_engine, text
+from sqlalchemy.engine import make_url
 
 from phaseward.api.app import create_app
 from phaseward.settings import Settings
@@ -19,8 +23,30 @@ def anyio_backend() -> str:
 
 
 @pytest.fixture
-def settings(tmp_path: Path) -> Settings:
-    return Settings(data_dir=tmp_path, max_body_bytes=64 * 1024, max_batch_samples=50)
+def database_url(tmp_path: Path) -> Iterator[str]:
+    """A fresh database per test: a SQLite file, or with PHASEWARD_TEST_DATABASE_URL set, a
+    PostgreSQL schema of its own that is dropped afterwards."""
+    server = os.environ.get("PHASEWARD_TEST_DATABASE_URL")
+    if not server:
+        yield f"sqlite:///{(tmp_path / 'phaseward.db').as_posix()}"
+        return
+    schema = f"t_{uuid.uuid4().hex[:16]}"
+    admin = create_engine(server, isolation_level="AUTOCOMMIT")
+    with admin.connect() as conn:
+        conn.execute(text(f"CREATE SCHEMA {schema}"))
+    url = make_url(server).update_query_dict({"options": f"-csearch_path={schema}"})
+    yield url.render_as_string(hide_password=False)
+    with admin.connect() as conn:
+        conn.execute(text(f"DROP SCHEMA {schema} CASCADE"))
+    admin.dispose()
+
+
+@pytest.fixture
+def settings(tmp_path: Path, database_url: str) -> Settings:
+    return Settings(
+        data_dir=tmp_path, database_url=database_url, max_body_bytes=64 * 1024,
+        max_batch_samples=50,
+    )  # fmt: skip
 
 
 @pytest.fixture

@@ -16,8 +16,7 @@ import httpx
 import numpy as np
 
 from phaseward.api.schemas.rails import RailBody
-from phaseward.monitor.assess import phase_power
-from phaseward.monitor.rail_model import build
+from phaseward.monitor.rail_model import build, phase_power
 from phaseward.physics.thermal import simulate_c, steady_state_c
 
 RAIL_ID = "demo-core"

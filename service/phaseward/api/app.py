@@ -6,7 +6,7 @@ from fastapi import FastAPI
 
 from phaseward import __version__
 from phaseward.api import errors
-from phaseward.api.routes import events, rails, samples
+from phaseward.api.routes import analyses, events, rails, samples
 from phaseward.settings import Settings
 from phaseward.store.db import build_engine, build_sessionmaker, migrate
 
@@ -27,6 +27,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(rails.router)
     app.include_router(samples.router)
     app.include_router(events.router)
+    app.include_router(analyses.router)
 
     @app.get("/healthz", tags=["meta"])
     def healthz() -> dict[str, str]:

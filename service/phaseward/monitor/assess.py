@@ -10,9 +10,9 @@ import numpy as np
 import numpy.typing as npt
 
 from phaseward.monitor.conditions import ACTIVE
-from phaseward.monitor.rail_model import RailModel
-from phaseward.physics.capacity import loss_cases, remaining_capacity
-from phaseward.physics.losses import loss_coefficients
+from phaseward.monitor.rail_model import RailModel, phase_power
+from phaseward.monitor.screening import screen
+from phaseward.physics.capacity import remaining_capacity
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c, time_to_limit_s
 
 F64 = npt.NDArray[np.float64]
@@ -37,12 +37,6 @@ class Assessment:
 
     def as_dict(self) -> dict[str, Any]:
         return dict(self.__dict__)
-
-
-def phase_power(model: RailModel, current_a: F64, active: npt.NDArray[np.bool_]) -> tuple[F64, F64]:
-    """Loss of each phase as p0 + slope*T; an isolated phase dissipates nothing."""
-    p0, slope = loss_coefficients(model.losses, np.where(active, np.abs(current_a), 0.0))
-    return np.where(active, p0, 0.0), np.where(active, slope, 0.0)
 
 
 def assess(
@@ -70,7 +64,10 @@ def assess(
     kind = str(cap.binding_kind[0])
     binding_phase = int(cap.binding_phase[0]) if kind != "none" else None
 
-    n1_secure, weakest = _screen(model, active, weights, ambient_c, load)
+    n1 = screen(
+        model, active=active, weights=weights, load_a=load, nodes_c=nodes_c,
+        ambient_c=ambient_c, depth=1,
+    )  # fmt: skip
 
     current = np.where(np.isfinite(current_a), current_a, 0.0)
     p0, slope = phase_power(model, current, active)
@@ -93,7 +90,7 @@ def assess(
         condition = "overloaded"
     elif not active.all():
         condition = "degraded"
-    elif not n1_secure:
+    elif not n1.secure:
         condition = "exposed"
     else:
         condition = "nominal"
@@ -103,29 +100,10 @@ def assess(
         capacity_a=capacity,
         binding_phase=binding_phase,
         binding=kind,
-        n1_secure=n1_secure,
-        n1_weakest=weakest,
+        n1_secure=n1.secure,
+        n1_weakest=n1.rows()[:3],
         steady_junction_c=steady_j,
         runaway=runaway,
         time_to_limit_s=ttl_value,
         limit_phase=crossing.phase if ttl_value is not None else None,
     )
-
-
-def _screen(
-    model: RailModel, active: npt.NDArray[np.bool_], weights: F64, ambient_c: float, load: float
-) -> tuple[bool, list[dict[str, Any]]]:
-    """N-1 screening: the capacity left after losing each active phase, in one call."""
-    if active.sum() < 1:
-        return False, []
-    masks, lost = loss_cases(model.n_phases, 1, active=active)
-    cases = remaining_capacity(
-        model.network, model.losses,
-        active=masks, weights=weights, rated_current_a=model.rated_current_a,
-        temp_limit_c=model.temp_limit_c, ambient_c=ambient_c,
-    )  # fmt: skip
-    order = np.argsort(cases.capacity_a)
-    weakest = [
-        {"lose_phase": int(lost[j, 0]), "capacity_a": float(cases.capacity_a[j])} for j in order[:3]
-    ]
-    return bool((cases.capacity_a >= load).all()), weakest

@@ -20,9 +20,9 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.errors import Conflict, InvalidInput, NotFound, PhasewardError
 from phaseward.monitor import rail_model
-from phaseward.monitor.assess import Assessment, assess, phase_power
+from phaseward.monitor.assess import Assessment, assess
 from phaseward.monitor.conditions import PHASE_CONDITIONS, Finding, Watch, judge
-from phaseward.monitor.rail_model import RailModel
+from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, to_batch
 from phaseward.physics.thermal import ThermalRunaway, simulate_c, steady_state_c
 from phaseward.store import events, rails, samples, state

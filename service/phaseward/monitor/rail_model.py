@@ -11,7 +11,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-from phaseward.physics.losses import PhaseLossParams
+from phaseward.physics.losses import PhaseLossParams, loss_coefficients
 from phaseward.physics.thermal import (
     FosterStages,
     ThermalNetwork,
@@ -171,3 +171,9 @@ def _loss_params(spec: Mapping[str, Any], phases: list[dict[str, Any]]) -> Phase
         table_tc_per_k=col(table_meta, "tc_per_k", 0.0),
         uses_table=uses_table,
     )
+
+
+def phase_power(model: RailModel, current_a: F64, active: npt.NDArray[np.bool_]) -> tuple[F64, F64]:
+    """Loss of each phase as p0 + slope*T; an isolated phase dissipates nothing."""
+    p0, slope = loss_coefficients(model.losses, np.where(active, np.abs(current_a), 0.0))
+    return np.where(active, p0, 0.0), np.where(active, slope, 0.0)

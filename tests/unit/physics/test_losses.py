@@ -147,12 +147,14 @@ def test_zero_dcr_is_allowed() -> None:
 
 TABLE_A = [0.0, 10.0, 20.0, 30.0]
 TABLE_W = [0.5, 1.0, 2.0, 3.5]
+SHORT_A = [0.0, 40.0, np.nan, np.nan]  # a NaN-padded row
+SHORT_W = [0.2, 4.2, np.nan, np.nan]
 
 
 def table_params(**changes: Any) -> PhaseLossParams:
     base = POINT | {
-        "table_current_a": [TABLE_A, [0.0, 40.0, np.nan, np.nan]],
-        "table_loss_w": [TABLE_W, [0.2, 4.2, np.nan, np.nan]],
+        "table_current_a": [TABLE_A, SHORT_A],
+        "table_loss_w": [TABLE_W, SHORT_W],
         "table_ref_c": 25.0,
         "table_tc_per_k": 0.003,
     }
@@ -174,8 +176,8 @@ def test_table_interpolates_and_extrapolates_linearly() -> None:
 
 def test_table_extrapolation_below_the_first_point_is_clipped_at_zero() -> None:
     p = table_params(
-        table_current_a=[[10.0, 20.0, 30.0, np.nan], [0.0, 40.0, np.nan, np.nan]],
-        table_loss_w=[[0.2, 1.2, 2.2, np.nan], [0.2, 4.2, np.nan, np.nan]],
+        table_current_a=[[10.0, 20.0, 30.0, np.nan], SHORT_A],
+        table_loss_w=[[0.2, 1.2, 2.2, np.nan], SHORT_W],
     )
     loss = phase_losses(p, [[5.0, 0.0], [0.0, 0.0]], 25.0)
     np.testing.assert_allclose(loss.stage_table_w[:, 0], [0.0, 0.0], atol=1e-15)
@@ -198,12 +200,12 @@ def test_mixed_table_and_formula_phases() -> None:
 @pytest.mark.parametrize(
     ("change", "message"),
     [
-        ({"table_current_a": [[0.0, 10.0, 5.0, 30.0], TABLE_A]}, "increasing"),
-        ({"table_current_a": [[0.0, np.nan, 5.0, 30.0], TABLE_A]}, "NaN only at the end"),
-        ({"table_current_a": [[0.0, np.nan, np.nan, np.nan], TABLE_A]}, ">= 2 points"),
-        ({"table_loss_w": [[0.5, 1.0, 2.0, np.nan], TABLE_W]}, "table_loss_w"),
-        ({"table_loss_w": [[0.5, -1.0, 2.0, 3.0], TABLE_W]}, "table_loss_w"),
-        ({"table_loss_w": [[0.5, np.inf, 2.0, 3.0], TABLE_W]}, "table_loss_w"),
+        ({"table_current_a": [[0.0, 10.0, 5.0, 30.0], SHORT_A]}, "increasing"),
+        ({"table_current_a": [[0.0, np.nan, 5.0, 30.0], SHORT_A]}, "NaN only at the end"),
+        ({"table_current_a": [[0.0, np.nan, np.nan, np.nan], SHORT_A]}, ">= 2 points"),
+        ({"table_loss_w": [[0.5, 1.0, 2.0, np.nan], SHORT_W]}, "table_loss_w"),
+        ({"table_loss_w": [[0.5, -1.0, 2.0, 3.0], SHORT_W]}, "table_loss_w"),
+        ({"table_loss_w": [[0.5, np.inf, 2.0, 3.0], SHORT_W]}, "table_loss_w"),
     ],
 )
 def test_invalid_tables(change: dict[str, Any], message: str) -> None:

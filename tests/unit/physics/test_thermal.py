@@ -230,7 +230,9 @@ def test_single_node_zero_order_hold_recursion() -> None:
     # T_{k+1} = T_amb + (T_k - T_amb) a + (p0 + s T_k) R (1 - a), a = exp(-dt / RC)
     r, c, dt, p0, s = 2.0, 3.0, 0.5, 4.0, 0.1
     one = ThermalNetwork(np.zeros((1, 1)), np.array([c]), np.array([1.0 / r]), np.array([0]), 0)
-    temps = simulate_c(one, [30.0], dt, np.full((50, 1), p0), np.full((50, 1), s), 20.0)
+    temps = simulate_c(
+        one, [30.0], dt, np.full((50, 1), p0), np.full((50, 1), s), 20.0, tol_k=1e-12
+    )
     a = np.exp(-dt / (r * c))
     expected = [30.0]
     for _ in range(50):
@@ -255,7 +257,7 @@ def test_ambient_trace_equals_constant_ambient() -> None:
     trace = simulate_c(net, np.full(7, 25.0), 0.1, p0, slope, np.full(30, 25.0))
     np.testing.assert_allclose(trace, const, rtol=1e-13)
     warmer = simulate_c(net, np.full(7, 25.0), 0.1, p0, slope, np.linspace(25.0, 35.0, 30))
-    assert np.all(warmer[1:, -1] > const[1:, -1])
+    assert np.all(warmer[2:, -1] > const[2:, -1])  # the first step still sees 25 degC
 
 
 def test_diverging_feedback_raises() -> None:
@@ -283,7 +285,7 @@ def test_simulation_argument_checks() -> None:
 
 def test_time_to_limit_lands_on_the_limit() -> None:
     net = network()
-    p0, limit = np.array([3.0, 4.0, 2.0]), np.array([90.0, 80.0, 95.0])
+    p0, limit = np.array([3.0, 4.0, 2.0]), np.array([45.0, 58.0, 40.0])  # settle 48, 61, 43
     hit = time_to_limit_s(net, np.full(7, 25.0), p0, np.zeros(3), 25.0, limit)
     assert np.isfinite(hit.time_s)
     assert not hit.runaway

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pydantic import BaseModel, Field
 
+from phaseward.api.schemas.analyses import ScreeningCase
 from phaseward.api.schemas.common import CAUTION
 
 
@@ -51,14 +52,9 @@ class ThermalStatus(BaseModel):
     model_nodes_c: list[float]
 
 
-class WeakLoss(BaseModel):
-    lose_phase: int
-    capacity_a: float
-
-
 class Screening(BaseModel):
     n1_secure: bool = Field(description="any single further loss leaves capacity for the load")
-    weakest: list[WeakLoss]
+    weakest: list[ScreeningCase] = Field(description="the three weakest single losses")
 
 
 class RailStatus(BaseModel):

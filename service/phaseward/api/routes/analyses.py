@@ -1,0 +1,83 @@
+"""Degraded-mode analyses of one rail."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+import numpy as np
+import numpy.typing as npt
+from fastapi import APIRouter, Query
+
+from phaseward.api.deps import ReadSessionDep
+from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.routes.rails import RailId
+from phaseward.api.schemas.analyses import ForecastIn, ForecastOut, LoadProfile, ScreeningOut
+from phaseward.errors import InvalidInput
+from phaseward.monitor.forecast import Drop, forecast
+from phaseward.monitor.live import live_rail
+from phaseward.monitor.screening import screen
+
+router = APIRouter(prefix="/v1/rails", tags=["analyses"], responses=ERROR_RESPONSES)
+F64 = npt.NDArray[np.float64]
+
+
+@router.get("/{rail_id}/screening")
+def get_screening(
+    rail_id: RailId,
+    session: ReadSessionDep,
+    depth: Annotated[int, Query(ge=1, le=2, description="1: every single loss, 2: every pair")] = 1,
+) -> ScreeningOut:
+    live = live_rail(session, rail_id)
+    result = screen(
+        live.model, active=live.active, weights=live.weights, load_a=live.load_a,
+        nodes_c=live.nodes_c, ambient_c=live.ambient_c, depth=depth,
+    )  # fmt: skip
+    rows = result.rows()
+    return ScreeningOut.model_validate(
+        {
+            "rail_id": rail_id,
+            "version": live.model.version,
+            "depth": depth,
+            "load_a": live.load_a,
+            "secure": result.secure,
+            "overloading": [r["lose_phases"] for r in rows if r["overloads"]],
+            "cases": rows,
+        }
+    )
+
+
+def _profile(load: LoadProfile | None, present_a: float) -> tuple[F64, F64, bool]:
+    """(times, currents, stepwise) of the profile."""
+    if load is None or load.constant_a is not None:
+        value = present_a if load is None or load.constant_a is None else load.constant_a
+        return np.zeros(1), np.array([value]), True
+    rows = load.steps if load.steps is not None else load.points
+    assert rows is not None  # the schema guarantees one shape
+    times = np.array([r.at_s for r in rows])
+    return times, np.array([r.current_a for r in rows]), load.steps is not None
+
+
+@router.post("/{rail_id}/forecast")
+def post_forecast(rail_id: RailId, body: ForecastIn, session: ReadSessionDep) -> ForecastOut:
+    live = live_rail(session, rail_id)
+    for k, d in enumerate(body.drop):
+        if d.phase >= live.model.n_phases:
+            raise InvalidInput(
+                f"phase {d.phase} is out of range for {live.model.n_phases} phases",
+                field=f"drop[{k}].phase",
+            )
+    times, values, stepwise = _profile(body.load, live.load_a)
+
+    def load_at(t: F64) -> F64:
+        if stepwise:
+            at = np.searchsorted(times, t, side="right") - 1
+            return values[np.clip(at, 0, None)]
+        return np.interp(t, times, values)
+
+    result = forecast(
+        live, load_at=load_at, drops=[Drop(d.phase, d.at_s) for d in body.drop],
+        horizon_s=body.horizon_s, points=body.points, ambient_c=body.ambient_c,
+    )  # fmt: skip
+    return ForecastOut.model_validate(
+        {"rail_id": rail_id, "version": live.model.version, "start_s": live.t_s, **result}
+    )

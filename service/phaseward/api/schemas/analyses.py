@@ -1,0 +1,98 @@
+"""Degraded-mode analyses: screening, forecast."""
+
+from __future__ import annotations
+
+from itertools import pairwise
+from typing import Annotated, Self
+
+from pydantic import BaseModel, Field, model_validator
+
+from phaseward.api.schemas.common import CAUTION, Celsius, Contract, NonNegative
+
+MAX_HORIZON_S = 24 * 3600.0
+
+
+class ScreeningCase(BaseModel):
+    lose_phases: list[int]
+    capacity_a: float
+    headroom_a: float = Field(description="capacity minus the present load")
+    binding_phase: int | None
+    binding: str
+    steady_hottest_c: float | None = Field(description="None: no steady state (runaway)")
+    runaway: bool
+    time_to_limit_s: float | None = Field(description="None: not within the forecast horizon")
+    limit_phase: int | None
+    overloads: bool
+
+
+class ScreeningOut(BaseModel):
+    rail_id: str
+    version: int
+    depth: int
+    load_a: float
+    secure: bool = Field(description="no case overloads the rail")
+    overloading: list[list[int]] = Field(description="the losses that would overload the rail")
+    cases: list[ScreeningCase] = Field(description="weakest first")
+    caution: str = CAUTION
+
+
+class LoadPoint(Contract):
+    at_s: NonNegative
+    current_a: NonNegative
+
+
+class LoadProfile(Contract):
+    """Exactly one of: a constant, steps (each value holds until the next), or points
+    (linear in between); before the first and after the last point the end value holds."""
+
+    constant_a: NonNegative | None = None
+    steps: list[LoadPoint] | None = Field(default=None, min_length=1, max_length=10_000)
+    points: list[LoadPoint] | None = Field(default=None, min_length=1, max_length=10_000)
+
+    @model_validator(mode="after")
+    def _one_shape(self) -> Self:
+        given = [x is not None for x in (self.constant_a, self.steps, self.points)]
+        if sum(given) != 1:
+            raise ValueError("give exactly one of constant_a, steps or points")
+        for name in ("steps", "points"):
+            rows = getattr(self, name)
+            if rows and any(b.at_s <= a.at_s for a, b in pairwise(rows)):
+                raise ValueError(f"{name} must be in increasing at_s")
+        return self
+
+
+class PhaseDrop(Contract):
+    phase: Annotated[int, Field(ge=0, le=63)]
+    at_s: NonNegative = 0.0
+
+
+class ForecastIn(Contract):
+    load: LoadProfile | None = Field(default=None, description="default: the present load")
+    drop: list[PhaseDrop] = Field(default_factory=list, max_length=64)
+    horizon_s: Annotated[float, Field(gt=0, le=MAX_HORIZON_S)] = 3600.0
+    points: Annotated[int, Field(ge=10, le=20_000)] = 500
+    ambient_c: Celsius | None = None
+
+
+class Peak(BaseModel):
+    time_s: float
+    phase: int
+    temp_c: float
+
+
+class ForecastOut(BaseModel):
+    rail_id: str
+    version: int
+    start_s: float | None = Field(description="time of the state the forecast starts from")
+    dt_s: float
+    time_s: list[float]
+    junction_c: list[list[float]] = Field(description="per row, one value per phase")
+    board_c: list[float]
+    load_a: list[float]
+    peak: Peak | None
+    time_to_limit_s: float | None = Field(description="first time any junction reaches its limit")
+    limit_phase: int | None
+    steady_junction_c: list[float] | None
+    margin_k: float | None = Field(description="smallest distance to a limit over the horizon")
+    runaway: bool
+    caution: str = CAUTION

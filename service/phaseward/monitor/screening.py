@@ -1,0 +1,124 @@
+"""N-1 (and N-2) screening: what losing each further phase, or pair, would leave."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from phaseward.monitor.rail_model import RailModel, phase_power
+from phaseward.physics.capacity import loss_cases, remaining_capacity
+from phaseward.physics.thermal import steady_state_c, time_to_limit_batch_s
+
+F64 = npt.NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class Screening:
+    """One row per case, (n_cases,) arrays; ``lost`` is (n_cases, depth)."""
+
+    depth: int
+    load_a: float
+    lost: npt.NDArray[np.intp]
+    capacity_a: F64
+    binding_phase: npt.NDArray[np.intp]
+    binding: npt.NDArray[np.str_]
+    steady_hottest_c: F64  # NaN: no steady state (thermal runaway)
+    runaway: npt.NDArray[np.bool_]
+    time_to_limit_s: F64  # inf: not within the horizon
+    limit_phase: npt.NDArray[np.intp]
+
+    @property
+    def headroom_a(self) -> F64:
+        return self.capacity_a - self.load_a
+
+    @property
+    def secure(self) -> bool:
+        """No case overloads: capacity covers the load and no limit is forecast."""
+        failing = (self.headroom_a < 0) | self.runaway | np.isfinite(self.time_to_limit_s)
+        return bool(self.lost.shape[0] > 0 and not failing.any())
+
+    def rows(self) -> list[dict[str, Any]]:
+        order = np.argsort(self.capacity_a, kind="stable")
+        return [
+            {
+                "lose_phases": self.lost[j].tolist(),
+                "capacity_a": float(self.capacity_a[j]),
+                "headroom_a": float(self.headroom_a[j]),
+                "binding_phase": int(self.binding_phase[j]) if self.binding[j] != "none" else None,
+                "binding": str(self.binding[j]),
+                "steady_hottest_c": _finite_or_none(self.steady_hottest_c[j]),
+                "runaway": bool(self.runaway[j]),
+                "time_to_limit_s": _finite_or_none(self.time_to_limit_s[j]),
+                "limit_phase": int(self.limit_phase[j]) if self.limit_phase[j] >= 0 else None,
+                "overloads": bool(
+                    self.headroom_a[j] < 0
+                    or self.runaway[j]
+                    or np.isfinite(self.time_to_limit_s[j])
+                ),
+            }
+            for j in order
+        ]
+
+
+def _finite_or_none(x: float) -> float | None:
+    return float(x) if np.isfinite(x) else None
+
+
+def screen(
+    model: RailModel,
+    *,
+    active: npt.NDArray[np.bool_],
+    weights: F64,
+    load_a: float,
+    nodes_c: F64,
+    ambient_c: float,
+    depth: int,
+) -> Screening:
+    """Lose every ``depth``-combination of the active phases now, at the present load.
+
+    The survivors take the load in proportion to their learned sharing weights; each case's
+    capacity, steady state and time to the limit (from the present node temperatures) come
+    from one batched call of each kernel.
+    """
+    masks, lost = loss_cases(model.n_phases, depth, active=active)
+    if masks.shape[0] == 0:  # fewer active phases than the depth asks to lose
+        none = np.empty(0)
+        return Screening(
+            depth=depth, load_a=float(load_a), lost=lost, capacity_a=none,
+            binding_phase=none.astype(np.intp), binding=none.astype(np.str_),
+            steady_hottest_c=none, runaway=none.astype(bool), time_to_limit_s=none,
+            limit_phase=none.astype(np.intp),
+        )  # fmt: skip
+    cap = remaining_capacity(
+        model.network, model.losses, active=masks, weights=weights,
+        rated_current_a=model.rated_current_a, temp_limit_c=model.temp_limit_c,
+        ambient_c=ambient_c,
+    )  # fmt: skip
+    share = np.where(masks, weights, 0.0)
+    total = share.sum(axis=1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        current = np.where(total > 0, load_a * share / total, 0.0)
+    p0, slope = phase_power(model, current, masks)
+    steady, runaway = steady_state_c(model.network, p0, slope, ambient_c, runaway="flag")
+    junction = steady[:, model.network.junction_node]
+    hottest = np.where(runaway, np.nan, np.where(masks, junction, -np.inf).max(axis=1))
+    limits = np.where(masks, model.temp_limit_c, np.inf)
+    crossing = time_to_limit_batch_s(
+        model.network, nodes_c, p0, slope, ambient_c, limits,
+        horizon_s=model.rules.forecast_horizon_s,
+    )  # fmt: skip
+    return Screening(
+        depth=depth,
+        load_a=float(load_a),
+        lost=lost,
+        capacity_a=cap.capacity_a,
+        binding_phase=cap.binding_phase,
+        binding=cap.binding_kind,
+        steady_hottest_c=np.where(np.isfinite(hottest), hottest, np.nan),
+        runaway=runaway | crossing.runaway,
+        time_to_limit_s=crossing.time_s,
+        limit_phase=crossing.phase,
+    )

@@ -1,0 +1,449 @@
+"""Junction temperature estimation: a Kalman filter over the coupled thermal network.
+
+Temperature sensors sit beside the junctions and sample slowly; the filter tracks every node
+of a :class:`~phaseward.physics.thermal.ThermalNetwork` from the phase losses and the readings.
+
+State
+-----
+x (n_states,) in degC: the n_nodes node temperatures of the network, followed -- when a sensor
+lag is modelled -- by one sensor temperature per phase that follows its junction as a
+first-order lag, dT_s/dt = (T_j - T_s) / tau_sensor. In continuous time
+
+    dx/dt = Ac x + Bc [P; T_amb],
+    Ac = [[-C^-1 (G + diag(g_amb)), 0], [S / tau, -I / tau]],   Bc = [[C^-1 E, C^-1 g_amb], [0, 0]]
+
+(E places phase values at junction nodes, S picks the junction of each phase).
+
+Discretisation
+--------------
+Over a constant step dt with the inputs held (zero-order hold) the block exponential
+``expm([[Ac, Bc], [0, 0]] dt) = [[F, Bd], [0, I]]`` gives the exact step (Van Loan, "Computing
+integrals involving the matrix exponential", IEEE Trans. Automatic Control 23(3), 1978; the
+construction behind ``scipy.signal.cont2discrete(method="zoh")``). F, Bd are computed once per
+(network, dt, sensor lag) and cached.
+
+Loss feedback (the choice made here): the loss of step k is evaluated at the junction
+temperature at the start of the step and held over it, P_k = p0_k + s_k T_j(t_k) -- the same
+hold as :func:`~phaseward.physics.thermal.simulate_c`. The loss is affine in T_j, so this is
+not a linearisation: the transition of step k is exactly
+
+    x_{k+1} = F_k x_k + Bp p0_k + ba T_amb,k + w_k,   F_k = F + Bp diag(s_k) S,
+
+a rank-n_phases change of the cached F (Bp, ba: the loss and ambient columns of Bd).
+
+Noise
+-----
+Process noise: the unmodelled part of each phase loss, a zero-mean random power held over each
+step with standard deviation ``process_noise_w`` (piecewise-constant white noise; Bar-Shalom,
+Li and Kirubarajan, *Estimation with Applications to Tracking and Navigation*, ch. 6, from
+memory), so Q = Bp diag(sigma_w^2) Bp^T in K^2. Measurement: the reading of phase p taken at
+the end of step k is y = T_sensor,p(t_{k+1}) + offset_p + v, v ~ N(0, sensor_noise_k^2), where
+the sensor temperature is the junction node itself, or the phase's lag state when
+``sensor_tau_s`` is given. A NaN reading drops that phase's row of H for the step.
+
+Each step predicts over [t_k, t_{k+1}] and then updates with the readings of row k; the
+covariance update is in Joseph form, (I - K H) P (I - K H)^T + K R K^T, then symmetrised.
+
+Failure policy: invalid arguments raise ValueError naming the argument; an estimate that
+leaves float64 range (the loss feedback grows without bound) raises
+:class:`~phaseward.physics.thermal.ThermalRunaway`.
+"""
+
+from dataclasses import dataclass
+from functools import lru_cache
+from typing import NamedTuple
+
+import numpy as np
+import numpy.typing as npt
+from scipy import linalg
+
+from phaseward.physics.thermal import ThermalNetwork, ThermalRunaway
+
+FloatArray = npt.NDArray[np.float64]
+IntArray = npt.NDArray[np.intp]
+
+_SYMMETRY_RTOL = 1e-9  # relative asymmetry tolerated in a supplied covariance (rounding only)
+
+
+def _array(
+    name: str,
+    value: npt.ArrayLike,
+    shape: tuple[int, ...],
+    *,
+    positive: bool = False,
+    nonnegative: bool = False,
+    allow_nan: bool = False,
+) -> FloatArray:
+    """``value`` broadcast to ``shape`` as a float64 copy; ValueError naming ``name``."""
+    arr = np.array(value, dtype=np.float64)
+    try:
+        arr = np.array(np.broadcast_to(arr, shape))
+    except ValueError:
+        raise ValueError(f"{name} must broadcast to shape {shape}") from None
+    bad = np.isinf(arr) if allow_nan else ~np.isfinite(arr)
+    if np.any(bad):
+        raise ValueError(f"{name} must be finite" + (" (NaN marks a missing value)" * allow_nan))
+    if positive and not np.all(arr > 0.0):
+        raise ValueError(f"{name} must be > 0")
+    if nonnegative and not np.all(arr >= 0.0):
+        raise ValueError(f"{name} must be >= 0")
+    return arr
+
+
+def _readonly(arr: FloatArray) -> FloatArray:
+    arr.setflags(write=False)
+    return arr
+
+
+@dataclass(frozen=True, eq=False)
+class EstimatorState:
+    """Gaussian estimate of the state: mean in degC and covariance in K^2.
+
+    mean_c: (n_states,); cov_k2: (n_states, n_states), symmetric positive semi-definite.
+    n_states = n_nodes, or n_nodes + n_phases with sensor-lag states (see the module docstring).
+    Arrays are stored as read-only copies.
+
+    >>> s = EstimatorState(np.array([25.0, 25.0]), np.eye(2))
+    >>> s.n_states, s.mean_c.flags.writeable
+    (2, False)
+    """
+
+    mean_c: FloatArray
+    cov_k2: FloatArray
+
+    def __post_init__(self) -> None:
+        mean = np.array(self.mean_c, dtype=np.float64)
+        if mean.ndim != 1 or mean.size == 0 or not np.all(np.isfinite(mean)):
+            raise ValueError("mean_c must be a finite array of shape (n_states,)")
+        n = mean.size
+        if np.ndim(self.cov_k2) != 2:
+            raise ValueError(f"cov_k2 must have shape (n_states, n_states) = ({n}, {n})")
+        cov = _array("cov_k2", self.cov_k2, (n, n))
+        scale = float(np.abs(cov).max(initial=0.0))
+        if np.any(np.abs(cov - cov.T) > _SYMMETRY_RTOL * scale) or np.any(np.diag(cov) < 0.0):
+            raise ValueError("cov_k2 must be symmetric with a non-negative diagonal")
+        object.__setattr__(self, "mean_c", _readonly(mean))
+        object.__setattr__(self, "cov_k2", _readonly(0.5 * (cov + cov.T)))
+
+    @property
+    def n_states(self) -> int:
+        """Number of states."""
+        return int(self.mean_c.size)
+
+
+@dataclass(frozen=True, eq=False)
+class DiscreteModel:
+    """The filter's model for one network, step and sensor set-up; build it with
+    :func:`discrete_model`.
+
+    transition: (n_states, n_states) F of the loss-free network (loss slope enters per step).
+    loss_input_k_per_w: (n_states, n_phases) Bp, temperature change per watt held over a step.
+    ambient_input: (n_states,) ba, temperature change per kelvin of ambient held over a step.
+    process_cov_k2: (n_states, n_states) Q.
+    junction_state: (n_phases,) state index of each junction (the network's junction nodes).
+    sensor_state: (n_phases,) state index each phase's reading observes.
+    sensor_var_k2: (n_phases,) reading noise variance; sensor_offset_k: (n_phases,) offset.
+    dt_s: the step.
+    """
+
+    transition: FloatArray
+    loss_input_k_per_w: FloatArray
+    ambient_input: FloatArray
+    process_cov_k2: FloatArray
+    junction_state: IntArray
+    sensor_state: IntArray
+    sensor_var_k2: FloatArray
+    sensor_offset_k: FloatArray
+    dt_s: float
+
+    @property
+    def n_states(self) -> int:
+        """Number of states."""
+        return int(self.ambient_input.size)
+
+    @property
+    def n_phases(self) -> int:
+        """Number of phases."""
+        return int(self.junction_state.size)
+
+
+@lru_cache(maxsize=32)
+def _discretise(
+    net: ThermalNetwork, dt_s: float, sensor_tau_s: tuple[float, ...] | None
+) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """(F, Bp, ba) of the zero-order-hold step (module docstring); read-only, cached.
+
+    ``net`` hashes by identity (the network is immutable), so a network reused across calls
+    reuses its matrices.
+    """
+    n, n_ph = net.n_nodes, net.n_phases
+    n_lag = 0 if sensor_tau_s is None else n_ph
+    size = n + n_lag
+    inv_c = 1.0 / net.capacitance_j_per_k
+    block = np.zeros((size + n_ph + 1, size + n_ph + 1))
+    a = net.conductance_w_per_k + np.diag(net.ambient_conductance_w_per_k)
+    block[:n, :n] = -inv_c[:, None] * a
+    block[net.junction_node, size + np.arange(n_ph)] = inv_c[net.junction_node]
+    block[:n, size + n_ph] = inv_c * net.ambient_conductance_w_per_k
+    if sensor_tau_s is not None:
+        rate = 1.0 / np.array(sensor_tau_s)
+        lag = n + np.arange(n_ph)
+        block[lag, net.junction_node] = rate
+        block[lag, lag] = -rate
+    step = linalg.expm(block * dt_s)
+    return (
+        _readonly(np.ascontiguousarray(step[:size, :size])),
+        _readonly(np.ascontiguousarray(step[:size, size : size + n_ph])),
+        _readonly(np.ascontiguousarray(step[:size, size + n_ph])),
+    )
+
+
+def _n_states(net: ThermalNetwork, sensor_lag: bool) -> int:
+    return net.n_nodes + (net.n_phases if sensor_lag else 0)
+
+
+def discrete_model(
+    net: ThermalNetwork,
+    dt_s: float,
+    *,
+    process_noise_w: npt.ArrayLike,
+    sensor_noise_k: npt.ArrayLike,
+    sensor_tau_s: npt.ArrayLike | None = None,
+    sensor_offset_k: npt.ArrayLike = 0.0,
+) -> DiscreteModel:
+    """Filter model over a constant step ``dt_s`` > 0 (s); see the module docstring.
+
+    process_noise_w: float or (n_phases,) >= 0, std of the unmodelled loss, W.
+    sensor_noise_k: float or (n_phases,) > 0, std of a reading, K.
+    sensor_tau_s: None (the sensor reads the junction node) or float / (n_phases,) > 0, the
+        sensor's first-order lag time constant in s (adds one state per phase).
+    sensor_offset_k: float or (n_phases,), reading minus the sensed temperature, K.
+
+    >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
+    >>> net = build_coupled_network([CauerStages(np.array([2.0]), np.array([0.5]))],
+    ...                             board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> m = discrete_model(net, 1.0, process_noise_w=0.1, sensor_noise_k=0.5, sensor_tau_s=3.0)
+    >>> m.n_states, m.sensor_state.tolist()
+    (3, [2])
+    >>> print(f"{m.transition[2, 2]:.4f}")  # the lag state alone decays as exp(-1/3)
+    0.7165
+    """
+    dt = float(_array("dt_s", dt_s, (), positive=True))
+    n_ph = net.n_phases
+    noise_w = _array("process_noise_w", process_noise_w, (n_ph,), nonnegative=True)
+    noise_k = _array("sensor_noise_k", sensor_noise_k, (n_ph,), positive=True)
+    offset = _array("sensor_offset_k", sensor_offset_k, (n_ph,))
+    tau = None
+    if sensor_tau_s is not None:
+        tau = tuple(_array("sensor_tau_s", sensor_tau_s, (n_ph,), positive=True).tolist())
+    transition, loss_input, ambient_input = _discretise(net, dt, tau)
+    lag = tau is not None
+    sensor_state = (net.n_nodes + np.arange(n_ph)) if lag else net.junction_node.copy()
+    scaled = loss_input * noise_w
+    return DiscreteModel(
+        transition=transition,
+        loss_input_k_per_w=loss_input,
+        ambient_input=ambient_input,
+        process_cov_k2=_readonly(scaled @ scaled.T),
+        junction_state=net.junction_node,
+        sensor_state=np.asarray(sensor_state, dtype=np.intp),
+        sensor_var_k2=_readonly(noise_k**2),
+        sensor_offset_k=_readonly(offset),
+        dt_s=dt,
+    )
+
+
+def initial_state(
+    net: ThermalNetwork,
+    temps_c: npt.ArrayLike,
+    *,
+    std_k: npt.ArrayLike,
+    sensor_lag: bool = False,
+) -> EstimatorState:
+    """Uncorrelated starting estimate: node temperatures ``temps_c`` with std ``std_k``.
+
+    temps_c: float (every node) or (n_nodes,) degC; std_k: float or (n_nodes,) >= 0, K.
+    With ``sensor_lag`` the phases' sensor states are appended, each starting at its
+    junction's mean and std (use it with ``sensor_tau_s`` in :func:`kalman_run`).
+
+    >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
+    >>> net = build_coupled_network([CauerStages(np.array([2.0]), np.array([0.5]))],
+    ...                             board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> s = initial_state(net, [30.0, 26.0], std_k=2.0, sensor_lag=True)
+    >>> s.mean_c.tolist(), np.diag(s.cov_k2).tolist()
+    ([30.0, 26.0, 30.0], [4.0, 4.0, 4.0])
+    """
+    mean = _array("temps_c", temps_c, (net.n_nodes,))
+    std = _array("std_k", std_k, (net.n_nodes,), nonnegative=True)
+    if sensor_lag:
+        mean = np.concatenate([mean, mean[net.junction_node]])
+        std = np.concatenate([std, std[net.junction_node]])
+    return EstimatorState(mean, np.diag(std**2))
+
+
+def _predict(
+    model: DiscreteModel,
+    mean: FloatArray,
+    cov: FloatArray,
+    slope_w_per_k: FloatArray,
+    drive_c: FloatArray,
+) -> tuple[FloatArray, FloatArray]:
+    """One prediction: F_k = F + Bp diag(s_k) S; ``drive_c`` = Bp p0_k + ba T_amb,k."""
+    f = np.array(model.transition)
+    f[:, model.junction_state] += model.loss_input_k_per_w * slope_w_per_k
+    return f @ mean + drive_c, f @ cov @ f.T + model.process_cov_k2
+
+
+def _update(
+    model: DiscreteModel, mean: FloatArray, cov: FloatArray, reading_c: FloatArray
+) -> tuple[FloatArray, FloatArray]:
+    """Measurement update with the finite readings (n_phases,) only; Joseph form."""
+    seen = np.isfinite(reading_c)
+    if not np.any(seen):
+        return mean, cov
+    rows = model.sensor_state[seen]
+    var = model.sensor_var_k2[seen]
+    innovation_cov = cov[np.ix_(rows, rows)] + np.diag(var)
+    # K = P H^T S^-1 with H picking ``rows``: P H^T = P[:, rows], and S is symmetric.
+    gain = linalg.solve(innovation_cov, cov[rows], assume_a="pos").T
+    innovation = reading_c[seen] - model.sensor_offset_k[seen] - mean[rows]
+    keep = np.eye(mean.size)
+    keep[:, rows] -= gain
+    cov = keep @ cov @ keep.T + (gain * var) @ gain.T
+    return mean + gain @ innovation, 0.5 * (cov + cov.T)
+
+
+def _check_state(model: DiscreteModel, state: EstimatorState) -> None:
+    if state.n_states != model.n_states:
+        raise ValueError(
+            f"state must have n_states = {model.n_states} for this model "
+            "(n_nodes, plus n_phases with a sensor lag)"
+        )
+
+
+def kalman_step(
+    model: DiscreteModel,
+    state: EstimatorState,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    measured_c: npt.ArrayLike,
+) -> EstimatorState:
+    """One step: predict over ``model.dt_s`` with the losses held, then update with readings.
+
+    p0_w (W), slope_w_per_k (W/K), measured_c (degC, NaN = no reading): (n_phases,);
+    ambient_c: degC held over the step. The readings are taken at the end of the step.
+
+    >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
+    >>> net = build_coupled_network([CauerStages(np.array([2.0]), np.array([0.5]))],
+    ...                             board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> m = discrete_model(net, 1.0, process_noise_w=0.0, sensor_noise_k=0.5)
+    >>> s = initial_state(net, 25.0, std_k=1.0)
+    >>> s = kalman_step(m, s, [2.0], [0.05], 25.0, [np.nan])  # no reading: prediction only
+    >>> np.round(s.mean_c, 3).tolist()  # 2 W + 0.05 W/K x 25 degC held for 1 s
+    [29.171, 25.217]
+    >>> s = kalman_step(m, s, [2.0], [0.05], 25.0, [29.0])
+    >>> print(f"{s.mean_c[0]:.3f} +- {np.sqrt(s.cov_k2[0, 0]):.3f} degC")
+    """
+    _check_state(model, state)
+    n_ph = model.n_phases
+    p0 = _array("p0_w", p0_w, (n_ph,))
+    slope = _array("slope_w_per_k", slope_w_per_k, (n_ph,))
+    ambient = float(_array("ambient_c", ambient_c, ()))
+    reading = _array("measured_c", measured_c, (n_ph,), allow_nan=True)
+    drive = model.loss_input_k_per_w @ p0 + model.ambient_input * ambient
+    mean, cov = _predict(model, state.mean_c, state.cov_k2, slope, drive)
+    mean, cov = _update(model, mean, cov, reading)
+    if not (np.all(np.isfinite(mean)) and np.all(np.isfinite(cov))):
+        raise ThermalRunaway("the estimate left float64 range", np.array(True))
+    return EstimatorState(mean, cov)
+
+
+class KalmanTrace(NamedTuple):
+    """Result of :func:`kalman_run` (unpacks as ``final, means_c, junction_std_k``).
+
+    final: the estimate after the last step; means_c: (n_steps + 1, n_states) degC, row 0 the
+    starting mean; junction_std_k: (n_steps + 1, n_phases) K, std of each junction estimate.
+    """
+
+    final: EstimatorState
+    means_c: FloatArray
+    junction_std_k: FloatArray
+
+
+def kalman_run(
+    net: ThermalNetwork,
+    state: EstimatorState,
+    dt_s: float,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: npt.ArrayLike,
+    measured_c: npt.ArrayLike,
+    *,
+    process_noise_w: npt.ArrayLike,
+    sensor_noise_k: npt.ArrayLike,
+    sensor_tau_s: npt.ArrayLike | None = None,
+    sensor_offset_k: npt.ArrayLike = 0.0,
+) -> KalmanTrace:
+    """Filter a trace of constant step ``dt_s``: step k predicts with the losses of row k held
+    over [t_k, t_{k+1}], then updates with the readings of row k (taken at t_{k+1}).
+
+    p0_w (W), slope_w_per_k (W/K), measured_c (degC, NaN = no reading): (n_steps, n_phases);
+    ambient_c: float or (n_steps,) degC held over each step; ``state``: the estimate at t_0
+    (:func:`initial_state`, with ``sensor_lag=True`` when ``sensor_tau_s`` is given). Noise
+    and sensor arguments as in :func:`discrete_model`. The recursion runs one small set of
+    matrix products per step; F, Bp, ba are cached per (network, dt, sensor lag).
+
+    >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
+    >>> net = build_coupled_network([CauerStages(np.array([2.0]), np.array([0.5]))],
+    ...                             board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> start = initial_state(net, 25.0, std_k=5.0, sensor_lag=True)
+    >>> n = 400  # 2 W held: the junction settles at 25 + 2 x (2 + 1) = 31 degC
+    >>> final, means, std = kalman_run(net, start, 0.5, np.full((n, 1), 2.0), np.zeros((n, 1)),
+    ...     25.0, np.full((n, 1), 31.0), process_noise_w=0.05, sensor_noise_k=0.3,
+    ...     sensor_tau_s=2.0)
+    >>> means.shape, std.shape, round(float(means[-1, 0]), 2), bool(std[-1, 0] < std[0, 0])
+    ((401, 3), (401, 1), 31.0, True)
+    """
+    model = discrete_model(
+        net,
+        dt_s,
+        process_noise_w=process_noise_w,
+        sensor_noise_k=sensor_noise_k,
+        sensor_tau_s=sensor_tau_s,
+        sensor_offset_k=sensor_offset_k,
+    )
+    _check_state(model, state)
+    if np.ndim(p0_w) != 2 or np.shape(p0_w)[0] == 0:
+        raise ValueError("p0_w must have shape (n_steps, n_phases) with n_steps >= 1")
+    shape = (np.shape(p0_w)[0], net.n_phases)
+    if np.shape(p0_w) != shape:
+        raise ValueError(f"p0_w must have shape (n_steps, n_phases) with n_phases={shape[1]}")
+    p0 = _array("p0_w", p0_w, shape)
+    for name, value in (("slope_w_per_k", slope_w_per_k), ("measured_c", measured_c)):
+        if np.shape(value) != shape:
+            raise ValueError(f"{name} must have the shape of p0_w, (n_steps, n_phases)")
+    slope = _array("slope_w_per_k", slope_w_per_k, shape)
+    reading = _array("measured_c", measured_c, shape, allow_nan=True)
+    if np.ndim(ambient_c) not in (0, 1):
+        raise ValueError("ambient_c must be a float or have shape (n_steps,)")
+    ambient = _array("ambient_c", ambient_c, shape[:1])
+    drive = p0 @ model.loss_input_k_per_w.T + ambient[:, None] * model.ambient_input
+    means = np.empty((shape[0] + 1, model.n_states))
+    variances = np.empty((shape[0] + 1, model.n_states))
+    mean, cov = np.array(state.mean_c), np.array(state.cov_k2)
+    means[0], variances[0] = mean, np.diag(cov)
+    with np.errstate(over="ignore", invalid="ignore"):
+        for k in range(shape[0]):
+            mean, cov = _predict(model, mean, cov, slope[k], drive[k])
+            mean, cov = _update(model, mean, cov, reading[k])
+            means[k + 1], variances[k + 1] = mean, np.diag(cov)
+    if not (np.all(np.isfinite(means)) and np.all(np.isfinite(cov))):
+        first = int(np.argmax(~np.all(np.isfinite(means), axis=1)))
+        raise ThermalRunaway(
+            f"the estimate left float64 range by step {first}: the loss feedback grows "
+            "without bound",
+            np.array(True),
+        )
+    junction_var = variances[:, model.junction_state]
+    return KalmanTrace(EstimatorState(mean, cov), means, np.sqrt(np.maximum(junction_var, 0.0)))

@@ -1,0 +1,120 @@
+"""Screening and forecast through the API."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import httpx
+import pytest
+from tests.factories import SMALL_RAIL, sample
+
+pytestmark = pytest.mark.anyio
+
+
+@pytest.fixture
+async def rail(client: httpx.AsyncClient) -> str:
+    assert (await client.post("/v1/rails", json=SMALL_RAIL)).status_code == 201
+    return "/v1/rails/bench-a"
+
+
+async def feed(client: httpx.AsyncClient, rail: str, per_phase: float, n: int = 3) -> None:
+    body = [sample(k, [per_phase] * 4) for k in range(n)]
+    assert (await client.post(f"{rail}/samples", json=body)).status_code == 200
+
+
+async def test_single_and_pair_screening(client: httpx.AsyncClient, rail: str) -> None:
+    await feed(client, rail, 16.0)
+    one = (await client.get(f"{rail}/screening")).json()
+    assert one["secure"] is True
+    assert one["load_a"] == pytest.approx(64.0)
+    assert sorted(c["lose_phases"][0] for c in one["cases"]) == [0, 1, 2, 3]
+    # Equal sharing, current-bound: (N - 1) x 30 A and (N - 2) x 30 A (common practice).
+    assert all(c["capacity_a"] == pytest.approx(90.0, rel=1e-5) for c in one["cases"])
+    two = (await client.get(f"{rail}/screening", params={"depth": 2})).json()
+    assert len(two["cases"]) == 6  # C(4, 2)
+    assert all(c["capacity_a"] == pytest.approx(60.0, rel=1e-5) for c in two["cases"])
+    assert two["secure"] is False  # 64 A is more than two phases carry
+    assert len(two["overloading"]) == 6
+    assert "monitoring aid" in two["caution"]
+
+
+async def test_screening_names_the_losses_that_overload(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    await feed(client, rail, 24.0)  # 96 A: more than any three phases can carry
+    result = (await client.get(f"{rail}/screening")).json()
+    assert result["secure"] is False
+    assert sorted(result["overloading"]) == [[0], [1], [2], [3]]
+    assert all(c["headroom_a"] == pytest.approx(-6.0, rel=1e-4) for c in result["cases"])
+
+
+async def test_screening_without_telemetry_uses_the_rated_load(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    result = (await client.get(f"{rail}/screening")).json()
+    assert result["load_a"] == SMALL_RAIL["load_a"]
+    assert result["secure"] is True  # 90 A fits on 3 x 30 A exactly, and thermally
+
+
+@pytest.mark.parametrize(
+    ("params", "code", "field"),
+    [({"depth": 3}, 422, "depth"), ({"depth": "x"}, 422, "depth")],
+)
+async def test_screening_bad_depth(
+    client: httpx.AsyncClient, rail: str, params: dict[str, Any], code: int, field: str
+) -> None:
+    answer = await client.get(f"{rail}/screening", params=params)
+    assert answer.status_code == code
+    assert answer.json()["field"] == field
+
+
+async def test_forecast_keeps_the_peak_when_decimating(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    await feed(client, rail, 10.0)
+    burst = {"steps": [{"at_s": 0, "current_a": 40}, {"at_s": 100, "current_a": 119},
+                       {"at_s": 130, "current_a": 40}]}  # fmt: skip
+    fine = (await client.post(f"{rail}/forecast", json={"load": burst, "horizon_s": 600,
+                                                         "points": 20000})).json()  # fmt: skip
+    coarse = (await client.post(f"{rail}/forecast", json={"load": burst, "horizon_s": 600,
+                                                           "points": 12})).json()  # fmt: skip
+    assert len(coarse["time_s"]) <= 12
+    hottest_fine = max(max(row) for row in fine["junction_c"])
+    assert max(max(row) for row in coarse["junction_c"]) == pytest.approx(hottest_fine, abs=1e-9)
+    assert coarse["peak"]["temp_c"] == pytest.approx(hottest_fine, abs=1e-9)
+    assert 100 < coarse["peak"]["time_s"] <= 131
+
+
+async def test_forecast_drop_and_limit(client: httpx.AsyncClient, rail: str) -> None:
+    await feed(client, rail, 20.0)
+    calm = (await client.post(f"{rail}/forecast", json={"horizon_s": 1800})).json()
+    assert calm["time_to_limit_s"] is None
+    assert calm["runaway"] is False
+    assert calm["margin_k"] > 0
+    # Lose two phases at t = 60 s with 80 A held: 40 A per survivor, past its rating and hot.
+    hot = (await client.post(f"{rail}/forecast", json={
+        "horizon_s": 1800, "drop": [{"phase": 1, "at_s": 60}, {"phase": 2, "at_s": 60}],
+        "ambient_c": 70.0,
+    })).json()  # fmt: skip
+    assert hot["time_to_limit_s"] is not None
+    assert hot["time_to_limit_s"] > 60
+    assert hot["limit_phase"] in (0, 3)
+    assert hot["margin_k"] < 0
+
+
+@pytest.mark.parametrize(
+    ("body", "field"),
+    [
+        ({"drop": [{"phase": 9}]}, "drop[0].phase"),
+        ({"horizon_s": 90000}, "horizon_s"),
+        ({"load": {"constant_a": 10, "steps": [{"at_s": 0, "current_a": 1}]}}, "load"),
+        ({"load": {"points": [{"at_s": 5, "current_a": 1}, {"at_s": 1, "current_a": 2}]}}, "load"),
+        ({"points": 2}, "points"),
+    ],
+)
+async def test_forecast_bad_input(
+    client: httpx.AsyncClient, rail: str, body: dict[str, Any], field: str
+) -> None:
+    answer = await client.post(f"{rail}/forecast", json=body)
+    assert answer.status_code == 422, answer.text
+    assert answer.json()["field"] == field

@@ -149,10 +149,30 @@ def run_scenario(base_url: str, *, pace_s: float, chunk: int = 5) -> bool:
                     f"{_shown(th['hottest_temp_c']):>9} {_shown(th['margin_k']):>8}"
                 )
                 last_line = line
+            if k <= T_FAULT + 10 < k + chunk:
+                _show_analyses(client)
             if pace_s:
                 time.sleep(pace_s * chunk)
         print(f"\n{status['caution']}")
     return isolated and min(capacities) < capacities[0]
+
+
+def _show_analyses(client: httpx.Client) -> None:
+    """What an operator asks right after a phase loss: would one more loss hurt, and where
+    are the temperatures heading at the load the rail must deliver?"""
+    screening = client.get(f"/v1/rails/{RAIL_ID}/screening").json()
+    verdict = "secure" if screening["secure"] else "NOT secure"
+    print(f"      N-1 screening at {screening['load_a']:.0f} A: {verdict}; weakest losses:")
+    for case in screening["cases"][:2]:
+        print(f"        lose phase {case['lose_phases'][0]}: capacity {case['capacity_a']:.1f} A, "
+              f"headroom {case['headroom_a']:.1f} A, binding {case['binding']}")  # fmt: skip
+    rated = DEMO_RAIL["load_a"]
+    body = {"load": {"constant_a": rated}, "horizon_s": 3600, "points": 60}
+    ahead = client.post(f"/v1/rails/{RAIL_ID}/forecast", json=body).json()
+    reach = ahead["time_to_limit_s"]
+    print(f"      forecast at the rated {rated:.0f} A for 1 h: peak {ahead['peak']['temp_c']:.1f} "
+          f"degC on phase {ahead['peak']['phase']}, margin {_shown(ahead['margin_k'])} K, "
+          f"limit {'not reached' if reach is None else f'reached in {reach:.0f} s'}")  # fmt: skip
 
 
 def _shown(value: float | None) -> str:

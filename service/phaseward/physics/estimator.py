@@ -342,8 +342,9 @@ def kalman_step(
     >>> s = kalman_step(m, s, [2.0], [0.05], 25.0, [np.nan])  # no reading: prediction only
     >>> np.round(s.mean_c, 3).tolist()  # 2 W + 0.05 W/K x 25 degC held for 1 s
     [29.171, 25.217]
-    >>> s = kalman_step(m, s, [2.0], [0.05], 25.0, [29.0])
+    >>> s = kalman_step(m, s, [2.0], [0.05], 25.0, [29.0])  # one more second, then a reading
     >>> print(f"{s.mean_c[0]:.3f} +- {np.sqrt(s.cov_k2[0, 0]):.3f} degC")
+    29.732 +- 0.408 degC
     """
     _check_state(model, state)
     n_ph = model.n_phases

@@ -82,7 +82,8 @@ def _array(
         raise ValueError(f"{name} must broadcast to shape {shape}") from None
     bad = np.isinf(arr) if allow_nan else ~np.isfinite(arr)
     if np.any(bad):
-        raise ValueError(f"{name} must be finite" + (" (NaN marks a missing value)" * allow_nan))
+        note = " (NaN marks a missing value)" if allow_nan else ""
+        raise ValueError(f"{name} must be finite{note}")
     if positive and not np.all(arr > 0.0):
         raise ValueError(f"{name} must be > 0")
     if nonnegative and not np.all(arr >= 0.0):
@@ -198,10 +199,6 @@ def _discretise(
     )
 
 
-def _n_states(net: ThermalNetwork, sensor_lag: bool) -> int:
-    return net.n_nodes + (net.n_phases if sensor_lag else 0)
-
-
 def discrete_model(
     net: ThermalNetwork,
     dt_s: float,
@@ -237,8 +234,8 @@ def discrete_model(
     if sensor_tau_s is not None:
         tau = tuple(_array("sensor_tau_s", sensor_tau_s, (n_ph,), positive=True).tolist())
     transition, loss_input, ambient_input = _discretise(net, dt, tau)
-    lag = tau is not None
-    sensor_state = (net.n_nodes + np.arange(n_ph)) if lag else net.junction_node.copy()
+    sensor_state = np.array(net.junction_node if tau is None else net.n_nodes + np.arange(n_ph))
+    sensor_state.setflags(write=False)
     scaled = loss_input * noise_w
     return DiscreteModel(
         transition=transition,
@@ -246,7 +243,7 @@ def discrete_model(
         ambient_input=ambient_input,
         process_cov_k2=_readonly(scaled @ scaled.T),
         junction_state=net.junction_node,
-        sensor_state=np.asarray(sensor_state, dtype=np.intp),
+        sensor_state=sensor_state,
         sensor_var_k2=_readonly(noise_k**2),
         sensor_offset_k=_readonly(offset),
         dt_s=dt,
@@ -288,10 +285,21 @@ def _predict(
     slope_w_per_k: FloatArray,
     drive_c: FloatArray,
 ) -> tuple[FloatArray, FloatArray]:
-    """One prediction: F_k = F + Bp diag(s_k) S; ``drive_c`` = Bp p0_k + ba T_amb,k."""
+    """One prediction: F_k = F + Bp diag(s_k) S; ``drive_c`` = Bp p0_k + ba T_amb,k.
+
+    :class:`ThermalRunaway` when the prediction leaves float64 range.
+    """
     f = np.array(model.transition)
     f[:, model.junction_state] += model.loss_input_k_per_w * slope_w_per_k
-    return f @ mean + drive_c, f @ cov @ f.T + model.process_cov_k2
+    with np.errstate(over="ignore", invalid="ignore"):
+        mean, cov = f @ mean + drive_c, f @ cov @ f.T + model.process_cov_k2
+        finite = np.isfinite(mean.sum() + np.trace(cov))  # the trace bounds every covariance
+    if not finite:
+        raise ThermalRunaway(
+            "the estimate left float64 range: the loss feedback grows without bound",
+            np.array(True),
+        )
+    return mean, cov
 
 
 def _update(
@@ -354,10 +362,7 @@ def kalman_step(
     reading = _array("measured_c", measured_c, (n_ph,), allow_nan=True)
     drive = model.loss_input_k_per_w @ p0 + model.ambient_input * ambient
     mean, cov = _predict(model, state.mean_c, state.cov_k2, slope, drive)
-    mean, cov = _update(model, mean, cov, reading)
-    if not (np.all(np.isfinite(mean)) and np.all(np.isfinite(cov))):
-        raise ThermalRunaway("the estimate left float64 range", np.array(True))
-    return EstimatorState(mean, cov)
+    return EstimatorState(*_update(model, mean, cov, reading))
 
 
 class KalmanTrace(NamedTuple):
@@ -434,17 +439,9 @@ def kalman_run(
     variances = np.empty((shape[0] + 1, model.n_states))
     mean, cov = np.array(state.mean_c), np.array(state.cov_k2)
     means[0], variances[0] = mean, np.diag(cov)
-    with np.errstate(over="ignore", invalid="ignore"):
-        for k in range(shape[0]):
-            mean, cov = _predict(model, mean, cov, slope[k], drive[k])
-            mean, cov = _update(model, mean, cov, reading[k])
-            means[k + 1], variances[k + 1] = mean, np.diag(cov)
-    if not (np.all(np.isfinite(means)) and np.all(np.isfinite(cov))):
-        first = int(np.argmax(~np.all(np.isfinite(means), axis=1)))
-        raise ThermalRunaway(
-            f"the estimate left float64 range by step {first}: the loss feedback grows "
-            "without bound",
-            np.array(True),
-        )
+    for k in range(shape[0]):
+        mean, cov = _predict(model, mean, cov, slope[k], drive[k])
+        mean, cov = _update(model, mean, cov, reading[k])
+        means[k + 1], variances[k + 1] = mean, np.diag(cov)
     junction_var = variances[:, model.junction_state]
     return KalmanTrace(EstimatorState(mean, cov), means, np.sqrt(np.maximum(junction_var, 0.0)))

@@ -173,12 +173,12 @@ class PhaseLossParams:
         table_loss_w: npt.ArrayLike | None = None,
         table_ref_c: npt.ArrayLike = 25.0,
         table_tc_per_k: npt.ArrayLike = 0.0,
-        uses_table: npt.ArrayLike = False,
+        uses_table: npt.ArrayLike | None = None,
     ) -> "PhaseLossParams":
         """Parameters with scalars (or (n_points,) tables) broadcast to ``n_phases`` phases.
 
-        Terms left at their default contribute nothing; ``uses_table`` defaults to False
-        (and to True where a table is given and ``uses_table`` is not).
+        Terms left at their default contribute nothing; ``uses_table`` defaults to True for
+        every phase when tables are given, else to False.
 
         >>> p = PhaseLossParams.build(4, vin_v=12.0, vout_v=1.0, fsw_hz=500e3,
         ...                           inductance_h=150e-9, dcr_ohm=0.2e-3)
@@ -189,10 +189,10 @@ class PhaseLossParams:
             raise ValueError("n_phases must be an int >= 1")
         if (table_current_a is None) != (table_loss_w is None):
             raise ValueError("table_current_a and table_loss_w must be given together")
+        if uses_table is None:
+            uses_table = table_current_a is not None
         if table_current_a is None or table_loss_w is None:
             table_current_a = table_loss_w = np.zeros((n_phases, 0))
-        elif uses_table is False:
-            uses_table = True
         width = np.shape(table_current_a)[-1]
 
         def each(name: str, value: npt.ArrayLike, *, table: bool = False) -> FloatArray:

@@ -25,12 +25,14 @@ exprel(x) = (e^x - 1) / x. A steady state exists iff A is positive definite (all
 otherwise the conduction-loss feedback outgrows the conductance to ambient (thermal runaway).
 :func:`_modes` is the one eigen-decomposition behind Cauer Zth, :func:`simulate_c` and
 :func:`time_to_limit_batch_s`; :func:`_system_matrix` and :func:`_injection` build A and f for
-every solver.
+every solver. Steady states are stacked ``np.linalg.solve`` calls; positive definiteness is
+read from the same solve by the M-matrix criterion (:func:`_solve_stable`).
 
 Failure policy: invalid arguments raise ValueError naming the argument; a missing steady
 state or a diverging temperature feedback raises :class:`ThermalRunaway` (or is flagged).
 """
 
+import operator
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from itertools import pairwise
@@ -48,6 +50,8 @@ _SETTLED = 40.0  # time constants after which exp(-t/tau) < 5e-18: the state has
 _GROWTH = 700.0  # largest exponent of a growing mode that float64 still holds (e^709 max)
 _GRID_PER_DECADE = 64  # log-grid density used to bracket the first limit crossing
 _GRID_MAX = 2048  # grid points at most (only a near-singular system spans > 32 decades)
+_WINDOW_STEPS = 8192  # transient steps per Picard window (working set stays in cache)
+_ONE = np.ones(1)  # numerator of the per-mode filter (the input gain is folded in before)
 
 
 class ThermalRunaway(ArithmeticError):
@@ -274,7 +278,11 @@ class ThermalNetwork:
             or np.any((junction < 0) | (junction >= n))
         ):
             raise ValueError(f"junction_node must hold distinct node indices in 0..{n - 1}")
-        if not 0 <= int(self.board_node) < n:
+        try:
+            board = operator.index(self.board_node)
+        except TypeError:
+            board = -1
+        if not 0 <= board < n:
             raise ValueError(f"board_node must be a node index in 0..{n - 1}")
         junction = junction.astype(np.intp)
         junction.setflags(write=False)
@@ -285,7 +293,7 @@ class ThermalNetwork:
             ("junction_node", junction),
         ):
             object.__setattr__(self, name, arr)
-        object.__setattr__(self, "board_node", int(self.board_node))
+        object.__setattr__(self, "board_node", board)
         if not _solve_stable(g + np.diag(g_amb), np.zeros(n))[1]:
             raise ValueError("every node needs a conductive path to ambient")
 
@@ -455,18 +463,47 @@ def steady_state_c(
     return temps
 
 
-def _propagate(a: FloatArray, b: FloatArray, z0: FloatArray, u: FloatArray) -> FloatArray:
-    """z_{k+1} = a z_k + b u_k per mode; u (n_modes, n_steps) -> z_1..z_n (n_modes, n_steps).
+def _zoh_window(
+    decay: FloatArray,
+    power_in: FloatArray,
+    ambient_in: FloatArray,
+    phi_j: FloatArray,
+    z0: FloatArray,
+    p0_t: FloatArray,
+    slope_t: FloatArray,
+    *,
+    tol_k: float,
+    max_iter: int,
+) -> FloatArray:
+    """Modal states z_1..z_n (n_modes, n) of one window of the zero-order-hold recursion.
 
-    One first-order IIR filter per mode (``scipy.signal.lfilter`` runs the samples; lfilter
-    takes one coefficient set per call, so the loop is over modes, never over samples).
+    z_{k+1} = decay z_k + power_in (p0_k + s_k T_j,k) + ambient_in_k with T_j,k = phi_j z_k,
+    solved by Picard iteration on the junction temperatures. Each sweep is one first-order
+    IIR filter per mode over the window (``scipy.signal.lfilter`` takes one coefficient set
+    per call, so the loop is over modes, never over samples). p0_t, slope_t: (n_phases, n).
     """
-    z = np.empty_like(u)
-    for k in range(a.size):
-        z[k], _ = signal.lfilter(
-            b[k : k + 1], np.array([1.0, -a[k]]), u[k], zi=a[k : k + 1] * z0[k]
-        )
-    return z
+    tj_start = phi_j @ z0
+    tj = np.repeat(tj_start[:, None], p0_t.shape[1], axis=1)
+    history: list[float] = []
+    for _ in range(max_iter):
+        u = power_in @ (p0_t + slope_t * tj) + ambient_in
+        z = np.empty_like(u)
+        for k in range(decay.size):
+            z[k], _ = signal.lfilter(_ONE, (1.0, -decay[k]), u[k], zi=decay[k : k + 1] * z0[k])
+        tj_new = np.empty_like(tj)
+        tj_new[:, 0] = tj_start
+        np.matmul(phi_j, z[:, :-1], out=tj_new[:, 1:])
+        history.append(float(np.max(np.abs(tj_new - tj))))
+        tj = tj_new
+        if history[-1] < tol_k:
+            return z
+        if not np.isfinite(history[-1]) or (len(history) > 3 and history[-4] < history[-1]):
+            break
+    raise ThermalRunaway(
+        f"junction temperatures did not settle ({len(history)} Picard sweeps, last change "
+        f"{history[-1]:.3g} K): the conduction-loss feedback diverges over this trace",
+        np.array(True),
+    )
 
 
 def simulate_c(
@@ -485,10 +522,13 @@ def simulate_c(
     Over step k the loss is held at P_k = p0_k + s_k T_j(t_k) (zero-order hold: losses are
     re-evaluated at the temperature reached at the start of each step) and the network is
     propagated exactly over the step (matrix exponential in modal form, decomposed once).
-    The temperature feedback is resolved by Picard iteration over the whole trace until the
-    junction temperatures change by less than ``tol_k``; :class:`ThermalRunaway` if it
-    diverges or has not settled after ``max_iter`` sweeps. Only a constant step is supported
-    (a per-step dt would need a time-varying filter, i.e. a loop over samples).
+    Given the power sequence the recursion is linear time-invariant per mode, so a whole
+    window of steps is one filter call per mode; the temperature feedback is resolved by
+    Picard iteration over the window until the junction temperatures change by less than
+    ``tol_k``. Windows of 8192 steps keep the working set in cache and each starts from the
+    converged end state of the one before. :class:`ThermalRunaway` if the iteration diverges
+    or has not settled after ``max_iter`` sweeps. Only a constant step is supported (a
+    per-step dt would make the filters time-varying, i.e. a loop over samples).
 
     initial_c: (n_nodes,); p0_w, slope_w_per_k: (n_steps, n_phases) in W and W/K;
     ambient_c: float or (n_steps,) degC held over each step.
@@ -507,36 +547,38 @@ def simulate_c(
     slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
     if p0.ndim != 2 or slope.shape != p0.shape or p0.shape[0] == 0:
         raise ValueError("p0_w and slope_w_per_k must both have shape (n_steps, n_phases)")
+    n_steps = p0.shape[0]
     ambient = _finite("ambient_c", ambient_c)
-    if ambient.shape not in ((), (p0.shape[0],)):
+    if ambient.shape not in ((), (n_steps,)):
         raise ValueError("ambient_c must be a float or have shape (n_steps,)")
     if max_iter < 1 or not tol_k > 0.0:
         raise ValueError("max_iter must be >= 1 and tol_k > 0")
-    junction = net.junction_node
     lam, phi = _modes(_system_matrix(net, np.zeros(net.n_phases)), net.capacitance_j_per_k)
     decay = np.exp(-lam * dt)
-    gain = dt * special.exprel(-lam * dt)
-    z0 = phi.T @ (net.capacitance_j_per_k * temp0)
-    phi_j = phi[junction]
-    u_ambient = np.outer(phi.T @ net.ambient_conductance_w_per_k, np.atleast_1d(ambient))
+    gain = dt * special.exprel(-lam * dt)  # (1 - decay) / lam without cancellation
+    phi_j = phi[net.junction_node]
+    power_in = phi_j.T * gain[:, None]
+    ambient_in = np.outer(gain * (phi.T @ net.ambient_conductance_w_per_k), ambient.reshape(-1))
     p0_t, slope_t = np.ascontiguousarray(p0.T), np.ascontiguousarray(slope.T)
-    tj = np.repeat(temp0[junction][:, None], p0.shape[0], axis=1)
-    history: list[float] = []
-    for _ in range(max_iter):
-        z = _propagate(decay, gain, z0, phi_j.T @ (p0_t + slope_t * tj) + u_ambient)
-        tj_new = np.concatenate([temp0[junction][:, None], phi_j @ z[:, :-1]], axis=1)
-        history.append(float(np.max(np.abs(tj_new - tj))))
-        tj = tj_new
-        change = history[-1]
-        if change < tol_k:
-            return np.concatenate([temp0[None, :], (phi @ z).T])
-        if not np.isfinite(change) or (len(history) > 3 and history[-4] < change):
-            break
-    raise ThermalRunaway(
-        f"junction temperatures did not settle ({len(history)} Picard sweeps, last change "
-        f"{history[-1]:.3g} K): the conduction-loss feedback diverges over this trace",
-        np.array(True),
-    )
+    temps = np.empty((n_steps + 1, net.n_nodes))
+    temps[0] = temp0
+    z0 = phi.T @ (net.capacitance_j_per_k * temp0)
+    for start in range(0, n_steps, _WINDOW_STEPS):
+        window = slice(start, min(n_steps, start + _WINDOW_STEPS))
+        z = _zoh_window(
+            decay,
+            power_in,
+            ambient_in if ambient.ndim == 0 else ambient_in[:, window],
+            phi_j,
+            z0,
+            p0_t[:, window],
+            slope_t[:, window],
+            tol_k=tol_k,
+            max_iter=max_iter,
+        )
+        np.matmul(z.T, phi.T, out=temps[window.start + 1 : window.stop + 1])
+        z0 = z[:, -1].copy()
+    return temps
 
 
 def bracketed_root(

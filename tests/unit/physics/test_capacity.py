@@ -183,7 +183,10 @@ def test_batch_equals_single_case_calls() -> None:
     [
         ({"active": np.ones((1, N))}, "active"),
         ({"weights": -np.ones(N)}, "weights"),
-        ({"weights": np.array([0.0, 0.0, 1.0, 1.0]), "active": np.array([[1, 1, 0, 0]], bool)}, "weights"),
+        (
+            {"weights": np.array([0.0, 0.0, 1.0, 1.0]), "active": np.array([[1, 1, 0, 0]], bool)},
+            "weights",
+        ),
         ({"rated_current_a": np.zeros(N)}, "rated_current_a"),
         ({"temp_limit_c": np.full(N, np.nan)}, "temp_limit_c"),
         ({"temp_limit_c": np.ones(3)}, "temp_limit_c"),

@@ -195,6 +195,9 @@ def test_mixed_table_and_formula_phases() -> None:
     assert loss.stage_table_w[1] == 0.0
     assert loss.switching_w[1] == pytest.approx(0.6)
     assert loss.switching_w[0] == 0.0
+    ignored = phase_losses(table_params(uses_table=False), 20.0, 25.0)
+    assert np.all(ignored.stage_table_w == 0.0)
+    assert np.all(ignored.switching_w == pytest.approx(0.6))
 
 
 @pytest.mark.parametrize(

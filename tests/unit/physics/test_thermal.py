@@ -148,6 +148,7 @@ def test_network_validation() -> None:
         ({"junction_node": np.array([0, 0, 5])}, "junction_node"),
         ({"junction_node": np.array([0, 2, 9])}, "junction_node"),
         ({"board_node": 7}, "board_node"),
+        ({"board_node": 1.5}, "board_node"),
     ]
     for change, message in cases:
         with pytest.raises(ValueError, match=message):
@@ -239,6 +240,23 @@ def test_single_node_zero_order_hold_recursion() -> None:
         t = expected[-1]
         expected.append(20.0 + (t - 20.0) * a + (p0 + s * t) * r * (1.0 - a))
     np.testing.assert_allclose(temps[:, 0], expected, rtol=1e-12)
+
+
+def test_long_trace_crosses_windows_seamlessly() -> None:
+    # 20,000 steps span three Picard windows; power and ambient vary every step
+    r, c, dt, s = 2.0, 3.0, 0.05, 0.05
+    one = ThermalNetwork(np.zeros((1, 1)), np.array([c]), np.array([1.0 / r]), np.array([0]), 0)
+    k = np.arange(20_000)
+    p0 = 3.0 + 2.0 * np.sin(k / 500.0) + (k % 7 == 0)
+    ambient = 25.0 + 5.0 * np.cos(k / 3000.0)
+    temps = simulate_c(one, [40.0], dt, p0[:, None], np.full((k.size, 1), s), ambient, tol_k=1e-12)
+    a = np.exp(-dt / (r * c))
+    expected = np.empty(k.size + 1)
+    expected[0] = 40.0
+    for i in range(k.size):
+        t = expected[i]
+        expected[i + 1] = ambient[i] + (t - ambient[i]) * a + (p0[i] + s * t) * r * (1.0 - a)
+    np.testing.assert_allclose(temps[:, 0], expected, rtol=1e-11)
 
 
 def test_simulation_settles_at_the_steady_state() -> None:

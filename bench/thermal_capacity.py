@@ -14,6 +14,7 @@ the target; asserts nothing about speed.
    against a Python loop over one-case calls.
 """
 
+import os
 import statistics
 import time
 from collections.abc import Callable
@@ -21,7 +22,7 @@ from collections.abc import Callable
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from phaseward.physics.capacity import loss_cases, remaining_capacity
+from phaseward.physics.capacity import CapacityResult, loss_cases, remaining_capacity
 from phaseward.physics.losses import PhaseLossParams, loss_coefficients
 from phaseward.physics.thermal import (
     CauerStages,
@@ -49,7 +50,7 @@ CANDIDATES = [  # solve_ivp settings tried as the baseline; the fastest within 1
 ]
 
 
-def median_time(func: Callable[[], object], repeats: int = 3) -> float:
+def median_time(func: Callable[[], object], repeats: int = 5) -> float:
     times = []
     for _ in range(repeats):
         start = time.perf_counter()
@@ -94,7 +95,8 @@ def load_profile_a() -> np.ndarray:
     rng = np.random.default_rng(7)
     t = np.arange(N_STEPS) * DT_S
     steps = np.repeat(rng.uniform(-60.0, 60.0, N_STEPS // 3000 + 1), 3000)[:N_STEPS]
-    return 250.0 + 80.0 * np.sin(2.0 * np.pi * t / 900.0) + steps + rng.normal(0.0, 5.0, N_STEPS)
+    swing = 80.0 * np.sin(2.0 * np.pi * t / 900.0)
+    return np.asarray(250.0 + swing + steps + rng.normal(0.0, 5.0, N_STEPS))
 
 
 def ivp_zoh(
@@ -120,9 +122,10 @@ def ivp_zoh(
         heat[net.junction_node] += p0[k] + slope[k] * state[net.junction_node]
 
         def rhs(_: float, temps: np.ndarray, heat: np.ndarray = heat) -> np.ndarray:
-            return (heat - a @ temps) / net.capacitance_j_per_k
+            return np.asarray((heat - a @ temps) / net.capacitance_j_per_k)
 
-        state = solve_ivp(rhs, (0.0, DT_S), state, method=method, jac=jac, **tol).y[:, -1]
+        sol = solve_ivp(rhs, (0.0, DT_S), state, method=method, jac=jac, **tol)
+        state = np.asarray(sol.y[:, -1])
         out.append(state)
     return np.array(out)
 
@@ -135,7 +138,7 @@ def transient() -> None:
     t_modal = median_time(lambda: simulate_c(net, start, DT_S, p0, slope, AMBIENT_C))
     print(f"network: {net.n_nodes} nodes, {N_STEPS} steps of {DT_S * 1e3:.0f} ms")
     print(f"hottest junction over the hour: {temps[:, net.junction_node].max():.2f} degC")
-    print(f"simulate_c, one hour:              {t_modal:8.3f} s (median of 3)")
+    print(f"simulate_c, one hour:              {t_modal:8.3f} s (median of 5)")
 
     windows = [slice(s, s + WINDOW_STEPS) for s in WINDOW_STARTS]
     refs = [ivp_zoh(net, temps[w.start], p0[w], slope[w], "Radau", TIGHT) for w in windows]
@@ -177,22 +180,24 @@ def capacity() -> None:
     singles, _ = loss_cases(N_PHASES, 1)
     pairs, _ = loss_cases(N_PHASES, 2)
     active = np.vstack([singles, pairs])
-    kwargs = {
-        "weights": weights,
-        "rated_current_a": np.full(N_PHASES, 45.0),
-        "temp_limit_c": np.full(N_PHASES, 95.0),
-        "ambient_c": AMBIENT_C,
-    }
-    batch = remaining_capacity(net, params, active=active, **kwargs)
+
+    def run(cases: np.ndarray) -> CapacityResult:
+        return remaining_capacity(
+            net,
+            params,
+            active=cases,
+            weights=weights,
+            rated_current_a=np.full(N_PHASES, 45.0),
+            temp_limit_c=np.full(N_PHASES, 95.0),
+            ambient_c=AMBIENT_C,
+        )
 
     def loop() -> list[float]:
-        return [
-            float(remaining_capacity(net, params, active=row[None, :], **kwargs).capacity_a[0])
-            for row in active
-        ]
+        return [float(run(row[None, :]).capacity_a[0]) for row in active]
 
+    batch = run(active)
     spread = np.max(np.abs(np.array(loop()) - batch.capacity_a))
-    t_batch = median_time(lambda: remaining_capacity(net, params, active=active, **kwargs))
+    t_batch = median_time(lambda: run(active))
     t_loop = median_time(loop)
     kinds = {k: int(np.sum(batch.binding_kind == k)) for k in ("current", "thermal", "none")}
     print(f"capacity: {active.shape[0]} loss cases (12 single, 66 double), binding {kinds}")
@@ -204,5 +209,8 @@ def capacity() -> None:
 
 
 if __name__ == "__main__":
+    print(
+        f"load average before the run: {os.getloadavg()[0]:.2f} (2 cores; other work skews times)"
+    )
     transient()
     capacity()

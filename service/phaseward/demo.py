@@ -86,8 +86,11 @@ def scenario_samples(start_s: float, seed: int = 7) -> list[dict[str, Any]]:
 
     vin = 12.0 + rng.normal(0.0, 0.01, t.size)
     vout = 0.75 + rng.normal(0.0, 0.0008, t.size)
-    vin[T_FAULT] -= 2.6  # the short pulls the input down until the breaker opens
-    vout[T_FAULT] += 0.05  # brief overshoot as the faulted phase is cut off
+    # The high-side switch of phase 2 fails short just before T_FAULT: its current surges,
+    # the input sags and the output overshoots until the breaker opens.
+    current[T_FAULT - 1, FAILED_PHASE] *= 2.6
+    vin[T_FAULT - 1 : T_FAULT + 1] -= (1.4, 2.6)
+    vout[T_FAULT - 1 : T_FAULT + 1] += (0.03, 0.05)
     samples = []
     for k in range(t.size):
         phases = []
@@ -99,6 +102,7 @@ def scenario_samples(start_s: float, seed: int = 7) -> list[dict[str, Any]]:
                 "current_a": round(float(amps), 3),
                 "temp_c": round(float(sensor[k, i]), 2),
                 "breaker_tripped": bool(tripped),
+                "overcurrent": bool(amps > DEMO_RAIL["phase"]["overcurrent_limit_a"]),
             })  # fmt: skip
         samples.append({
             "time": start_s + float(t[k]),
@@ -160,6 +164,13 @@ def run_scenario(base_url: str, *, pace_s: float, chunk: int = 5) -> bool:
 def _show_analyses(client: httpx.Client) -> None:
     """What an operator asks right after a phase loss: would one more loss hurt, and where
     are the temperatures heading at the load the rail must deliver?"""
+    isolated = client.get(
+        f"/v1/rails/{RAIL_ID}/events", params={"kind": "phase.isolated", "limit": 1}
+    ).json()["items"]
+    signature = isolated[0]["details"].get("signature") if isolated else None
+    if signature is not None:
+        print(f"      fault class of phase {isolated[0]['phase']}: {signature['kind']} "
+              f"(confidence {signature['confidence']:.2f}; {signature['reason']})")  # fmt: skip
     screening = client.get(f"/v1/rails/{RAIL_ID}/screening").json()
     verdict = "secure" if screening["secure"] else "NOT secure"
     print(f"      N-1 screening at {screening['load_a']:.0f} A: {verdict}; weakest losses:")

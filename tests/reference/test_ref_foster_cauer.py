@@ -38,7 +38,8 @@ LADDERS = [
 
 def ladder_impedance(cauer: CauerStages) -> tuple[np.ndarray, np.ndarray]:
     """(num, den) of Z(s), coefficients in ascending powers of s."""
-    num, den = np.zeros(1), np.ones(1)
+    num: np.ndarray = np.zeros(1)
+    den: np.ndarray = np.ones(1)
     for r, c in zip(cauer.r_k_per_w[::-1], cauer.c_j_per_k[::-1], strict=True):
         series = P.polyadd(r * den, num)  # R + Z_next = (R D + N) / D
         num, den = series, P.polyadd(P.polymulx(c * series), den)

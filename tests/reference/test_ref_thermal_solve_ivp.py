@@ -68,6 +68,17 @@ def current_trace(net: ThermalNetwork, seed: int, n_segments: int, per_segment: 
     return np.repeat(levels, per_segment, axis=0)
 
 
+def affine_power(
+    net: ThermalNetwork, p0: np.ndarray, slope: np.ndarray
+) -> Callable[[np.ndarray], np.ndarray]:
+    """Junction losses P = p0 + s T_j as a function of the node temperatures."""
+
+    def power(temps: np.ndarray) -> np.ndarray:
+        return np.asarray(p0 + slope * temps[net.junction_node])
+
+    return power
+
+
 def rhs(
     net: ThermalNetwork, power: Callable[[np.ndarray], np.ndarray]
 ) -> Callable[[float, np.ndarray], np.ndarray]:
@@ -77,7 +88,7 @@ def rhs(
     def f(_: float, temps: np.ndarray) -> np.ndarray:
         heat = g_t - a @ temps
         heat[net.junction_node] += power(temps)
-        return heat / net.capacitance_j_per_k
+        return np.asarray(heat / net.capacitance_j_per_k)
 
     return f
 
@@ -100,7 +111,7 @@ def test_zero_order_hold_matches_step_by_step_integration(seed: int) -> None:
     for k in range(p0.shape[0]):
         held = p0[k] + slope[k] * state[net.junction_node]
         sol = solve_ivp(
-            rhs(net, lambda _, held=held: held),
+            rhs(net, affine_power(net, held, zero)),
             (0.0, dt),
             state,
             method="Radau",
@@ -124,7 +135,7 @@ def test_continuous_feedback_within_a_millikelvin(seed: int) -> None:
         k = seg * per_segment
         c0, c1 = p0[k], slope[k]
         sol = solve_ivp(
-            rhs(net, lambda t, c0=c0, c1=c1: c0 + c1 * t[net.junction_node]),
+            rhs(net, affine_power(net, c0, c1)),
             (0.0, per_segment * dt),
             state,
             method="Radau",
@@ -155,7 +166,7 @@ def test_time_to_limit_matches_an_integration_event(seed: int) -> None:
 
     crossing.terminal = True  # type: ignore[attr-defined]
     sol = solve_ivp(
-        rhs(net, lambda t: p0 + slope * t[net.junction_node]),
+        rhs(net, affine_power(net, p0, slope)),
         (0.0, 1e5),
         start,
         method="Radau",

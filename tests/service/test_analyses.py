@@ -17,8 +17,10 @@ async def rail(client: httpx.AsyncClient) -> str:
     return "/v1/rails/bench-a"
 
 
-async def feed(client: httpx.AsyncClient, rail: str, per_phase: float, n: int = 3) -> None:
-    body = [sample(k, [per_phase] * 4) for k in range(n)]
+async def feed(
+    client: httpx.AsyncClient, rail: str, per_phase: float, n: int = 3, temps: float = 60.0
+) -> None:
+    body = [sample(k, [per_phase] * 4, temps=temps) for k in range(n)]
     assert (await client.post(f"{rail}/samples", json=body)).status_code == 200
 
 
@@ -71,7 +73,7 @@ async def test_screening_bad_depth(
 async def test_forecast_keeps_the_peak_when_decimating(
     client: httpx.AsyncClient, rail: str
 ) -> None:
-    await feed(client, rail, 10.0)
+    await feed(client, rail, 10.0, temps=30.0)  # cool: the burst makes the peak
     burst = {"steps": [{"at_s": 0, "current_a": 40}, {"at_s": 100, "current_a": 119},
                        {"at_s": 130, "current_a": 40}]}  # fmt: skip
     fine = (await client.post(f"{rail}/forecast", json={"load": burst, "horizon_s": 600,

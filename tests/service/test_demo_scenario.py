@@ -28,14 +28,14 @@ async def test_demo_scenario(client: httpx.AsyncClient) -> None:
     # With the thermal limit not binding, the phase with the largest share reaches its rating
     # first: capacity = rating x sum(shares) / max(share), worked out from the script's skew.
     # The shares are learned from telemetry with 0.15 A of noise on ~25 A: within 1 %.
-    healthy = await run(0, T_FAULT)
+    healthy = await run(0, T_FAULT - 1)  # up to the sample before the short shows
     assert healthy["condition"] == "nominal"
     assert healthy["capacity"]["binding"] == "current"
     assert healthy["capacity"]["capacity_a"] == pytest.approx(
         RATED * sum(SKEW) / max(SKEW), rel=1e-2
     )
 
-    degraded = await run(T_FAULT, T_STEP)
+    degraded = await run(T_FAULT - 1, T_STEP)
     assert degraded["condition"] == "degraded"
     assert degraded["phases"][FAILED_PHASE]["condition"] == "isolated"
     assert degraded["phases"][FAILED_PHASE]["share"] == 0.0
@@ -54,12 +54,18 @@ async def test_demo_scenario(client: httpx.AsyncClient) -> None:
     page = (await client.get(f"{rail}/events", params={"limit": 200})).json()
     order = [(e["kind"], e["details"].get("to")) for e in reversed(page["items"])]
     kinds = [k for k, _ in order]
-    assert order[0] == ("rail.condition", "nominal")
-    assert kinds[1:6] == [
-        "phase.isolated", "input.undervoltage", "output.excursion",
-        "input.undervoltage", "output.excursion",
-    ]  # fmt: skip
-    assert order[6] == ("rail.condition", "degraded")
-    assert order.index(("rail.condition", "overloaded")) > 6
-    assert {"capacity.short", "thermal.forecast"} <= set(kinds[7:])
+    assert order[:7] == [
+        ("rail.condition", "nominal"),
+        ("sharing.imbalance", None),  # the shorted phase's current surges first
+        ("phase.isolated", "isolated"),
+        ("sharing.imbalance", None),  # cleared: the phase no longer shares
+        ("input.undervoltage", None),
+        ("output.excursion", None),
+        ("rail.condition", "degraded"),
+    ]
+    assert kinds[7:9] == ["input.undervoltage", "output.excursion"]  # both recover
+    assert order.index(("rail.condition", "overloaded")) > 8
+    assert {"capacity.short", "thermal.forecast"} <= set(kinds[9:])
     assert "phase.restored" not in kinds
+    isolated = next(e for e in page["items"] if e["kind"] == "phase.isolated")
+    assert isolated["details"]["signature"]["kind"] == "high_side_short"

@@ -150,3 +150,31 @@ async def test_input_sag_and_output_excursion(client: httpx.AsyncClient, rail: s
     events = [e[0] for e in await kinds(client, rail)]
     assert events.count("input.undervoltage") == 2  # raised, then cleared
     assert events.count("output.excursion") == 2
+
+
+async def test_status_shows_estimated_junctions_with_uncertainty(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    await client.post(f"{rail}/samples", json=sample(0, EVEN, temps=55.0))
+    first = (await client.get(f"{rail}/status")).json()["thermal"]
+    more = [sample(k, EVEN, temps=55.0) for k in range(1, 40)]
+    assert (await client.post(f"{rail}/samples", json=more)).status_code == 200
+    later = (await client.get(f"{rail}/status")).json()["thermal"]
+    assert len(later["estimated_junction_c"]) == 4
+    # Readings shrink the uncertainty and pull the estimate towards them.
+    assert all(b < a for a, b in zip(first["junction_std_k"], later["junction_std_k"], strict=True))
+    assert all(abs(t - 55.0) < 3.0 for t in later["estimated_junction_c"])
+    assert later["margin_k"] == pytest.approx(125.0 - max(later["estimated_junction_c"]))
+
+
+async def test_new_definition_waits_for_a_sample(client: httpx.AsyncClient, rail: str) -> None:
+    await client.post(f"{rail}/samples", json=[sample(k, EVEN) for k in range(3)])
+    body = {k: v for k, v in SMALL_RAIL.items() if k != "id"} | {"phase_count": 3}
+    assert (await client.put(rail, json=body)).status_code == 200
+    status = (await client.get(f"{rail}/status")).json()
+    assert status["version"] == 2
+    assert status["condition"] is None
+    answer = await client.post(f"{rail}/samples", json=sample(3, EVEN[:3]))
+    assert answer.status_code == 200, answer.text
+    assert answer.json()["version"] == 2
+    assert len((await client.get(f"{rail}/status")).json()["phases"]) == 3

@@ -19,12 +19,13 @@ import numpy.typing as npt
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.errors import Conflict, InvalidInput, NotFound, PhasewardError
-from phaseward.monitor import rail_model
+from phaseward.monitor import fault_class, rail_model
 from phaseward.monitor.assess import Assessment, assess
-from phaseward.monitor.conditions import PHASE_CONDITIONS, Finding, Watch, judge
+from phaseward.monitor.conditions import ACTIVE, PHASE_CONDITIONS, SUSPECT, Finding, Watch, judge
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, to_batch
-from phaseward.physics.thermal import ThermalRunaway, simulate_c, steady_state_c
+from phaseward.physics.estimator import EstimatorState, initial_state, kalman_run
+from phaseward.physics.thermal import ThermalRunaway, steady_state_c
 from phaseward.store import events, rails, samples, state
 from phaseward.store.db import transaction
 
@@ -86,6 +87,13 @@ def _ingest(session: Session, rail_id: str, incoming: IncomingSamples) -> Ingest
         previous = live.state if live is not None and live.version == rail.version else {}
         new_state, findings = advance(model, live_batch, previous)
         events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
+        isolations = [
+            (float(live_batch.t_s[f.sample]), int(f.phase))
+            for f in findings
+            if f.kind == "phase.isolated" and f.phase is not None
+        ]
+        pending = fault_class.waiting(previous.get("pending_isolations", []), isolations)
+        new_state["pending_isolations"] = fault_class.settle(session, model, pending)
         state.put(
             session, rail_id=rail_id, version=rail.version, last_seq=int(live_batch.seq[-1]),
             last_t_s=float(live_batch.t_s[-1]), state=new_state, now_s=now_s,
@@ -147,7 +155,9 @@ def advance(
     judgement = judge(model, batch, watch)
     ambient = np.where(np.isfinite(batch.ambient_c), batch.ambient_c, model.ambient_c)
     current = np.where(np.isfinite(batch.current_a), batch.current_a, 0.0)
-    nodes = _thermal_trajectory(model, batch, judgement.codes, current, ambient, previous)
+    nodes, junction_std, estimate = _estimate(
+        model, batch, judgement.codes, current, ambient, previous
+    )
 
     # Judge the rail where the phase conditions change and at the end of the batch: between
     # those points the verdict moves only with load and temperature, which the newest
@@ -174,6 +184,8 @@ def advance(
         "watch": judgement.watch.__dict__,
         "rail": verdict.as_dict(),
         "nodes_c": nodes[-1].tolist(),
+        "junction_std_k": junction_std[-1].tolist(),
+        "estimate": {"mean_c": estimate.mean_c.tolist(), "cov_k2": estimate.cov_k2.tolist()},
         "sample": {
             "seq": int(batch.seq[last]),
             "t_s": float(batch.t_s[last]),
@@ -198,53 +210,78 @@ def _opt(x: float) -> float | None:
     return float(x) if np.isfinite(x) else None
 
 
-def _thermal_trajectory(
+def _estimate(
     model: RailModel,
     batch: SampleBatch,
     codes: npt.NDArray[np.int8],
     current: F64,
     ambient: F64,
     previous: dict[str, Any],
-) -> F64:
-    """Node temperatures at the previous sample and at every sample of the batch,
-    (n + 1, n_nodes): the network driven by the measured currents, each held until the next
-    sample (the loss is re-evaluated at the temperature reached, see physics.thermal)."""
-    active = codes == 0
+) -> tuple[F64, F64, EstimatorState]:
+    """Kalman estimate of every node at the previous sample and at each sample of the batch:
+    node means (n + 1, n_nodes), junction std (n + 1, n_phases), and the final estimate.
+
+    The network is driven by the measured currents through the loss model, each held until
+    the next sample, and corrected by the temperature readings (a suspect phase's reading is
+    not trusted). Without a previous estimate the filter starts from the steady state of the
+    first sample's losses, with a wide uncertainty.
+    """
+    rules = model.rules
+    lagged = rules.sensor_tau_s is not None
+    active = codes == ACTIVE
     p0, slope = phase_power(model, current, active)
-    if "nodes_c" in previous and "sample" in previous:
-        start = np.asarray(previous["nodes_c"], dtype=np.float64)
-        held = previous["watch"]
-        last_current = np.asarray(
-            [p["current_a"] or 0.0 for p in previous["phases"]], dtype=np.float64
+    if "estimate" in previous:
+        state = EstimatorState(
+            mean_c=np.asarray(previous["estimate"]["mean_c"], dtype=np.float64),
+            cov_k2=np.asarray(previous["estimate"]["cov_k2"], dtype=np.float64),
         )
-        last_active = np.asarray([p["condition"] == "active" for p in previous["phases"]])
-        q0, qs = phase_power(model, last_current, last_active)
-        t_prev = float(held["last_t_s"])
+        last = previous["phases"]
+        q0, qs = phase_power(
+            model,
+            np.asarray([p["current_a"] or 0.0 for p in last], dtype=np.float64),
+            np.asarray([p["condition"] == "active" for p in last]),
+        )
+        t_prev = float(previous["sample"]["t_s"])
     else:
         try:
             start = steady_state_c(model.network, p0[0], slope[0], float(ambient[0]))
         except ThermalRunaway:
-            start = np.full(model.network.capacitance_j_per_k.shape, float(ambient[0]))
+            start = np.full(model.network.n_nodes, float(ambient[0]))
+        state = initial_state(model.network, start, std_k=START_STD_K, sensor_lag=lagged)
         q0, qs, t_prev = p0[0], slope[0], float(batch.t_s[0])
     dt = np.diff(np.concatenate([[t_prev], batch.t_s]))
     power0 = np.concatenate([q0[None, :], p0[:-1]])
     power_slope = np.concatenate([qs[None, :], slope[:-1]])
     held_ambient = np.concatenate([ambient[:1], ambient[:-1]])
-    out = [start]
+    readings = np.where(codes == SUSPECT, np.nan, batch.temp_c)
+    n_nodes = model.network.n_nodes
+    means = [state.mean_c]
+    stds = [np.sqrt(np.diag(state.cov_k2))[model.network.junction_node]]
     try:
         for lo, hi in _similar_runs(dt):
             step = float(dt[lo:hi].mean())
-            if step <= 0.0:  # two samples at one instant: nothing to propagate
-                out.extend([out[-1]] * (hi - lo))
+            if step <= 0.0:  # samples at one instant: nothing to propagate
+                means.extend([means[-1]] * (hi - lo))
+                stds.extend([stds[-1]] * (hi - lo))
                 continue
-            run = simulate_c(model.network, out[-1], step, power0[lo:hi], power_slope[lo:hi],
-                             held_ambient[lo:hi])  # fmt: skip
-            out.extend(run[1:])
+            trace = kalman_run(
+                model.network, state, step, power0[lo:hi], power_slope[lo:hi],
+                held_ambient[lo:hi], readings[lo:hi], process_noise_w=rules.process_noise_w,
+                sensor_noise_k=rules.sensor_noise_k, sensor_tau_s=rules.sensor_tau_s,
+                sensor_offset_k=rules.sensor_offset_k,
+            )  # fmt: skip
+            state = trace.final
+            means.extend(trace.means_c[1:])
+            stds.extend(trace.junction_std_k[1:])
     except ThermalRunaway:
         # The losses outgrow the network's conductance: the assessment reports runaway;
-        # keep the last finite state rather than numbers that mean nothing.
-        out.extend([out[-1]] * (batch.n + 1 - len(out)))
-    return np.asarray(out)
+        # keep the last finite estimate rather than numbers that mean nothing.
+        means.extend([means[-1]] * (batch.n + 1 - len(means)))
+        stds.extend([stds[-1]] * (batch.n + 1 - len(stds)))
+    return np.asarray(means)[:, :n_nodes], np.asarray(stds), state
+
+
+START_STD_K = 5.0  # uncertainty of a first estimate taken from the steady state
 
 
 SIMILAR_STEP = 0.02  # relative: sample intervals closer than this are propagated as one step

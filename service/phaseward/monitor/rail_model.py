@@ -36,6 +36,10 @@ class MonitorRules:
     gap_s: float
     forecast_horizon_s: float
     hysteresis_k: float
+    process_noise_w: float
+    sensor_noise_k: float
+    sensor_tau_s: float | None
+    sensor_offset_k: float
 
 
 @dataclass(frozen=True)

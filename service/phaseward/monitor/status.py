@@ -29,8 +29,8 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
         "thermal": None,
         "screening": None,
     }
-    if live is None:
-        return out
+    if live is None or live.version != rail.version:
+        return out  # no sample judged under the present definition yet
     s = live.state
     verdict, sample = s["rail"], s["sample"]
     weights = np.asarray(s["watch"]["weights"])
@@ -38,7 +38,8 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
     shares = np.where(active, weights, 0.0)
     shares = shares / shares.sum() if shares.sum() > 0 else shares
     limit = model.temp_limit_c
-    temps = np.array([np.nan if p["temp_c"] is None else p["temp_c"] for p in s["phases"]])
+    junction = np.asarray(s["nodes_c"])[model.network.junction_node]
+    temps = np.where(active, junction, np.nan)  # the estimate, not the sensor beside the die
     margins = np.where(active, model.junction_limit_c - temps, np.nan)
     hottest = int(np.nanargmin(margins)) if np.isfinite(margins).any() else None
     out.update(
@@ -71,7 +72,9 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
             "time_to_limit_s": verdict["time_to_limit_s"],
             "limit_phase": verdict["limit_phase"],
             "runaway": verdict["runaway"],
-            "model_nodes_c": s["nodes_c"],
+            "estimated_junction_c": [s["nodes_c"][j] for j in model.network.junction_node.tolist()],
+            "junction_std_k": s["junction_std_k"],
+            "board_c": s["nodes_c"][model.network.board_node],
         },
         screening={"n1_secure": verdict["n1_secure"], "weakest": verdict["n1_weakest"]},
         phases=[

@@ -36,6 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 import numpy.typing as npt
 
+from phaseward.physics.constants import T_REF_CU_C
 from phaseward.physics.ripple import duty_cycle, inductor_ripple_pp_a, rms_current_a
 from phaseward.physics.sensing import copper_resistance_ohm
 
@@ -43,6 +44,7 @@ FloatArray = npt.NDArray[np.float64]
 BoolArray = npt.NDArray[np.bool_]
 
 _PROBE_C = 100.0  # degC, second temperature at which the affine loss is sampled
+_DATASHEET_REF_C = 25.0  # degC, where datasheets state Rds(on) and loss curves (common practice)
 _POSITIVE = ("vin_v", "vout_v", "fsw_hz", "inductance_h")
 _NONNEGATIVE = (
     "dcr_ohm",
@@ -157,10 +159,10 @@ class PhaseLossParams:
         fsw_hz: npt.ArrayLike,
         inductance_h: npt.ArrayLike,
         dcr_ohm: npt.ArrayLike,
-        dcr_ref_c: npt.ArrayLike = 20.0,
+        dcr_ref_c: npt.ArrayLike = T_REF_CU_C,
         rds_high_ohm: npt.ArrayLike = 0.0,
         rds_low_ohm: npt.ArrayLike = 0.0,
-        rds_ref_c: npt.ArrayLike = 25.0,
+        rds_ref_c: npt.ArrayLike = _DATASHEET_REF_C,
         rds_tc_per_k: npt.ArrayLike = 0.0,
         rise_time_s: npt.ArrayLike = 0.0,
         fall_time_s: npt.ArrayLike = 0.0,
@@ -171,7 +173,7 @@ class PhaseLossParams:
         core_loss_w: npt.ArrayLike = 0.0,
         table_current_a: npt.ArrayLike | None = None,
         table_loss_w: npt.ArrayLike | None = None,
-        table_ref_c: npt.ArrayLike = 25.0,
+        table_ref_c: npt.ArrayLike = _DATASHEET_REF_C,
         table_tc_per_k: npt.ArrayLike = 0.0,
         uses_table: npt.ArrayLike | None = None,
     ) -> "PhaseLossParams":

@@ -58,6 +58,8 @@ _LEAD_SAMPLES = 2  # samples before the event that belong to the fault, not the 
 _TRAIL_SAMPLES = 2  # samples after the event still inside the transient
 _MIN_BASELINE_SAMPLES = 3  # fewest baseline samples for a median level
 _MIN_AFTER_SAMPLES = 2  # fewest settled samples to judge collapse and pickup
+SAMPLES_BEFORE = _LEAD_SAMPLES + _MIN_BASELINE_SAMPLES  # fewest samples needed before the event
+SAMPLES_AFTER = _TRAIL_SAMPLES + _MIN_AFTER_SAMPLES  # fewest samples needed after the event
 
 # Data-sufficiency gates.
 _MIN_PHASE_SHARE = 0.02  # a phase carrying < 2 % of the rail current is too quiet to judge

@@ -244,6 +244,10 @@ class ThermalNetwork:
     ambient_conductance_w_per_k: (n_nodes,) >= 0; every node needs a path to ambient.
     junction_node: (n_phases,) distinct node indices where phase losses enter.
     board_node: index of the shared board node.
+
+    >>> one = ThermalNetwork(np.zeros((1, 1)), np.array([3.0]), np.array([0.5]), np.array([0]), 0)
+    >>> one.n_nodes, one.n_phases  # a single lumped node: R = 2 K/W, C = 3 J/K, tau = 6 s
+    (1, 1)
     """
 
     conductance_w_per_k: FloatArray
@@ -674,6 +678,14 @@ def time_to_limit_batch_s(
     initial_c: (n_nodes,) or (n_cases, n_nodes); p0_w, slope_w_per_k: (n_cases, n_phases) or
     (n_phases,); limit_c: (n_phases,) or (n_cases, n_phases), np.inf for a phase to ignore;
     horizon_s: crossings later than this count as never (np.inf).
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    >>> net = build_coupled_network([chain] * 2, board_to_ambient_k_per_w=1.0,
+    ...                             board_c_j_per_k=5.0)
+    >>> hits = time_to_limit_batch_s(net, np.full(3, 25.0), [[2.0, 2.2], [0.0, 2.2]],
+    ...                              np.zeros(2), 25.0, [[32.0, 32.0], [np.inf, 32.0]])
+    >>> np.round(hits.time_s, 3), hits.phase.tolist()  # phase 0 lost: the board runs cooler
+    (array([7.933,   inf]), [1, -1])
     """
     p0 = _phase_values(net, "p0_w", p0_w)
     slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)

@@ -51,3 +51,17 @@ def page(
 
 def get(session: Session, event_id: int) -> Event | None:
     return session.get(Event, event_id)
+
+
+def attach_signature(
+    session: Session, *, rail_id: str, phase: int, t_s: float, signature: dict[str, Any]
+) -> None:
+    """Add the fault class to the ``phase.isolated`` event of ``phase`` at ``t_s``."""
+    stmt = select(Event).where(
+        Event.rail_id == rail_id,
+        Event.kind == "phase.isolated",
+        Event.phase == phase,
+        Event.t_s == t_s,
+    )
+    for event in session.scalars(stmt):
+        event.details = {**event.details, "signature": signature}

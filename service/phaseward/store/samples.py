@@ -54,6 +54,28 @@ def count(session: Session, rail_id: str) -> int:
     return session.scalar(select(func.count()).where(Sample.rail_id == rail_id)) or 0
 
 
+def around(session: Session, rail_id: str, *, t_s: float, before: int, after: int) -> SampleRows:
+    """Up to ``before`` samples older than ``t_s``, the one at ``t_s``, and up to ``after``
+    newer ones, oldest first (two index range scans)."""
+    older = (
+        select(Sample.t_s)
+        .where(Sample.rail_id == rail_id, Sample.t_s < t_s)
+        .order_by(Sample.t_s.desc())
+        .limit(before)
+    )
+    first = min(session.scalars(older).all(), default=t_s)
+    newer = (
+        select(Sample.t_s)
+        .where(Sample.rail_id == rail_id, Sample.t_s > t_s)
+        .order_by(Sample.t_s)
+        .limit(after)
+    )
+    last = max(session.scalars(newer).all(), default=t_s)
+    return window(
+        session, rail_id, start_s=first, end_s=np.nextafter(last, np.inf), limit=before + after + 1
+    )
+
+
 def window(
     session: Session, rail_id: str, *, start_s: float, end_s: float, limit: int
 ) -> SampleRows:

@@ -46,7 +46,7 @@ TERMS = (
 )
 
 
-def params(n: int = 1, **changes: Any) -> PhaseLossParams:
+def params(n: int = 1, /, **changes: Any) -> PhaseLossParams:
     return PhaseLossParams.build(n, **(POINT | changes))
 
 

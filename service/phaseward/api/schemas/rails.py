@@ -106,6 +106,13 @@ class MonitorSpec(Contract):
     gap_s: Positive = 10.0
     forecast_horizon_s: Positive = 900.0
     hysteresis_k: NonNegative = 2.0
+    # The junction estimator: how far to trust the loss model and the temperature sensors.
+    process_noise_w: Positive = 0.2
+    sensor_noise_k: Positive = 0.5
+    sensor_tau_s: Positive | None = Field(
+        default=None, description="first-order lag of the sensor behind the junction"
+    )
+    sensor_offset_k: float = Field(default=0.0, ge=-50, le=50)
 
 
 class RailBody(Contract):

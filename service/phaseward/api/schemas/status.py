@@ -43,13 +43,19 @@ class CapacityStatus(BaseModel):
 class ThermalStatus(BaseModel):
     hottest_phase: int | None
     hottest_temp_c: float | None
-    margin_k: float | None = Field(description="junction limit minus the hottest reading")
+    margin_k: float | None = Field(
+        description="junction limit minus the hottest estimated junction temperature"
+    )
     margin_to_warning_k: float | None
     steady_junction_c: list[float | None] = Field(description="steady state at the present load")
     time_to_limit_s: float | None = Field(description="None: not reached within the horizon")
     limit_phase: int | None
     runaway: bool
-    model_nodes_c: list[float]
+    estimated_junction_c: list[float] = Field(
+        description="junction temperatures estimated from the model and the sensors (Kalman)"
+    )
+    junction_std_k: list[float] = Field(description="one standard deviation of each estimate")
+    board_c: float = Field(description="estimated temperature of the shared board node")
 
 
 class Screening(BaseModel):

@@ -28,6 +28,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(samples.router)
     app.include_router(events.router)
     app.include_router(analyses.router)
+    app.include_router(analyses.tools)
 
     @app.get("/healthz", tags=["meta"])
     def healthz() -> dict[str, str]:

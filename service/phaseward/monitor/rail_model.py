@@ -43,6 +43,13 @@ class MonitorRules:
 
 
 @dataclass(frozen=True)
+class Reliability:
+    fit_at_ref: float
+    ref_c: float
+    activation_ev: float
+
+
+@dataclass(frozen=True)
 class RailModel:
     """Everything the monitor needs of one rail version. Per-phase arrays are (n_phases,)."""
 
@@ -61,6 +68,7 @@ class RailModel:
     losses: PhaseLossParams
     network: ThermalNetwork
     rules: MonitorRules
+    reliability: Reliability | None
 
     @property
     def n_phases(self) -> int:
@@ -130,6 +138,7 @@ def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
         losses=losses,
         network=network,
         rules=MonitorRules(**spec["monitor"]),
+        reliability=Reliability(**spec["reliability"]) if spec.get("reliability") else None,
     )
 
 

@@ -11,10 +11,20 @@ from fastapi import APIRouter, Query
 from phaseward.api.deps import ReadSessionDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RailId
-from phaseward.api.schemas.analyses import ForecastIn, ForecastOut, LoadProfile, ScreeningOut
+from phaseward.api.schemas.analyses import (
+    BreakerIn,
+    BreakerOut,
+    ForecastIn,
+    ForecastOut,
+    LoadProfile,
+    ReliabilityOut,
+    ScreeningOut,
+)
 from phaseward.errors import InvalidInput
+from phaseward.monitor import breaker_check
 from phaseward.monitor.forecast import Drop, forecast
 from phaseward.monitor.live import live_rail
+from phaseward.monitor.reliability import mission
 from phaseward.monitor.screening import screen
 
 router = APIRouter(prefix="/v1/rails", tags=["analyses"], responses=ERROR_RESPONSES)
@@ -81,3 +91,31 @@ def post_forecast(rail_id: RailId, body: ForecastIn, session: ReadSessionDep) ->
     return ForecastOut.model_validate(
         {"rail_id": rail_id, "version": live.model.version, "start_s": live.t_s, **result}
     )
+
+
+@router.get("/{rail_id}/reliability")
+def get_reliability(
+    rail_id: RailId,
+    session: ReadSessionDep,
+    hours: Annotated[float, Query(gt=0, le=1e6, description="mission time")],
+) -> ReliabilityOut:
+    live = live_rail(session, rail_id)
+    return ReliabilityOut.model_validate(
+        {"rail_id": rail_id, "version": live.model.version, **mission(live, hours)}
+    )
+
+
+tools = APIRouter(prefix="/v1/tools", tags=["tools"], responses=ERROR_RESPONSES)
+
+
+@tools.post("/breaker-stress")
+def post_breaker_stress(body: BreakerIn) -> BreakerOut:
+    """Peak junction rise of the breaker's pass MOSFET while it limits a short, against its
+    junction limit and its safe operating area."""
+    result = breaker_check.check(
+        vin_v=body.vin_v, current_limit_a=body.current_limit_a, delay_s=body.delay_s,
+        foster=[(s.r_k_per_w, s.tau_s) for s in body.foster], start_temp_c=body.start_temp_c,
+        junction_limit_c=body.junction_limit_c, soa=[(p.time_s, p.current_a) for p in body.soa],
+        curve_points=body.curve_points,
+    )  # fmt: skip
+    return BreakerOut.model_validate(result)

@@ -8,6 +8,7 @@ from typing import Annotated, Self
 from pydantic import BaseModel, Field, model_validator
 
 from phaseward.api.schemas.common import CAUTION, Celsius, Contract, NonNegative
+from phaseward.api.schemas.rails import FosterStage as FosterStageIn
 
 MAX_HORIZON_S = 24 * 3600.0
 
@@ -95,4 +96,71 @@ class ForecastOut(BaseModel):
     steady_junction_c: list[float] | None
     margin_k: float | None = Field(description="smallest distance to a limit over the horizon")
     runaway: bool
+    caution: str = CAUTION
+
+
+class MissionCase(BaseModel):
+    phases_needed: int = Field(description="fewest survivors that carry the rated load")
+    survival_probability: float
+    failure_probability: float
+    mttf_h: float | None = Field(description="mean time to failure; None: unbounded")
+    runaway: bool
+    junction_c: list[float | None] = Field(description="at the rated load; None: phase out")
+    fit: list[float | None] = Field(description="accelerated failure rate per phase, FIT")
+
+
+class LossMissionCase(MissionCase):
+    lose_phase: int
+
+
+class ReliabilityOut(BaseModel):
+    rail_id: str
+    version: int
+    hours: float
+    rated_load_a: float
+    fit_at_ref: float
+    ref_c: float
+    activation_ev: float
+    present: MissionCase
+    n_minus_1: list[LossMissionCase]
+    caution: str = CAUTION
+
+
+class SoaPoint(Contract):
+    time_s: Annotated[float, Field(gt=0)]
+    current_a: Annotated[float, Field(gt=0)]
+
+
+class BreakerIn(Contract):
+    """The hot-swap pass MOSFET of one phase while it limits a downstream short."""
+
+    vin_v: Annotated[float, Field(gt=0, le=1000)]
+    current_limit_a: Annotated[float, Field(gt=0, le=10_000)]
+    delay_s: Annotated[float, Field(gt=0, le=100)]
+    foster: list[FosterStageIn] = Field(min_length=1, max_length=8)
+    start_temp_c: Celsius = 25.0
+    junction_limit_c: Celsius = 150.0
+    soa: list[SoaPoint] = Field(min_length=1, max_length=64, description="at vin_v")
+    curve_points: Annotated[int, Field(ge=2, le=1000)] = 50
+
+
+class BreakerCheck(BaseModel):
+    delay_s: float
+    peak_junction_c: float
+    rise_k: float
+    margin_k: float
+    soa_allowed_a: float | None
+    soa_margin_a: float | None
+    passes: bool
+    binding: str
+    within_soa_data: bool
+
+
+class BreakerOut(BaseModel):
+    power_w: float
+    at_delay: BreakerCheck
+    longest_safe_delay_s: float = Field(
+        description="longest delay passing both checks (at most the last SOA point)"
+    )
+    curve: list[BreakerCheck]
     caution: str = CAUTION

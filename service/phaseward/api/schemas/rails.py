@@ -115,6 +115,14 @@ class MonitorSpec(Contract):
     sensor_offset_k: float = Field(default=0.0, ge=-50, le=50)
 
 
+class ReliabilitySpec(Contract):
+    """Per-phase failure rate at a reference temperature, accelerated per JEDEC JEP122."""
+
+    fit_at_ref: Positive = Field(description="failures per 1e9 phase-hours at ref_c")
+    ref_c: Celsius
+    activation_ev: Annotated[float, Field(gt=0, le=3)] = 0.7  # a usual default, common practice
+
+
 class RailBody(Contract):
     """A rail definition as PUT takes it (the id comes from the path)."""
 
@@ -129,6 +137,7 @@ class RailBody(Contract):
     overrides: list[PhaseOverride] = Field(default_factory=list, max_length=32)
     board: BoardSpec
     monitor: MonitorSpec = Field(default_factory=MonitorSpec)
+    reliability: ReliabilitySpec | None = None
 
     @field_validator("vout_v")
     @classmethod

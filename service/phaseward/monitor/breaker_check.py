@@ -8,7 +8,7 @@ from typing import Any
 import numpy as np
 
 from phaseward.errors import InvalidInput
-from phaseward.physics.breaker import breaker_stress, longest_safe_delay_s, stress_curve
+from phaseward.physics.breaker import longest_safe_delay_s, stress_curve
 from phaseward.physics.thermal import FosterStages
 
 
@@ -29,28 +29,33 @@ def check(
     stages = FosterStages(
         r_k_per_w=np.array([r for r, _ in foster]), tau_s=np.array([t for _, t in foster])
     )
-    device = {
-        "vin_v": vin_v, "current_limit_a": current_limit_a, "foster": stages,
-        "start_temp_c": start_temp_c, "junction_limit_c": junction_limit_c,
-        "soa_time_s": np.array([t for t, _ in soa]), "soa_current_a": np.array([i for _, i in soa]),
-    }  # fmt: skip
+    soa_time = np.array([t for t, _ in soa])
+    soa_current = np.array([i for _, i in soa])
+    lo = min(delay_s, soa[0][0]) / 10.0
+    hi = max(delay_s, soa[-1][0])
+    delays = np.concatenate([[delay_s], np.geomspace(lo, hi, curve_points)])
     try:
-        at = breaker_stress(delay_s=delay_s, **device)
-        longest = longest_safe_delay_s(**device)
-        lo = min(delay_s, soa[0][0]) / 10.0
-        hi = max(delay_s, soa[-1][0])
-        curve = stress_curve(delay_s=np.geomspace(lo, hi, curve_points), **device)
+        curve = stress_curve(
+            vin_v=vin_v, current_limit_a=current_limit_a, delay_s=delays, foster=stages,
+            start_temp_c=start_temp_c, junction_limit_c=junction_limit_c,
+            soa_time_s=soa_time, soa_current_a=soa_current,
+        )  # fmt: skip
+        longest = longest_safe_delay_s(
+            vin_v=vin_v, current_limit_a=current_limit_a, foster=stages,
+            start_temp_c=start_temp_c, junction_limit_c=junction_limit_c,
+            soa_time_s=soa_time, soa_current_a=soa_current,
+        )  # fmt: skip
     except ValueError as err:  # the kernel names the argument it refused
         raise InvalidInput(str(err), field=_field_of(str(err))) from err
     rows = [
         {name: _plain(getattr(curve, name)[k]) for name in _CURVE_FIELDS}
-        for k in range(curve.delay_s.size)
+        for k in range(delays.size)
     ]
     return {
         "power_w": vin_v * current_limit_a,
-        "at_delay": {"delay_s": delay_s, **{n: _plain(getattr(at, n)) for n in _CURVE_FIELDS[1:]}},
+        "at_delay": rows[0],
         "longest_safe_delay_s": float(longest),
-        "curve": rows,
+        "curve": rows[1:],
     }
 
 

@@ -43,7 +43,9 @@ def test_forecast_matches_solve_ivp() -> None:
     start = steady_state_c(net, p0, s, AMBIENT)
     live = LiveRail(model=model, active=active, weights=weights, load_a=60.0, nodes_c=start,
                     ambient_c=AMBIENT, t_s=None)  # fmt: skip
-    result = forecast(live, load_at=load_at, drops=[DROP], horizon_s=600.0, points=20000)
+    result = forecast(
+        live, load_at=load_at, drops=[DROP], horizon_s=600.0, points=20000, step_s=0.012
+    )
 
     a = net.conductance_w_per_k + np.diag(net.ambient_conductance_w_per_k)
     c = net.capacitance_j_per_k
@@ -89,7 +91,7 @@ def test_time_to_limit_matches_solve_ivp_event() -> None:
     live = LiveRail(model=model, active=active, weights=weights, load_a=96.0, nodes_c=start,
                     ambient_c=70.0, t_s=None)  # fmt: skip
     result = forecast(live, load_at=lambda t: np.full(t.shape, 96.0), drops=[DROP],
-                      horizon_s=1800.0, points=500)  # fmt: skip
+                      horizon_s=1800.0, points=500, step_s=0.036)  # fmt: skip
     alive = active & (np.arange(4) != DROP.phase)
     q0, qs = phase_power(model, np.where(alive, 96.0 / 3, 0.0), alive)
     a = net.conductance_w_per_k + np.diag(net.ambient_conductance_w_per_k)

@@ -87,6 +87,7 @@ def post_forecast(rail_id: RailId, body: ForecastIn, session: ReadSessionDep) ->
     result = forecast(
         live, load_at=load_at, drops=[Drop(d.phase, d.at_s) for d in body.drop],
         horizon_s=body.horizon_s, points=body.points, ambient_c=body.ambient_c,
+        step_s=body.step_s,
     )  # fmt: skip
     return ForecastOut.model_validate(
         {"rail_id": rail_id, "version": live.model.version, "start_s": live.t_s, **result}

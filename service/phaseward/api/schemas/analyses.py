@@ -73,6 +73,10 @@ class ForecastIn(Contract):
     horizon_s: Annotated[float, Field(gt=0, le=MAX_HORIZON_S)] = 3600.0
     points: Annotated[int, Field(ge=10, le=20_000)] = 500
     ambient_c: Celsius | None = None
+    step_s: Annotated[float, Field(gt=0)] | None = Field(
+        default=None,
+        description="propagation step; default horizon / 5000, never below horizon / 200000",
+    )
 
 
 class Peak(BaseModel):

@@ -56,8 +56,10 @@ def median_s(call: Callable[[], httpx.Response]) -> float:
 def main() -> None:
     with tempfile.TemporaryDirectory() as tmp:
         settings = Settings(data_dir=Path(tmp), port=8490, log_level="warning")
-        server = uvicorn.Server(uvicorn.Config(create_app(settings), host="127.0.0.1",
-                                               port=settings.port, log_level="warning"))  # fmt: skip
+        config = uvicorn.Config(
+            create_app(settings), host="127.0.0.1", port=settings.port, log_level="warning"
+        )
+        server = uvicorn.Server(config)
         thread = threading.Thread(target=server.run, daemon=True)
         thread.start()
         while not server.started:

@@ -5,6 +5,7 @@ Codes (stored in the live state as words, in arrays as int8): see ``PHASE_CONDIT
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -121,13 +122,9 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     findings += _gap_findings(batch.t_s, prev.last_t_s, rules.gap_s)
 
     weights, imbalance_pct, worst = _sharing(model, codes, cur, np.asarray(prev.weights))
-    imbalance = latch(
-        (imbalance_pct > rules.imbalance_pct)[:, None],
-        (imbalance_pct < 0.8 * rules.imbalance_pct)[:, None],
-        np.array([prev.imbalance]),
-    )[:, 0]
-    findings += _latch_findings(
-        imbalance, prev.imbalance, "sharing.imbalance",
+    imbalance, found = _watch(
+        imbalance_pct > rules.imbalance_pct, imbalance_pct < 0.8 * rules.imbalance_pct,
+        prev.imbalance, "sharing.imbalance",
         lambda k, on: (
             f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from an equal share"
             if on else "current sharing back within limits",
@@ -135,6 +132,7 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
             int(worst[k]) if on else None,
         ),
     )  # fmt: skip
+    findings += found
 
     warn_at = model.junction_limit_c - model.warning_margin_k
     hot = latch(
@@ -154,33 +152,27 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         )  # fmt: skip
 
     uv_frac = batch.vin_v / model.vin_v
-    undervoltage = latch(
-        (uv_frac < rules.undervoltage_fraction)[:, None],
-        (uv_frac > rules.undervoltage_fraction + 0.02)[:, None],
-        np.array([prev.undervoltage]),
-    )[:, 0]
-    findings += _latch_findings(
-        undervoltage, prev.undervoltage, "input.undervoltage",
+    undervoltage, found = _watch(
+        uv_frac < rules.undervoltage_fraction, uv_frac > rules.undervoltage_fraction + 0.02,
+        prev.undervoltage, "input.undervoltage",
         lambda k, on: (
             f"input at {batch.vin_v[k]:.2f} V, nominal {model.vin_v:.2f} V"
             if on else "input voltage recovered",
             {"vin_v": _r(batch.vin_v[k])}, None,
         ),
     )  # fmt: skip
+    findings += found
     deviation = np.abs(batch.vout_v / model.vout_v - 1.0)
-    excursion = latch(
-        (deviation > rules.excursion_fraction)[:, None],
-        (deviation < 0.8 * rules.excursion_fraction)[:, None],
-        np.array([prev.excursion]),
-    )[:, 0]
-    findings += _latch_findings(
-        excursion, prev.excursion, "output.excursion",
+    excursion, found = _watch(
+        deviation > rules.excursion_fraction, deviation < 0.8 * rules.excursion_fraction,
+        prev.excursion, "output.excursion",
         lambda k, on: (
             f"output at {batch.vout_v[k]:.4f} V, {100 * deviation[k]:.1f} % off nominal"
             if on else "output voltage back within its band",
             {"vout_v": _r(batch.vout_v[k]), "deviation_pct": _r(100 * deviation[k])}, None,
         ),
     )  # fmt: skip
+    findings += found
 
     history = np.concatenate([tail, raw])[-width:] if width else raw[:0]
     watch = Watch(
@@ -288,18 +280,22 @@ def _gap_findings(t_s: F64, last_t_s: float | None, gap_s: float) -> list[Findin
     ]  # fmt: skip
 
 
-def _latch_findings(
-    states: npt.NDArray[np.bool_],
+def _watch(
+    set_mask: npt.NDArray[np.bool_],
+    reset_mask: npt.NDArray[np.bool_],
     prev: bool,
     kind: str,
-    describe: Any,
-) -> list[Finding]:
+    describe: Callable[[int, bool], tuple[str, dict[str, Any], int | None]],
+) -> tuple[npt.NDArray[np.bool_], list[Finding]]:
+    """A rail-wide watch with hysteresis over the batch: its state per sample, and a finding
+    (warning when raised, info when cleared) at every change."""
+    states = latch(set_mask[:, None], reset_mask[:, None], np.array([prev]))[:, 0]
     out = []
-    for (k,) in zip(*changes(states[:, None], np.array([prev]))[:1], strict=True):
+    for k in changes(states[:, None], np.array([prev]))[0]:
         on = bool(states[k])
-        message, details, phase = describe(k, on)
+        message, details, phase = describe(int(k), on)
         out.append(
             Finding(int(k), kind, "warning" if on else "info", phase, message,
                     {**details, "cleared": not on})
         )  # fmt: skip
-    return out
+    return states, out

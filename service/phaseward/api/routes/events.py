@@ -5,10 +5,11 @@ from __future__ import annotations
 import csv
 import io
 from datetime import datetime
-from typing import Annotated
+from typing import Annotated, Any
 
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import Response
+from pydantic import BaseModel, Field
 
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
@@ -21,9 +22,22 @@ from phaseward.store import events as event_store
 
 router = APIRouter(tags=["events"], responses=ERROR_RESPONSES)
 
-KindQ = Annotated[list[str], Query(max_length=20, description="event kind, repeatable")]
-SeverityQ = Annotated[list[str], Query(max_length=3, description="info, warning, critical")]
-TimeQ = Annotated[str | None, Query(max_length=40, description="RFC 3339 or epoch seconds")]
+
+class EventQuery(BaseModel):
+    """Filters and paging shared by both event lists."""
+
+    kind: list[str] = Field(default_factory=list, max_length=20, description="repeatable")
+    severity: list[str] = Field(
+        default_factory=list, max_length=3, description="info, warning, critical"
+    )
+    phase: int | None = Field(default=None, ge=0, le=63)
+    since: str | None = Field(default=None, max_length=40, description="RFC 3339 or epoch seconds")
+    until: str | None = Field(default=None, max_length=40, description="RFC 3339 or epoch seconds")
+    cursor: str | None = Field(default=None, max_length=20, description="next_cursor of a page")
+    limit: int = Field(default=100, ge=1, le=1000)
+
+
+EventQueryDep = Annotated[EventQuery, Query()]
 
 
 def _time(value: str | None, name: str) -> float | None:
@@ -48,24 +62,19 @@ def _page(
     settings: SettingsDep,
     *,
     rail_id: str | None,
-    kind: list[str],
-    severity: list[str],
-    phase: int | None,
-    since: str | None,
-    until: str | None,
-    cursor: str | None,
-    limit: int,
+    query: EventQuery,
 ) -> EventPage | Response:
-    for s in severity:
-        if s not in SEVERITIES:
-            raise InvalidInput(f"unknown severity '{s}'", field="severity")
+    for level in query.severity:
+        if level not in SEVERITIES:
+            raise InvalidInput(f"unknown severity '{level}'", field="severity")
+    cursor = query.cursor
     if cursor is not None and not cursor.isdigit():
         raise InvalidInput("cursor must be the next_cursor of a previous page", field="cursor")
     flt = event_store.EventFilter(
-        rail_id=rail_id, kinds=tuple(kind), severities=tuple(severity), phase=phase,
-        since_s=_time(since, "since"), until_s=_time(until, "until"),
+        rail_id=rail_id, kinds=tuple(query.kind), severities=tuple(query.severity),
+        phase=query.phase, since_s=_time(query.since, "since"), until_s=_time(query.until, "until"),
     )  # fmt: skip
-    size = min(limit, settings.max_page_size)
+    size = min(query.limit, settings.max_page_size)
     rows = event_store.page(
         session, flt, before_id=None if cursor is None else int(cursor), limit=size
     )
@@ -82,47 +91,28 @@ def _page(
     return EventPage(items=items, next_cursor=next_cursor)
 
 
-_CSV_DOC = {"200": {"content": {"text/csv": {"schema": {"type": "string"}}}}}
+_CSV_DOC: dict[int | str, dict[str, Any]] = {
+    "200": {"content": {"text/csv": {"schema": {"type": "string"}}}}
+}
 
 
-@router.get("/v1/events", response_model=EventPage, responses=_CSV_DOC)  # type: ignore[arg-type]
+@router.get("/v1/events", response_model=EventPage, responses=_CSV_DOC)
 def list_events(
-    request: Request,
-    session: ReadSessionDep,
-    settings: SettingsDep,
-    kind: KindQ = [],  # noqa: B006 - FastAPI copies query defaults
-    severity: SeverityQ = [],  # noqa: B006
-    phase: Annotated[int | None, Query(ge=0, le=63)] = None,
-    since: TimeQ = None,
-    until: TimeQ = None,
-    cursor: Annotated[str | None, Query(max_length=20)] = None,
-    limit: Annotated[int, Query(ge=1, le=1000)] = 100,
+    request: Request, session: ReadSessionDep, settings: SettingsDep, query: EventQueryDep
 ) -> EventPage | Response:
-    return _page(
-        request, session, settings, rail_id=None, kind=kind, severity=severity, phase=phase,
-        since=since, until=until, cursor=cursor, limit=limit,
-    )  # fmt: skip
+    return _page(request, session, settings, rail_id=None, query=query)
 
 
-@router.get("/v1/rails/{rail_id}/events", response_model=EventPage, responses=_CSV_DOC)  # type: ignore[arg-type]
+@router.get("/v1/rails/{rail_id}/events", response_model=EventPage, responses=_CSV_DOC)
 def list_rail_events(
     rail_id: RailId,
     request: Request,
     session: ReadSessionDep,
     settings: SettingsDep,
-    kind: KindQ = [],  # noqa: B006
-    severity: SeverityQ = [],  # noqa: B006
-    phase: Annotated[int | None, Query(ge=0, le=63)] = None,
-    since: TimeQ = None,
-    until: TimeQ = None,
-    cursor: Annotated[str | None, Query(max_length=20)] = None,
-    limit: Annotated[int, Query(ge=1, le=1000)] = 100,
+    query: EventQueryDep,
 ) -> EventPage | Response:
     rail_service.get(session, rail_id)  # 404 for an unknown rail rather than an empty page
-    return _page(
-        request, session, settings, rail_id=rail_id, kind=kind, severity=severity, phase=phase,
-        since=since, until=until, cursor=cursor, limit=limit,
-    )  # fmt: skip
+    return _page(request, session, settings, rail_id=rail_id, query=query)
 
 
 @router.post("/v1/events/{event_id}/ack")

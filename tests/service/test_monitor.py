@@ -178,3 +178,26 @@ async def test_new_definition_waits_for_a_sample(client: httpx.AsyncClient, rail
     assert answer.status_code == 200, answer.text
     assert answer.json()["version"] == 2
     assert len((await client.get(f"{rail}/status")).json()["phases"]) == 3
+
+
+async def test_status_ripple_with_and_without_the_lost_phase(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    from phaseward.physics.ripple import inductor_ripple_pp_a, interleaved_ripple_ratio_even
+
+    spec = {k: v for k, v in SMALL_RAIL.items() if k != "id"}
+    spec["output"] = {"capacitance_f": 2e-3, "esr_ohm": 0.2e-3}
+    assert (await client.put(rail, json=spec)).status_code == 200
+    await client.post(f"{rail}/samples", json=[sample(k, EVEN) for k in range(2)])
+    await client.post(f"{rail}/samples", json=tripped(2, phase=1))
+    ripple = (await client.get(f"{rail}/status")).json()["ripple"]
+    # Closed-form cancellation for evenly spaced phases (checked against the superposition of
+    # the triangle waves in tests/reference/test_ref_interleaving.py).
+    single = float(inductor_ripple_pp_a(12.0, 1.0, 220e-9, 500e3))
+    duty = 1.0 / 12.0
+    four = single * float(interleaved_ripple_ratio_even(4, duty))
+    three = single * float(interleaved_ripple_ratio_even(3, duty))
+    assert ripple["all_phases_pp_a"] == pytest.approx(four, rel=1e-9)
+    assert ripple["respaced_pp_a"] == pytest.approx(three, rel=1e-9)
+    assert ripple["survivors_pp_a"] > ripple["respaced_pp_a"]  # the gap cancels less
+    assert ripple["survivors_pp_v"] > ripple["respaced_pp_v"] > 0

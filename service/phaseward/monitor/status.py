@@ -10,6 +10,7 @@ from sqlalchemy.orm import Session
 
 from phaseward.monitor import rail_model
 from phaseward.monitor import rails as rail_service
+from phaseward.monitor.ripple_view import ripple_view
 from phaseward.monitor.telemetry import FLAG_NAMES
 from phaseward.store import state
 
@@ -28,6 +29,7 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
         "capacity": None,
         "thermal": None,
         "screening": None,
+        "ripple": None,
     }
     if live is None or live.version != rail.version:
         return out  # no sample judged under the present definition yet
@@ -77,6 +79,7 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
             "board_c": s["nodes_c"][model.network.board_node],
         },
         screening={"n1_secure": verdict["n1_secure"], "weakest": verdict["n1_weakest"]},
+        ripple=ripple_view(model, active, spec.get("output")),
         phases=[
             {
                 "index": i,

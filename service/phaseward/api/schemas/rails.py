@@ -123,6 +123,13 @@ class ReliabilitySpec(Contract):
     activation_ev: Annotated[float, Field(gt=0, le=3)] = 0.7  # a usual default, common practice
 
 
+class OutputSpec(Contract):
+    """The output capacitor bank, for the ripple voltage the interleaving leaves."""
+
+    capacitance_f: Positive
+    esr_ohm: NonNegative = 0.0
+
+
 class RailBody(Contract):
     """A rail definition as PUT takes it (the id comes from the path)."""
 
@@ -138,6 +145,7 @@ class RailBody(Contract):
     board: BoardSpec
     monitor: MonitorSpec = Field(default_factory=MonitorSpec)
     reliability: ReliabilitySpec | None = None
+    output: OutputSpec | None = None
 
     @field_validator("vout_v")
     @classmethod

@@ -63,6 +63,17 @@ class Screening(BaseModel):
     weakest: list[ScreeningCase] = Field(description="the three weakest single losses")
 
 
+class RippleStatus(BaseModel):
+    """Peak-to-peak output ripple: all phases, survivors where they sit, survivors re-spaced."""
+
+    all_phases_pp_a: float | None
+    survivors_pp_a: float | None
+    respaced_pp_a: float | None
+    all_phases_pp_v: float | None = None
+    survivors_pp_v: float | None = None
+    respaced_pp_v: float | None = None
+
+
 class RailStatus(BaseModel):
     rail_id: str
     version: int
@@ -74,5 +85,6 @@ class RailStatus(BaseModel):
     capacity: CapacityStatus | None
     thermal: ThermalStatus | None
     screening: Screening | None
+    ripple: RippleStatus | None
     phases: list[PhaseStatus]
     caution: str = CAUTION

@@ -29,7 +29,8 @@ class Settings(BaseSettings):
     max_body_bytes: int = Field(default=4 * 1024 * 1024, ge=1024)
     max_batch_samples: int = Field(default=2000, ge=1)
     max_page_size: int = Field(default=1000, ge=1)
-    max_phases: int = Field(default=32, ge=1)
+    max_trace_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
+    max_trace_samples: int = Field(default=500_000, ge=2)
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

@@ -6,7 +6,7 @@ from fastapi import FastAPI
 
 from phaseward import __version__
 from phaseward.api import errors
-from phaseward.api.routes import analyses, events, rails, samples
+from phaseward.api.routes import analyses, events, rails, samples, traces
 from phaseward.settings import Settings
 from phaseward.store.db import build_engine, build_sessionmaker, migrate
 
@@ -29,6 +29,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(events.router)
     app.include_router(analyses.router)
     app.include_router(analyses.tools)
+    app.include_router(traces.router)
 
     @app.get("/healthz", tags=["meta"])
     def healthz() -> dict[str, str]:

@@ -133,3 +133,40 @@ class RailState(Base):
     last_t_s: Mapped[float | None] = mapped_column(Float)
     state: Mapped[dict[str, Any]] = mapped_column(JSON)
     updated_s: Mapped[float] = mapped_column(Float)
+
+
+class Trace(Base):
+    """An uploaded recording for rehearsals, packed like samples: one row per trace, whole
+    arrays in binary columns (a trace is always read whole)."""
+
+    __tablename__ = "traces"
+
+    id: Mapped[int] = mapped_column(
+        BigInteger().with_variant(Integer, "sqlite"), primary_key=True, autoincrement=True
+    )
+    name: Mapped[str] = mapped_column(String(200))
+    n_samples: Mapped[int] = mapped_column(Integer)
+    n_phases: Mapped[int] = mapped_column(Integer)
+    t_s: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE (n,)
+    vin_v: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE (n,)
+    current_a: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE (n, phases)
+    temp_c: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE (n, phases), NaN = none
+    created_s: Mapped[float] = mapped_column(Float)
+
+
+class Job(Base):
+    """A long computation run in the background; its result is kept to be fetched again."""
+
+    __tablename__ = "jobs"
+
+    id: Mapped[int] = mapped_column(
+        BigInteger().with_variant(Integer, "sqlite"), primary_key=True, autoincrement=True
+    )
+    kind: Mapped[str] = mapped_column(String(40))
+    status: Mapped[str] = mapped_column(String(16))  # queued, running, done, failed
+    percent: Mapped[float] = mapped_column(Float)
+    request: Mapped[dict[str, Any]] = mapped_column(JSON)
+    result: Mapped[dict[str, Any] | None] = mapped_column(JSON)
+    error: Mapped[str | None] = mapped_column(Text)
+    created_s: Mapped[float] = mapped_column(Float)
+    finished_s: Mapped[float | None] = mapped_column(Float)

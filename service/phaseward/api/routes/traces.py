@@ -1,0 +1,62 @@
+"""Traces: recordings uploaded for rehearsals."""
+
+from __future__ import annotations
+
+import json
+from typing import Annotated
+
+from fastapi import APIRouter, Query, Request, status
+from fastapi.concurrency import run_in_threadpool
+
+from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
+from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.routes.samples import NDJSON, read_limited
+from phaseward.api.schemas.traces import TraceOut, parse_csv, parse_ndjson, parse_samples
+from phaseward.errors import BadRequest, UnsupportedMediaType
+from phaseward.monitor import traces
+from phaseward.store.traces import TraceArrays
+
+router = APIRouter(prefix="/v1/traces", tags=["rehearsal"], responses=ERROR_RESPONSES)
+
+
+def _out(trace_id: int, trace: TraceArrays) -> TraceOut:
+    return TraceOut(
+        id=trace_id, name=trace.name, n_samples=int(trace.t_s.size),
+        n_phases=int(trace.current_a.shape[1]), start_s=float(trace.t_s[0]),
+        end_s=float(trace.t_s[-1]),
+    )  # fmt: skip
+
+
+@router.post("", status_code=status.HTTP_201_CREATED)
+async def upload_trace(
+    request: Request,
+    sessions: SessionsDep,
+    settings: SettingsDep,
+    name: Annotated[str, Query(min_length=1, max_length=200)] = "trace",
+) -> TraceOut:
+    """Upload a recording as CSV (``text/csv``), NDJSON or a JSON array of samples."""
+    body = await read_limited(request, settings.max_trace_bytes)
+    media = request.headers.get("content-type", "").split(";")[0].strip().lower()
+    if media == "text/csv":
+        trace = parse_csv(
+            body.decode("utf-8", "replace"), name=name, max_samples=settings.max_trace_samples
+        )
+    elif media == NDJSON:
+        trace = parse_ndjson(body, name=name)
+    elif media == "application/json":
+        try:
+            items = json.loads(body)
+        except ValueError as err:
+            raise BadRequest(f"body is not JSON: {err}", field="body") from err
+        trace = parse_samples(items if isinstance(items, list) else [items], name=name)
+    else:
+        raise UnsupportedMediaType(
+            f"send text/csv, {NDJSON} or application/json", field="content-type"
+        )
+    trace_id = await run_in_threadpool(traces.keep, sessions, trace)
+    return _out(trace_id, trace)
+
+
+@router.get("/{trace_id}")
+def get_trace(trace_id: int, session: ReadSessionDep) -> TraceOut:
+    return _out(trace_id, traces.load(session, trace_id))

@@ -1,0 +1,61 @@
+"""Trace uploads: CSV and samples, and refusals that name the line or field."""
+
+from __future__ import annotations
+
+import json
+
+import httpx
+import pytest
+from tests.factories import sample
+
+pytestmark = pytest.mark.anyio
+CSV = (
+    "time_s,vin_v,i0_a,i1_a,t0_c,t1_c\n0,12,10,10.5,40,\n0.5,12,11,10,41,42\n1.0,11.9,0,21,41,45\n"
+)
+
+
+async def test_csv_upload(client: httpx.AsyncClient) -> None:
+    answer = await client.post(
+        "/v1/traces",
+        params={"name": "bench run 7"},
+        content=CSV,
+        headers={"content-type": "text/csv"},
+    )
+    assert answer.status_code == 201, answer.text
+    body = answer.json()
+    assert (body["n_samples"], body["n_phases"], body["end_s"]) == (3, 2, 1.0)
+    assert (await client.get(f"/v1/traces/{body['id']}")).json() == body
+
+
+async def test_ndjson_upload(client: httpx.AsyncClient) -> None:
+    lines = "\n".join(json.dumps(sample(k, [20.0, 21.0, 19.0])) for k in range(4))
+    answer = await client.post(
+        "/v1/traces", content=lines, headers={"content-type": "application/x-ndjson"}
+    )
+    assert answer.status_code == 201, answer.text
+    assert answer.json()["n_phases"] == 3
+
+
+@pytest.mark.parametrize(
+    ("text", "field"),
+    [
+        ("time,vin_v,i0_a\n0,12,1\n1,12,1\n", "header"),
+        ("time_s,vin_v,i1_a\n0,12,1\n1,12,1\n", "header"),
+        ("time_s,vin_v,i0_a\n0,12,1\n1,12,x\n", "line 3"),
+        ("time_s,vin_v,i0_a\n0,12,1\n1,12\n", "line 3"),
+        ("time_s,vin_v,i0_a\n0,12,1\n0,12,1\n", "[1].time"),
+        ("time_s,vin_v,i0_a\n0,12,nan\n1,12,1\n", "line 2"),
+    ],
+)
+async def test_bad_csv(client: httpx.AsyncClient, text: str, field: str) -> None:
+    answer = await client.post("/v1/traces", content=text, headers={"content-type": "text/csv"})
+    assert answer.status_code == 422, answer.text
+    assert answer.json()["field"] == field
+
+
+async def test_sense_voltage_needs_a_rail(client: httpx.AsyncClient) -> None:
+    body = [sample(k, [20.0, 20.0]) for k in range(3)]
+    body[1]["phases"][0] = {"index": 0, "sense_v": 0.006}
+    answer = await client.post("/v1/traces", json=body)
+    assert answer.status_code == 422
+    assert answer.json()["field"] == "[1].phases[0].sense_v"

@@ -6,7 +6,7 @@ from fastapi import FastAPI
 
 from phaseward import __version__
 from phaseward.api import errors
-from phaseward.api.routes import analyses, events, rails, samples, traces
+from phaseward.api.routes import analyses, events, rails, samples, stream, traces
 from phaseward.settings import Settings
 from phaseward.store.db import build_engine, build_sessionmaker, migrate
 
@@ -26,6 +26,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     errors.install(app)
     app.include_router(rails.router)
     app.include_router(samples.router)
+    app.include_router(stream.router)
     app.include_router(events.router)
     app.include_router(analyses.router)
     app.include_router(analyses.tools)

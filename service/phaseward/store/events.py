@@ -6,7 +6,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import insert, select
+from sqlalchemy import func, insert, select
 from sqlalchemy.orm import Session
 
 from phaseward.store.models import Event
@@ -65,3 +65,17 @@ def attach_signature(
     )
     for event in session.scalars(stmt):
         event.details = {**event.details, "signature": signature}
+
+
+def after(session: Session, flt: EventFilter, *, after_id: int, limit: int) -> Sequence[Event]:
+    """Events newer than ``after_id``, oldest first (for live streams)."""
+    stmt = select(Event).where(Event.id > after_id).order_by(Event.id).limit(limit)
+    if flt.rail_id is not None:
+        stmt = stmt.where(Event.rail_id == flt.rail_id)
+    if flt.kinds:
+        stmt = stmt.where(Event.kind.in_(flt.kinds))
+    return session.scalars(stmt).all()
+
+
+def latest_id(session: Session) -> int:
+    return session.scalar(select(func.max(Event.id))) or 0

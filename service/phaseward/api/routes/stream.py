@@ -1,0 +1,85 @@
+"""Live events as Server-Sent Events, resumable from the last event id.
+
+The stream polls the events table, so every replica of the service serves the same stream
+from the shared database; ids only grow, so ``Last-Event-ID`` resumes without gaps.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import json
+from collections.abc import AsyncIterator
+from typing import Annotated
+
+from fastapi import APIRouter, Header, Query, Request
+from fastapi.concurrency import run_in_threadpool
+from fastapi.responses import StreamingResponse
+from sqlalchemy.orm import Session, sessionmaker
+
+from phaseward.api.deps import SessionsDep
+from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.schemas.events import EventOut
+from phaseward.errors import InvalidInput
+from phaseward.store import events as event_store
+
+router = APIRouter(tags=["events"], responses=ERROR_RESPONSES)
+POLL_S = 0.5
+HEARTBEAT_S = 15.0
+
+
+def _newer(
+    sessions: sessionmaker[Session], flt: event_store.EventFilter, after: int
+) -> list[EventOut]:
+    with sessions() as session, session.begin():
+        return [EventOut.of(e) for e in event_store.after(session, flt, after_id=after, limit=500)]
+
+
+def _latest(sessions: sessionmaker[Session]) -> int:
+    with sessions() as session, session.begin():
+        return event_store.latest_id(session)
+
+
+@router.get(
+    "/v1/events/stream",
+    response_class=StreamingResponse,
+    responses={200: {"content": {"text/event-stream": {"schema": {"type": "string"}}}}},
+)
+async def stream_events(
+    request: Request,
+    sessions: SessionsDep,
+    rail_id: Annotated[str | None, Query(max_length=64)] = None,
+    kind: Annotated[list[str], Query(max_length=20)] = [],  # noqa: B006 - copied by FastAPI
+    after: Annotated[int | None, Query(ge=0, description="resume after this event id")] = None,
+    limit: Annotated[int | None, Query(ge=1, le=100_000, description="end after N events")] = None,
+    last_event_id: Annotated[str | None, Header()] = None,
+) -> StreamingResponse:
+    """Events as they are derived, oldest first. Without ``after`` or ``Last-Event-ID`` the
+    stream starts with the next new event."""
+    if last_event_id is not None and not last_event_id.isdigit():
+        raise InvalidInput("Last-Event-ID must be an event id", field="last-event-id")
+    start = int(last_event_id) if last_event_id is not None else after
+    if start is None:
+        start = await run_in_threadpool(_latest, sessions)
+    flt = event_store.EventFilter(rail_id=rail_id, kinds=tuple(kind))
+
+    async def frames() -> AsyncIterator[str]:
+        last, sent, idle = start, 0, 0.0
+        yield "retry: 2000\n\n"
+        while limit is None or sent < limit:
+            if await request.is_disconnected():
+                return
+            batch = await run_in_threadpool(_newer, sessions, flt, last)
+            for event in batch[: None if limit is None else limit - sent]:
+                body = json.dumps(event.model_dump(), separators=(",", ":"))
+                yield f"id: {event.id}\nevent: {event.kind}\ndata: {body}\n\n"
+                last, sent, idle = event.id, sent + 1, 0.0
+            if not batch:
+                idle += POLL_S
+                if idle >= HEARTBEAT_S:
+                    idle = 0.0
+                    yield ": still here\n\n"
+                await asyncio.sleep(POLL_S)
+
+    return StreamingResponse(
+        frames(), media_type="text/event-stream", headers={"Cache-Control": "no-cache"}
+    )

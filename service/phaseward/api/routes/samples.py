@@ -18,7 +18,6 @@ from phaseward.api.schemas.samples import BODY_SCHEMA, SAMPLES, IngestOut, Sampl
 from phaseward.errors import BadRequest, InvalidInput, PayloadTooLarge, UnsupportedMediaType
 from phaseward.monitor import rails as rail_service
 from phaseward.monitor.ingest import ingest, record_rejection
-from phaseward.settings import Settings
 from phaseward.store import samples as sample_store
 
 router = APIRouter(prefix="/v1/rails", tags=["telemetry"], responses=ERROR_RESPONSES)
@@ -49,7 +48,8 @@ async def read_limited(request: Request, limit: int) -> bytes:
     return b"".join(chunks)
 
 
-def parse_items(body: bytes, content_type: str, settings: Settings) -> list[Any]:
+def parse_items(body: bytes, content_type: str, *, max_items: int) -> list[Any]:
+    """The samples of a JSON object, a JSON array or NDJSON lines, at most ``max_items``."""
     media = content_type.split(";")[0].strip().lower()
     if media == NDJSON:
         items = []
@@ -74,11 +74,8 @@ def parse_items(body: bytes, content_type: str, settings: Settings) -> list[Any]
         )
     if not items:
         raise BadRequest("no samples in the body", field="body")
-    if len(items) > settings.max_batch_samples:
-        raise PayloadTooLarge(
-            f"{len(items)} samples exceed the batch limit of {settings.max_batch_samples}",
-            field="body",
-        )
+    if len(items) > max_items:
+        raise PayloadTooLarge(f"{len(items)} samples exceed the limit of {max_items}", field="body")
     return items
 
 
@@ -88,7 +85,9 @@ async def post_samples(
 ) -> IngestOut:
     """Store samples and advance the rail's live state. The answer comes after the commit."""
     body = await read_limited(request, settings.max_body_bytes)
-    raw = parse_items(body, request.headers.get("content-type", ""), settings)
+    raw = parse_items(
+        body, request.headers.get("content-type", ""), max_items=settings.max_batch_samples
+    )
     try:
         items = SAMPLES.validate_python(raw)
     except ValidationError as err:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from typing import Annotated
 
 from fastapi import APIRouter, Query, Request, status
@@ -10,9 +9,9 @@ from fastapi.concurrency import run_in_threadpool
 
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
-from phaseward.api.routes.samples import NDJSON, read_limited
-from phaseward.api.schemas.traces import TraceOut, parse_csv, parse_ndjson, parse_samples
-from phaseward.errors import BadRequest, UnsupportedMediaType
+from phaseward.api.routes.samples import NDJSON, parse_items, read_limited
+from phaseward.api.schemas.traces import TraceOut, parse_csv, parse_samples
+from phaseward.errors import UnsupportedMediaType
 from phaseward.monitor import traces
 from phaseward.store.traces import TraceArrays
 
@@ -41,14 +40,9 @@ async def upload_trace(
         trace = parse_csv(
             body.decode("utf-8", "replace"), name=name, max_samples=settings.max_trace_samples
         )
-    elif media == NDJSON:
-        trace = parse_ndjson(body, name=name)
-    elif media == "application/json":
-        try:
-            items = json.loads(body)
-        except ValueError as err:
-            raise BadRequest(f"body is not JSON: {err}", field="body") from err
-        trace = parse_samples(items if isinstance(items, list) else [items], name=name)
+    elif media in (NDJSON, "application/json"):
+        items = parse_items(body, media, max_items=settings.max_trace_samples)
+        trace = parse_samples(items, name=name)
     else:
         raise UnsupportedMediaType(
             f"send text/csv, {NDJSON} or application/json", field="content-type"

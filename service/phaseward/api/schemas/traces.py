@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import csv
 import io
-import json
 import re
 from typing import Any
 
@@ -113,19 +112,6 @@ def parse_samples(items: list[Any], *, name: str) -> TraceArrays:
             vin_v=np.array([s.vin_v for s in samples]), current_a=current, temp_c=temp,
         )
     )  # fmt: skip
-
-
-def parse_ndjson(body: bytes, *, name: str) -> TraceArrays:
-    items = []
-    for number, line in enumerate(body.splitlines(), start=1):
-        if line.strip():
-            try:
-                items.append(json.loads(line))
-            except ValueError as err:
-                raise BadRequest(
-                    f"NDJSON line {number} is not JSON: {err}", field=f"line {number}"
-                ) from err
-    return parse_samples(items, name=name)
 
 
 def _checked(trace: TraceArrays) -> TraceArrays:

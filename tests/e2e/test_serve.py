@@ -2,51 +2,23 @@
 
 from __future__ import annotations
 
-import os
-import socket
-import subprocess
-import sys
-import time
 from collections.abc import Iterator
 from pathlib import Path
 
 import httpx
 import pytest
 from tests.factories import SMALL_RAIL, sample
+from tests.servers import free_port, start_server
 
 pytestmark = pytest.mark.e2e
-
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        port: int = s.getsockname()[1]
-        return port
 
 
 @pytest.fixture
 def server(tmp_path: Path) -> Iterator[str]:
     port = free_port()
-    env = os.environ | {
-        "PHASEWARD_DATA_DIR": str(tmp_path),
-        "PHASEWARD_PORT": str(port),
-        "PHASEWARD_LOG_LEVEL": "warning",
-    }
-    env.pop("PHASEWARD_DATABASE_URL", None)
-    proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)
-    base = f"http://127.0.0.1:{port}"
+    proc = start_server(tmp_path, port)
     try:
-        deadline = time.monotonic() + 30
-        while True:
-            try:
-                if httpx.get(f"{base}/healthz", timeout=1).status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            assert proc.poll() is None, "server exited"
-            assert time.monotonic() < deadline, "server did not come up"
-            time.sleep(0.1)
-        yield base
+        yield f"http://127.0.0.1:{port}"
     finally:
         proc.terminate()
         proc.wait(timeout=20)

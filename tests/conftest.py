@@ -59,4 +59,5 @@ async def client(app: FastAPI) -> AsyncIterator[httpx.AsyncClient]:
     transport = httpx.ASGITransport(app=app)
     async with httpx.AsyncClient(transport=transport, base_url="http://phaseward.test") as c:
         yield c
+    app.state.jobs.shutdown()
     app.state.engine.dispose()

@@ -1,0 +1,93 @@
+"""Client for the phaseward service: ``Client`` and ``AsyncClient`` over HTTP, typed answers,
+``BatchingSender`` / ``AsyncBatchingSender`` for streaming samples, and a pytest plugin
+(``phaseward_client.pytest_plugin``, registered through the ``pytest11`` entry point)."""
+
+from phaseward_client.aio import AsyncClient
+from phaseward_client.batching import AsyncBatchingSender, BatchingSender, RetryPolicy, SenderStats
+from phaseward_client.client import DEFAULT_URL, Client
+from phaseward_client.errors import (
+    BufferFull,
+    PhasewardError,
+    SendFailed,
+    UnexpectedResponse,
+    parse_retry_after,
+)
+from phaseward_client.inputs import (
+    BreakerParams,
+    FosterStage,
+    Load,
+    LoadPoint,
+    PhaseDrop,
+    PhaseReading,
+    Sample,
+    SampleLike,
+    SoaPoint,
+)
+from phaseward_client.models import (
+    BreakerCheck,
+    BreakerStress,
+    CapacityStatus,
+    Event,
+    EventPage,
+    Forecast,
+    IngestResult,
+    LastSample,
+    LossMissionCase,
+    MissionCase,
+    Peak,
+    PhaseStatus,
+    Rail,
+    RailStatus,
+    Reliability,
+    SampleWindow,
+    Screening,
+    ScreeningCase,
+    ScreeningSummary,
+    ThermalStatus,
+)
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "DEFAULT_URL",
+    "AsyncBatchingSender",
+    "AsyncClient",
+    "BatchingSender",
+    "BreakerCheck",
+    "BreakerParams",
+    "BreakerStress",
+    "BufferFull",
+    "CapacityStatus",
+    "Client",
+    "Event",
+    "EventPage",
+    "Forecast",
+    "FosterStage",
+    "IngestResult",
+    "LastSample",
+    "Load",
+    "LoadPoint",
+    "LossMissionCase",
+    "MissionCase",
+    "Peak",
+    "PhaseDrop",
+    "PhaseReading",
+    "PhaseStatus",
+    "PhasewardError",
+    "Rail",
+    "RailStatus",
+    "Reliability",
+    "RetryPolicy",
+    "Sample",
+    "SampleLike",
+    "SampleWindow",
+    "Screening",
+    "ScreeningCase",
+    "ScreeningSummary",
+    "SendFailed",
+    "SenderStats",
+    "SoaPoint",
+    "ThermalStatus",
+    "UnexpectedResponse",
+    "parse_retry_after",
+]

@@ -1,0 +1,211 @@
+"""The synchronous client."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator, Mapping, Sequence
+from types import TracebackType
+from typing import Any, Self, TypeVar
+
+import httpx
+
+from phaseward_client import _calls
+from phaseward_client._calls import Call, TimeLike
+from phaseward_client.inputs import BreakerParams, Load, PhaseDrop, SampleLike
+from phaseward_client.models import (
+    BreakerStress,
+    Event,
+    EventPage,
+    Forecast,
+    IngestResult,
+    Rail,
+    RailStatus,
+    Reliability,
+    SampleWindow,
+    Screening,
+)
+
+T = TypeVar("T")
+DEFAULT_URL = "http://127.0.0.1:8470"
+
+
+class Client:
+    """Talks to one phaseward service. Every method raises ``PhasewardError`` when the service
+    refuses (4xx/5xx) and lets ``httpx.TransportError`` through when nothing answered.
+
+    ``transport`` and ``http`` are for tests and special setups (a proxy, a mounted
+    transport); by default the client owns one ``httpx.Client`` and closes it on ``close()``.
+    """
+
+    def __init__(
+        self,
+        base_url: str = DEFAULT_URL,
+        *,
+        timeout_s: float = 10.0,
+        headers: Mapping[str, str] | None = None,
+        transport: httpx.BaseTransport | None = None,
+        http: httpx.Client | None = None,
+    ) -> None:
+        self._owns_http = http is None
+        self.http = http or httpx.Client(
+            base_url=base_url, timeout=timeout_s, headers=dict(headers or {}), transport=transport
+        )
+
+    @property
+    def base_url(self) -> str:
+        return str(self.http.base_url)
+
+    def close(self) -> None:
+        if self._owns_http:
+            self.http.close()
+
+    def __enter__(self) -> Self:
+        return self
+
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
+        self.close()
+
+    def _run(self, call: Call[T]) -> T:
+        return call.answer(self.http.send(call.request(self.http)))
+
+    # --- rails ---------------------------------------------------------------------------
+
+    def health(self) -> dict[str, Any]:
+        return self._run(_calls.health())
+
+    def create_rail(self, definition: Mapping[str, Any], *, rail_id: str | None = None) -> Rail:
+        """Define a new rail (409 ``conflict`` if the id is taken: use ``put_rail``)."""
+        return self._run(_calls.create_rail(definition, rail_id))
+
+    def get_rail(self, rail_id: str) -> Rail:
+        return self._run(_calls.get_rail(rail_id))
+
+    def list_rails(self, *, after: str | None = None, limit: int = 100) -> list[Rail]:
+        """One page of rails in id order; pass the last id seen as ``after`` for the next."""
+        return self._run(_calls.list_rails(after, limit))
+
+    def iter_rails(self, *, page_size: int = 100) -> Iterator[Rail]:
+        after: str | None = None
+        while True:
+            page = self.list_rails(after=after, limit=page_size)
+            yield from page
+            if len(page) < page_size:
+                return
+            after = page[-1].id
+
+    def put_rail(self, rail_id: str, definition: Mapping[str, Any]) -> Rail:
+        """Store a new version of the rail (or create it); an ``id`` key must match."""
+        return self._run(_calls.put_rail(rail_id, definition))
+
+    def delete_rail(self, rail_id: str) -> None:
+        self._run(_calls.delete_rail(rail_id))
+
+    # --- telemetry -----------------------------------------------------------------------
+
+    def post_sample(self, rail_id: str, sample: SampleLike) -> IngestResult:
+        return self._run(_calls.post_samples(rail_id, sample))
+
+    def post_samples(self, rail_id: str, samples: Sequence[SampleLike]) -> IngestResult:
+        """Post a batch as one JSON array: stored whole, or refused whole with a 4xx."""
+        return self._run(_calls.post_samples(rail_id, samples))
+
+    def get_samples(
+        self, rail_id: str, *, since: float, until: float, limit: int = 1000
+    ) -> SampleWindow:
+        """Stored samples with ``since <= time < until`` (epoch seconds), oldest first."""
+        return self._run(_calls.get_samples(rail_id, since, until, limit))
+
+    def status(self, rail_id: str) -> RailStatus:
+        return self._run(_calls.status(rail_id))
+
+    # --- events --------------------------------------------------------------------------
+
+    def list_events(
+        self,
+        rail_id: str | None = None,
+        *,
+        kind: Sequence[str] = (),
+        severity: Sequence[str] = (),
+        phase: int | None = None,
+        since: TimeLike | None = None,
+        until: TimeLike | None = None,
+        cursor: str | None = None,
+        limit: int = 100,
+    ) -> EventPage:
+        """One page, newest first, of one rail's events (or every rail's, ``rail_id=None``)."""
+        return self._run(
+            _calls.list_events(
+                rail_id, kind=kind, severity=severity, phase=phase, since=since, until=until,
+                cursor=cursor, limit=limit,
+            )
+        )  # fmt: skip
+
+    def iter_events(
+        self,
+        rail_id: str | None = None,
+        *,
+        kind: Sequence[str] = (),
+        severity: Sequence[str] = (),
+        phase: int | None = None,
+        since: TimeLike | None = None,
+        until: TimeLike | None = None,
+        page_size: int = 100,
+        after_id: int | None = None,
+    ) -> Iterator[Event]:
+        """Every matching event, newest first, following the cursor page after page.
+
+        ``after_id`` stops at the first event with an id at or below it (ids only grow, so
+        this yields exactly the events newer than a remembered one)."""
+        cursor: str | None = None
+        while True:
+            page = self.list_events(
+                rail_id, kind=kind, severity=severity, phase=phase, since=since, until=until,
+                cursor=cursor, limit=page_size,
+            )  # fmt: skip
+            for event in page.items:
+                if after_id is not None and event.id <= after_id:
+                    return
+                yield event
+            if page.next_cursor is None:
+                return
+            cursor = page.next_cursor
+
+    def ack_event(self, event_id: int, *, by: str, note: str | None = None) -> Event:
+        """Acknowledge an event (409 ``conflict`` if someone did already)."""
+        return self._run(_calls.ack_event(event_id, by, note))
+
+    # --- analyses ------------------------------------------------------------------------
+
+    def screening(self, rail_id: str, *, depth: int = 1) -> Screening:
+        """Every single (depth 1) or pair (depth 2) of further phase losses, weakest first."""
+        return self._run(_calls.screening(rail_id, depth))
+
+    def forecast(
+        self,
+        rail_id: str,
+        *,
+        load: Load | None = None,
+        drop: Sequence[PhaseDrop] = (),
+        horizon_s: float | None = None,
+        points: int | None = None,
+        ambient_c: float | None = None,
+        step_s: float | None = None,
+    ) -> Forecast:
+        """Junction temperatures from the present state under a load profile and phase drops
+        (``None`` leaves a setting to the service's default)."""
+        return self._run(
+            _calls.forecast(
+                rail_id, load=load, drop=drop, horizon_s=horizon_s, points=points,
+                ambient_c=ambient_c, step_s=step_s,
+            )
+        )  # fmt: skip
+
+    def reliability(self, rail_id: str, *, hours: float) -> Reliability:
+        return self._run(_calls.reliability(rail_id, hours))
+
+    def breaker_stress(self, params: BreakerParams) -> BreakerStress:
+        return self._run(_calls.breaker_stress(params))

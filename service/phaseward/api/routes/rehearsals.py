@@ -1,0 +1,108 @@
+"""Rehearsals: background jobs that replay traces against candidate protection settings."""
+
+from __future__ import annotations
+
+import csv
+import io
+
+from fastapi import APIRouter, Request, status
+from fastapi.responses import Response
+
+from phaseward.api.deps import ReadSessionDep
+from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.plots import pareto_svg
+from phaseward.api.schemas.rehearsals import RehearsalIn, RehearsalOut
+from phaseward.errors import Conflict, InvalidInput, NotFound
+from phaseward.monitor import rehearsals
+from phaseward.monitor.jobs import JobRunner
+from phaseward.store import jobs
+from phaseward.store.models import Job
+
+router = APIRouter(prefix="/v1/rehearsals", tags=["rehearsal"], responses=ERROR_RESPONSES)
+
+
+def _out(job: Job) -> RehearsalOut:
+    return RehearsalOut.model_validate(
+        {
+            "id": job.id,
+            "status": job.status,
+            "percent": job.percent,
+            "error": job.error,
+            "result": job.result,
+        }
+    )
+
+
+def _done(session: ReadSessionDep, job_id: int) -> Job:
+    job = jobs.get(session, job_id)
+    if job is None or job.kind != rehearsals.KIND:
+        raise NotFound(f"no rehearsal {job_id}", field="rehearsal_id")
+    if job.status != "done" or job.result is None:
+        raise Conflict(f"rehearsal {job_id} is {job.status}", field="rehearsal_id")
+    return job
+
+
+@router.post("", status_code=status.HTTP_202_ACCEPTED)
+def start_rehearsal(body: RehearsalIn, request: Request) -> RehearsalOut:
+    """Queue a rehearsal; poll ``GET /v1/rehearsals/{id}`` for progress and the result."""
+    settings = body.settings.model_dump(exclude_none=True)
+    size = rehearsals.grid_size(settings)
+    if size > rehearsals.MAX_COMBINATIONS:
+        raise InvalidInput(
+            f"{size} combinations exceed {rehearsals.MAX_COMBINATIONS}", field="settings"
+        )
+    runner: JobRunner = request.app.state.jobs
+    return _out(runner.submit(rehearsals.KIND, body.model_dump(mode="json")))
+
+
+@router.get("/{rehearsal_id}")
+def get_rehearsal(rehearsal_id: int, session: ReadSessionDep) -> RehearsalOut:
+    job = jobs.get(session, rehearsal_id)
+    if job is None or job.kind != rehearsals.KIND:
+        raise NotFound(f"no rehearsal {rehearsal_id}", field="rehearsal_id")
+    return _out(job)
+
+
+@router.get(
+    "/{rehearsal_id}/table.csv",
+    response_class=Response,
+    responses={200: {"content": {"text/csv": {"schema": {"type": "string"}}}}},
+)
+def rehearsal_table(rehearsal_id: int, session: ReadSessionDep) -> Response:
+    """One row per combination: its settings, trips, false trips, misses and latencies."""
+    result = _done(session, rehearsal_id).result or {}
+    buf = io.StringIO()
+    writer = csv.writer(buf)
+    rules = list(result["rows"][0]["trips_by_rule"]) if result["rows"] else []
+    labels = [f"latency_s_label_{k}" for k in range(result["labels"])]
+    writer.writerow(["index", *result["axes"], "trips", *[f"trips_{r}" for r in rules],
+                     "false_trips", "missed", "mean_latency_s", "max_latency_s", *labels,
+                     "pareto"])  # fmt: skip
+    front = set(result["pareto"])
+    for row in result["rows"]:
+        writer.writerow([
+            row["index"], *(row["settings"][a] for a in result["axes"]), row["trips"],
+            *(row["trips_by_rule"][r] for r in rules), row["false_trips"], row["missed"],
+            _cell(row["mean_latency_s"]), _cell(row["max_latency_s"]),
+            *(_cell(x) for x in row["latency_s"]), int(row["index"] in front),
+        ])  # fmt: skip
+    return Response(buf.getvalue(), media_type="text/csv")
+
+
+@router.get(
+    "/{rehearsal_id}/pareto.svg",
+    response_class=Response,
+    responses={200: {"content": {"image/svg+xml": {"schema": {"type": "string"}}}}},
+)
+def rehearsal_pareto(rehearsal_id: int, session: ReadSessionDep) -> Response:
+    result = _done(session, rehearsal_id).result or {}
+    points = [(float(r["false_trips"]), r["max_latency_s"]) for r in result["rows"]]
+    svg = pareto_svg(
+        points, result["pareto"],
+        title=f"Rehearsal {rehearsal_id}: {result['combinations']} combinations",
+    )  # fmt: skip
+    return Response(svg, media_type="image/svg+xml")
+
+
+def _cell(x: float | None) -> str:
+    return "" if x is None else f"{x:.6g}"

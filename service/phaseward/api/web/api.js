@@ -1,0 +1,43 @@
+// The service's HTTP API, same origin only.
+
+export class ApiError extends Error {
+  constructor(status, body) {
+    const detail = body && typeof body === 'object' && body.detail ? body.detail : `HTTP ${status}`;
+    super(typeof detail === 'string' ? detail : JSON.stringify(detail));
+    this.status = status;
+    this.field = body && typeof body === 'object' ? body.field ?? null : null;
+  }
+}
+
+async function request(method, path, body) {
+  const init = { method, headers: { accept: 'application/json' }, cache: 'no-store' };
+  if (body !== undefined) {
+    init.headers['content-type'] = 'application/json';
+    init.body = JSON.stringify(body);
+  }
+  const res = await fetch(path, init);
+  const text = await res.text();
+  let parsed = null;
+  try {
+    parsed = text ? JSON.parse(text) : null;
+  } catch {
+    parsed = null;
+  }
+  if (!res.ok) throw new ApiError(res.status, parsed);
+  return parsed;
+}
+
+const rail = (id) => `/v1/rails/${encodeURIComponent(id)}`;
+
+export const api = {
+  rails: () => request('GET', '/v1/rails?limit=1000'),
+  rail: (id) => request('GET', rail(id)),
+  status: (id) => request('GET', `${rail(id)}/status`),
+  events: (id, { limit = 50, cursor = null } = {}) =>
+    request('GET', `${rail(id)}/events?limit=${limit}${cursor ? `&cursor=${encodeURIComponent(cursor)}` : ''}`),
+  newestEvent: () => request('GET', '/v1/events?limit=1'),
+  screening: (id, depth = 1) => request('GET', `${rail(id)}/screening?depth=${depth}`),
+  forecast: (id, body) => request('POST', `${rail(id)}/forecast`, body),
+  ack: (eventId, by, note) =>
+    request('POST', `/v1/events/${encodeURIComponent(eventId)}/ack`, { by, note: note || null }),
+};

@@ -1,0 +1,159 @@
+"""The operator page in headless Chromium against a real server: it renders a rail and its
+condition, follows a phase loss live from the event stream, and acknowledges an event by
+keyboard (checked through the API)."""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import httpx
+import pytest
+from tests.factories import SMALL_RAIL, sample
+
+from phaseward.api.schemas.common import CAUTION
+
+if TYPE_CHECKING:
+    from playwright.sync_api import Page
+    from tests.browser.conftest import Watched
+
+pytestmark = [pytest.mark.e2e, pytest.mark.browser]
+
+sync_api = pytest.importorskip(
+    "playwright.sync_api", reason="needs the playwright package (pip install playwright)"
+)
+expect = sync_api.expect
+
+LIVE_WITHIN_MS = 10_000  # well inside the page's 30 s safety refresh: only the stream is this fast
+
+
+def tripped(seq: int) -> dict[str, Any]:
+    """Phase 2's breaker has opened: it reads 0 A and the three others carry 66 A."""
+    body = sample(seq, [22.0, 22.0, 0.0, 22.0])
+    body["phases"][2]["breaker_tripped"] = True
+    return body
+
+
+def same_origin_only(watched: Watched, server: str) -> None:
+    outside = [u for u in watched.requests if not u.startswith(server + "/")]
+    assert outside == [], f"the page reached beyond its service: {outside}"
+    assert watched.console_errors == []
+    assert watched.page_errors == []
+
+
+def test_page_renders_follows_a_phase_loss_live_and_acknowledges_by_keyboard(
+    server: str, api: httpx.Client, page: Page, watched: Watched, artifacts: Path
+) -> None:
+    assert api.post("/v1/rails", json=SMALL_RAIL).status_code == 201
+    answer = api.post("/v1/rails/bench-a/samples", json=[sample(k, [20.0] * 4) for k in range(3)])
+    assert answer.json()["condition"] == "nominal", answer.text
+
+    # The overview lists the rail with its condition in words, and links to it.
+    page.goto(f"{server}/")
+    row = page.get_by_role("row").filter(has=page.get_by_role("link", name="bench-a", exact=True))
+    expect(row).to_contain_text("nominal")
+    expect(row.locator(".c-nominal svg.glyph")).to_have_count(1)  # a shape, not only a colour
+    row.get_by_role("link", name="bench-a", exact=True).click()
+
+    # The rail page: condition, phases against their limits, caution, forecast, screening.
+    expect(page).to_have_url(f"{server}/rails/bench-a")
+    expect(page.get_by_role("heading", level=1)).to_have_text("bench-a")
+    band = page.locator("#rail-condition [data-condition]")
+    expect(band).to_have_attribute("data-condition", "nominal")
+    expect(band).to_contain_text("nominal")
+    expect(page.get_by_role("complementary", name="Safety caution")).to_contain_text(CAUTION)
+    phases = page.locator("#sec-phases tbody tr")
+    expect(phases).to_have_count(4)
+    for i in range(4):
+        expect(phases.nth(i)).to_contain_text("active")
+        expect(phases.nth(i)).to_contain_text("20.0 A")
+        expect(phases.nth(i)).to_contain_text("rated 30 A")
+        expect(phases.nth(i)).to_contain_text("limit 125 °C")
+    expect(page.locator("#sec-capacity")).to_contain_text("capacity 120.0 A")
+    chart = page.locator("#sec-forecast svg.forecast-chart")
+    expect(chart).to_be_visible()
+    expect(chart.locator("polyline")).to_have_count(5)  # four junctions and the board
+    expect(chart.locator(".fc-limit")).to_have_count(1)
+    expect(page.locator("#sec-forecast")).to_contain_text("stays at 80.0 A")
+    expect(page.locator("#sec-screening tbody tr")).to_have_count(4)
+    expect(page.locator("#sec-events tbody tr")).to_have_count(1)  # rail new -> nominal
+    expect(page.locator("#live")).to_have_attribute("data-state", "live")
+    assert any("/v1/events/stream" in u for u in watched.requests)
+
+    # A breaker trips: the page follows from the event stream, without a reload.
+    started = time.monotonic()
+    answer = api.post("/v1/rails/bench-a/samples", json=tripped(3))
+    assert answer.json()["condition"] == "degraded", answer.text
+    phase2 = page.locator("#sec-phases tr[data-phase='2']")
+    expect(phase2).to_contain_text("isolated", timeout=LIVE_WITHIN_MS)
+    expect(phase2).to_contain_text("breaker tripped")
+    expect(phase2.locator(".c-isolated svg.glyph")).to_have_count(1)
+    expect(band).to_have_attribute("data-condition", "degraded", timeout=LIVE_WITHIN_MS)
+    expect(band).to_contain_text("degraded")
+    nav = page.get_by_role("navigation", name="Rails").get_by_role("link", name="bench-a")
+    expect(nav).to_contain_text("degraded")
+    isolated = page.locator("#sec-events tr[data-kind='phase.isolated']")
+    expect(isolated).to_have_count(1, timeout=LIVE_WITHIN_MS)
+    expect(isolated).to_contain_text("phase 2 isolated")
+    # The analyses follow too, at the new present load.
+    expect(page.locator("#sec-screening")).to_contain_text("at 66.0 A", timeout=LIVE_WITHIN_MS)
+    expect(page.locator("#sec-forecast")).to_contain_text("stays at 66.0 A")
+    expect(page.locator("#sec-forecast svg.forecast-chart polyline")).to_have_count(4)
+    assert time.monotonic() - started < 25, "the update came from the periodic refresh"
+
+    # Acknowledge the isolation by keyboard only: Tab from the filter to its button.
+    event_id = int(isolated.get_attribute("data-event-id") or "0")
+    page.locator("#only-open").focus()
+    for _ in range(10):
+        page.keyboard.press("Tab")
+        if page.evaluate("document.activeElement.dataset.focusKey") == f"ack-{event_id}":
+            break
+    else:
+        pytest.fail("the acknowledge button of the isolation is not reachable by Tab")
+    outline = page.evaluate("getComputedStyle(document.activeElement).outlineStyle")
+    assert outline not in ("", "none"), "keyboard focus is not visible"
+    page.keyboard.press("Enter")
+    dialog = page.get_by_role("dialog", name=f"Acknowledge event #{event_id}")
+    expect(dialog).to_be_visible()
+    expect(page.get_by_label("Your name")).to_be_focused()
+    page.keyboard.type("bench operator")
+    page.keyboard.press("Tab")
+    expect(page.get_by_label("Note")).to_be_focused()
+    page.keyboard.type("breaker reset after inspection")
+    page.keyboard.press("Tab")
+    expect(page.get_by_role("button", name="Record acknowledgement")).to_be_focused()
+    page.keyboard.press("Enter")
+    expect(dialog).to_be_hidden()
+    expect(isolated).to_contain_text("acknowledged by bench operator")
+    expect(isolated).to_contain_text("breaker reset after inspection")
+
+    stored = api.get("/v1/rails/bench-a/events", params={"kind": "phase.isolated"}).json()
+    [event] = stored["items"]
+    assert event["id"] == event_id
+    assert event["acked_by"] == "bench operator"
+    assert event["ack_note"] == "breaker reset after inspection"
+    assert event["acked_at"] is not None
+
+    page.screenshot(path=str(artifacts / "operator-page.png"), full_page=True)
+    same_origin_only(watched, server)
+
+
+def test_unknown_rail_says_so_and_the_skip_link_reaches_main(
+    server: str, page: Page, watched: Watched
+) -> None:
+    page.goto(f"{server}/rails/no-such-rail")
+    expect(page.locator("body")).to_have_attribute("data-ready", "true")
+    expect(page.get_by_role("heading", level=1)).to_have_text("No rail named “no-such-rail”")
+    page.keyboard.press("Tab")
+    skip = page.get_by_role("link", name="Skip to the main content")
+    expect(skip).to_be_focused()
+    expect(skip).to_be_visible()
+    page.keyboard.press("Enter")
+    expect(page.locator("main")).to_be_focused()
+    page.wait_for_timeout(500)  # nothing re-renders the page away from where the link went
+    expect(page.locator("main")).to_be_focused()
+    expect(page.get_by_role("heading", level=1)).to_have_text("No rail named “no-such-rail”")
+    # The 404 of the status fetch is the page's answer, not a script error.
+    watched.console_errors[:] = [e for e in watched.console_errors if "404" not in e]
+    same_origin_only(watched, server)

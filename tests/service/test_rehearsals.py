@@ -1,0 +1,138 @@
+"""Rehearsals through the API: jobs, results, CSV, the Pareto plot; trips worked by hand."""
+
+from __future__ import annotations
+
+import asyncio
+import csv
+import io
+from typing import Any
+
+import httpx
+import pytest
+
+pytestmark = pytest.mark.anyio
+
+# Two phases, one sample a second. Phase 0 over-currents from 3 s to 6 s (a real fault);
+# phase 1 has a one-sample spike at 8 s (noise).
+CSV_ROWS = ["time_s,vin_v,i0_a,i1_a"] + [
+    f"{k},12,{25 if 3 <= k <= 6 else 10},{30 if k == 8 else 10}" for k in range(10)
+]
+
+
+async def upload(client: httpx.AsyncClient) -> int:
+    answer = await client.post(
+        "/v1/traces", content="\n".join(CSV_ROWS), headers={"content-type": "text/csv"}
+    )
+    assert answer.status_code == 201, answer.text
+    trace_id: int = answer.json()["id"]
+    return trace_id
+
+
+async def finished(client: httpx.AsyncClient, job: dict[str, Any]) -> dict[str, Any]:
+    for _ in range(200):
+        state: dict[str, Any] = (await client.get(f"/v1/rehearsals/{job['id']}")).json()
+        if state["status"] in ("done", "failed"):
+            return state
+        await asyncio.sleep(0.05)
+    raise AssertionError("the rehearsal did not finish")
+
+
+async def test_single_rehearsal_lists_its_trips(client: httpx.AsyncClient) -> None:
+    trace_id = await upload(client)
+    body = {"trace": {"trace_id": trace_id}, "settings": {"oc_level_a": 20.0}}
+    answer = await client.post("/v1/rehearsals", json=body)
+    assert answer.status_code == 202, answer.text
+    done = await finished(client, answer.json())
+    assert done["status"] == "done", done["error"]
+    trips = done["result"]["trips"]
+    # By hand: phase 0 crosses 20 A at 3 s, phase 1 at 8 s; no debounce.
+    assert [(t["time_s"], t["phase"], t["rule"], t["value"]) for t in trips] == [
+        (3.0, 0, "over_current", 25.0),
+        (8.0, 1, "over_current", 30.0),
+    ]
+
+
+async def test_sweep_scores_pareto_csv_and_svg(client: httpx.AsyncClient) -> None:
+    trace_id = await upload(client)
+    body = {
+        "trace": {"trace_id": trace_id},
+        "settings": {"oc_level_a": [20.0, 28.0], "oc_debounce_s": [0.0, 1.0]},
+        "labels": [{"start_s": 3.0, "end_s": 6.0, "phase": 0, "kind": "over_current"}],
+    }
+    done = await finished(client, (await client.post("/v1/rehearsals", json=body)).json())
+    result = done["result"]
+    assert result["combinations"] == 4
+    scored = [
+        (r["trips"], r["false_trips"], r["missed"], r["max_latency_s"]) for r in result["rows"]
+    ]
+    # By hand: (20 A, 0 s) trips both (spike is false), latency 0; (20 A, 1 s) waits 1 s and
+    # ignores the spike; 28 A misses the 25 A fault; (28 A, 0 s) still trips on the spike.
+    assert scored == [(2, 1, 0, 0.0), (1, 0, 0, 1.0), (1, 1, 1, None), (0, 0, 1, None)]
+    # The front: (1 s) has no false trip; (0 s) is faster but trips falsely once. The 28 A
+    # settings miss the fault, the worst latency, and are beaten.
+    assert result["pareto"] == [1, 0]
+    table = (await client.get(f"/v1/rehearsals/{done['id']}/table.csv")).text
+    rows = list(csv.DictReader(io.StringIO(table)))
+    assert [r["false_trips"] for r in rows] == ["1", "0", "1", "0"]
+    assert [r["pareto"] for r in rows] == ["1", "1", "0", "0"]
+    svg = await client.get(f"/v1/rehearsals/{done['id']}/pareto.svg")
+    assert svg.headers["content-type"].startswith("image/svg+xml")
+    assert svg.text.startswith("<svg")
+    assert "combination 1" in svg.text
+
+
+async def test_rehearsal_on_a_stored_rail_window(client: httpx.AsyncClient) -> None:
+    from tests.factories import SMALL_RAIL, sample
+
+    await client.post("/v1/rails", json=SMALL_RAIL)
+    await client.post(
+        "/v1/rails/bench-a/samples", json=[sample(k, [20.0, 20.0, 20.0, 35.0]) for k in range(5)]
+    )
+    body = {
+        "trace": {"rail_id": "bench-a", "since": 0, "until": 1e10},
+        "settings": {"oc_level_a": 30.0, "oc_debounce_s": 2.0},
+    }
+    done = await finished(client, (await client.post("/v1/rehearsals", json=body)).json())
+    assert [(t["time_s"] - 1.8e9, t["phase"]) for t in done["result"]["trips"]] == [(2.0, 3)]
+
+
+@pytest.mark.parametrize(
+    ("body", "code", "field"),
+    [
+        ({"trace": {"trace_id": 999}, "settings": {"oc_level_a": 1.0}}, None, None),
+        (
+            {
+                "trace": {"trace_id": 1},
+                "settings": {"oc_level_a": [1.0] * 101, "dead_floor_a": [1.0] * 100},
+            },
+            422,
+            "settings",
+        ),
+        ({"trace": {"trace_id": 1}, "settings": {"oc_limit": 1.0}}, 422, "settings.oc_limit"),
+        (
+            {
+                "trace": {"trace_id": 1},
+                "settings": {},
+                "labels": [{"start_s": 2, "end_s": 1, "phase": 0, "kind": "x"}],
+            },
+            422,
+            "labels[0]",
+        ),
+    ],
+)
+async def test_bad_rehearsals(
+    client: httpx.AsyncClient, body: dict[str, Any], code: int | None, field: str | None
+) -> None:
+    answer = await client.post("/v1/rehearsals", json=body)
+    if code is None:  # accepted, then failed as a job: the trace does not exist
+        done = await finished(client, answer.json())
+        assert done["status"] == "failed"
+        assert "no trace 999" in done["error"]
+        assert (await client.get(f"/v1/rehearsals/{done['id']}/table.csv")).status_code == 409
+        return
+    assert answer.status_code == code, answer.text
+    assert answer.json()["field"] == field
+
+
+async def test_unknown_rehearsal(client: httpx.AsyncClient) -> None:
+    assert (await client.get("/v1/rehearsals/12345")).status_code == 404

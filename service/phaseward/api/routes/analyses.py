@@ -8,12 +8,14 @@ import numpy as np
 import numpy.typing as npt
 from fastapi import APIRouter, Query
 
-from phaseward.api.deps import ReadSessionDep
+from phaseward.api.deps import ReadSessionDep, SessionsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RailId
 from phaseward.api.schemas.analyses import (
     BreakerIn,
     BreakerOut,
+    CalibrationIn,
+    CalibrationOut,
     ForecastIn,
     ForecastOut,
     LoadProfile,
@@ -21,7 +23,7 @@ from phaseward.api.schemas.analyses import (
     ScreeningOut,
 )
 from phaseward.errors import InvalidInput
-from phaseward.monitor import breaker_check
+from phaseward.monitor import breaker_check, calibrations
 from phaseward.monitor.forecast import Drop, forecast
 from phaseward.monitor.live import live_rail
 from phaseward.monitor.reliability import mission
@@ -120,3 +122,15 @@ def post_breaker_stress(body: BreakerIn) -> BreakerOut:
         curve_points=body.curve_points,
     )  # fmt: skip
     return BreakerOut.model_validate(result)
+
+
+@router.post("/{rail_id}/calibrations")
+def post_calibration(rail_id: RailId, body: CalibrationIn, sessions: SessionsDep) -> CalibrationOut:
+    """Fit Foster networks of the asked orders to the curve, choose the order by BIC, and on
+    request store the chosen fit as the rail's next version."""
+    result = calibrations.calibrate(
+        sessions, rail_id, t_s=body.t_s, temp_c=body.temp_c, power_w=body.power_w,
+        current_a=body.current_a, phase=body.phase, cooling=body.cooling, orders=body.orders,
+        reference_temp_c=body.reference_temp_c, location=body.location, apply=body.apply,
+    )  # fmt: skip
+    return CalibrationOut.model_validate({"rail_id": rail_id, **result})

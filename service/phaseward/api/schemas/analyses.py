@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from itertools import pairwise
-from typing import Annotated, Self
+from typing import Annotated, Literal, Self
 
 from pydantic import BaseModel, Field, model_validator
 
@@ -168,3 +168,59 @@ class BreakerOut(BaseModel):
     )
     curve: list[BreakerCheck]
     caution: str = CAUTION
+
+
+class CalibrationIn(Contract):
+    """A recorded heating curve (power stepped on at t = 0 from equilibrium) or cooling curve
+    (power stepped off), with the step given as power or as the phase current."""
+
+    t_s: list[float] = Field(min_length=8, max_length=200_000)
+    temp_c: list[float] = Field(min_length=8, max_length=200_000)
+    power_w: Annotated[float, Field(gt=0)] | None = None
+    current_a: Annotated[float, Field(gt=0)] | None = None
+    phase: Annotated[int, Field(ge=0, le=63)] = 0
+    cooling: bool = False
+    orders: list[Annotated[int, Field(ge=1, le=4)]] = Field(default=[1, 2, 3, 4], min_length=1)
+    reference_temp_c: Celsius | None = None
+    location: Literal["junction", "sensor"] = "junction"
+    apply: Literal["no", "phase", "all"] = Field(
+        default="no", description="store the fit as a new rail version: for `phase`, or all"
+    )
+
+    @model_validator(mode="after")
+    def _consistent(self) -> Self:
+        if len(self.t_s) != len(self.temp_c):
+            raise ValueError("t_s and temp_c must have the same length")
+        if (self.power_w is None) == (self.current_a is None):
+            raise ValueError("give exactly one of power_w or current_a")
+        return self
+
+
+class FittedStage(BaseModel):
+    r_k_per_w: float
+    tau_s: float
+    r_ci_k_per_w: list[float | None] = Field(description="95 % interval (asymptotic)")
+    tau_ci_s: list[float | None]
+
+
+class OrderFitOut(BaseModel):
+    order: int
+    stages: list[FittedStage]
+    reference_temp_c: float
+    rms_k: float
+    bic: float
+    ci_valid: bool
+    converged: bool
+
+
+class CalibrationOut(BaseModel):
+    rail_id: str
+    order: int = Field(description="the order the criterion chose")
+    criterion: str
+    power_w: float
+    location: str
+    cooling: bool
+    note: str
+    chosen: OrderFitOut
+    fits: list[OrderFitOut]
+    applied_version: int | None

@@ -83,7 +83,15 @@ async function refreshStatus(id) {
     d.statusError = null;
     if (d.spec === null || d.spec.version !== status.version) await loadSpec(d);
     renderRail();
+    // The analyses start from the latest sample: redo them when it (or the verdict) moved.
+    const mark = judged(status);
+    if (d.analysedFor !== null && d.analysedFor !== mark) scheduleAnalyses();
   }
+}
+
+/** What the analyses depend on: the definition, the latest sample, the condition. */
+function judged(status) {
+  return `${status.version}/${status.last_sample ? status.last_sample.seq : '-'}/${status.condition}`;
 }
 
 function scheduleStatus(id) {
@@ -123,6 +131,8 @@ function mergeEvents(d, items) {
 async function loadAnalyses(d) {
   const entry = state.rails.get(d.id);
   const status = entry ? entry.status : null;
+  const seq = ++d.analysesSeq;
+  d.analysedFor = status ? judged(status) : null;
   const present = status && status.load_a != null ? status.load_a : null;
   const loadA = present ?? (status ? status.rated_load_a : null);
   const [screening, forecast] = await Promise.allSettled([
@@ -131,7 +141,7 @@ async function loadAnalyses(d) {
       ? Promise.reject(new Error('the rail has no load to forecast from'))
       : api.forecast(d.id, { load: { constant_a: loadA }, horizon_s: HORIZON_S, points: 120 }),
   ]);
-  if (state.detail !== d) return;
+  if (state.detail !== d || seq !== d.analysesSeq) return; // left, or a newer run is on its way
   d.screening = screening.status === 'fulfilled' ? screening.value : null;
   d.screeningError = screening.status === 'rejected' ? screening.reason : null;
   d.forecast = forecast.status === 'fulfilled' ? forecast.value : null;
@@ -164,7 +174,6 @@ function onLiveEvent(event) {
   if (d && d.id === event.rail_id) {
     mergeEvents(d, [event]);
     renderEvents();
-    scheduleAnalyses();
   }
 }
 
@@ -232,10 +241,14 @@ function renderLive() {
     retrying: `Live updates interrupted; retrying in ${fmt.duration(retryMs / 1000)}`,
   };
   const el = $('live');
-  el.className = `live live-${liveState}`;
-  el.dataset.state = liveState;
-  replaceKeepingFocus(el, glyph(liveState), h('span', { class: 'live-word' }, words[liveState]),
-    lastEvent ? h('span', { class: 'live-last' }, `latest event #${lastEvent.id}, ${fmt.utc(lastEvent.time_s)}`) : null);
+  if (el.dataset.state !== liveState || liveState === 'retrying') {
+    el.className = `live live-${liveState}`;
+    el.dataset.state = liveState;
+    replaceKeepingFocus(el, glyph(liveState), h('span', { class: 'live-word' }, words[liveState]));
+  }
+  $('live-last').textContent = lastEvent ? `latest event #${lastEvent.id}, ${fmt.utc(lastEvent.time_s)}` : '';
+  const echo = document.querySelector('.live-echo');
+  if (echo) echo.textContent = liveState === 'live' ? 'following' : liveState;
 }
 
 function renderNav() {
@@ -320,7 +333,7 @@ function newDetail(id) {
   return {
     id, spec: null, statusError: null, events: [], nextCursor: undefined, eventsError: null,
     screening: null, screeningError: null, forecast: null, forecastError: null, forecastLoad: null,
-    depth: 1, onlyOpen: false, forecastTableOpen: false,
+    depth: 1, onlyOpen: false, forecastTableOpen: false, analysesSeq: 0, analysedFor: null,
   };
 }
 

@@ -11,6 +11,7 @@ from collections.abc import Sequence
 import uvicorn
 
 from phaseward.api.app import create_app
+from phaseward.operator_cli import add_commands
 from phaseward.settings import LOOPBACK_HOSTS, Settings
 
 
@@ -74,6 +75,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     p.add_argument("--port", type=int)
     p.add_argument("--pace", type=float, default=0.05, help="seconds of wall time per sample")
     p.set_defaults(func=demo)
+    add_commands(sub)
     args = parser.parse_args(argv)
     code: int = args.func(args)
     return code

@@ -42,6 +42,14 @@ def pytest_configure(config: pytest.Config) -> None:
     config.addinivalue_line("markers", "browser: drives the operator page in headless Chromium")
 
 
+@pytest.hookimpl(wrapper=True)
+def pytest_runtest_makereport(item: pytest.Item, call: pytest.CallInfo[None]) -> Iterator[None]:
+    """Keep each phase's report on the test, so the page fixture knows whether it failed."""
+    report = yield
+    setattr(item, f"report_{call.when}", report)
+    return report
+
+
 def missing_browser() -> str | None:
     """Why the browser tests cannot run here, or None."""
     if not CHROMIUM.exists():
@@ -135,8 +143,11 @@ def artifacts() -> Path:
 
 
 @pytest.fixture
-def page(playwright: Playwright, tmp_path: Path, watched: Watched) -> Iterator[Page]:
-    """A page in a fresh Chromium profile (its own user-data-dir), watched for errors."""
+def page(
+    playwright: Playwright, tmp_path: Path, watched: Watched, request: pytest.FixtureRequest
+) -> Iterator[Page]:
+    """A page in a fresh Chromium profile (its own user-data-dir), watched for errors; when
+    the test fails, its last view is saved to test-artifacts/ for the CI log."""
     profile = tmp_path / "chromium-profile"
     context = playwright.chromium.launch_persistent_context(
         str(profile),
@@ -154,5 +165,10 @@ def page(playwright: Playwright, tmp_path: Path, watched: Watched) -> Iterator[P
         page.on("console", lambda m: watched.console(m.type, m.text))
         page.on("pageerror", lambda e: watched.page_errors.append(str(e)))
         yield page
+        report = getattr(request.node, "report_call", None)
+        if report is not None and report.failed:
+            ARTIFACTS.mkdir(exist_ok=True)
+            name = "".join(c if c.isalnum() or c in "-_" else "_" for c in request.node.name)
+            page.screenshot(path=str(ARTIFACTS / f"failed-{name}.png"), full_page=True)
     finally:
         context.close()

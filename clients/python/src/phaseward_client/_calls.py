@@ -91,6 +91,10 @@ def nothing(_: httpx.Response) -> None:
     return None
 
 
+def text(response: httpx.Response) -> str:
+    return response.text
+
+
 def raw_dict(response: httpx.Response) -> dict[str, Any]:
     data = _json(response)
     if not isinstance(data, dict):
@@ -105,11 +109,12 @@ class Call(Generic[T]):
     parse: Callable[[httpx.Response], T]
     params: Params = field(default_factory=list)
     body: bytes | None = None
+    content_type: str = JSON
 
     def request(self, http: httpx.Client | httpx.AsyncClient) -> httpx.Request:
         headers = {"accept": JSON}
         if self.body is not None:
-            headers["content-type"] = JSON
+            headers["content-type"] = self.content_type
         return http.build_request(
             self.method, self.path, params=self.params, content=self.body, headers=headers
         )
@@ -261,3 +266,28 @@ def breaker_stress(params: BreakerParams) -> Call[BreakerStress]:
     return Call(
         "POST", "/v1/tools/breaker-stress", model(BreakerStress), body=encode(params.to_json())
     )
+
+
+def upload_trace(content: bytes, content_type: str, name: str) -> Call[dict[str, Any]]:
+    """A recording for rehearsals: CSV (``text/csv``), NDJSON or a JSON array of samples."""
+    return Call("POST", "/v1/traces", raw_dict, params=[("name", name)], body=content,
+                content_type=content_type)  # fmt: skip
+
+
+def start_rehearsal(request: Mapping[str, Any]) -> Call[dict[str, Any]]:
+    return Call("POST", "/v1/rehearsals", raw_dict, body=encode(dict(request)))
+
+
+def rehearsal(rehearsal_id: int) -> Call[dict[str, Any]]:
+    return Call("GET", f"/v1/rehearsals/{int(rehearsal_id)}", raw_dict)
+
+
+def rehearsal_file(rehearsal_id: int, name: str) -> Call[str]:
+    """``table.csv`` or ``pareto.svg`` of a finished rehearsal."""
+    if name not in ("table.csv", "pareto.svg"):
+        raise ValueError("name must be table.csv or pareto.svg")
+    return Call("GET", f"/v1/rehearsals/{int(rehearsal_id)}/{name}", text)
+
+
+def calibrate(rail_id: str, request: Mapping[str, Any]) -> Call[dict[str, Any]]:
+    return Call("POST", rail_path(rail_id, "/calibrations"), raw_dict, body=encode(dict(request)))

@@ -11,6 +11,7 @@ import httpx
 from phaseward_client import _calls
 from phaseward_client._calls import Call, TimeLike
 from phaseward_client.client import DEFAULT_URL
+from phaseward_client.errors import PhasewardError
 from phaseward_client.inputs import BreakerParams, Load, PhaseDrop, SampleLike
 from phaseward_client.models import (
     BreakerStress,
@@ -24,6 +25,7 @@ from phaseward_client.models import (
     SampleWindow,
     Screening,
 )
+from phaseward_client.stream import STREAM_PATH, FrameReader, stream_params
 
 T = TypeVar("T")
 
@@ -214,3 +216,47 @@ class AsyncClient:
 
     async def breaker_stress(self, params: BreakerParams) -> BreakerStress:
         return await self._run(_calls.breaker_stress(params))
+
+    async def upload_trace(
+        self, content: bytes, *, content_type: str = "text/csv", name: str = "trace"
+    ) -> dict[str, Any]:
+        """Upload a recording for rehearsals; answers its id, sample and phase counts."""
+        return await self._run(_calls.upload_trace(content, content_type, name))
+
+    async def start_rehearsal(self, request: Mapping[str, Any]) -> dict[str, Any]:
+        """Queue a rehearsal (trace, settings with lists to sweep, labels); answers the job."""
+        return await self._run(_calls.start_rehearsal(request))
+
+    async def rehearsal(self, rehearsal_id: int) -> dict[str, Any]:
+        """A rehearsal's status, percent done, and result once done."""
+        return await self._run(_calls.rehearsal(rehearsal_id))
+
+    async def rehearsal_file(self, rehearsal_id: int, name: str) -> str:
+        """``table.csv`` or ``pareto.svg`` of a finished rehearsal."""
+        return await self._run(_calls.rehearsal_file(rehearsal_id, name))
+
+    async def calibrate(self, rail_id: str, request: Mapping[str, Any]) -> dict[str, Any]:
+        """Fit the rail's thermal model to a heating or cooling curve."""
+        return await self._run(_calls.calibrate(rail_id, request))
+
+    async def follow_events(
+        self,
+        *,
+        rail_id: str | None = None,
+        kind: Sequence[str] = (),
+        after: int | None = None,
+        limit: int | None = None,
+    ) -> AsyncIterator[Event]:
+        """Events as the service derives them (Server-Sent Events), oldest first, from after
+        ``after`` (default: the next new one); ends after ``limit`` events if given."""
+        params = stream_params(rail_id, kind, after, limit)
+        reader = FrameReader()
+        async with self.http.stream(
+            "GET", STREAM_PATH, params=params, timeout=httpx.Timeout(10.0, read=None)
+        ) as response:
+            if not response.is_success:
+                await response.aread()
+                raise PhasewardError.from_response(response)
+            async for line in response.aiter_lines():
+                for event in reader.feed([line]):
+                    yield event

@@ -10,6 +10,7 @@ import httpx
 
 from phaseward_client import _calls
 from phaseward_client._calls import Call, TimeLike
+from phaseward_client.errors import PhasewardError
 from phaseward_client.inputs import BreakerParams, Load, PhaseDrop, SampleLike
 from phaseward_client.models import (
     BreakerStress,
@@ -23,6 +24,7 @@ from phaseward_client.models import (
     SampleWindow,
     Screening,
 )
+from phaseward_client.stream import STREAM_PATH, FrameReader, stream_params
 
 T = TypeVar("T")
 DEFAULT_URL = "http://127.0.0.1:8470"
@@ -209,3 +211,46 @@ class Client:
 
     def breaker_stress(self, params: BreakerParams) -> BreakerStress:
         return self._run(_calls.breaker_stress(params))
+
+    def upload_trace(
+        self, content: bytes, *, content_type: str = "text/csv", name: str = "trace"
+    ) -> dict[str, Any]:
+        """Upload a recording for rehearsals; answers its id, sample and phase counts."""
+        return self._run(_calls.upload_trace(content, content_type, name))
+
+    def start_rehearsal(self, request: Mapping[str, Any]) -> dict[str, Any]:
+        """Queue a rehearsal (trace, settings with lists to sweep, labels); answers the job."""
+        return self._run(_calls.start_rehearsal(request))
+
+    def rehearsal(self, rehearsal_id: int) -> dict[str, Any]:
+        """A rehearsal's status, percent done, and result once done."""
+        return self._run(_calls.rehearsal(rehearsal_id))
+
+    def rehearsal_file(self, rehearsal_id: int, name: str) -> str:
+        """``table.csv`` or ``pareto.svg`` of a finished rehearsal."""
+        return self._run(_calls.rehearsal_file(rehearsal_id, name))
+
+    def calibrate(self, rail_id: str, request: Mapping[str, Any]) -> dict[str, Any]:
+        """Fit the rail's thermal model to a heating or cooling curve."""
+        return self._run(_calls.calibrate(rail_id, request))
+
+    def follow_events(
+        self,
+        *,
+        rail_id: str | None = None,
+        kind: Sequence[str] = (),
+        after: int | None = None,
+        limit: int | None = None,
+    ) -> Iterator[Event]:
+        """Events as the service derives them (Server-Sent Events), oldest first, from after
+        ``after`` (default: the next new one); ends after ``limit`` events if given."""
+        params = stream_params(rail_id, kind, after, limit)
+        reader = FrameReader()
+        with self.http.stream(
+            "GET", STREAM_PATH, params=params, timeout=httpx.Timeout(10.0, read=None)
+        ) as response:
+            if not response.is_success:
+                response.read()
+                raise PhasewardError.from_response(response)
+            for line in response.iter_lines():
+                yield from reader.feed([line])

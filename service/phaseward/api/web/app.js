@@ -311,9 +311,9 @@ function renderOverview() {
           ...['Rail', 'Condition', 'Load', 'Capacity', 'Headroom', 'Hottest junction', 'Phases out', 'Latest sample']
             .map((x) => h('th', { scope: 'col' }, x)))),
         h('tbody', {}, rows)))
-      : h('p', { class: 'empty' }, 'No rails are defined yet. Define one with POST /v1/rails; it appears here at once.');
+      : h('p', { class: 'empty' }, 'No rails are defined yet. Define one with POST /v1/rails; this list looks again every half minute.');
   replaceKeepingFocus(main,
-    h('div', { class: 'page-head' }, h('h1', { tabindex: '-1' }, 'Rails')),
+    h('div', { class: 'page-head' }, h('h1', { tabindex: '-1', 'data-focus-key': 'h1' }, 'Rails')),
     h('p', { class: 'lede' }, 'Every rail this service watches, with its condition now. Choose a rail for its phases, forecast, screening and events.'),
     body,
     legend());
@@ -349,7 +349,7 @@ function mountRail(d) {
   replaceKeepingFocus($('main'),
     h('div', { class: 'page-head' },
       h('p', { class: 'crumbs' }, h('a', { href: '/', 'data-route': true }, '\u2190 All rails')),
-      h('h1', { tabindex: '-1', id: 'rail-title' }, d.id),
+      h('h1', { tabindex: '-1', id: 'rail-title', 'data-focus-key': 'h1' }, d.id),
       h('p', { class: 'rail-name', id: 'rail-name' })),
     h('div', { id: 'rail-condition', class: 'condition-band' }),
     h('aside', { class: 'caution', id: 'caution', 'aria-labelledby': 'caution-title' },
@@ -373,7 +373,7 @@ function renderRail() {
     replaceKeepingFocus($('main'),
       h('div', { class: 'page-head' },
         h('p', { class: 'crumbs' }, h('a', { href: '/', 'data-route': true }, '\u2190 All rails')),
-        h('h1', { tabindex: '-1' }, notFound ? `No rail named \u201c${d.id}\u201d` : d.id)),
+        h('h1', { tabindex: '-1', 'data-focus-key': 'h1' }, notFound ? `No rail named \u201c${d.id}\u201d` : d.id)),
       notFound ? h('p', {}, 'It may have been deleted. The list of rails is on the left.') : errorNotice('the status', d.statusError));
     return;
   }
@@ -577,7 +577,7 @@ function renderScreening() {
     h('th', { scope: 'row' }, `phase${c.lose_phases.length > 1 ? 's' : ''} ${c.lose_phases.join(' + ')}`),
     h('td', { class: 'num' }, fmt.amps(c.capacity_a)),
     h('td', { class: `num${c.headroom_a < 0 ? ' neg' : ''}` }, fmt.amps(c.headroom_a)),
-    h('td', {}, c.binding === 'current' ? `phase ${c.binding_phase} current` : c.binding === 'thermal' ? `phase ${c.binding_phase} junction` : fmt.dash),
+    h('td', { class: 'nowrap' }, c.binding === 'current' ? `phase ${c.binding_phase} current` : c.binding === 'thermal' ? `phase ${c.binding_phase} junction` : fmt.dash),
     h('td', { class: 'num' }, c.runaway ? 'runaway' : fmt.celsius(c.steady_hottest_c)),
     h('td', { class: 'num' }, c.time_to_limit_s == null ? 'not within horizon' : `${fmt.duration(c.time_to_limit_s)} (phase ${c.limit_phase})`),
     h('td', {}, c.overloads ? tag('overloads', 'overloads') : tag('carries', 'carries the load'))));
@@ -731,7 +731,7 @@ function show(view, moveFocus) {
   } else {
     const d = newDetail(view.id);
     state.detail = d;
-    replaceKeepingFocus($('main'), h('div', { class: 'page-head' }, h('h1', { tabindex: '-1' }, view.id)), h('p', { class: 'loading' }, 'Loading\u2026'));
+    replaceKeepingFocus($('main'), h('div', { class: 'page-head' }, h('h1', { tabindex: '-1', 'data-focus-key': 'h1' }, view.id)), h('p', { class: 'loading' }, 'Loading\u2026'));
     refreshStatus(view.id).then(() => {
       if (state.detail !== d) return;
       if (moveFocus) headingFocus();

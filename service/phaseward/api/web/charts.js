@@ -33,10 +33,10 @@ export function gauge({ value, lo = 0, hi, marks = [], state = 'ok' }) {
 /** Capacity as a bar, with the present load and the rated load as marks. */
 export function capacityChart({ capacity, load, rated }) {
   const W = 640;
-  const H = 86;
+  const H = 94;
   const left = 8;
   const right = 24;
-  const top = 26;
+  const top = 34;
   const barH = 26;
   const max = Math.max(capacity ?? 0, load ?? 0, rated ?? 0, 1) * 1.1;
   const x = (v) => left + (clamp(v, 0, max) / max) * (W - left - right);
@@ -58,8 +58,8 @@ export function capacityChart({ capacity, load, rated }) {
   }
   if (load != null) {
     const at = x(load);
-    parts.push(s('path', { class: 'cap-load', d: `M${at} ${top - 2} V${top + barH + 2} M${at - 6} ${top - 10} L${at} ${top - 2} L${at + 6} ${top - 10}` }));
-    parts.push(s('text', { class: 'cap-load-label', x: at, y: top - 13, 'text-anchor': anchorFor(at, W) }, `present load ${fmt.amps(load)}`));
+    parts.push(s('path', { class: 'cap-load', d: `M${at} ${top - 1} V${top + barH + 2} M${at - 5} ${top - 7} L${at} ${top - 1} L${at + 5} ${top - 7}` }));
+    parts.push(s('text', { class: 'cap-load-label', x: at, y: top - 15, 'text-anchor': anchorFor(at, W) }, `present load ${fmt.amps(load)}`));
   }
   const label = `Capacity ${fmt.amps(capacity)} against the present load ${fmt.amps(load)}` +
     ` and the rated load ${fmt.amps(rated)}`;

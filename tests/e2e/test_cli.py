@@ -1,0 +1,90 @@
+"""The operator and developer commands against a real service (and an embedded one)."""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import subprocess
+import sys
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import httpx
+import pytest
+from tests.factories import SMALL_RAIL, sample
+from tests.servers import free_port, start_server
+
+pytestmark = pytest.mark.e2e
+
+
+@pytest.fixture
+def base(tmp_path: Path) -> Iterator[str]:
+    port = free_port()
+    proc = start_server(tmp_path / "served", port)
+    url = f"http://127.0.0.1:{port}"
+    httpx.post(f"{url}/v1/rails", json=SMALL_RAIL).raise_for_status()
+    body = [sample(k, [20.0, 20.0, 20.0, 20.0]) for k in range(5)]
+    httpx.post(f"{url}/v1/rails/bench-a/samples", json=body).raise_for_status()
+    try:
+        yield url
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)
+
+
+def run(*args: str, env: dict[str, str] | None = None, ok: bool = True) -> Any:
+    done = subprocess.run(
+        [sys.executable, "-m", "phaseward.cli", *args, "--json"],
+        capture_output=True, text=True, timeout=120, env=env,
+    )  # fmt: skip
+    if not ok:
+        assert done.returncode != 0
+        return done.stderr
+    assert done.returncode == 0, done.stderr
+    return json.loads(done.stdout)
+
+
+def test_status_screening_forecast_events(base: str) -> None:
+    status = run("status", "bench-a", "--url", base)
+    assert status["condition"] == "nominal"
+    assert status["capacity"]["capacity_a"] == pytest.approx(120.0, rel=1e-5)
+    screening = run("screening", "bench-a", "--depth", "2", "--url", base)
+    assert len(screening["cases"]) == 6
+    ahead = run("forecast", "bench-a", "--load", "100", "--drop", "1", "--drop", "2", "--url", base)
+    assert ahead["time_to_limit_s"] is not None  # 50 A on each of two 30 A phases
+    events = run("events", "--rail", "bench-a", "--url", base)
+    assert [e["kind"] for e in events] == ["rail.condition"]
+
+
+def test_calibrate_and_a_refusal(base: str, tmp_path: Path) -> None:
+    curve = tmp_path / "curve.csv"
+    rows = [f"{0.5 * k},{25 + 16 * (1 - math.exp(-0.05 * k))}" for k in range(200)]
+    curve.write_text("time_s,temp_c\n" + "\n".join(rows))  # 2 W into 8 K/W, tau 10 s
+    fit = run("calibrate", str(curve), "--rail", "bench-a", "--power", "2", "--url", base)
+    assert fit["order"] == 1
+    assert fit["chosen"]["stages"][0]["r_k_per_w"] == pytest.approx(8.0, rel=1e-3)
+    refusal = run(
+        "calibrate", str(curve), "--rail", "nope", "--power", "2", "--url", base, ok=False
+    )
+    assert "404 not_found (rail_id): no rail 'nope'" in refusal
+
+
+def test_rehearse_and_calibrate_on_an_embedded_service(tmp_path: Path) -> None:
+    trace = tmp_path / "trace.csv"
+    trace.write_text("time_s,vin_v,i0_a,i1_a\n" + "\n".join(
+        f"{k},12,{25 if 3 <= k <= 6 else 10},10" for k in range(10)))  # fmt: skip
+    settings = tmp_path / "settings.json"
+    settings.write_text(json.dumps({"oc_level_a": [20, 30], "oc_debounce_s": [0, 1]}))
+    table, plot = tmp_path / "table.csv", tmp_path / "front.svg"
+    env = os.environ | {
+        "PHASEWARD_URL": f"http://127.0.0.1:{free_port()}",  # nothing answers there
+        "PHASEWARD_DATA_DIR": str(tmp_path / "embedded"),
+    }
+    result = run("rehearse", str(trace), "--settings", str(settings), "--csv", str(table),
+                 "--svg", str(plot), env=env)  # fmt: skip
+    assert result["combinations"] == 4
+    assert [r["trips"] for r in result["rows"]] == [1, 1, 0, 0]
+    assert table.read_text().startswith("index,oc_level_a,oc_debounce_s")
+    assert plot.read_text().startswith("<svg")

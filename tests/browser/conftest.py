@@ -38,10 +38,6 @@ CHROMIUM_ARGS = [
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
 
 
-def pytest_configure(config: pytest.Config) -> None:
-    config.addinivalue_line("markers", "browser: drives the operator page in headless Chromium")
-
-
 @pytest.hookimpl(wrapper=True)
 def pytest_runtest_makereport(item: pytest.Item, call: pytest.CallInfo[None]) -> Iterator[None]:
     """Keep each phase's report on the test, so the page fixture knows whether it failed."""

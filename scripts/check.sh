@@ -24,6 +24,7 @@ fi
 (cd clients/python && python3 -m pytest -q -p no:cacheprovider)
 make -C clients/c test
 clients/c/run_test.sh
+bash docker/check_build.sh
 
 ruff check service tests bench clients/python
 ruff format --check service tests bench clients/python

@@ -55,7 +55,7 @@ def median_s(call: Callable[[], httpx.Response]) -> float:
 
 def main() -> None:
     with tempfile.TemporaryDirectory() as tmp:
-        settings = Settings(data_dir=Path(tmp), port=8490, log_level="warning")
+        settings = Settings(data_dir=Path(tmp), port=8490, log_level="warning", auth_mode="open")
         config = uvicorn.Config(
             create_app(settings), host="127.0.0.1", port=settings.port, log_level="warning"
         )

@@ -44,7 +44,7 @@ def database_url(tmp_path: Path) -> Iterator[str]:
 @pytest.fixture
 def settings(tmp_path: Path, database_url: str) -> Settings:
     return Settings(
-        data_dir=tmp_path, database_url=database_url, max_body_bytes=64 * 1024,
+        data_dir=tmp_path, database_url=database_url, auth_mode="open", max_body_bytes=64 * 1024,
         max_batch_samples=50,
     )  # fmt: skip
 

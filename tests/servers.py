@@ -25,6 +25,7 @@ def start_server(data_dir: Path, port: int) -> subprocess.Popen[bytes]:
         "PHASEWARD_DATA_DIR": str(data_dir),
         "PHASEWARD_PORT": str(port),
         "PHASEWARD_LOG_LEVEL": "warning",
+        "PHASEWARD_AUTH_MODE": "open",
     }
     env.pop("PHASEWARD_DATABASE_URL", None)
     proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)

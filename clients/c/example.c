@@ -66,8 +66,9 @@ int main(int argc, char **argv) {
         return 1;
     }
     client = pw_client_new(argv[1], 10000);
-    if (client == NULL) {
-        fprintf(stderr, "out of memory\n");
+    if (client == NULL || pw_client_set_key(client, getenv("PHASEWARD_KEY")) != PW_OK) {
+        fprintf(stderr, "out of memory, or PHASEWARD_KEY is not a key\n");
+        pw_client_free(client);
         pw_global_cleanup();
         return 1;
     }

@@ -254,6 +254,7 @@ struct pw_client {
     CURL *curl;
     char *base_url; /* without a trailing '/' */
     long timeout_ms;
+    char *auth_header; /* "Authorization: Bearer <key>", or NULL */
     char error[CURL_ERROR_SIZE];
 };
 
@@ -327,7 +328,34 @@ void pw_client_free(pw_client *client) {
         curl_easy_cleanup(client->curl);
     }
     free(client->base_url);
+    free(client->auth_header);
     free(client);
+}
+
+int pw_client_set_key(pw_client *client, const char *key) {
+    static const char head[] = "Authorization: Bearer ";
+    char *header;
+    const char *p;
+    if (client == NULL) {
+        return PW_E_INVALID;
+    }
+    if (key != NULL) {
+        for (p = key; *p != '\0'; p++) {
+            if (*p <= ' ' || *p > '~') {
+                return PW_E_INVALID; /* a header must not carry spaces, controls or line breaks */
+            }
+        }
+        header = (char *)malloc(sizeof head + strlen(key));
+        if (header == NULL) {
+            return PW_E_NOMEM;
+        }
+        sprintf(header, "%s%s", head, key);
+    } else {
+        header = NULL;
+    }
+    free(client->auth_header);
+    client->auth_header = header;
+    return PW_OK;
 }
 
 const char *pw_client_error(const pw_client *client) {
@@ -388,6 +416,9 @@ int pw_post_json(pw_client *client, const char *rail_id, const char *json, size_
     headers = append_header(headers, "Content-Type: application/json", &failed);
     headers = append_header(headers, "Accept: application/json", &failed);
     headers = append_header(headers, "Expect:", &failed); /* no 100-continue round trip */
+    if (client->auth_header != NULL) {
+        headers = append_header(headers, client->auth_header, &failed);
+    }
     if (failed) {
         curl_slist_free_all(headers);
         free(url);

@@ -92,6 +92,11 @@ void pw_global_cleanup(void);
 pw_client *pw_client_new(const char *base_url, long timeout_ms);
 void pw_client_free(pw_client *client);
 
+/* Send an access key ("pwk_...") as "Authorization: Bearer <key>" on every request; NULL
+ * sends none again (for a service in open mode). PW_OK, or PW_E_NOMEM / PW_E_INVALID when the key
+ * is not printable ASCII. */
+int pw_client_set_key(pw_client *client, const char *key);
+
 /* The last libcurl error text of the client ("" when none). */
 const char *pw_client_error(const pw_client *client);
 

@@ -20,7 +20,7 @@ port="$(free_port)"
 base="http://127.0.0.1:$port"
 env -u PHASEWARD_DATABASE_URL \
     PHASEWARD_DATA_DIR="$data" PHASEWARD_HOST=127.0.0.1 PHASEWARD_PORT="$port" \
-    PHASEWARD_LOG_LEVEL=warning PYTHONPATH="$repo/service${PYTHONPATH:+:$PYTHONPATH}" \
+    PHASEWARD_LOG_LEVEL=warning PHASEWARD_AUTH_MODE=open PYTHONPATH="$repo/service${PYTHONPATH:+:$PYTHONPATH}" \
     "$PYTHON" -m phaseward.cli serve >"$data/serve.log" 2>&1 &
 pid=$!
 cleanup() {

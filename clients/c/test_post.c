@@ -63,6 +63,12 @@ int main(int argc, char **argv) {
     }
     build((double)time(NULL) + 60.0);
 
+    /* An access key goes out as a bearer header; one that would break the header is refused,
+     * and the open-mode service ignores a well-formed key it is sent. */
+    CHECK(pw_client_set_key(client, "pwk bad") == PW_E_INVALID);
+    CHECK(pw_client_set_key(client, "pwk_line\r\nX-Evil: 1") == PW_E_INVALID);
+    CHECK(pw_client_set_key(client, "pwk_test-key") == PW_OK);
+
     /* A batch is stored; the same batch again is absorbed as duplicates. */
     rc = pw_post_samples(client, argv[2], batch, 3, &r);
     CHECK(rc == PW_OK);

@@ -9,10 +9,11 @@ import time
 from collections.abc import Sequence
 
 import uvicorn
+from pydantic import ValidationError
 
 from phaseward.api.app import create_app
 from phaseward.operator_cli import add_commands
-from phaseward.settings import LOOPBACK_HOSTS, Settings
+from phaseward.settings import Settings
 
 
 def _server(settings: Settings) -> uvicorn.Server:
@@ -31,9 +32,12 @@ def serve(args: argparse.Namespace) -> int:
 def demo(args: argparse.Namespace) -> int:
     from phaseward.demo import run_scenario
 
-    settings = Settings(**({"port": args.port} if args.port is not None else {}))
-    if settings.host not in LOOPBACK_HOSTS:
-        print("the demo binds loopback only", file=sys.stderr)
+    # The demo serves on loopback in open mode: no keys, nothing reachable from elsewhere
+    # (the settings refuse open mode on any other address).
+    try:
+        settings = Settings(auth_mode="open", **({"port": args.port} if args.port else {}))
+    except ValidationError as err:
+        print(f"the demo cannot start: {err.errors()[0]['msg']}", file=sys.stderr)
         return 2
     server = _server(settings.model_copy(update={"log_level": "warning"}))
     thread = threading.Thread(target=server.run, daemon=True)
@@ -61,6 +65,33 @@ def demo(args: argparse.Namespace) -> int:
     return 0 if ok else 1
 
 
+def keys(args: argparse.Namespace) -> int:
+    """Manage access keys directly in the configured database (the first admin key has no
+    other way in)."""
+    from phaseward.monitor import access
+    from phaseward.store.db import build_engine, build_sessionmaker, migrate
+
+    engine = build_engine(Settings())
+    migrate(engine)
+    sessions = build_sessionmaker(engine)
+    if args.action == "create":
+        row, plain = access.create(sessions, name=args.name, role=args.role, rails=args.rail)
+        scope = ", ".join(row.rails) if row.rails else "every rail"
+        print(f"key {row.id} '{row.name}', role {row.role}, for {scope}:")
+        print(plain)
+        print("Keep it now: phaseward stores only its digest and cannot show it again.")
+    elif args.action == "list":
+        for row in access.listing(sessions):
+            state = "revoked" if row.revoked_s is not None else "active"
+            scope = ",".join(row.rails) if row.rails else "*"
+            print(f"{row.id:>4}  {row.prefix}...  {row.role:<8} {state:<8} {scope:<20} {row.name}")
+    else:
+        row = access.revoke(sessions, args.id)
+        print(f"key {row.id} '{row.name}' revoked")
+    engine.dispose()
+    return 0
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="phaseward", description=__doc__)
     sub = parser.add_subparsers(dest="command", required=True)
@@ -75,6 +106,16 @@ def main(argv: Sequence[str] | None = None) -> int:
     p.add_argument("--port", type=int)
     p.add_argument("--pace", type=float, default=0.05, help="seconds of wall time per sample")
     p.set_defaults(func=demo)
+    p = sub.add_parser("keys", help="create, list and revoke access keys (in the database)")
+    actions = p.add_subparsers(dest="action", required=True)
+    made = actions.add_parser("create", help="a new key, shown once")
+    made.add_argument("--role", required=True, choices=("ingest", "read", "operate", "admin"))
+    made.add_argument("--name", required=True, help="who or what holds it")
+    made.add_argument("--rail", action="append", help="limit the key to this rail (repeatable)")
+    actions.add_parser("list", help="every key, without the secret part")
+    gone = actions.add_parser("revoke", help="a key stops working at once")
+    gone.add_argument("id", type=int)
+    p.set_defaults(func=keys)
     add_commands(sub)
     args = parser.parse_args(argv)
     code: int = args.func(args)

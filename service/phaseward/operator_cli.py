@@ -36,7 +36,7 @@ def connected(url: str | None, *, embedded: bool) -> Iterator[Client]:
     except ImportError:
         raise SystemExit("this command needs the client: pip install -e clients/python") from None
     base = url or os.environ.get("PHASEWARD_URL") or DEFAULT_URL
-    with Client(base, timeout_s=120) as client:
+    with Client(base, timeout_s=120, api_key=os.environ.get("PHASEWARD_KEY")) as client:
         try:
             client.health()
         except Exception:  # nothing answers there
@@ -62,7 +62,8 @@ def _embedded() -> Iterator[str]:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         port = int(s.getsockname()[1])
-    settings = Settings(host="127.0.0.1", port=port, log_level="warning")
+    # In-process and on loopback only, for this one command: open mode, no keys needed.
+    settings = Settings(host="127.0.0.1", port=port, log_level="warning", auth_mode="open")
     server = uvicorn.Server(
         uvicorn.Config(create_app(settings), host="127.0.0.1", port=port, log_level="warning")
     )
@@ -293,6 +294,8 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     ) -> argparse.ArgumentParser:
         p = sub.add_parser(name, help=help_text)
         p.add_argument("--url", help=f"service URL (default PHASEWARD_URL or {DEFAULT_URL})")
+        # The access key comes from PHASEWARD_KEY only: a key on the command line would be
+        # left in shell history and process lists.
         p.add_argument("--json", action="store_true", help="JSON instead of tables")
         p.set_defaults(func=_reporting(fn))
         return p

@@ -21,6 +21,11 @@ class Settings(BaseSettings):
     host: str = "127.0.0.1"
     port: int = Field(default=8470, ge=1, le=65535)
     log_level: Literal["debug", "info", "warning", "error"] = "info"
+    # "keys": every request needs an access key of the right role. "open": no keys, for local
+    # development only, so the service then refuses to bind anything but loopback.
+    auth_mode: Literal["keys", "open"] = "keys"
+    rate_per_s: float = Field(default=200.0, gt=0)  # requests per second per key, sustained
+    rate_burst: int = Field(default=400, ge=1)
 
     # SQLite durability: FULL survives power loss, NORMAL survives process crashes only.
     sqlite_synchronous: Literal["FULL", "NORMAL"] = "FULL"
@@ -36,6 +41,10 @@ class Settings(BaseSettings):
     def _default_database(self) -> Settings:
         if not self.database_url:
             self.database_url = f"sqlite:///{(self.data_dir / 'phaseward.db').as_posix()}"
+        if self.auth_mode == "open" and self.host not in LOOPBACK_HOSTS:
+            raise ValueError(
+                f"auth_mode 'open' serves without keys, so it binds loopback only, not {self.host}"
+            )
         return self
 
     @property

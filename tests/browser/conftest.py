@@ -73,6 +73,7 @@ def server(tmp_path: Path) -> Iterator[str]:
         "PHASEWARD_PORT": str(port),
         "PHASEWARD_HOST": "127.0.0.1",
         "PHASEWARD_LOG_LEVEL": "warning",
+        "PHASEWARD_AUTH_MODE": "open",
     }
     env.pop("PHASEWARD_DATABASE_URL", None)
     proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)

@@ -101,6 +101,7 @@ def start_service(data_dir: Path, port: int) -> subprocess.Popen[bytes]:
         "PHASEWARD_PORT": str(port),
         "PHASEWARD_HOST": "127.0.0.1",
         "PHASEWARD_LOG_LEVEL": "warning",
+        "PHASEWARD_AUTH_MODE": "open",
         "PHASEWARD_SQLITE_SYNCHRONOUS": "NORMAL",
         "PYTHONPATH": os.pathsep.join(
             p for p in (str(REPO / "service"), env.get("PYTHONPATH", "")) if p

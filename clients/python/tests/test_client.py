@@ -249,3 +249,17 @@ def test_transport_errors_pass_through() -> None:
         pytest.raises(httpx.ConnectError),
     ):
         dead.health()
+
+
+def test_api_key_goes_as_a_bearer_token() -> None:
+    seen: list[str | None] = []
+
+    def handler(request: httpx.Request) -> httpx.Response:
+        seen.append(request.headers.get("authorization"))
+        return httpx.Response(200, json={"status": "ok", "version": "x"})
+
+    with Client(
+        "http://phaseward.test", api_key="pwk_abc", transport=httpx.MockTransport(handler)
+    ) as c:
+        c.health()
+    assert seen == ["Bearer pwk_abc"]

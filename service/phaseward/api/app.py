@@ -9,6 +9,7 @@ from fastapi import FastAPI
 
 from phaseward import __version__
 from phaseward.api import errors
+from phaseward.api.auth import RateLimiter
 from phaseward.api.routes import (
     analyses,
     events,
@@ -48,6 +49,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = engine
     app.state.sessions = sessions
     app.state.jobs = runner
+    app.state.rate_limiter = RateLimiter(settings.rate_per_s, settings.rate_burst)
     runner.resume()  # jobs a stopped process left unfinished run again
     errors.install(app)
     app.include_router(rails.router)

@@ -2,16 +2,17 @@
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from pydantic import ValidationError
-from sqlalchemy.exc import OperationalError
+from sqlalchemy.exc import DBAPIError, InternalError, OperationalError
 
 from phaseward.api.schemas.common import ErrorBody
-from phaseward.errors import PhasewardError
+from phaseward.errors import PhasewardError, TooManyRequests, Unauthorized
 
 _LOCATION_PREFIXES = ("body", "query", "path", "header")
 
@@ -47,7 +48,12 @@ def validation_response(errors: list[Any]) -> JSONResponse:
 def install(app: FastAPI) -> None:
     @app.exception_handler(PhasewardError)
     async def _ours(_: Request, err: PhasewardError) -> JSONResponse:
-        return _render(err.status_code, err.error, err.detail, err.field)
+        response = _render(err.status_code, err.error, err.detail, err.field)
+        if isinstance(err, Unauthorized):
+            response.headers["WWW-Authenticate"] = 'Bearer realm="phaseward"'
+        if isinstance(err, TooManyRequests):
+            response.headers["Retry-After"] = str(max(1, math.ceil(err.retry_after_s)))
+        return response
 
     @app.exception_handler(RequestValidationError)
     async def _request(_: Request, err: RequestValidationError) -> JSONResponse:
@@ -59,19 +65,38 @@ def install(app: FastAPI) -> None:
 
     @app.exception_handler(OperationalError)
     async def _database(_: Request, err: OperationalError) -> JSONResponse:
-        text = str(err.orig) if err.orig is not None else str(err)
-        return _render(503, "service_unavailable", f"database unavailable: {text}", None)
+        return _unavailable(err)
+
+    @app.exception_handler(InternalError)
+    async def _internal(_: Request, err: InternalError) -> JSONResponse:
+        # PostgreSQL refuses writes to a read-only database (a standby, or
+        # default_transaction_read_only) with SQLSTATE 25006, which the driver files under
+        # InternalError; any other InternalError stays a 500.
+        if getattr(err.orig, "sqlstate", None) != READ_ONLY_SQLSTATE:
+            raise err
+        return _unavailable(err)
+
+
+READ_ONLY_SQLSTATE = "25006"  # read_only_sql_transaction
+
+
+def _unavailable(err: DBAPIError) -> JSONResponse:
+    text = str(err.orig) if err.orig is not None else str(err)
+    return _render(503, "service_unavailable", f"database unavailable: {text}", None)
 
 
 ERROR_RESPONSES: dict[int | str, dict[str, Any]] = {
     code: {"model": ErrorBody, "description": text}
     for code, text in {
         400: "Malformed body",
+        401: "No valid access key",
+        403: "The key's role or rails do not allow this",
         404: "Unknown rail or event",
         409: "Conflict with what is stored",
         413: "Body or batch too large",
         415: "Unsupported content type",
         422: "A value that cannot be right; `field` names it",
+        429: "Over the key's rate; see Retry-After",
         503: "Database unavailable",
     }.items()
 }

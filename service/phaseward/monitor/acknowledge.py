@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -13,11 +14,18 @@ from phaseward.store.models import Event
 
 
 def acknowledge(
-    sessions: sessionmaker[Session], event_id: int, *, by: str, note: str | None
+    sessions: sessionmaker[Session],
+    event_id: int,
+    *,
+    by: str,
+    note: str | None,
+    may_use: Callable[[str], bool],
 ) -> Event:
+    """Record who acknowledged the event and why; ``may_use`` says which rails the caller may
+    touch (an event of another rail answers as unknown, revealing nothing of it)."""
     with transaction(sessions) as session:
         event = events.get(session, event_id)
-        if event is None:
+        if event is None or not may_use(event.rail_id):
             raise NotFound(f"no event {event_id}", field="event_id")
         if event.acked_by is not None:
             raise Conflict(

@@ -22,7 +22,9 @@ def build_engine(settings: Settings) -> Engine:
     url = make_url(settings.database_url)
     if url.get_backend_name() != "sqlite":
         return create_engine(url, pool_pre_ping=True)
-    if url.database and url.database != ":memory:":
+    # A URI filename ("file:...?mode=ro&uri=true", e.g. a read-only database) is SQLite's to
+    # open as given: taken as a path it would create a directory named "file:" here.
+    if url.database and url.database != ":memory:" and not url.query.get("uri"):
         Path(url.database).parent.mkdir(parents=True, exist_ok=True)
     engine = create_engine(url, connect_args={"check_same_thread": False, "isolation_level": None})
     _configure_sqlite(engine, settings)

@@ -20,6 +20,7 @@ class EventFilter:
     phase: int | None = None
     since_s: float | None = None
     until_s: float | None = None
+    allowed_rails: frozenset[str] | None = None  # None: every rail
 
 
 def add_many(session: Session, rows: list[dict[str, Any]]) -> None:
@@ -32,6 +33,8 @@ def page(
 ) -> Sequence[Event]:
     """Newest first; ``before_id`` is the cursor (ids only grow, so it is stable under inserts)."""
     stmt = select(Event).order_by(Event.id.desc()).limit(limit)
+    if flt.allowed_rails is not None:
+        stmt = stmt.where(Event.rail_id.in_(flt.allowed_rails))
     if flt.rail_id is not None:
         stmt = stmt.where(Event.rail_id == flt.rail_id)
     if flt.kinds:
@@ -70,6 +73,8 @@ def attach_signature(
 def after(session: Session, flt: EventFilter, *, after_id: int, limit: int) -> Sequence[Event]:
     """Events newer than ``after_id``, oldest first (for live streams)."""
     stmt = select(Event).where(Event.id > after_id).order_by(Event.id).limit(limit)
+    if flt.allowed_rails is not None:
+        stmt = stmt.where(Event.rail_id.in_(flt.allowed_rails))
     if flt.rail_id is not None:
         stmt = stmt.where(Event.rail_id == flt.rail_id)
     if flt.kinds:

@@ -170,3 +170,22 @@ class Job(Base):
     error: Mapped[str | None] = mapped_column(Text)
     created_s: Mapped[float] = mapped_column(Float)
     finished_s: Mapped[float | None] = mapped_column(Float)
+
+
+class ApiKey(Base):
+    """An access key: stored as its SHA-256 digest (keys are 240 random bits, so a fast hash
+    is enough), found by its short public prefix, compared in constant time."""
+
+    __tablename__ = "api_keys"
+    __table_args__ = (Index("ix_api_keys_prefix", "prefix"),)
+
+    id: Mapped[int] = mapped_column(
+        BigInteger().with_variant(Integer, "sqlite"), primary_key=True, autoincrement=True
+    )
+    name: Mapped[str] = mapped_column(String(120))
+    role: Mapped[str] = mapped_column(String(16))
+    prefix: Mapped[str] = mapped_column(String(16))
+    digest: Mapped[str] = mapped_column(String(64))
+    rails: Mapped[list[str] | None] = mapped_column(JSON)  # None: every rail
+    created_s: Mapped[float] = mapped_column(Float)
+    revoked_s: Mapped[float | None] = mapped_column(Float)

@@ -18,8 +18,12 @@ def get(session: Session, rail_id: str, *, for_update: bool = False) -> Rail | N
     return session.scalars(stmt).one_or_none()
 
 
-def list_page(session: Session, *, after: str | None, limit: int) -> Sequence[Rail]:
+def list_page(
+    session: Session, *, after: str | None, limit: int, allowed: frozenset[str] | None = None
+) -> Sequence[Rail]:
     stmt = select(Rail).order_by(Rail.id).limit(limit)
+    if allowed is not None:
+        stmt = stmt.where(Rail.id.in_(allowed))
     if after is not None:
         stmt = stmt.where(Rail.id > after)
     return session.scalars(stmt).all()

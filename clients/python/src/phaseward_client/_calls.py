@@ -46,6 +46,14 @@ JSON = "application/json"
 TimeLike = float | datetime | str
 
 
+def auth_headers(api_key: str | None, headers: Mapping[str, str] | None) -> dict[str, str]:
+    """The client's default headers: the caller's, plus the access key as a bearer token."""
+    out = dict(headers or {})
+    if api_key is not None:
+        out["authorization"] = f"Bearer {api_key}"
+    return out
+
+
 def encode(body: object) -> bytes:
     """Compact JSON; NaN and infinities are refused here (JSON has no such numbers)."""
     try:

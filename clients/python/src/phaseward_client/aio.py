@@ -9,7 +9,7 @@ from typing import Any, Self, TypeVar
 import httpx
 
 from phaseward_client import _calls
-from phaseward_client._calls import Call, TimeLike
+from phaseward_client._calls import Call, TimeLike, auth_headers
 from phaseward_client.client import DEFAULT_URL
 from phaseward_client.errors import PhasewardError
 from phaseward_client.inputs import BreakerParams, Load, PhaseDrop, SampleLike
@@ -45,13 +45,17 @@ class AsyncClient:
         base_url: str = DEFAULT_URL,
         *,
         timeout_s: float = 10.0,
+        api_key: str | None = None,
         headers: Mapping[str, str] | None = None,
         transport: httpx.AsyncBaseTransport | None = None,
         http: httpx.AsyncClient | None = None,
     ) -> None:
         self._owns_http = http is None
         self.http = http or httpx.AsyncClient(
-            base_url=base_url, timeout=timeout_s, headers=dict(headers or {}), transport=transport
+            base_url=base_url,
+            timeout=timeout_s,
+            headers=auth_headers(api_key, headers),
+            transport=transport,
         )
 
     @property

@@ -8,6 +8,7 @@ import numpy as np
 import numpy.typing as npt
 from fastapi import APIRouter, Query
 
+from phaseward.api.auth import Operator, RailOperator
 from phaseward.api.deps import ReadSessionDep, SessionsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RailId
@@ -22,7 +23,7 @@ from phaseward.api.schemas.analyses import (
     ReliabilityOut,
     ScreeningOut,
 )
-from phaseward.errors import InvalidInput
+from phaseward.errors import Forbidden, InvalidInput
 from phaseward.monitor import breaker_check, calibrations
 from phaseward.monitor.forecast import Drop, forecast
 from phaseward.monitor.live import live_rail
@@ -37,6 +38,7 @@ F64 = npt.NDArray[np.float64]
 def get_screening(
     rail_id: RailId,
     session: ReadSessionDep,
+    _: RailOperator,
     depth: Annotated[int, Query(ge=1, le=2, description="1: every single loss, 2: every pair")] = 1,
 ) -> ScreeningOut:
     live = live_rail(session, rail_id)
@@ -70,7 +72,9 @@ def _profile(load: LoadProfile | None, present_a: float) -> tuple[F64, F64, bool
 
 
 @router.post("/{rail_id}/forecast")
-def post_forecast(rail_id: RailId, body: ForecastIn, session: ReadSessionDep) -> ForecastOut:
+def post_forecast(
+    rail_id: RailId, body: ForecastIn, session: ReadSessionDep, _: RailOperator
+) -> ForecastOut:
     live = live_rail(session, rail_id)
     for k, d in enumerate(body.drop):
         if d.phase >= live.model.n_phases:
@@ -100,6 +104,7 @@ def post_forecast(rail_id: RailId, body: ForecastIn, session: ReadSessionDep) ->
 def get_reliability(
     rail_id: RailId,
     session: ReadSessionDep,
+    _: RailOperator,
     hours: Annotated[float, Query(gt=0, le=1e6, description="mission time")],
 ) -> ReliabilityOut:
     live = live_rail(session, rail_id)
@@ -112,7 +117,7 @@ tools = APIRouter(prefix="/v1/tools", tags=["tools"], responses=ERROR_RESPONSES)
 
 
 @tools.post("/breaker-stress")
-def post_breaker_stress(body: BreakerIn) -> BreakerOut:
+def post_breaker_stress(body: BreakerIn, _: Operator) -> BreakerOut:
     """Peak junction rise of the breaker's pass MOSFET while it limits a short, against its
     junction limit and its safe operating area."""
     result = breaker_check.check(
@@ -125,9 +130,13 @@ def post_breaker_stress(body: BreakerIn) -> BreakerOut:
 
 
 @router.post("/{rail_id}/calibrations")
-def post_calibration(rail_id: RailId, body: CalibrationIn, sessions: SessionsDep) -> CalibrationOut:
+def post_calibration(
+    rail_id: RailId, body: CalibrationIn, sessions: SessionsDep, who: RailOperator
+) -> CalibrationOut:
     """Fit Foster networks of the asked orders to the curve, choose the order by BIC, and on
     request store the chosen fit as the rail's next version."""
+    if body.apply != "no" and not who.grants("admin"):
+        raise Forbidden("storing a fit as a new rail version needs an admin key", field="apply")
     result = calibrations.calibrate(
         sessions, rail_id, t_s=body.t_s, temp_c=body.temp_c, power_w=body.power_w,
         current_a=body.current_a, phase=body.phase, cooling=body.cooling, orders=body.orders,

@@ -11,6 +11,7 @@ from fastapi import APIRouter, Query, Request
 from fastapi.responses import Response
 from pydantic import BaseModel, Field
 
+from phaseward.api.auth import Operator, RailReader, Reader
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RailId
@@ -63,6 +64,7 @@ def _page(
     *,
     rail_id: str | None,
     query: EventQuery,
+    allowed: frozenset[str] | None,
 ) -> EventPage | Response:
     for level in query.severity:
         if level not in SEVERITIES:
@@ -71,8 +73,9 @@ def _page(
     if cursor is not None and not cursor.isdigit():
         raise InvalidInput("cursor must be the next_cursor of a previous page", field="cursor")
     flt = event_store.EventFilter(
-        rail_id=rail_id, kinds=tuple(query.kind), severities=tuple(query.severity),
-        phase=query.phase, since_s=_time(query.since, "since"), until_s=_time(query.until, "until"),
+        allowed_rails=allowed, rail_id=rail_id, kinds=tuple(query.kind),
+        severities=tuple(query.severity), phase=query.phase,
+        since_s=_time(query.since, "since"), until_s=_time(query.until, "until"),
     )  # fmt: skip
     size = min(query.limit, settings.max_page_size)
     rows = event_store.page(
@@ -98,9 +101,13 @@ _CSV_DOC: dict[int | str, dict[str, Any]] = {
 
 @router.get("/v1/events", response_model=EventPage, responses=_CSV_DOC)
 def list_events(
-    request: Request, session: ReadSessionDep, settings: SettingsDep, query: EventQueryDep
+    request: Request,
+    session: ReadSessionDep,
+    settings: SettingsDep,
+    query: EventQueryDep,
+    who: Reader,
 ) -> EventPage | Response:
-    return _page(request, session, settings, rail_id=None, query=query)
+    return _page(request, session, settings, rail_id=None, query=query, allowed=who.rails)
 
 
 @router.get("/v1/rails/{rail_id}/events", response_model=EventPage, responses=_CSV_DOC)
@@ -110,11 +117,14 @@ def list_rail_events(
     session: ReadSessionDep,
     settings: SettingsDep,
     query: EventQueryDep,
+    _: RailReader,
 ) -> EventPage | Response:
     rail_service.get(session, rail_id)  # 404 for an unknown rail rather than an empty page
-    return _page(request, session, settings, rail_id=rail_id, query=query)
+    return _page(request, session, settings, rail_id=rail_id, query=query, allowed=None)
 
 
 @router.post("/v1/events/{event_id}/ack")
-def ack_event(event_id: int, body: AckIn, sessions: SessionsDep) -> EventOut:
-    return EventOut.of(acknowledge(sessions, event_id, by=body.by, note=body.note))
+def ack_event(event_id: int, body: AckIn, sessions: SessionsDep, who: Operator) -> EventOut:
+    return EventOut.of(
+        acknowledge(sessions, event_id, by=body.by, note=body.note, may_use=who.may_use)
+    )

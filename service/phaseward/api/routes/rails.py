@@ -6,11 +6,13 @@ from typing import Annotated
 
 from fastapi import APIRouter, Path, Query, Response, status
 
+from phaseward.api.auth import Admin, RailAdmin, RailReader, Reader
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.schemas.events import iso
 from phaseward.api.schemas.rails import RailBody, RailCreate, RailOut
 from phaseward.api.schemas.status import RailStatus
+from phaseward.errors import Forbidden
 from phaseward.monitor import rails as rail_service
 from phaseward.monitor.status import rail_status
 from phaseward.store import rails as rail_store
@@ -28,7 +30,9 @@ def _out(rail: Rail, spec: dict[str, object]) -> RailOut:
 
 
 @router.post("", status_code=status.HTTP_201_CREATED)
-def create_rail(body: RailCreate, sessions: SessionsDep) -> RailOut:
+def create_rail(body: RailCreate, sessions: SessionsDep, who: Admin) -> RailOut:
+    if not who.may_use(body.id):
+        raise Forbidden(f"this key may not define rail '{body.id}'", field="id")
     spec = RailBody.model_validate(body.model_dump(exclude={"id"})).stored()
     rail, spec = rail_service.create(sessions, body.id, spec)
     return _out(rail, spec)
@@ -38,32 +42,37 @@ def create_rail(body: RailCreate, sessions: SessionsDep) -> RailOut:
 def list_rails(
     session: ReadSessionDep,
     settings: SettingsDep,
+    who: Reader,
     after: Annotated[str | None, Query(max_length=64, description="cursor: last id seen")] = None,
     limit: Annotated[int, Query(ge=1, le=1000)] = 100,
 ) -> list[RailOut]:
-    page = rail_store.list_page(session, after=after, limit=min(limit, settings.max_page_size))
+    page = rail_store.list_page(
+        session, after=after, limit=min(limit, settings.max_page_size), allowed=who.rails
+    )
     specs = rail_store.specs(session, page)
     return [_out(r, specs[r.id]) for r in page]
 
 
 @router.get("/{rail_id}")
-def get_rail(rail_id: RailId, session: ReadSessionDep) -> RailOut:
+def get_rail(rail_id: RailId, session: ReadSessionDep, _: RailReader) -> RailOut:
     rail, spec = rail_service.get(session, rail_id)
     return _out(rail, spec)
 
 
 @router.put("/{rail_id}")
-def put_rail(rail_id: RailId, body: RailBody, sessions: SessionsDep, response: Response) -> RailOut:
+def put_rail(
+    rail_id: RailId, body: RailBody, sessions: SessionsDep, response: Response, _: RailAdmin
+) -> RailOut:
     rail, spec, created = rail_service.put_version(sessions, rail_id, body.stored())
     response.status_code = status.HTTP_201_CREATED if created else status.HTTP_200_OK
     return _out(rail, spec)
 
 
 @router.delete("/{rail_id}", status_code=status.HTTP_204_NO_CONTENT)
-def delete_rail(rail_id: RailId, sessions: SessionsDep) -> None:
+def delete_rail(rail_id: RailId, sessions: SessionsDep, _: RailAdmin) -> None:
     rail_service.delete(sessions, rail_id)
 
 
 @router.get("/{rail_id}/status")
-def get_status(rail_id: RailId, session: ReadSessionDep) -> RailStatus:
+def get_status(rail_id: RailId, session: ReadSessionDep, _: RailReader) -> RailStatus:
     return RailStatus.model_validate(rail_status(session, rail_id))

@@ -8,11 +8,12 @@ import io
 from fastapi import APIRouter, Request, status
 from fastapi.responses import Response
 
+from phaseward.api.auth import Operator
 from phaseward.api.deps import ReadSessionDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.plots import pareto_svg
-from phaseward.api.schemas.rehearsals import RehearsalIn, RehearsalOut
-from phaseward.errors import Conflict, InvalidInput, NotFound
+from phaseward.api.schemas.rehearsals import RailWindow, RehearsalIn, RehearsalOut
+from phaseward.errors import Conflict, Forbidden, InvalidInput, NotFound
 from phaseward.monitor import rehearsals
 from phaseward.monitor.jobs import JobRunner
 from phaseward.store import jobs
@@ -43,8 +44,10 @@ def _done(session: ReadSessionDep, job_id: int) -> Job:
 
 
 @router.post("", status_code=status.HTTP_202_ACCEPTED)
-def start_rehearsal(body: RehearsalIn, request: Request) -> RehearsalOut:
+def start_rehearsal(body: RehearsalIn, request: Request, who: Operator) -> RehearsalOut:
     """Queue a rehearsal; poll ``GET /v1/rehearsals/{id}`` for progress and the result."""
+    if isinstance(body.trace, RailWindow) and not who.may_use(body.trace.rail_id):
+        raise Forbidden(f"this key may not use rail '{body.trace.rail_id}'", field="trace.rail_id")
     settings = body.settings.model_dump(exclude_none=True)
     size = rehearsals.grid_size(settings)
     if size > rehearsals.MAX_COMBINATIONS:
@@ -56,7 +59,7 @@ def start_rehearsal(body: RehearsalIn, request: Request) -> RehearsalOut:
 
 
 @router.get("/{rehearsal_id}")
-def get_rehearsal(rehearsal_id: int, session: ReadSessionDep) -> RehearsalOut:
+def get_rehearsal(rehearsal_id: int, session: ReadSessionDep, _: Operator) -> RehearsalOut:
     job = jobs.get(session, rehearsal_id)
     if job is None or job.kind != rehearsals.KIND:
         raise NotFound(f"no rehearsal {rehearsal_id}", field="rehearsal_id")
@@ -68,7 +71,7 @@ def get_rehearsal(rehearsal_id: int, session: ReadSessionDep) -> RehearsalOut:
     response_class=Response,
     responses={200: {"content": {"text/csv": {"schema": {"type": "string"}}}}},
 )
-def rehearsal_table(rehearsal_id: int, session: ReadSessionDep) -> Response:
+def rehearsal_table(rehearsal_id: int, session: ReadSessionDep, _: Operator) -> Response:
     """One row per combination: its settings, trips, false trips, misses and latencies."""
     result = _done(session, rehearsal_id).result or {}
     buf = io.StringIO()
@@ -94,7 +97,7 @@ def rehearsal_table(rehearsal_id: int, session: ReadSessionDep) -> Response:
     response_class=Response,
     responses={200: {"content": {"image/svg+xml": {"schema": {"type": "string"}}}}},
 )
-def rehearsal_pareto(rehearsal_id: int, session: ReadSessionDep) -> Response:
+def rehearsal_pareto(rehearsal_id: int, session: ReadSessionDep, _: Operator) -> Response:
     result = _done(session, rehearsal_id).result or {}
     points = [(float(r["false_trips"]), r["max_latency_s"]) for r in result["rows"]]
     svg = pareto_svg(

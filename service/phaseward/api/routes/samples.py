@@ -11,6 +11,7 @@ from fastapi import APIRouter, Query, Request
 from fastapi.concurrency import run_in_threadpool
 from pydantic import ValidationError
 
+from phaseward.api.auth import RailIngester, RailReader
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES, field_path
 from phaseward.api.routes.rails import RailId
@@ -81,7 +82,7 @@ def parse_items(body: bytes, content_type: str, *, max_items: int) -> list[Any]:
 
 @router.post("/{rail_id}/samples", openapi_extra=_BODY_DOC)
 async def post_samples(
-    rail_id: RailId, request: Request, sessions: SessionsDep, settings: SettingsDep
+    rail_id: RailId, request: Request, sessions: SessionsDep, settings: SettingsDep, _: RailIngester
 ) -> IngestOut:
     """Store samples and advance the rail's live state. The answer comes after the commit."""
     body = await read_limited(request, settings.max_body_bytes)
@@ -114,6 +115,7 @@ def get_samples(
     rail_id: RailId,
     session: ReadSessionDep,
     settings: SettingsDep,
+    _: RailReader,
     since: Annotated[float, Query(ge=0, description="epoch seconds, inclusive")],
     until: Annotated[float, Query(gt=0, description="epoch seconds, exclusive")],
     limit: Annotated[int, Query(ge=1, le=100_000)] = 1000,

@@ -16,6 +16,7 @@ from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import StreamingResponse
 from sqlalchemy.orm import Session, sessionmaker
 
+from phaseward.api.auth import Reader
 from phaseward.api.deps import SessionsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.schemas.events import EventOut
@@ -47,6 +48,7 @@ def _latest(sessions: sessionmaker[Session]) -> int:
 async def stream_events(
     request: Request,
     sessions: SessionsDep,
+    who: Reader,
     rail_id: Annotated[str | None, Query(max_length=64)] = None,
     kind: Annotated[list[str], Query(max_length=20)] = [],  # noqa: B006 - copied by FastAPI
     after: Annotated[int | None, Query(ge=0, description="resume after this event id")] = None,
@@ -60,7 +62,7 @@ async def stream_events(
     start = int(last_event_id) if last_event_id is not None else after
     if start is None:
         start = await run_in_threadpool(_latest, sessions)
-    flt = event_store.EventFilter(rail_id=rail_id, kinds=tuple(kind))
+    flt = event_store.EventFilter(rail_id=rail_id, kinds=tuple(kind), allowed_rails=who.rails)
 
     async def frames() -> AsyncIterator[str]:
         last, sent, idle = start, 0, 0.0

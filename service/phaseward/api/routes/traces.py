@@ -7,6 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Query, Request, status
 from fastapi.concurrency import run_in_threadpool
 
+from phaseward.api.auth import Operator
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.samples import NDJSON, parse_items, read_limited
@@ -31,6 +32,7 @@ async def upload_trace(
     request: Request,
     sessions: SessionsDep,
     settings: SettingsDep,
+    _: Operator,
     name: Annotated[str, Query(min_length=1, max_length=200)] = "trace",
 ) -> TraceOut:
     """Upload a recording as CSV (``text/csv``), NDJSON or a JSON array of samples."""
@@ -52,5 +54,5 @@ async def upload_trace(
 
 
 @router.get("/{trace_id}")
-def get_trace(trace_id: int, session: ReadSessionDep) -> TraceOut:
+def get_trace(trace_id: int, session: ReadSessionDep, _: Operator) -> TraceOut:
     return _out(trace_id, traces.load(session, trace_id))

@@ -9,13 +9,29 @@ export class ApiError extends Error {
   }
 }
 
-async function request(method, path, body) {
-  const init = { method, headers: { accept: 'application/json' }, cache: 'no-store' };
+// A service that needs keys answers 401; the page then asks once for a key and keeps it for
+// this browser tab only (sessionStorage), sending it as a bearer token.
+const KEY = 'phaseward-key';
+
+export function authHeaders() {
+  const key = sessionStorage.getItem(KEY);
+  return key ? { authorization: `Bearer ${key}` } : {};
+}
+
+function askForKey() {
+  const key = window.prompt('This phaseward service needs an access key (role read or operate):');
+  if (key && key.trim()) sessionStorage.setItem(KEY, key.trim());
+  return Boolean(key && key.trim());
+}
+
+async function request(method, path, body, retried = false) {
+  const init = { method, headers: { accept: 'application/json', ...authHeaders() }, cache: 'no-store' };
   if (body !== undefined) {
     init.headers['content-type'] = 'application/json';
     init.body = JSON.stringify(body);
   }
   const res = await fetch(path, init);
+  if (res.status === 401 && !retried && askForKey()) return request(method, path, body, true);
   const text = await res.text();
   let parsed = null;
   try {

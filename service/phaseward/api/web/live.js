@@ -1,6 +1,8 @@
 // The service's event stream (Server-Sent Events) read with fetch, so that every event kind
 // arrives through one handler; resumes after the last id seen when the connection drops.
 
+import { authHeaders } from './api.js';
+
 const sleep = (ms) => new Promise((resolve) => setTimeout(resolve, ms));
 
 /** Parse SSE text frames from a byte stream, calling onFrame({id, event, data}). */
@@ -50,7 +52,7 @@ export function follow({ afterId, onEvent, onState }) {
       onState('connecting');
       try {
         const url = last == null ? '/v1/events/stream' : `/v1/events/stream?after=${encodeURIComponent(last)}`;
-        const res = await fetch(url, { headers: { accept: 'text/event-stream' }, cache: 'no-store', signal: controller.signal });
+        const res = await fetch(url, { headers: { accept: 'text/event-stream', ...authHeaders() }, cache: 'no-store', signal: controller.signal });
         if (!res.ok || !res.body) throw new Error(`the event stream answered ${res.status}`);
         onState('live');
         await readFrames(res.body, (frame) => {

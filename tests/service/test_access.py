@@ -1,0 +1,143 @@
+"""Access keys and roles: 401 without a valid key, 403 for the wrong role or rail, keys stored
+only as digests, revocation, and the per-key rate limit (429 with Retry-After)."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from pathlib import Path
+
+import httpx
+import pytest
+from fastapi import FastAPI
+from sqlalchemy import text
+from tests.factories import SMALL_RAIL, rail_spec, sample
+
+from phaseward.api.app import create_app
+from phaseward.monitor import access
+from phaseward.settings import Settings
+
+pytestmark = pytest.mark.anyio
+
+
+@pytest.fixture
+def keyed_app(request: pytest.FixtureRequest, tmp_path: Path, database_url: str) -> FastAPI:
+    """An app that needs keys; a test marked with a ``burst`` parameter gets a tight limit."""
+    burst = getattr(request, "param", 1000)
+    settings = Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys",
+                        rate_per_s=5.0, rate_burst=burst)  # fmt: skip
+    return create_app(settings)
+
+
+@pytest.fixture
+async def anon(keyed_app: FastAPI) -> AsyncIterator[httpx.AsyncClient]:
+    transport = httpx.ASGITransport(app=keyed_app)
+    async with httpx.AsyncClient(transport=transport, base_url="http://phaseward.test") as c:
+        yield c
+    keyed_app.state.jobs.shutdown()
+    keyed_app.state.engine.dispose()
+
+
+def key(app: FastAPI, role: str, rails: list[str] | None = None) -> dict[str, str]:
+    _, plain = access.create(app.state.sessions, name=f"{role} test", role=role, rails=rails)
+    return {"authorization": f"Bearer {plain}"}
+
+
+async def test_no_key_or_a_wrong_key_is_401(keyed_app: FastAPI, anon: httpx.AsyncClient) -> None:
+    missing = await anon.get("/v1/rails")
+    assert missing.status_code == 401
+    assert missing.json()["field"] == "authorization"
+    assert missing.headers["www-authenticate"].startswith("Bearer")
+    wrong = await anon.get("/v1/rails", headers={"authorization": "Bearer pwk_not-a-real-key"})
+    assert wrong.status_code == 401
+    assert (await anon.get("/healthz")).status_code == 200  # the health check stays open
+
+
+async def test_roles(keyed_app: FastAPI, anon: httpx.AsyncClient) -> None:
+    admin, reader = key(keyed_app, "admin"), key(keyed_app, "read")
+    ingest, operate = key(keyed_app, "ingest"), key(keyed_app, "operate")
+    assert (await anon.post("/v1/rails", json=SMALL_RAIL, headers=reader)).status_code == 403
+    assert (await anon.post("/v1/rails", json=SMALL_RAIL, headers=admin)).status_code == 201
+    posted = await anon.post(
+        "/v1/rails/bench-a/samples", json=sample(0, [20.0] * 4), headers=ingest
+    )
+    assert posted.status_code == 200
+    refused = await anon.post(
+        "/v1/rails/bench-a/samples", json=sample(1, [20.0] * 4), headers=reader
+    )
+    assert refused.status_code == 403
+    assert "'read' key may not ingest" in refused.json()["detail"]
+    assert (await anon.get("/v1/rails/bench-a/status", headers=ingest)).status_code == 403
+    assert (await anon.get("/v1/rails/bench-a/status", headers=reader)).status_code == 200
+    assert (await anon.get("/v1/rails/bench-a/screening", headers=reader)).status_code == 403
+    assert (await anon.get("/v1/rails/bench-a/screening", headers=operate)).status_code == 200
+    event_id = (await anon.get("/v1/events", headers=reader)).json()["items"][0]["id"]
+    ack = {"by": "shift lead"}
+    assert (
+        await anon.post(f"/v1/events/{event_id}/ack", json=ack, headers=reader)
+    ).status_code == 403
+    assert (
+        await anon.post(f"/v1/events/{event_id}/ack", json=ack, headers=operate)
+    ).status_code == 200
+    assert (await anon.delete("/v1/rails/bench-a", headers=operate)).status_code == 403
+
+
+async def test_a_key_limited_to_rails_sees_nothing_else(
+    keyed_app: FastAPI, anon: httpx.AsyncClient
+) -> None:
+    admin = key(keyed_app, "admin")
+    for rid in ("team-a", "team-b"):
+        assert (
+            await anon.post("/v1/rails", json=rail_spec(id=rid), headers=admin)
+        ).status_code == 201
+        await anon.post(f"/v1/rails/{rid}/samples", json=sample(0, [20.0] * 4), headers=admin)
+    ours = key(keyed_app, "operate", rails=["team-a"])
+    assert (await anon.get("/v1/rails/team-a/status", headers=ours)).status_code == 200
+    other = await anon.get("/v1/rails/team-b/status", headers=ours)
+    assert other.status_code == 403
+    assert other.json()["field"] == "rail_id"
+    assert [r["id"] for r in (await anon.get("/v1/rails", headers=ours)).json()] == ["team-a"]
+    rails_seen = {
+        e["rail_id"] for e in (await anon.get("/v1/events", headers=ours)).json()["items"]
+    }
+    assert rails_seen == {"team-a"}
+    b_event = (await anon.get("/v1/rails/team-b/events", headers=admin)).json()["items"][0]["id"]
+    ack = await anon.post(f"/v1/events/{b_event}/ack", json={"by": "x"}, headers=ours)
+    assert ack.status_code == 404  # another team's event is not even acknowledged to exist
+    writer = key(keyed_app, "ingest", rails=["team-a"])
+    assert (
+        await anon.post("/v1/rails/team-b/samples", json=sample(1, [20.0] * 4), headers=writer)
+    ).status_code == 403
+
+
+async def test_keys_are_stored_as_digests_and_revocable(
+    keyed_app: FastAPI, anon: httpx.AsyncClient
+) -> None:
+    row, plain = access.create(keyed_app.state.sessions, name="rack", role="read", rails=None)
+    with keyed_app.state.engine.connect() as conn:
+        stored = conn.execute(text("SELECT prefix, digest FROM api_keys")).one()
+    assert plain not in stored
+    assert stored.prefix == plain[:12]
+    headers = {"authorization": f"Bearer {plain}"}
+    assert (await anon.get("/v1/rails", headers=headers)).status_code == 200
+    access.revoke(keyed_app.state.sessions, row.id)
+    assert (await anon.get("/v1/rails", headers=headers)).status_code == 401
+
+
+@pytest.mark.parametrize("keyed_app", [5], indirect=True)
+async def test_rate_limit_answers_429_with_retry_after(
+    keyed_app: FastAPI, anon: httpx.AsyncClient
+) -> None:
+    headers = key(keyed_app, "read")
+    codes = [(await anon.get("/v1/rails", headers=headers)).status_code for _ in range(8)]
+    assert codes[:5] == [200] * 5  # the burst
+    assert 429 in codes[5:]
+    limited = await anon.get("/v1/rails", headers=headers)
+    assert limited.status_code == 429
+    assert int(limited.headers["retry-after"]) >= 1
+    other = key(keyed_app, "read")  # another key has its own bucket
+    assert (await anon.get("/v1/rails", headers=other)).status_code == 200
+
+
+def test_open_mode_binds_loopback_only() -> None:
+    with pytest.raises(ValueError, match="binds loopback only"):
+        Settings(auth_mode="open", host="0.0.0.0")

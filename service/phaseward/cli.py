@@ -12,14 +12,17 @@ import uvicorn
 from pydantic import ValidationError
 
 from phaseward.api.app import create_app
+from phaseward.api.observability import configure_logging
 from phaseward.operator_cli import add_commands
 from phaseward.settings import Settings
 
 
 def _server(settings: Settings) -> uvicorn.Server:
+    configure_logging(settings.log_level)
     config = uvicorn.Config(
-        create_app(settings), host=settings.host, port=settings.port, log_level=settings.log_level
-    )
+        create_app(settings), host=settings.host, port=settings.port,
+        log_level=settings.log_level, log_config=None,  # our JSON lines, not uvicorn's format
+    )  # fmt: skip
     return uvicorn.Server(config)
 
 

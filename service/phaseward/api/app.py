@@ -8,7 +8,7 @@ from contextlib import asynccontextmanager
 from fastapi import FastAPI
 
 from phaseward import __version__
-from phaseward.api import errors
+from phaseward.api import errors, observability
 from phaseward.api.auth import RateLimiter
 from phaseward.api.routes import (
     analyses,
@@ -51,7 +51,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.jobs = runner
     app.state.rate_limiter = RateLimiter(settings.rate_per_s, settings.rate_burst)
     runner.resume()  # jobs a stopped process left unfinished run again
+    app.state.metrics = observability.Metrics()
     errors.install(app)
+    observability.install(app)
+    app.include_router(observability.router)
     app.include_router(rails.router)
     app.include_router(samples.router)
     app.include_router(stream.router)
@@ -61,9 +64,5 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(traces.router)
     app.include_router(rehearsals.router)
     app.include_router(web.router)
-
-    @app.get("/healthz", tags=["meta"])
-    def healthz() -> dict[str, str]:
-        return {"status": "ok", "version": __version__}
 
     return app

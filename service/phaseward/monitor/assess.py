@@ -107,3 +107,16 @@ def assess(
         time_to_limit_s=ttl_value,
         limit_phase=crossing.phase if ttl_value is not None else None,
     )
+
+
+def hottest_margin(
+    model: RailModel, nodes_c: F64, active: npt.NDArray[np.bool_]
+) -> tuple[int | None, float | None]:
+    """The active phase whose estimated junction is closest to its limit, and that distance
+    in K (junction limit minus estimate); (None, None) with no active phase."""
+    junction = np.asarray(nodes_c)[model.network.junction_node]
+    margins = np.where(active, model.junction_limit_c - junction, np.nan)
+    if not np.isfinite(margins).any():
+        return None, None
+    phase = int(np.nanargmin(margins))
+    return phase, float(margins[phase])

@@ -20,7 +20,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.errors import Conflict, InvalidInput, NotFound, PhasewardError
 from phaseward.monitor import fault_class, rail_model
-from phaseward.monitor.assess import Assessment, assess
+from phaseward.monitor.assess import Assessment, assess, hottest_margin
 from phaseward.monitor.conditions import ACTIVE, PHASE_CONDITIONS, SUSPECT, Finding, Watch, judge
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, to_batch
@@ -180,9 +180,10 @@ def advance(
     assert verdict is not None  # points always holds the last sample
     findings.sort(key=lambda f: f.sample)
     last = batch.n - 1
+    active_now = judgement.codes[last] == ACTIVE
     new_state = {
         "watch": judgement.watch.__dict__,
-        "rail": verdict.as_dict(),
+        "rail": verdict.as_dict() | {"margin_k": hottest_margin(model, nodes[-1], active_now)[1]},
         "nodes_c": nodes[-1].tolist(),
         "junction_std_k": junction_std[-1].tolist(),
         "estimate": {"mean_c": estimate.mean_c.tolist(), "cov_k2": estimate.cov_k2.tolist()},

@@ -10,6 +10,7 @@ from sqlalchemy.orm import Session
 
 from phaseward.monitor import rail_model
 from phaseward.monitor import rails as rail_service
+from phaseward.monitor.assess import hottest_margin
 from phaseward.monitor.ripple_view import ripple_view
 from phaseward.monitor.telemetry import FLAG_NAMES
 from phaseward.store import state
@@ -40,10 +41,8 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
     shares = np.where(active, weights, 0.0)
     shares = shares / shares.sum() if shares.sum() > 0 else shares
     limit = model.temp_limit_c
-    junction = np.asarray(s["nodes_c"])[model.network.junction_node]
-    temps = np.where(active, junction, np.nan)  # the estimate, not the sensor beside the die
-    margins = np.where(active, model.junction_limit_c - temps, np.nan)
-    hottest = int(np.nanargmin(margins)) if np.isfinite(margins).any() else None
+    junction = np.asarray(s["nodes_c"])[model.network.junction_node]  # estimates, not sensors
+    hottest, margin = hottest_margin(model, np.asarray(s["nodes_c"]), active)
     out.update(
         condition=verdict["condition"],
         state_version=live.version,
@@ -65,11 +64,11 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
         },
         thermal={
             "hottest_phase": hottest,
-            "hottest_temp_c": None if hottest is None else float(temps[hottest]),
-            "margin_k": None if hottest is None else float(margins[hottest]),
+            "hottest_temp_c": None if hottest is None else float(junction[hottest]),
+            "margin_k": margin,
             "margin_to_warning_k": None
             if hottest is None
-            else float(limit[hottest] - temps[hottest]),
+            else float(limit[hottest] - junction[hottest]),
             "steady_junction_c": verdict["steady_junction_c"],
             "time_to_limit_s": verdict["time_to_limit_s"],
             "limit_phase": verdict["limit_phase"],

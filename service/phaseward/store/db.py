@@ -9,7 +9,7 @@ from typing import Any
 
 from alembic import command
 from alembic.config import Config
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Connection, Engine, create_engine, event
 from sqlalchemy.engine.url import make_url
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -71,3 +71,14 @@ def transaction(sessions: sessionmaker[Session]) -> Iterator[Session]:
     """One unit of work: commit on success, roll back on any error."""
     with sessions() as session, session.begin():
         yield session
+
+
+def is_migrated(conn: Connection) -> bool:
+    """Whether the database holds the newest migration."""
+    from alembic.runtime.migration import MigrationContext
+    from alembic.script import ScriptDirectory
+
+    cfg = Config()
+    cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
+    heads = set(ScriptDirectory.from_config(cfg).get_heads())
+    return set(MigrationContext.configure(conn).get_current_heads()) == heads

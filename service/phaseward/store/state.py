@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 from sqlalchemy import select
@@ -38,3 +39,7 @@ def put(
     row.last_t_s = last_t_s
     row.state = state
     row.updated_s = now_s
+
+
+def all_states(session: Session) -> Sequence[RailState]:
+    return session.scalars(select(RailState).order_by(RailState.rail_id)).all()

@@ -14,9 +14,16 @@ from pydantic import ValidationError
 from phaseward.api.auth import RailIngester, RailReader
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES, field_path
+from phaseward.api.observability import Metrics
 from phaseward.api.routes.rails import RailId
 from phaseward.api.schemas.samples import BODY_SCHEMA, SAMPLES, IngestOut, SampleWindow, to_incoming
-from phaseward.errors import BadRequest, InvalidInput, PayloadTooLarge, UnsupportedMediaType
+from phaseward.errors import (
+    BadRequest,
+    InvalidInput,
+    PayloadTooLarge,
+    PhasewardError,
+    UnsupportedMediaType,
+)
 from phaseward.monitor import rails as rail_service
 from phaseward.monitor.ingest import ingest, record_rejection
 from phaseward.store import samples as sample_store
@@ -89,6 +96,7 @@ async def post_samples(
     raw = parse_items(
         body, request.headers.get("content-type", ""), max_items=settings.max_batch_samples
     )
+    metrics: Metrics = request.app.state.metrics
     try:
         items = SAMPLES.validate_python(raw)
     except ValidationError as err:
@@ -97,9 +105,15 @@ async def post_samples(
         await run_in_threadpool(
             record_rejection, sessions, rail_id, samples=len(raw), error=refusal
         )
+        metrics.count_samples(rejected=len(raw))
         raise
     # Database work runs off the event loop: the driver blocks.
-    result = await run_in_threadpool(ingest, sessions, rail_id, to_incoming(items))
+    try:
+        result = await run_in_threadpool(ingest, sessions, rail_id, to_incoming(items))
+    except PhasewardError:
+        metrics.count_samples(rejected=len(raw))
+        raise
+    metrics.count_samples(accepted=result.stored)
     return IngestOut(
         stored=result.stored, duplicates=result.duplicates, late=result.late,
         condition=result.condition, version=result.version,

@@ -95,6 +95,24 @@ def keys(args: argparse.Namespace) -> int:
     return 0
 
 
+def retain(args: argparse.Namespace) -> int:
+    """Reduce samples older than the given age to per-interval summaries, now."""
+    from phaseward.monitor import retention
+    from phaseward.store.db import build_engine, build_sessionmaker, migrate
+
+    settings = Settings()
+    engine = build_engine(settings)
+    migrate(engine)
+    counts = retention.run(
+        build_sessionmaker(engine), older_than_s=args.older_than_days * 86400.0,
+        interval_s=settings.summary_interval_s,
+    )  # fmt: skip
+    print(f"{counts['intervals']} intervals kept as summaries, "
+          f"{counts['samples_deleted']} samples deleted")  # fmt: skip
+    engine.dispose()
+    return 0
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="phaseward", description=__doc__)
     sub = parser.add_subparsers(dest="command", required=True)
@@ -119,6 +137,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     gone = actions.add_parser("revoke", help="a key stops working at once")
     gone.add_argument("id", type=int)
     p.set_defaults(func=keys)
+    p = sub.add_parser("retain", help="reduce old samples to per-interval summaries now")
+    p.add_argument("--older-than-days", type=float, required=True)
+    p.set_defaults(func=retain)
     add_commands(sub)
     args = parser.parse_args(argv)
     code: int = args.func(args)

@@ -34,6 +34,10 @@ class Settings(BaseSettings):
     max_body_bytes: int = Field(default=4 * 1024 * 1024, ge=1024)
     max_batch_samples: int = Field(default=2000, ge=1)
     max_page_size: int = Field(default=1000, ge=1)
+    # Retention: raw samples older than this are reduced to per-interval min/max/mean.
+    retain_raw_s: float | None = Field(default=None, gt=0, description="None: keep all")
+    summary_interval_s: float = Field(default=60.0, gt=0)
+    retention_every_s: float = Field(default=3600.0, gt=0)
     max_trace_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
     max_trace_samples: int = Field(default=500_000, ge=2)
 

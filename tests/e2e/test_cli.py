@@ -88,3 +88,25 @@ def test_rehearse_and_calibrate_on_an_embedded_service(tmp_path: Path) -> None:
     assert [r["trips"] for r in result["rows"]] == [1, 1, 0, 0]
     assert table.read_text().startswith("index,oc_level_a,oc_debounce_s")
     assert plot.read_text().startswith("<svg")
+
+
+def test_retain_and_keys_commands(tmp_path: Path) -> None:
+    env = os.environ | {"PHASEWARD_DATA_DIR": str(tmp_path)}
+    env.pop("PHASEWARD_DATABASE_URL", None)
+
+    def cli(*args: str) -> str:
+        done = subprocess.run([sys.executable, "-m", "phaseward.cli", *args], env=env,
+                              capture_output=True, text=True, timeout=120)  # fmt: skip
+        assert done.returncode == 0, done.stderr
+        return done.stdout
+
+    assert "0 intervals kept as summaries, 0 samples deleted" in cli(
+        "retain", "--older-than-days", "7"
+    )
+    made = cli("keys", "create", "--role", "read", "--name", "wall display")
+    plain = made.splitlines()[1]
+    assert plain.startswith("pwk_")
+    listed = cli("keys", "list")
+    assert "wall display" in listed
+    assert plain not in listed
+    assert "revoked" in cli("keys", "revoke", "1")

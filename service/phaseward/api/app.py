@@ -2,10 +2,14 @@
 
 from __future__ import annotations
 
+import asyncio
+import logging
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
+from fastapi.concurrency import run_in_threadpool
+from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward import __version__
 from phaseward.api import errors, observability
@@ -21,9 +25,25 @@ from phaseward.api.routes import (
     web,
 )
 from phaseward.monitor import rehearsals as rehearsal_jobs
+from phaseward.monitor import retention
 from phaseward.monitor.jobs import JobRunner
 from phaseward.settings import Settings
 from phaseward.store.db import build_engine, build_sessionmaker, migrate
+
+
+async def _retention_loop(settings: Settings, sessions: sessionmaker[Session]) -> None:
+    """Reduce old samples on a schedule while the server runs (when retention is configured)."""
+    if settings.retain_raw_s is None:
+        return
+    while True:
+        try:
+            await run_in_threadpool(
+                retention.run, sessions, older_than_s=settings.retain_raw_s,
+                interval_s=settings.summary_interval_s,
+            )  # fmt: skip
+        except Exception:  # a failed pass is logged and tried again next time
+            logging.getLogger(__name__).exception("retention pass failed")
+        await asyncio.sleep(settings.retention_every_s)
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:
@@ -35,7 +55,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(_: FastAPI) -> AsyncIterator[None]:
+        keeper = asyncio.create_task(_retention_loop(settings, sessions))
         yield
+        keeper.cancel()
         runner.shutdown()
         engine.dispose()
 

@@ -10,6 +10,7 @@ import numpy.typing as npt
 
 from phaseward.errors import InvalidInput
 from phaseward.monitor.rail_model import RailModel
+from phaseward.physics.constants import ALPHA_CU_20, T_REF_CU_C
 from phaseward.physics.pmbus import linear11_decode
 from phaseward.physics.sensing import dcr_sense_to_current_a
 
@@ -115,10 +116,11 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
 
     ambient = np.where(np.isfinite(incoming.ambient_c), incoming.ambient_c, model.ambient_c)
     temp_for_dcr = np.where(np.isfinite(incoming.temp_c), incoming.temp_c, ambient[incoming.item])
+    _check_dcr_temperature(incoming, temp_for_dcr)
     from_sense = dcr_sense_to_current_a(
         incoming.sense_v,
         model.dcr_ohm[incoming.phase],
-        temp_for_dcr,
+        np.where(np.isfinite(incoming.sense_v), temp_for_dcr, T_REF_CU_C),  # only these convert
         ref_temp_c=model.dcr_ref_c[incoming.phase],
     )
     has_word = incoming.iout_word != NO_WORD
@@ -149,4 +151,25 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
         current_a=current,
         temp_c=temp,
         flags=flags,
+    )
+
+
+def _check_dcr_temperature(incoming: IncomingSamples, temp_c: F64) -> None:
+    """A sense voltage converts only at a winding temperature where copper still has a
+    resistance (above about -234 degC); a colder reading is a sensor fault, named here."""
+    cold = np.isfinite(incoming.sense_v) & ~(1.0 + ALPHA_CU_20 * (temp_c - T_REF_CU_C) > 0.0)
+    if not cold.any():
+        return
+    k = int(np.nonzero(cold)[0][0])
+    item, slot = int(incoming.item[k]), int(incoming.slot[k])
+    if np.isfinite(incoming.temp_c[k]):
+        field = f"[{item}].phases[{slot}].temp_c"
+    elif np.isfinite(incoming.ambient_c[item]):
+        field = f"[{item}].ambient_c"
+    else:
+        field = f"[{item}].phases[{slot}].sense_v"
+    raise InvalidInput(
+        f"a sense voltage cannot be converted at {float(temp_c[k]):g} degC: copper has no "
+        f"resistance left at or below {T_REF_CU_C - 1.0 / ALPHA_CU_20:.1f} degC",
+        field=field,
     )

@@ -189,3 +189,22 @@ class ApiKey(Base):
     rails: Mapped[list[str] | None] = mapped_column(JSON)  # None: every rail
     created_s: Mapped[float] = mapped_column(Float)
     revoked_s: Mapped[float | None] = mapped_column(Float)
+
+
+class SampleSummary(Base):
+    """Samples older than the retention age, reduced to one row per rail and interval:
+    minimum, maximum and mean of each quantity (per-phase ones packed like samples)."""
+
+    __tablename__ = "sample_summaries"
+
+    rail_id: Mapped[str] = mapped_column(
+        ForeignKey("rails.id", ondelete="CASCADE"), primary_key=True
+    )
+    t_start_s: Mapped[float] = mapped_column(Float, primary_key=True)
+    t_end_s: Mapped[float] = mapped_column(Float)
+    count: Mapped[int] = mapped_column(Integer)
+    # float64 LE arrays: (3,) for vin/vout as min, max, mean; (3, n_phases) for per-phase ones.
+    vin_v: Mapped[bytes] = mapped_column(LargeBinary)
+    vout_v: Mapped[bytes] = mapped_column(LargeBinary)
+    current_a: Mapped[bytes] = mapped_column(LargeBinary)
+    temp_c: Mapped[bytes] = mapped_column(LargeBinary)

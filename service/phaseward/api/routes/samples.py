@@ -16,7 +16,14 @@ from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES, field_path
 from phaseward.api.observability import Metrics
 from phaseward.api.routes.rails import RailId
-from phaseward.api.schemas.samples import BODY_SCHEMA, SAMPLES, IngestOut, SampleWindow, to_incoming
+from phaseward.api.schemas.samples import (
+    BODY_SCHEMA,
+    SAMPLES,
+    HistoryOut,
+    IngestOut,
+    SampleWindow,
+    to_incoming,
+)
 from phaseward.errors import (
     BadRequest,
     InvalidInput,
@@ -25,6 +32,7 @@ from phaseward.errors import (
     UnsupportedMediaType,
 )
 from phaseward.monitor import rails as rail_service
+from phaseward.monitor import retention
 from phaseward.monitor.ingest import ingest, record_rejection
 from phaseward.store import samples as sample_store
 
@@ -148,3 +156,21 @@ def get_samples(
         temp_c=[_nullable(r) for r in rows.temp_c[:n]],
         flags=rows.flags[:n].astype(int).tolist(),
     )  # fmt: skip
+
+
+@router.get("/{rail_id}/history")
+def get_history(
+    rail_id: RailId,
+    session: ReadSessionDep,
+    settings: SettingsDep,
+    _: RailReader,
+    since: Annotated[float, Query(ge=0, description="epoch seconds, inclusive")],
+    until: Annotated[float, Query(gt=0, description="epoch seconds, exclusive")],
+) -> HistoryOut:
+    """Minimum, maximum and mean per interval: from samples, or from what retention kept of
+    them once they were reduced (``reduced``)."""
+    return HistoryOut.model_validate(
+        retention.history(
+            session, rail_id, start_s=since, end_s=until, interval_s=settings.summary_interval_s
+        )
+    )

@@ -165,3 +165,33 @@ class SampleWindow(Contract):
     current_a: list[list[float | None]]
     temp_c: list[list[float | None]]
     flags: list[list[int]]
+
+
+class Spread(Contract):
+    min: float | None
+    max: float | None
+    mean: float | None
+
+
+class PhaseSpread(Contract):
+    min: list[float | None]
+    max: list[float | None]
+    mean: list[float | None]
+
+
+class HistoryRow(Contract):
+    t_start_s: float
+    t_end_s: float
+    count: int
+    reduced: bool = Field(description="true: from the summary kept after retention")
+    vin_v: Spread
+    vout_v: Spread
+    current_a: PhaseSpread
+    temp_c: PhaseSpread
+
+
+class HistoryOut(Contract):
+    rail_id: str
+    interval_s: float
+    truncated: bool
+    rows: list[HistoryRow]

@@ -1,23 +1,23 @@
 """Benchmark: screening (all singles and pairs) and a 24 h forecast of a 12-phase rail against
 an empty endpoint, all over HTTP to a real server on loopback in the same run.
 
-Run: ``python bench/analyses_latency.py``. Prints medians, the baseline, the ratio and the
+Run: ``python -m bench.analyses_latency`` (``python -m bench`` runs every benchmark).
+Prints medians, the baseline, the ratio and the
 target; asserts nothing about speed.
 """
 
 from __future__ import annotations
 
-import statistics
 import tempfile
 import threading
 import time
-from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
 import httpx
 import uvicorn
 
+from bench.common import Row, median_time, print_rows
 from phaseward.api.app import create_app
 from phaseward.demo import DEMO_RAIL, scenario_samples
 from phaseward.settings import Settings
@@ -44,16 +44,7 @@ def samples_for_twelve(n: int) -> list[dict[str, Any]]:
     return out
 
 
-def median_s(call: Callable[[], httpx.Response]) -> float:
-    times = []
-    for _ in range(REPEATS):
-        start = time.perf_counter()
-        call().raise_for_status()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
-
-
-def main() -> None:
+def rows() -> list[Row]:
     with tempfile.TemporaryDirectory() as tmp:
         settings = Settings(data_dir=Path(tmp), port=8490, log_level="warning", auth_mode="open")
         config = uvicorn.Config(
@@ -67,21 +58,31 @@ def main() -> None:
         with httpx.Client(base_url=f"http://127.0.0.1:{settings.port}", timeout=120) as c:
             c.post("/v1/rails", json=twelve_phase_rail()).raise_for_status()
             c.post("/v1/rails/bench-12/samples", json=samples_for_twelve(50)).raise_for_status()
-            empty = median_s(lambda: c.get("/healthz"))
-            rows = [
-                ("screening, 12 singles + 66 pairs",
-                 median_s(lambda: c.get("/v1/rails/bench-12/screening", params={"depth": 2}))),
-                ("forecast, 24 h, 500 points",
-                 median_s(lambda: c.post("/v1/rails/bench-12/forecast",
-                                         json={"horizon_s": 86400, "points": 500}))),
+            empty = median_time(lambda: c.get("/healthz").raise_for_status(), REPEATS)
+            timed = [
+                ("screening of a 12-phase rail, singles and pairs, vs an empty endpoint",
+                 median_time(lambda: c.get("/v1/rails/bench-12/screening",
+                                           params={"depth": 2}).raise_for_status(), REPEATS)),
+                ("forecast, 24 h, 500 points, vs an empty endpoint",
+                 median_time(lambda: c.post("/v1/rails/bench-12/forecast",
+                                            json={"horizon_s": 86400, "points": 500}
+                                            ).raise_for_status(), REPEATS)),
             ]  # fmt: skip
         server.should_exit = True
         thread.join(timeout=10)
-    print(f"{'benchmark':<36} {'median ms':>10} {'empty ms':>9} {'ratio':>7} {'target':>8}")
-    for name, seconds in rows:
-        print(f"{name:<36} {seconds * 1e3:>10.2f} {empty * 1e3:>9.2f} "
-              f"{seconds / empty:>7.1f} {'<= ' + str(TARGET):>8}")  # fmt: skip
+    return [
+        Row(
+            name,
+            f"{seconds * 1e3:.1f} ms",
+            f"{empty * 1e3:.2f} ms",
+            seconds / empty,
+            TARGET,
+            at_least=False,
+            note="over HTTP on loopback to a real server",
+        )
+        for name, seconds in timed
+    ]
 
 
 if __name__ == "__main__":
-    main()
+    print_rows(rows())

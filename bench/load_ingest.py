@@ -1,8 +1,9 @@
 """Bounded load test on loopback: writers post samples (one per request) to a real server while
 readers ask for status and events. Prints throughput, p50/p99 latencies and the error count.
 
-Run: ``python bench/load_ingest.py [seconds]``. Traffic goes to 127.0.0.1 only; every loop is
-bounded by the duration; nothing is asserted about speed.
+Run: ``python -m bench.load_ingest [seconds]`` (``python -m bench`` runs every benchmark).
+Traffic goes to 127.0.0.1 only; every loop is bounded by the duration; nothing is asserted
+about speed.
 """
 
 from __future__ import annotations
@@ -16,11 +17,10 @@ from pathlib import Path
 from typing import Any
 
 import httpx
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-
 from tests.factories import rail_spec
 from tests.servers import free_port, start_server
+
+from bench.common import Row, print_rows
 
 WRITERS, READERS, PHASES = 4, 2, 12
 
@@ -37,7 +37,7 @@ def percentile(values: list[float], q: float) -> float:
     return ordered[min(len(ordered) - 1, int(q * len(ordered)))] if ordered else float("nan")
 
 
-def main(duration_s: float = 10.0) -> None:
+def rows(duration_s: float = 10.0) -> list[Row]:
     with tempfile.TemporaryDirectory() as tmp:
         port = free_port()
         proc = start_server(Path(tmp), port)
@@ -91,15 +91,22 @@ def main(duration_s: float = 10.0) -> None:
         finally:
             proc.terminate()
             proc.wait(timeout=20)
-    print(f"load on loopback for {duration_s:.0f} s: {WRITERS} writers (one {PHASES}-phase sample "
-          f"per request, committed), {READERS} readers (status, events)")  # fmt: skip
-    print(f"{'':<10} {'requests':>9} {'per s':>8} {'p50 ms':>8} {'p99 ms':>8}")
-    for name, xs in (("ingest", write_ms), ("reads", read_ms)):
+
+    def summary(xs: list[float]) -> str:
         p50 = statistics.median(xs) if xs else float("nan")
-        rate = len(xs) / duration_s
-        print(f"{name:<10} {len(xs):>9} {rate:>8.1f} {p50:>8.2f} {percentile(xs, 0.99):>8.2f}")
-    print(f"errors: {len(errors)}" + (f" ({sorted(set(errors))})" if errors else ""))
+        return (f"{len(xs) / duration_s:.1f}/s, p50 {p50:.1f} ms, "
+                f"p99 {percentile(xs, 0.99):.1f} ms")  # fmt: skip
+
+    return [
+        Row(
+            f"bounded load, {duration_s:.0f} s: {WRITERS} writers of single {PHASES}-phase "
+            f"samples, {READERS} readers of status and events: errors",
+            f"{len(errors)} errors", "-", float(len(errors)), 0.0, at_least=False,
+            note=f"ingest {summary(write_ms)}; reads {summary(read_ms)}"
+            + (f"; errors {sorted(set(errors))}" if errors else ""),
+        )
+    ]  # fmt: skip
 
 
 if __name__ == "__main__":
-    main(float(sys.argv[1]) if len(sys.argv) > 1 else 10.0)
+    print_rows(rows(float(sys.argv[1]) if len(sys.argv) > 1 else 10.0))

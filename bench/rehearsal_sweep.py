@@ -1,6 +1,7 @@
 """Benchmark: scoring 1000 protection-setting combinations on a 20,000-sample, 12-phase trace.
 
-Run: ``python bench/rehearsal_sweep.py``. Prints measured times, the baseline, the ratio and
+Run: ``python -m bench.rehearsal_sweep`` (``python -m bench`` runs every benchmark).
+Prints measured times, the baseline, the ratio and
 the target; asserts nothing about speed.
 
 ``sweep`` (one vectorised pass) against the per-sample Python loop of
@@ -11,14 +12,13 @@ combinations, so it is timed on a few of them (spread over the grid) and scaled 
 """
 
 import importlib.util
-import statistics
 import time
-from collections.abc import Callable
 from pathlib import Path
 from types import ModuleType
 
 import numpy as np
 
+from bench.common import Row, median_time, print_rows
 from phaseward.physics.rehearsal import (
     FaultLabels,
     ProtectionGrid,
@@ -90,21 +90,12 @@ def candidate_grid() -> ProtectionGrid:
     )
 
 
-def median_time(func: Callable[[], object], repeats: int = 3) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
-
-
-def main() -> None:
+def rows() -> list[Row]:
     ref = reference_loop()
     trace, labels = recorded_trace()
     grid = candidate_grid()
     result: SweepResult = sweep(trace, grid, labels)
-    t_sweep = median_time(lambda: sweep(trace, grid, labels))
+    t_sweep = median_time(lambda: sweep(trace, grid, labels), repeats=3)
 
     subset = np.linspace(0, grid.size - 1, LOOP_SUBSET).round().astype(int)
     sub_grid = ProtectionGrid({k: v[subset] for k, v in grid.columns.items()})
@@ -131,13 +122,15 @@ def main() -> None:
         f"{len(distinct)} distinct score pairs"
     )
     print(f"loop agrees with sweep on {LOOP_SUBSET} combinations: {'yes' if agree else 'NO'}")
-    print(f"{'benchmark':<44} {'seconds':>9} {'baseline s':>11} {'ratio':>7} {'target':>7}")
-    print(
-        f"{'sweep, 1000 combinations (median of 3)':<44} {t_sweep:9.3f} {t_loop:11.1f} "
-        f"{t_loop / t_sweep:6.0f}x {TARGET:6.0f}x"
-    )
-    print(f"baseline: per-sample loop timed on {LOOP_SUBSET} combinations, scaled to {grid.size}")
+    return [
+        Row(
+            f"rehearsal sweep, {grid.size} combinations, vs a per-sample loop",
+            f"{t_sweep:.3f} s", f"{t_loop:.1f} s", t_loop / t_sweep, TARGET,
+            note=f"loop timed on {LOOP_SUBSET} combinations and scaled; agrees with the sweep: "
+            f"{'yes' if agree else 'NO'}",
+        )
+    ]  # fmt: skip
 
 
 if __name__ == "__main__":
-    main()
+    print_rows(rows())

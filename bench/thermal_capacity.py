@@ -1,6 +1,7 @@
 """Benchmark: exact modal transient and batched capacity against their obvious baselines.
 
-Run: ``python bench/thermal_capacity.py``. Prints measured times, the baseline, the ratio and
+Run: ``python -m bench.thermal_capacity`` (``python -m bench`` runs every benchmark).
+Prints measured times, the baseline, the ratio and
 the target; asserts nothing about speed.
 
 1. Transient: 12 phases (2 or 3 Cauer stages each) on a shared board, one hour at 10 ms
@@ -15,13 +16,12 @@ the target; asserts nothing about speed.
 """
 
 import os
-import statistics
 import time
-from collections.abc import Callable
 
 import numpy as np
 from scipy.integrate import solve_ivp
 
+from bench.common import Row, median_time, print_rows
 from phaseward.physics.capacity import CapacityResult, loss_cases, remaining_capacity
 from phaseward.physics.losses import PhaseLossParams, loss_coefficients
 from phaseward.physics.thermal import (
@@ -48,15 +48,6 @@ CANDIDATES = [  # solve_ivp settings tried as the baseline; the fastest within 1
     ("Radau", 1e-6),
     ("Radau", 1e-7),
 ]
-
-
-def median_time(func: Callable[[], object], repeats: int = 5) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
 
 
 def rail() -> tuple[ThermalNetwork, PhaseLossParams, np.ndarray]:
@@ -130,7 +121,7 @@ def ivp_zoh(
     return np.array(out)
 
 
-def transient() -> None:
+def transient() -> Row:
     net, params, weights = rail()
     p0, slope = loss_coefficients(params, load_profile_a()[:, None] * weights)
     start = np.full(net.n_nodes, AMBIENT_C)
@@ -166,16 +157,20 @@ def transient() -> None:
         if ok and (best is None or per_hour < best[0]):
             best = (per_hour, method, tol, err)
     if best is None:
-        print("no solve_ivp setting reached 1 mK; no ratio")
-        return
+        return Row("thermal transient, 1 h at 10 ms, 12 phases", f"{t_modal:.3f} s", "none",
+                   0.0, 50.0, note="no solve_ivp setting reached 1 mK")  # fmt: skip
     per_hour, method, tol, _ = best
-    print(
-        f"transient: baseline solve_ivp {method} tol {tol:.0e} {per_hour:.1f} s (scaled), "
-        f"simulate_c {t_modal:.3f} s, ratio {per_hour / t_modal:.0f}x, target >= 50x"
+    return Row(
+        "thermal transient, 1 h at 10 ms, 12 phases, vs solve_ivp at 1 mK",
+        f"{t_modal:.3f} s",
+        f"{per_hour:.1f} s ({method} tol {tol:.0e})",
+        per_hour / t_modal,
+        50.0,
+        note=f"solve_ivp timed on {len(windows) * WINDOW_STEPS} steps and scaled to the hour",
     )
 
 
-def capacity() -> None:
+def capacity() -> Row:
     net, params, weights = rail()
     singles, _ = loss_cases(N_PHASES, 1)
     pairs, _ = loss_cases(N_PHASES, 2)
@@ -202,15 +197,18 @@ def capacity() -> None:
     kinds = {k: int(np.sum(batch.binding_kind == k)) for k in ("current", "thermal", "none")}
     print(f"capacity: {active.shape[0]} loss cases (12 single, 66 double), binding {kinds}")
     print(f"capacity: largest difference batch vs loop {spread:.2e} A")
-    print(
-        f"capacity: baseline loop of one-case calls {t_loop * 1e3:.1f} ms, one batched call "
-        f"{t_batch * 1e3:.1f} ms, ratio {t_loop / t_batch:.1f}x, target >= 10x"
-    )
+    return Row(
+        "capacity, 12 single + 66 pair losses, one call vs a loop",
+        f"{t_batch * 1e3:.1f} ms", f"{t_loop * 1e3:.1f} ms", t_loop / t_batch, 10.0,
+    )  # fmt: skip
+
+
+def rows() -> list[Row]:
+    return [transient(), capacity()]
 
 
 if __name__ == "__main__":
     print(
         f"load average before the run: {os.getloadavg()[0]:.2f} (2 cores; other work skews times)"
     )
-    transient()
-    capacity()
+    print_rows(rows())

@@ -1,0 +1,84 @@
+"""The one shape every benchmark reports in: a measured figure, the baseline measured in the
+same run, their ratio, and the target the ratio is held to."""
+
+from __future__ import annotations
+
+import os
+import platform
+import statistics
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from importlib.metadata import version
+from pathlib import Path
+
+
+@dataclass(frozen=True)
+class Row:
+    """``ratio`` compares measured against baseline so that higher is better when
+    ``at_least`` (e.g. speed-up, throughput share) and lower is better otherwise."""
+
+    name: str
+    measured: str
+    baseline: str
+    ratio: float
+    target: float
+    at_least: bool = True
+    note: str = ""
+
+    @property
+    def met(self) -> bool:
+        return self.ratio >= self.target if self.at_least else self.ratio <= self.target
+
+    @property
+    def target_text(self) -> str:
+        return f"{'>=' if self.at_least else '<='} {self.target:g}"
+
+
+def median_time(func: Callable[[], object], repeats: int = 5) -> float:
+    """Median wall time of ``repeats`` calls, s (after one untimed warm-up call)."""
+    func()
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        func()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def table(rows: Sequence[Row]) -> str:
+    head = "| benchmark | measured | baseline | ratio | target | met |\n|---|---|---|---|---|---|"
+    lines = [
+        f"| {r.name} | {r.measured} | {r.baseline} | {r.ratio:.3g} | {r.target_text} | "
+        f"{'yes' if r.met else 'NO'} |"
+        for r in rows
+    ]
+    notes = [f"* {r.name}: {r.note}" for r in rows if r.note]
+    return "\n".join([head, *lines, "", *notes])
+
+
+def print_rows(rows: Sequence[Row]) -> None:
+    print(table(rows))
+
+
+def machine() -> str:
+    libs = ", ".join(f"{m} {version(m)}" for m in ("numpy", "scipy", "fastapi", "sqlalchemy"))
+    return (
+        f"{platform.node()} ({platform.machine()}, {os.cpu_count()} cores, "
+        f"load {os.getloadavg()[0]:.2f} at the start), Python {platform.python_version()}, {libs}"
+    )
+
+
+def write_results(rows: Sequence[Row], path: Path, *, started: str, host: str) -> None:
+    path.write_text(
+        "# Benchmark results\n\n"
+        f"Run `python bench/run.py` to measure again. This run: {started} on {host}.\n"
+        "Every ratio compares figures measured side by side in the same run.\n\n"
+        + table(rows)
+        + "\n"
+    )
+
+
+def now_text() -> str:
+    return datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")

@@ -34,6 +34,9 @@ class Settings(BaseSettings):
     max_body_bytes: int = Field(default=4 * 1024 * 1024, ge=1024)
     max_batch_samples: int = Field(default=2000, ge=1)
     max_page_size: int = Field(default=1000, ge=1)
+    # Threads of the BLAS library numpy uses. The service's matrices are small and requests
+    # run side by side, so one thread each beats several threads spinning for a core.
+    blas_threads: int = Field(default=1, ge=1, le=64)
     # Retention: raw samples older than this are reduced to per-interval min/max/mean.
     retain_raw_s: float | None = Field(default=None, gt=0, description="None: keep all")
     summary_interval_s: float = Field(default=60.0, gt=0)

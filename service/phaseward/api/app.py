@@ -8,6 +8,7 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
+from threadpoolctl import threadpool_limits
 from fastapi.concurrency import run_in_threadpool
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -48,6 +49,7 @@ async def _retention_loop(settings: Settings, sessions: sessionmaker[Session]) -
 
 def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings or Settings()
+    threadpool_limits(limits=settings.blas_threads, user_api="blas")  # for the whole process
     engine = build_engine(settings)
     migrate(engine)
     sessions = build_sessionmaker(engine)

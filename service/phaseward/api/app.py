@@ -8,9 +8,9 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
-from threadpoolctl import threadpool_limits
 from fastapi.concurrency import run_in_threadpool
 from sqlalchemy.orm import Session, sessionmaker
+from threadpoolctl import threadpool_limits
 
 from phaseward import __version__
 from phaseward.api import errors, observability

@@ -10,6 +10,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from pydantic import ValidationError
 from sqlalchemy.exc import DBAPIError, InternalError, OperationalError
+from starlette.exceptions import HTTPException
 
 from phaseward.api.schemas.common import ErrorBody
 from phaseward.errors import PhasewardError, TooManyRequests, Unauthorized
@@ -55,6 +56,16 @@ def install(app: FastAPI) -> None:
             response.headers["Retry-After"] = str(max(1, math.ceil(err.retry_after_s)))
         return response
 
+    @app.exception_handler(HTTPException)
+    async def _http(_: Request, err: HTTPException) -> JSONResponse:
+        # The framework's own refusals (a body it cannot parse, an unknown path, a method the
+        # path lacks) in the same shape as ours, not as a bare {"detail"}.
+        error = _HTTP_ERRORS.get(err.status_code, "http_error")
+        field = "body" if err.status_code == 400 else None
+        response = _render(err.status_code, error, str(err.detail), field)
+        response.headers.update(err.headers or {})
+        return response
+
     @app.exception_handler(RequestValidationError)
     async def _request(_: Request, err: RequestValidationError) -> JSONResponse:
         return validation_response(list(err.errors()))
@@ -77,6 +88,7 @@ def install(app: FastAPI) -> None:
         return _unavailable(err)
 
 
+_HTTP_ERRORS = {400: "bad_request", 404: "not_found", 405: "method_not_allowed"}
 READ_ONLY_SQLSTATE = "25006"  # read_only_sql_transaction
 
 

@@ -232,7 +232,10 @@ def _sharing(
     teach = active & informative[:, None]
     later = teach[::-1].cumsum(axis=0)[::-1] - teach
     keep = 1.0 - SHARE_SMOOTHING
-    contribution = np.where(teach, SHARE_SMOOTHING * keep**later * relative, 0.0).sum(axis=0)
+    # A phase driving current backwards (a sinking fault, read before it is isolated) carries
+    # no share of the load: it teaches a weight of 0, never a negative one.
+    taught = np.maximum(relative, 0.0)
+    contribution = np.where(teach, SHARE_SMOOTHING * keep**later * taught, 0.0).sum(axis=0)
     weights = keep ** teach.sum(axis=0) * prev_weights + contribution
     return weights, imbalance, worst
 

@@ -157,7 +157,7 @@ class _Breaker:
         soa_margin = allowed - self.current_limit_a
         thermal_fails = margin < 0.0
         soa_fails = ~within | (soa_margin < 0.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):  # inf: far over
             thermal_use = np.where(headroom > 0.0, rise / headroom, np.inf)
             soa_use = np.where(within, self.current_limit_a / allowed, -np.inf)
         thermal_binds = thermal_fails & (~soa_fails | (thermal_use >= soa_use))

@@ -444,4 +444,13 @@ def kalman_run(
         mean, cov = _update(model, mean, cov, reading[k])
         means[k + 1], variances[k + 1] = mean, np.diag(cov)
     junction_var = variances[:, model.junction_state]
-    return KalmanTrace(EstimatorState(mean, cov), means, np.sqrt(np.maximum(junction_var, 0.0)))
+    try:
+        final = EstimatorState(mean, cov)
+    except ValueError as err:
+        # Still in float64 range, but a mode growing by e^hundreds has left the covariance
+        # asymmetric or negative in rounding: the same runaway as leaving the range.
+        raise ThermalRunaway(
+            "the estimate lost its covariance: the loss feedback grows without bound",
+            np.array(True),
+        ) from err
+    return KalmanTrace(final, means, np.sqrt(np.maximum(junction_var, 0.0)))

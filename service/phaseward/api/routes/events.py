@@ -14,7 +14,8 @@ from pydantic import BaseModel, Field
 from phaseward.api.auth import Operator, RailReader, Reader
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
-from phaseward.api.routes.rails import RailId
+from phaseward.api.routes.rails import RailId, RowId
+from phaseward.api.schemas.common import is_row_id
 from phaseward.api.schemas.events import CSV_COLUMNS, SEVERITIES, AckIn, EventOut, EventPage
 from phaseward.errors import InvalidInput
 from phaseward.monitor import rails as rail_service
@@ -70,7 +71,7 @@ def _page(
         if level not in SEVERITIES:
             raise InvalidInput(f"unknown severity '{level}'", field="severity")
     cursor = query.cursor
-    if cursor is not None and not cursor.isdigit():
+    if cursor is not None and not is_row_id(cursor):
         raise InvalidInput("cursor must be the next_cursor of a previous page", field="cursor")
     flt = event_store.EventFilter(
         allowed_rails=allowed, rail_id=rail_id, kinds=tuple(query.kind),
@@ -124,7 +125,7 @@ def list_rail_events(
 
 
 @router.post("/v1/events/{event_id}/ack")
-def ack_event(event_id: int, body: AckIn, sessions: SessionsDep, who: Operator) -> EventOut:
+def ack_event(event_id: RowId, body: AckIn, sessions: SessionsDep, who: Operator) -> EventOut:
     return EventOut.of(
         acknowledge(sessions, event_id, by=body.by, note=body.note, may_use=who.may_use)
     )

@@ -9,6 +9,7 @@ from fastapi import APIRouter, Path, Query, Response, status
 from phaseward.api.auth import Admin, RailAdmin, RailReader, Reader
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.schemas.common import MAX_ROW_ID
 from phaseward.api.schemas.events import iso
 from phaseward.api.schemas.rails import RailBody, RailCreate, RailOut
 from phaseward.api.schemas.status import RailStatus
@@ -20,6 +21,7 @@ from phaseward.store.models import Rail
 
 router = APIRouter(prefix="/v1/rails", tags=["rails"], responses=ERROR_RESPONSES)
 RailId = Annotated[str, Path(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)]
+RowId = Annotated[int, Path(ge=0, le=MAX_ROW_ID)]  # an event, trace or job id
 
 
 def _out(rail: Rail, spec: dict[str, object]) -> RailOut:

@@ -12,6 +12,7 @@ from phaseward.api.auth import Operator
 from phaseward.api.deps import ReadSessionDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.plots import pareto_svg
+from phaseward.api.routes.rails import RowId
 from phaseward.api.schemas.rehearsals import RailWindow, RehearsalIn, RehearsalOut
 from phaseward.errors import Conflict, Forbidden, InvalidInput, NotFound
 from phaseward.monitor import rehearsals
@@ -59,7 +60,7 @@ def start_rehearsal(body: RehearsalIn, request: Request, who: Operator) -> Rehea
 
 
 @router.get("/{rehearsal_id}")
-def get_rehearsal(rehearsal_id: int, session: ReadSessionDep, _: Operator) -> RehearsalOut:
+def get_rehearsal(rehearsal_id: RowId, session: ReadSessionDep, _: Operator) -> RehearsalOut:
     job = jobs.get(session, rehearsal_id)
     if job is None or job.kind != rehearsals.KIND:
         raise NotFound(f"no rehearsal {rehearsal_id}", field="rehearsal_id")
@@ -71,7 +72,7 @@ def get_rehearsal(rehearsal_id: int, session: ReadSessionDep, _: Operator) -> Re
     response_class=Response,
     responses={200: {"content": {"text/csv": {"schema": {"type": "string"}}}}},
 )
-def rehearsal_table(rehearsal_id: int, session: ReadSessionDep, _: Operator) -> Response:
+def rehearsal_table(rehearsal_id: RowId, session: ReadSessionDep, _: Operator) -> Response:
     """One row per combination: its settings, trips, false trips, misses and latencies."""
     result = _done(session, rehearsal_id).result or {}
     buf = io.StringIO()
@@ -97,7 +98,7 @@ def rehearsal_table(rehearsal_id: int, session: ReadSessionDep, _: Operator) -> 
     response_class=Response,
     responses={200: {"content": {"image/svg+xml": {"schema": {"type": "string"}}}}},
 )
-def rehearsal_pareto(rehearsal_id: int, session: ReadSessionDep, _: Operator) -> Response:
+def rehearsal_pareto(rehearsal_id: RowId, session: ReadSessionDep, _: Operator) -> Response:
     result = _done(session, rehearsal_id).result or {}
     points = [(float(r["false_trips"]), r["max_latency_s"]) for r in result["rows"]]
     svg = pareto_svg(

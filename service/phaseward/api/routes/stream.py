@@ -19,6 +19,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from phaseward.api.auth import Reader
 from phaseward.api.deps import SessionsDep
 from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.schemas.common import MAX_ROW_ID, is_row_id
 from phaseward.api.schemas.events import EventOut
 from phaseward.errors import InvalidInput
 from phaseward.store import events as event_store
@@ -40,10 +41,27 @@ def _latest(sessions: sessionmaker[Session]) -> int:
         return event_store.latest_id(session)
 
 
+# One frame of the stream (OpenAPI 3.1 has a stream's schema describe each event): the event
+# id, its kind, and the event as JSON, as GET /v1/events lists it; the first frame sets retry.
+_EVENT_FRAME = {
+    "type": "object",
+    "properties": {
+        "id": {"type": "string"},
+        "event": {"type": "string"},
+        "data": {
+            "type": "string",
+            "contentMediaType": "application/json",
+            "contentSchema": {"$ref": "#/components/schemas/EventOut"},
+        },
+        "retry": {"type": "integer"},
+    },
+}
+
+
 @router.get(
     "/v1/events/stream",
     response_class=StreamingResponse,
-    responses={200: {"content": {"text/event-stream": {"schema": {"type": "string"}}}}},
+    responses={200: {"content": {"text/event-stream": {"schema": _EVENT_FRAME}}}},
 )
 async def stream_events(
     request: Request,
@@ -51,13 +69,15 @@ async def stream_events(
     who: Reader,
     rail_id: Annotated[str | None, Query(max_length=64)] = None,
     kind: Annotated[list[str], Query(max_length=20)] = [],  # noqa: B006 - copied by FastAPI
-    after: Annotated[int | None, Query(ge=0, description="resume after this event id")] = None,
+    after: Annotated[
+        int | None, Query(ge=0, le=MAX_ROW_ID, description="resume after this event id")
+    ] = None,
     limit: Annotated[int | None, Query(ge=1, le=100_000, description="end after N events")] = None,
     last_event_id: Annotated[str | None, Header()] = None,
 ) -> StreamingResponse:
     """Events as they are derived, oldest first. Without ``after`` or ``Last-Event-ID`` the
     stream starts with the next new event."""
-    if last_event_id is not None and not last_event_id.isdigit():
+    if last_event_id is not None and not is_row_id(last_event_id):
         raise InvalidInput("Last-Event-ID must be an event id", field="last-event-id")
     start = int(last_event_id) if last_event_id is not None else after
     if start is None:

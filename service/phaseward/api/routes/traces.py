@@ -10,6 +10,7 @@ from fastapi.concurrency import run_in_threadpool
 from phaseward.api.auth import Operator
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.routes.rails import RowId
 from phaseward.api.routes.samples import NDJSON, parse_items, read_limited
 from phaseward.api.schemas.traces import TraceOut, parse_csv, parse_samples
 from phaseward.errors import UnsupportedMediaType
@@ -54,5 +55,5 @@ async def upload_trace(
 
 
 @router.get("/{trace_id}")
-def get_trace(trace_id: int, session: ReadSessionDep, _: Operator) -> TraceOut:
+def get_trace(trace_id: RowId, session: ReadSessionDep, _: Operator) -> TraceOut:
     return _out(trace_id, traces.load(session, trace_id))

@@ -7,7 +7,7 @@ from typing import Annotated, Literal, Self
 
 from pydantic import BaseModel, Field, model_validator
 
-from phaseward.api.schemas.common import CAUTION, Celsius, Contract, NonNegative
+from phaseward.api.schemas.common import CAUTION, Celsius, Contract, NonNegative, Seconds
 from phaseward.api.schemas.rails import FosterStage as FosterStageIn
 
 MAX_HORIZON_S = 24 * 3600.0
@@ -131,7 +131,7 @@ class ReliabilityOut(BaseModel):
 
 
 class SoaPoint(Contract):
-    time_s: Annotated[float, Field(gt=0)]
+    time_s: Seconds
     current_a: Annotated[float, Field(gt=0)]
 
 
@@ -140,7 +140,7 @@ class BreakerIn(Contract):
 
     vin_v: Annotated[float, Field(gt=0, le=1000)]
     current_limit_a: Annotated[float, Field(gt=0, le=10_000)]
-    delay_s: Annotated[float, Field(gt=0, le=100)]
+    delay_s: Annotated[float, Field(ge=1e-9, le=100)]
     foster: list[FosterStageIn] = Field(min_length=1, max_length=8)
     start_temp_c: Celsius = 25.0
     junction_limit_c: Celsius = 150.0

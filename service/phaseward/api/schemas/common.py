@@ -10,7 +10,7 @@ from pydantic import BaseModel, ConfigDict, Field
 class Contract(BaseModel):
     """Base of every request model: unknown fields and NaN/Infinity are rejected."""
 
-    model_config = ConfigDict(extra="forbid", allow_inf_nan=False, frozen=True)
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False, frozen=True, strict=True)
 
 
 class ErrorBody(BaseModel):
@@ -19,9 +19,20 @@ class ErrorBody(BaseModel):
     field: str | None = None
 
 
+MAX_ROW_ID = 2**63 - 1  # ids are signed 64-bit in both databases; larger ones cannot be bound
+
+
+def is_row_id(text: str) -> bool:
+    """ASCII digits of an id the database can hold (str.isdigit alone also takes "²")."""
+    return text.isascii() and text.isdigit() and int(text) <= MAX_ROW_ID
+
+
 Positive = Annotated[float, Field(gt=0)]
 NonNegative = Annotated[float, Field(ge=0)]
 Celsius = Annotated[float, Field(ge=-273.15, le=1000)]
+# Thermal time constants and pulse times: a nanosecond is far below any real one, and keeps
+# t / tau inside float64 (a subnormal tau overflowed it).
+Seconds = Annotated[float, Field(ge=1e-9)]
 
 CAUTION = (
     "phaseward is a monitoring aid: hardware protection stays in hardware, and local codes "

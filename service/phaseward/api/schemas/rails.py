@@ -6,7 +6,7 @@ from typing import Annotated, Any, Self
 
 from pydantic import Field, ValidationInfo, field_validator, model_validator
 
-from phaseward.api.schemas.common import Celsius, Contract, NonNegative, Positive
+from phaseward.api.schemas.common import Celsius, Contract, NonNegative, Positive, Seconds
 
 Slug = Annotated[str, Field(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)]
 
@@ -51,7 +51,7 @@ class LossTableSpec(Contract):
 
 class FosterStage(Contract):
     r_k_per_w: Positive
-    tau_s: Positive
+    tau_s: Seconds
 
 
 class PhaseSpec(Contract):

@@ -6,13 +6,13 @@ from typing import Annotated, Any, Literal, Self
 
 from pydantic import BaseModel, Field, model_validator
 
-from phaseward.api.schemas.common import Contract
+from phaseward.api.schemas.common import MAX_ROW_ID, Contract
 
 Setting = float | Annotated[list[float], Field(min_length=1, max_length=10_000)] | None
 
 
 class StoredTrace(Contract):
-    trace_id: Annotated[int, Field(ge=1)]
+    trace_id: Annotated[int, Field(ge=1, le=MAX_ROW_ID)]
 
 
 class RailWindow(Contract):

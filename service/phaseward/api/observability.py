@@ -18,6 +18,7 @@ from sqlalchemy import text
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward import __version__
+from phaseward.api.auth import Reader
 from phaseward.errors import ServiceUnavailable
 from phaseward.store import state as state_store
 from phaseward.store.db import is_migrated
@@ -215,7 +216,12 @@ async def readyz(request: Request) -> dict[str, str]:
     response_class=Response,
     responses={200: {"content": {OPENMETRICS: {"schema": {"type": "string"}}}}},
 )
-async def metrics_text(request: Request) -> Response:
-    """Counters, latency histograms and per-rail gauges in the OpenMetrics text format."""
-    rails = await run_in_threadpool(_rails, request.app.state.sessions)
+async def metrics_text(request: Request, who: Reader) -> Response:
+    """Counters, latency histograms and per-rail gauges in the OpenMetrics text format (a
+    read key; a key limited to rails sees only those rails' gauges)."""
+    rails = [
+        r
+        for r in await run_in_threadpool(_rails, request.app.state.sessions)
+        if who.may_use(r["rail"])
+    ]
     return Response(request.app.state.metrics.render(rails), media_type=OPENMETRICS)

@@ -9,7 +9,7 @@ from typing import Any
 
 from alembic import command
 from alembic.config import Config
-from sqlalchemy import Connection, Engine, create_engine, event
+from sqlalchemy import Connection, Engine, create_engine, event, text
 from sqlalchemy.engine.url import make_url
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -61,9 +61,17 @@ def migrate(engine: Engine) -> None:
     """Bring the schema to the newest migration (idempotent; runs on every start)."""
     cfg = Config()
     cfg.set_main_option("script_location", str(MIGRATIONS_DIR))
-    with engine.connect() as conn:
+    with engine.connect() as conn, conn.begin():
+        if conn.dialect.name == "postgresql":
+            # Replicas starting together on a fresh database would each create the tables, and
+            # all but one fail on duplicate keys: the first to take this lock migrates, the
+            # others wait for its commit and then find the schema at head.
+            conn.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": MIGRATION_LOCK})
         cfg.attributes["connection"] = conn
         command.upgrade(cfg, "head")
+
+
+MIGRATION_LOCK = int.from_bytes(b"phasewar", "big")  # the advisory lock key, a bigint of ours
 
 
 @contextmanager

@@ -19,7 +19,7 @@ python3 -m pip install -q -e '.[test,postgres]' -e 'clients/python[test]'
 python3 -m pytest
 if pg_isready -h 127.0.0.1 -p 5432 -q 2>/dev/null; then
     PHASEWARD_TEST_DATABASE_URL="postgresql+psycopg://postgres@127.0.0.1:5432/test" \
-        python3 -m pytest tests/service -q -p no:cacheprovider
+        python3 -m pytest tests/service tests/fuzz -q -p no:cacheprovider
 fi
 (cd clients/python && python3 -m pytest -q -p no:cacheprovider)
 make -C clients/c test

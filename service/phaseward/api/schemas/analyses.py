@@ -132,7 +132,7 @@ class ReliabilityOut(BaseModel):
 
 class SoaPoint(Contract):
     time_s: Seconds
-    current_a: Annotated[float, Field(gt=0)]
+    current_a: Annotated[float, Field(gt=0, le=1e6)]
 
 
 class BreakerIn(Contract):

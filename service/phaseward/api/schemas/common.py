@@ -30,9 +30,11 @@ def is_row_id(text: str) -> bool:
 Positive = Annotated[float, Field(gt=0)]
 NonNegative = Annotated[float, Field(ge=0)]
 Celsius = Annotated[float, Field(ge=-273.15, le=1000)]
-# Thermal time constants and pulse times: a nanosecond is far below any real one, and keeps
-# t / tau inside float64 (a subnormal tau overflowed it).
-Seconds = Annotated[float, Field(ge=1e-9)]
+# Thermal time constants and pulse times: from a nanosecond (a subnormal tau overflowed t / tau)
+# to about eleven days; thermal resistances up to a million K/W. Far beyond real parts, and
+# inside what float64 sums and ratios of them can hold (1e308 K/W overflowed a Zth sum).
+Seconds = Annotated[float, Field(ge=1e-9, le=1e6)]
+KelvinPerWatt = Annotated[float, Field(gt=0, le=1e6)]
 
 CAUTION = (
     "phaseward is a monitoring aid: hardware protection stays in hardware, and local codes "

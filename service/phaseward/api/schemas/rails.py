@@ -6,7 +6,14 @@ from typing import Annotated, Any, Self
 
 from pydantic import Field, ValidationInfo, field_validator, model_validator
 
-from phaseward.api.schemas.common import Celsius, Contract, NonNegative, Positive, Seconds
+from phaseward.api.schemas.common import (
+    Celsius,
+    Contract,
+    KelvinPerWatt,
+    NonNegative,
+    Positive,
+    Seconds,
+)
 
 Slug = Annotated[str, Field(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)]
 
@@ -50,7 +57,7 @@ class LossTableSpec(Contract):
 
 
 class FosterStage(Contract):
-    r_k_per_w: Positive
+    r_k_per_w: KelvinPerWatt
     tau_s: Seconds
 
 

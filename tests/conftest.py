@@ -14,7 +14,7 @@ from hypothesis import settings as hypothesis_settings
 from sqlalchemy import create_engine, text
 from sqlalchemy.engine import make_url
 
-from phaseward.api.app import create_app
+from phaseward.api.app import close, create_app
 from phaseward.settings import Settings
 
 # Generated examples are the same on every run: a failure reproduces, and CI judges the tree,
@@ -65,5 +65,4 @@ async def client(app: FastAPI) -> AsyncIterator[httpx.AsyncClient]:
     transport = httpx.ASGITransport(app=app)
     async with httpx.AsyncClient(transport=transport, base_url="http://phaseward.test") as c:
         yield c
-    app.state.jobs.shutdown()
-    app.state.engine.dispose()
+    close(app)

@@ -34,7 +34,7 @@ from sqlalchemy.engine import make_url
 from tests.factories import SMALL_RAIL, sample
 from tests.servers import free_port
 
-from phaseward.api.app import create_app
+from phaseward.api.app import close, create_app
 from phaseward.settings import Settings
 
 pytestmark = pytest.mark.e2e
@@ -175,8 +175,7 @@ def reference(database_url: str, data_dir: Path) -> list[dict[str, Any]]:
     try:
         return anyio.run(feed)
     finally:
-        app.state.jobs.shutdown()
-        app.state.engine.dispose()
+        close(app)
 
 
 def test_two_replicas_store_every_sample_once_and_record_every_transition_once(

@@ -10,7 +10,7 @@ from pathlib import Path
 import httpx
 import pytest
 
-from phaseward.api.app import create_app
+from phaseward.api.app import close, create_app
 from phaseward.settings import Settings
 
 pytestmark = pytest.mark.anyio
@@ -33,6 +33,5 @@ async def test_every_operation_needs_a_key(tmp_path: Path, database_url: str) ->
                 checked += 1
         for path in OPEN_PATHS & {"/healthz", "/readyz"}:
             assert (await c.get(path)).status_code == 200
-    app.state.jobs.shutdown()
-    app.state.engine.dispose()
+    close(app)
     assert checked >= 25  # every data operation of the service was tried

@@ -21,7 +21,7 @@ from schemathesis.checks import negative_data_rejection
 from schemathesis.schemas import BaseSchema
 from tests.factories import rail_spec, sample
 
-from phaseward.api.app import create_app
+from phaseward.api.app import close, create_app
 from phaseward.api.schemas.events import EventOut
 from phaseward.settings import Settings
 
@@ -98,8 +98,7 @@ def api_schema(settings: Settings) -> Iterator[BaseSchema]:
     try:
         yield schemathesis.openapi.from_asgi("/openapi.json", app, config=CONFIG)
     finally:
-        app.state.jobs.shutdown()
-        app.state.engine.dispose()
+        close(app)
 
 
 schema = schemathesis.pytest.from_fixture("api_schema")
@@ -140,8 +139,7 @@ async def seeded_client(settings: Settings) -> AsyncIterator[httpx.AsyncClient]:
         async with httpx.AsyncClient(transport=transport, base_url="http://fuzz.test") as c:
             yield c
     finally:
-        app.state.jobs.shutdown()
-        app.state.engine.dispose()
+        close(app)
 
 
 def assert_error_body(answer: httpx.Response, status: int, field: str | None) -> None:

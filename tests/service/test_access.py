@@ -12,7 +12,7 @@ from fastapi import FastAPI
 from sqlalchemy import text
 from tests.factories import SMALL_RAIL, rail_spec, sample
 
-from phaseward.api.app import create_app
+from phaseward.api.app import close, create_app
 from phaseward.monitor import access
 from phaseward.settings import Settings
 
@@ -33,8 +33,7 @@ async def anon(keyed_app: FastAPI) -> AsyncIterator[httpx.AsyncClient]:
     transport = httpx.ASGITransport(app=keyed_app)
     async with httpx.AsyncClient(transport=transport, base_url="http://phaseward.test") as c:
         yield c
-    keyed_app.state.jobs.shutdown()
-    keyed_app.state.engine.dispose()
+    close(keyed_app)
 
 
 def key(app: FastAPI, role: str, rails: list[str] | None = None) -> dict[str, str]:

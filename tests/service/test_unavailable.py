@@ -22,7 +22,7 @@ from sqlalchemy import Engine, create_engine, event, inspect, text
 from sqlalchemy.engine import make_url
 from tests.factories import SMALL_RAIL, rail_spec, sample
 
-from phaseward.api.app import create_app
+from phaseward.api.app import close, create_app
 from phaseward.settings import Settings
 
 pytestmark = pytest.mark.anyio
@@ -42,8 +42,7 @@ async def serving(app: FastAPI) -> AsyncIterator[httpx.AsyncClient]:
         async with httpx.AsyncClient(transport=transport, base_url="http://phaseward.test") as c:
             yield c
     finally:
-        app.state.jobs.shutdown()
-        app.state.engine.dispose()
+        close(app)
 
 
 def snapshot(database_url: str) -> dict[str, list[tuple[Any, ...]]]:

@@ -29,7 +29,7 @@ from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor import retention
 from phaseward.monitor.jobs import JobRunner
 from phaseward.settings import Settings
-from phaseward.store.db import build_engine, build_sessionmaker, migrate
+from phaseward.store.db import build_engine, build_sessionmaker, close_engine, migrate
 
 
 async def _retention_loop(settings: Settings, sessions: sessionmaker[Session]) -> None:
@@ -56,12 +56,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     runner = JobRunner(sessions, {rehearsal_jobs.KIND: rehearsal_jobs.run})
 
     @asynccontextmanager
-    async def lifespan(_: FastAPI) -> AsyncIterator[None]:
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         keeper = asyncio.create_task(_retention_loop(settings, sessions))
         yield
         keeper.cancel()
-        runner.shutdown()
-        engine.dispose()
+        await run_in_threadpool(close, app)
 
     app = FastAPI(
         title="phaseward",
@@ -90,3 +89,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(web.router)
 
     return app
+
+
+def close(app: FastAPI) -> None:
+    """Stop queued jobs and close the database pool once running requests have let go of it.
+
+    A job already running is not awaited: jobs are stored and resume on the next start."""
+    app.state.jobs.shutdown()
+    close_engine(app.state.engine)

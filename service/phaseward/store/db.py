@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -51,6 +52,21 @@ def _configure_sqlite(engine: Engine, settings: Settings) -> None:
     @event.listens_for(engine, "begin")
     def _on_begin(conn: Any) -> None:
         conn.exec_driver_sql("BEGIN IMMEDIATE")
+
+
+def close_engine(engine: Engine, grace_s: float = 5.0) -> None:
+    """Dispose of the pool once requests still running in worker threads have returned their
+    connections (or ``grace_s`` has passed): a connection checked out across ``dispose`` is
+    orphaned and only closed by the garbage collector, which the PostgreSQL driver warns of."""
+    deadline = time.monotonic() + grace_s
+    while _checked_out(engine) and time.monotonic() < deadline:
+        time.sleep(0.01)
+    engine.dispose()
+
+
+def _checked_out(engine: Engine) -> int:
+    checkedout = getattr(engine.pool, "checkedout", None)  # QueuePool has it, others may not
+    return int(checkedout()) if callable(checkedout) else 0
 
 
 def build_sessionmaker(engine: Engine) -> sessionmaker[Session]:

@@ -7,6 +7,7 @@ import socket
 import subprocess
 import sys
 import time
+from collections.abc import Mapping
 from pathlib import Path
 
 import httpx
@@ -19,13 +20,17 @@ def free_port() -> int:
         return port
 
 
-def start_server(data_dir: Path, port: int) -> subprocess.Popen[bytes]:
-    """Start the service on the embedded SQLite default in ``data_dir``; wait until it answers."""
+def start_server(
+    data_dir: Path, port: int, extra_env: Mapping[str, str] | None = None
+) -> subprocess.Popen[bytes]:
+    """Start the service on the embedded SQLite default in ``data_dir``; wait until it answers.
+    ``extra_env`` adds settings (``PHASEWARD_...`` variables)."""
     env = os.environ | {
         "PHASEWARD_DATA_DIR": str(data_dir),
         "PHASEWARD_PORT": str(port),
         "PHASEWARD_LOG_LEVEL": "warning",
         "PHASEWARD_AUTH_MODE": "open",
+        **(extra_env or {}),
     }
     env.pop("PHASEWARD_DATABASE_URL", None)
     proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)

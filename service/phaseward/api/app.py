@@ -15,6 +15,7 @@ from threadpoolctl import threadpool_limits
 from phaseward import __version__
 from phaseward.api import errors, observability
 from phaseward.api.auth import RateLimiter
+from phaseward.api.group_commit import GroupCommit
 from phaseward.api.routes import (
     analyses,
     events,
@@ -72,6 +73,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = engine
     app.state.sessions = sessions
     app.state.jobs = runner
+    app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples)
     app.state.rate_limiter = RateLimiter(settings.rate_per_s, settings.rate_burst)
     runner.resume()  # jobs a stopped process left unfinished run again
     app.state.metrics = observability.Metrics()

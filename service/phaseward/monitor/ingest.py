@@ -10,6 +10,7 @@ state are stored but do not roll it back.
 from __future__ import annotations
 
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass
 from itertools import pairwise
 from typing import Any
@@ -23,7 +24,7 @@ from phaseward.monitor import fault_class, rail_model
 from phaseward.monitor.assess import Assessment, assess, hottest_margin
 from phaseward.monitor.conditions import ACTIVE, PHASE_CONDITIONS, SUSPECT, Finding, Watch, judge
 from phaseward.monitor.rail_model import RailModel, phase_power
-from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, to_batch
+from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
 from phaseward.physics.estimator import EstimatorState, initial_state, kalman_run
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c
 from phaseward.store import events, rails, samples, state
@@ -41,18 +42,62 @@ class IngestResult:
     version: int
 
 
+@dataclass(frozen=True)
+class _Outcome:
+    """Per sample of a (merged) batch: newly stored, and newer than the live state."""
+
+    fresh: npt.NDArray[np.bool_]
+    newer: npt.NDArray[np.bool_]
+    condition: str | None
+    version: int
+
+    def split(self, sizes: Sequence[int]) -> list[IngestResult]:
+        cuts = np.cumsum(sizes)[:-1]
+        parts = zip(np.split(self.fresh, cuts), np.split(self.newer, cuts), strict=True)
+        return [self._result(fresh, newer) for fresh, newer in parts]
+
+    def _result(self, fresh: npt.NDArray[np.bool_], newer: npt.NDArray[np.bool_]) -> IngestResult:
+        stored = int(fresh.sum())
+        return IngestResult(
+            stored=stored, duplicates=int((~fresh).sum()), late=stored - int(newer.sum()),
+            condition=self.condition, version=self.version,
+        )  # fmt: skip
+
+
 def ingest(
     sessions: sessionmaker[Session], rail_id: str, incoming: IncomingSamples
 ) -> IngestResult:
     try:
         with transaction(sessions) as session:
-            return _ingest(session, rail_id, incoming)
+            return _ingest(session, rail_id, incoming).split([incoming.n])[0]
     except (InvalidInput, Conflict) as err:
         record_rejection(sessions, rail_id, samples=incoming.n, error=err)
         raise
 
 
-def _ingest(session: Session, rail_id: str, incoming: IncomingSamples) -> IngestResult:
+def ingest_together(
+    sessions: sessionmaker[Session], rail_id: str, batches: Sequence[IncomingSamples]
+) -> list[IngestResult | PhasewardError]:
+    """Several requests' batches for one rail in one transaction and one monitor pass (group
+    commit). Each batch stays all-or-nothing: if the merged batch is refused, every batch is
+    ingested on its own, so only the bad ones fail and each failure names its own field."""
+    if len(batches) > 1:
+        try:
+            with transaction(sessions) as session:
+                outcome = _ingest(session, rail_id, concat(batches))
+            return list(outcome.split([b.n for b in batches]))
+        except PhasewardError:
+            pass
+    results: list[IngestResult | PhasewardError] = []
+    for batch in batches:
+        try:
+            results.append(ingest(sessions, rail_id, batch))
+        except PhasewardError as err:
+            results.append(err)
+    return results
+
+
+def _ingest(session: Session, rail_id: str, incoming: IncomingSamples) -> _Outcome:
     now_s = time.time()
     rail = rails.get(session, rail_id, for_update=True)
     if rail is None:
@@ -99,13 +144,7 @@ def _ingest(session: Session, rail_id: str, incoming: IncomingSamples) -> Ingest
             last_t_s=float(live_batch.t_s[-1]), state=new_state, now_s=now_s,
         )  # fmt: skip
         condition = new_state["rail"]["condition"]
-    return IngestResult(
-        stored=int(fresh.sum()),
-        duplicates=int((~fresh).sum()),
-        late=int(fresh.sum() - newer.sum()),
-        condition=condition,
-        version=rail.version,
-    )
+    return _Outcome(fresh=fresh, newer=newer, condition=condition, version=rail.version)
 
 
 _CONTENT = ("t_s", "vin_v", "vout_v", "iout_a", "ambient_c", "current_a", "temp_c", "flags")

@@ -3,6 +3,7 @@ into (n_samples, n_phases) arrays and turns every current reading into amps."""
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -60,6 +61,18 @@ class IncomingSamples:
     @property
     def n(self) -> int:
         return int(self.seq.shape[0])
+
+
+def concat(parts: Sequence[IncomingSamples]) -> IncomingSamples:
+    """Several requests' samples as one batch (readings renumbered to their merged sample)."""
+    offsets = np.cumsum([0, *(p.n for p in parts[:-1])])
+    fields = {
+        f: np.concatenate([getattr(p, f) for p in parts])
+        for f in IncomingSamples.__dataclass_fields__
+        if f != "item"
+    }
+    item = np.concatenate([p.item + o for p, o in zip(parts, offsets, strict=True)])
+    return IncomingSamples(item=item, **fields)
 
 
 @dataclass(frozen=True)

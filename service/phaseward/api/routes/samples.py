@@ -14,6 +14,7 @@ from pydantic import ValidationError
 from phaseward.api.auth import RailIngester, RailReader
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES, field_path
+from phaseward.api.group_commit import GroupCommit
 from phaseward.api.observability import Metrics
 from phaseward.api.routes.rails import RailId
 from phaseward.api.schemas.samples import (
@@ -33,7 +34,7 @@ from phaseward.errors import (
 )
 from phaseward.monitor import rails as rail_service
 from phaseward.monitor import retention
-from phaseward.monitor.ingest import ingest, record_rejection
+from phaseward.monitor.ingest import record_rejection
 from phaseward.store import samples as sample_store
 
 router = APIRouter(prefix="/v1/rails", tags=["telemetry"], responses=ERROR_RESPONSES)
@@ -115,9 +116,9 @@ async def post_samples(
         )
         metrics.count_samples(rejected=len(raw))
         raise
-    # Database work runs off the event loop: the driver blocks.
+    group_commit: GroupCommit = request.app.state.group_commit
     try:
-        result = await run_in_threadpool(ingest, sessions, rail_id, to_incoming(items))
+        result = await group_commit.submit(rail_id, to_incoming(items))
     except PhasewardError:
         metrics.count_samples(rejected=len(raw))
         raise

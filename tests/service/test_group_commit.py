@@ -1,0 +1,185 @@
+"""Group commit: concurrent ingest requests for one rail share one transaction and one monitor
+pass, yet each keeps its own all-or-nothing outcome and its own answer."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import anyio
+import httpx
+import numpy as np
+import pytest
+from fastapi import FastAPI
+from tests.factories import rail_spec, sample
+
+from phaseward.api.app import close, create_app
+from phaseward.api.group_commit import GroupCommit
+from phaseward.api.schemas.samples import SAMPLES, to_incoming
+from phaseward.errors import Conflict, PhasewardError
+from phaseward.monitor import ingest as ingest_module
+from phaseward.monitor.ingest import IngestResult, ingest
+from phaseward.monitor.telemetry import IncomingSamples
+from phaseward.store import events
+from phaseward.store import state as state_store
+from phaseward.store.db import transaction
+
+pytestmark = pytest.mark.anyio
+
+HEALTHY = [20.0, 20.0, 20.0, 20.0]
+TRIPPED = [26.7, 0.0, 26.7, 26.7]
+
+
+def incoming(items: list[dict[str, Any]]) -> IncomingSamples:
+    return to_incoming(SAMPLES.validate_python(items))
+
+
+def requests() -> list[list[dict[str, Any]]]:
+    """Eight requests in time order, the last four with phase 1's breaker tripped."""
+    out = []
+    for k in range(8):
+        body = sample(k, TRIPPED if k >= 4 else HEALTHY)
+        body["phases"][1]["breaker_tripped"] = k >= 4
+        out.append([body])
+    return out
+
+
+@pytest.fixture
+def group_sizes(monkeypatch: pytest.MonkeyPatch) -> list[int]:
+    """The size of every group handed to the monitor (the real function still runs)."""
+    sizes: list[int] = []
+    real = ingest_module.ingest_together
+
+    def spy(sessions: Any, rail_id: str, batches: list[IncomingSamples]) -> list[Any]:
+        sizes.append(len(batches))
+        return real(sessions, rail_id, batches)
+
+    monkeypatch.setattr("phaseward.api.group_commit.ingest_together", spy)
+    return sizes
+
+
+async def submit_all(
+    writer: GroupCommit, bodies: list[list[dict[str, Any]]]
+) -> list[IngestResult | PhasewardError]:
+    out: list[IngestResult | PhasewardError | None] = [None] * len(bodies)
+
+    async def one(k: int) -> None:
+        try:
+            out[k] = await writer.submit("bench-a", incoming(bodies[k]))
+        except PhasewardError as err:
+            out[k] = err
+
+    async with anyio.create_task_group() as tg:
+        for k in range(len(bodies)):
+            tg.start_soon(one, k)
+    return [o for o in out if o is not None]
+
+
+def live_state(app: FastAPI) -> dict[str, Any]:
+    with transaction(app.state.sessions) as session:
+        live = state_store.get(session, "bench-a")
+        assert live is not None
+        return live.state
+
+
+def event_kinds(app: FastAPI) -> list[tuple[str, int | None]]:
+    with transaction(app.state.sessions) as session:
+        found = events.after(session, events.EventFilter(rail_id="bench-a"), after_id=0, limit=99)
+        return sorted((e.kind, e.phase) for e in found)
+
+
+async def test_concurrent_requests_share_one_pass_and_match_one_by_one_ingest(
+    client: httpx.AsyncClient, app: FastAPI, group_sizes: list[int], tmp_path: Path
+) -> None:
+    assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
+    writer = GroupCommit(app.state.sessions, max_samples=100)
+    results = await submit_all(writer, requests())
+    assert group_sizes == [8]  # all eight queued behind the first drain: one transaction
+    assert all(isinstance(r, IngestResult) and r.stored == 1 for r in results)
+    grouped_state, grouped_events = live_state(app), event_kinds(app)
+
+    # The same requests one by one, each its own transaction, in a second database.
+    alone_db = {"database_url": f"sqlite:///{tmp_path / 'alone.db'}"}
+    alone = create_app(app.state.settings.model_copy(update=alone_db))
+    try:
+        transport = httpx.ASGITransport(app=alone)
+        async with httpx.AsyncClient(transport=transport, base_url="http://alone") as c:
+            assert (await c.post("/v1/rails", json=rail_spec())).status_code == 201
+        for body in requests():
+            ingest(alone.state.sessions, "bench-a", incoming(body))
+        single_state, single_events = live_state(alone), event_kinds(alone)
+    finally:
+        close(alone)
+    assert grouped_events == single_events
+    assert ("phase.isolated", 1) in grouped_events
+    assert grouped_state["rail"]["condition"] == single_state["rail"]["condition"] == "degraded"
+    assert [p["condition"] for p in grouped_state["phases"]] == [
+        p["condition"] for p in single_state["phases"]
+    ]
+    # One Kalman run over eight equal steps against eight runs of one: the same estimate.
+    np.testing.assert_allclose(grouped_state["nodes_c"], single_state["nodes_c"], rtol=1e-9)
+
+
+async def test_a_bad_request_in_a_group_fails_alone_and_the_others_are_stored(
+    client: httpx.AsyncClient, app: FastAPI, group_sizes: list[int]
+) -> None:
+    assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
+    stored = await client.post("/v1/rails/bench-a/samples", json=sample(0, HEALTHY))
+    assert stored.status_code == 200
+    conflicting = [sample(1, HEALTHY), sample(0, [21.0] * 4)]  # seq 0 again, other content
+    bodies = [[sample(2, HEALTHY)], conflicting, [sample(3, HEALTHY)], [sample(2, HEALTHY)]]
+    writer = GroupCommit(app.state.sessions, max_samples=100)
+    results = await submit_all(writer, bodies)
+
+    assert group_sizes[-1] == 4  # the four requests went as one group
+    first, bad, third, resend = results
+    assert isinstance(first, IngestResult)
+    assert first.stored == 1
+    assert isinstance(bad, Conflict)
+    assert bad.field == "[1].seq"
+    assert isinstance(third, IngestResult)
+    assert third.stored == 1
+    # seq 2 twice in one group: the later request is a resend of the earlier, not an error.
+    assert isinstance(resend, IngestResult)
+    assert (resend.stored, resend.duplicates) == (0, 1)
+    window = await client.get("/v1/rails/bench-a/samples", params={"since": 0, "until": 4e9})
+    assert window.json()["seq"] == [0, 2, 3]  # nothing of the refused request, seq 1 included
+    kinds = [e["kind"] for e in (await client.get("/v1/events")).json()["items"]]
+    assert kinds.count("telemetry.rejected") == 1
+
+
+async def test_a_group_is_capped_in_samples(
+    client: httpx.AsyncClient, app: FastAPI, group_sizes: list[int]
+) -> None:
+    assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
+    writer = GroupCommit(app.state.sessions, max_samples=3)
+    bodies = [[sample(2 * k, HEALTHY), sample(2 * k + 1, HEALTHY)] for k in range(4)]
+    results = await submit_all(writer, bodies)
+    assert all(isinstance(r, IngestResult) and r.stored == 2 for r in results)
+    # Two samples each, at most three per group: every request goes alone, but the first only
+    # as the rest queue up behind it.
+    assert group_sizes == [1, 1, 1, 1]
+
+
+async def test_a_database_failure_reaches_every_request_of_the_group(
+    client: httpx.AsyncClient, app: FastAPI, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
+
+    def unreachable(*_: Any) -> list[Any]:
+        raise ConnectionError("database went away")
+
+    monkeypatch.setattr("phaseward.api.group_commit.ingest_together", unreachable)
+    writer = GroupCommit(app.state.sessions, max_samples=100)
+    outcomes: list[BaseException] = []
+
+    async def one(k: int) -> None:
+        with pytest.raises(ConnectionError) as err:
+            await writer.submit("bench-a", incoming([sample(k, HEALTHY)]))
+        outcomes.append(err.value)
+
+    async with anyio.create_task_group() as tg:
+        for k in range(3):
+            tg.start_soon(one, k)
+    assert len(outcomes) == 3
+    assert writer._queues == {}  # nothing left waiting

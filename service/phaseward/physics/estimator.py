@@ -312,8 +312,9 @@ def _update(
     rows = model.sensor_state[seen]
     var = model.sensor_var_k2[seen]
     innovation_cov = cov[np.ix_(rows, rows)] + np.diag(var)
-    # K = P H^T S^-1 with H picking ``rows``: P H^T = P[:, rows], and S is symmetric.
-    gain = linalg.solve(innovation_cov, cov[rows], assume_a="pos").T
+    # K = P H^T S^-1 with H picking ``rows``: P H^T = P[:, rows], and S is symmetric. numpy's
+    # LU solve, not scipy's: this runs once per sample and scipy's checks cost twice the solve.
+    gain = np.linalg.solve(innovation_cov, cov[rows]).T
     innovation = reading_c[seen] - model.sensor_offset_k[seen] - mean[rows]
     keep = np.eye(mean.size)
     keep[:, rows] -= gain

@@ -378,6 +378,12 @@ def _injection(net: ThermalNetwork, p0_w: FloatArray, ambient_c: FloatArray) -> 
     return f
 
 
+# A steady state that would keep fewer than 4 of float64's ~16 digits is taken as no steady
+# state: exactly singular networks land near 1e16-1e17 after rounding (common practice for a
+# numerical rank test, e.g. numpy.linalg.matrix_rank's tolerance of eps times the size).
+MAX_CONDITION = 1e12
+
+
 def _solve_stable(a: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArray]:
     """Solve A x = rhs for a stack of symmetric Z-matrices, flagging those not positive definite.
 
@@ -385,6 +391,9 @@ def _solve_stable(a: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArray
     a non-singular M-matrix, iff A^-1 >= 0 elementwise (Berman and Plemmons, Nonnegative
     Matrices in the Mathematical Sciences, ch. 6). So a probe solve A y = 1 gives y > 0
     exactly for the stable cases: one LU per case instead of an eigen-decomposition.
+    For such a matrix max(y) is also ||A^-1||_inf, so ||A||_inf max(y) is its condition
+    number: a matrix singular but for rounding (no path to ambient) gives y > 0 too, of order
+    1/eps, and is told apart by a condition number past ``MAX_CONDITION``.
     Returns x (NaN where unstable) and the stable mask (batch shape).
     """
     both = np.stack(np.broadcast_arrays(rhs, np.ones_like(rhs)), axis=-1)
@@ -398,7 +407,13 @@ def _solve_stable(a: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArray
         sol = np.full(b_flat.shape, np.nan)
         sol[regular] = np.linalg.solve(a_flat[regular], b_flat[regular])
         sol = sol.reshape(*batch, *both.shape[-2:])
-    stable = np.all(sol[..., 1] > 0.0, axis=-1) & np.all(np.isfinite(sol[..., 0]), axis=-1)
+    probe = sol[..., 1]
+    condition = np.abs(a).sum(axis=-1).max(axis=-1) * probe.max(axis=-1)
+    stable = (
+        np.all(probe > 0.0, axis=-1)
+        & (condition < MAX_CONDITION)
+        & np.all(np.isfinite(sol[..., 0]), axis=-1)
+    )
     return np.where(stable[..., None], sol[..., 0], np.nan), stable
 
 

@@ -5,7 +5,13 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from bench import analyses_latency, load_ingest, rehearsal_sweep, thermal_capacity
+from bench import (
+    analyses_latency,
+    history_growth,
+    load_ingest,
+    rehearsal_sweep,
+    thermal_capacity,
+)
 from bench.common import machine, now_text, print_rows, write_results
 
 
@@ -13,7 +19,13 @@ def main() -> None:
     started, host = now_text(), machine()
     print(f"{started} on {host}")
     rows = []
-    for module in (thermal_capacity, rehearsal_sweep, analyses_latency, load_ingest):
+    for module in (
+        thermal_capacity,
+        rehearsal_sweep,
+        analyses_latency,
+        load_ingest,
+        history_growth,
+    ):
         found = module.rows()
         print_rows(found)
         rows += found

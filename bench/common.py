@@ -47,6 +47,26 @@ def median_time(func: Callable[[], object], repeats: int = 5) -> float:
     return statistics.median(times)
 
 
+def mean_time(func: Callable[[], object], repeats: int = 5) -> float:
+    """Mean wall time of ``repeats`` calls, s (after one untimed warm-up call). For work that
+    pays part of its cost in lumps every few calls (a full garbage collection once enough
+    objects have piled up), where a median would count the lump in every call or in none."""
+    func()
+    start = time.perf_counter()
+    for _ in range(repeats):
+        func()
+    return (time.perf_counter() - start) / repeats
+
+
+def peak_rss_bytes(pid: int) -> int:
+    """Peak resident memory of a running process so far, bytes (VmHWM in /proc/<pid>/status,
+    Linux): read it before the process exits."""
+    for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) * 1024  # the kernel reports kB
+    raise RuntimeError(f"process {pid} reports no VmHWM")
+
+
 def table(rows: Sequence[Row]) -> str:
     head = "| benchmark | measured | baseline | ratio | target | met |\n|---|---|---|---|---|---|"
     lines = [

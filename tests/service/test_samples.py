@@ -104,6 +104,23 @@ async def test_sense_voltage_and_read_iout_become_amps(
     assert window["current_a"][0] == pytest.approx([20.0, 20.0, 20.0, 20.0], rel=1e-9)
 
 
+async def test_window_gives_null_for_readings_not_reported(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    full = sample(0, EVEN, iout_a=80.0)
+    gaps = sample(1, EVEN)
+    del gaps["phases"][1]["temp_c"]
+    gaps["phases"] = gaps["phases"][:3]  # phase 3 sent nothing
+    assert (await post(client, rail, [full, gaps])).status_code == 200
+    window = (await client.get(f"{rail}/samples", params={"since": 0, "until": 1e10})).json()
+    assert window["current_a"] == [[20.0, 20.0, 20.0, 20.0], [20.0, 20.0, 20.0, None]]
+    assert window["temp_c"] == [[60.0, 60.0, 60.0, 60.0], [60.0, None, 60.0, None]]
+    assert window["iout_a"] == [80.0, None]
+    assert window["ambient_c"] == [None, None]
+    empty = (await client.get(f"{rail}/samples", params={"since": 0, "until": 1})).json()
+    assert (empty["count"], empty["current_a"], empty["temp_c"]) == (0, [], [])
+
+
 TWO_CURRENTS = [{"index": 0, "current_a": 1.0, "sense_v": 0.01}]
 BAD: list[tuple[str, Any, int, str]] = [
     ("missing field", {k: v for k, v in sample(9, EVEN).items() if k != "vin_v"}, 422, "[0].vin_v"),

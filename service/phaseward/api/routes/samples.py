@@ -129,8 +129,13 @@ async def post_samples(
     )  # fmt: skip
 
 
-def _nullable(a: npt.NDArray[np.float64]) -> list[float | None]:
-    return [None if not np.isfinite(x) else float(x) for x in a]
+def _nullable(a: npt.NDArray[np.float64]) -> list[Any]:
+    """``a`` as (nested) lists with None where it is not finite, converted by numpy: a Python
+    loop per value took most of the time of a window (45 of 80 ms for an hour of 12 phases)."""
+    values = a.astype(object)
+    values[~np.isfinite(a)] = None
+    out: list[Any] = values.tolist()
+    return out
 
 
 @router.get("/{rail_id}/samples")
@@ -153,8 +158,7 @@ def get_samples(
         seq=rows.seq[:n].tolist(), time_s=rows.t_s[:n].tolist(), version=rows.version[:n].tolist(),
         vin_v=rows.vin_v[:n].tolist(), vout_v=rows.vout_v[:n].tolist(),
         iout_a=_nullable(rows.iout_a[:n]), ambient_c=_nullable(rows.ambient_c[:n]),
-        current_a=[_nullable(r) for r in rows.current_a[:n]],
-        temp_c=[_nullable(r) for r in rows.temp_c[:n]],
+        current_a=_nullable(rows.current_a[:n]), temp_c=_nullable(rows.temp_c[:n]),
         flags=rows.flags[:n].astype(int).tolist(),
     )  # fmt: skip
 

@@ -32,13 +32,15 @@ def sample(seq: int, t0: float) -> dict[str, Any]:
     return {"time": t0 + seq * 0.01, "seq": seq, "vin_v": 12.0, "vout_v": 1.0, "phases": phases}
 
 
-def bodies(connection: int, connections: int, count: int, per_request: int, t0: float) -> list[str]:
+def bodies(
+    connection: int, connections: int, count: int, per_request: int, t0: float, first_seq: int = 0
+) -> list[str]:
     """The request bodies of one of ``connections`` connections, ``per_request`` samples each
-    (one object when 1). Connections take turns along one time line, so samples arrive
-    roughly in time order, as from one rail's telemetry fanned out over connections."""
+    (one object when 1), numbered from ``first_seq``. Connections take turns along one time
+    line, so samples arrive roughly in time order, as one rail's telemetry fanned out."""
     out = []
     for k in range(count):
-        start = (k * connections + connection) * per_request
+        start = first_seq + (k * connections + connection) * per_request
         items = [sample(start + j, t0) for j in range(per_request)]
         out.append(json.dumps(items[0] if per_request == 1 else items))
     return out

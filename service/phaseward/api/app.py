@@ -54,6 +54,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     engine = build_engine(settings)
     migrate(engine)
     sessions = build_sessionmaker(engine)
+    read_sessions = build_sessionmaker(engine, read_only=True)
     runner = JobRunner(sessions, {rehearsal_jobs.KIND: rehearsal_jobs.run})
 
     @asynccontextmanager
@@ -72,6 +73,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.settings = settings
     app.state.engine = engine
     app.state.sessions = sessions
+    app.state.read_sessions = read_sessions
     app.state.jobs = runner
     app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples)
     app.state.rate_limiter = RateLimiter(settings.rate_per_s, settings.rate_burst)

@@ -52,7 +52,7 @@ async def principal(
         return OPEN
     if credentials is None or not credentials.credentials:
         raise Unauthorized("send an access key: Authorization: Bearer <key>", field="authorization")
-    sessions = request.app.state.sessions
+    sessions = request.app.state.read_sessions
 
     def lookup() -> Principal | None:
         with sessions() as session, session.begin():

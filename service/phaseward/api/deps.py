@@ -21,14 +21,21 @@ def _sessions(request: Request) -> sessionmaker[Session]:
     return sessions
 
 
+def _read_sessions(request: Request) -> sessionmaker[Session]:
+    sessions: sessionmaker[Session] = request.app.state.read_sessions
+    return sessions
+
+
 def _read_session(
-    sessions: Annotated[sessionmaker[Session], Depends(_sessions)],
+    sessions: Annotated[sessionmaker[Session], Depends(_read_sessions)],
 ) -> Iterator[Session]:
-    """A session for reads; it never commits (writes go through monitor services)."""
+    """A session for reads; it never writes (writes go through monitor services), so it takes
+    no write lock."""
     with sessions() as session, session.begin():
         yield session
 
 
 SettingsDep = Annotated[Settings, Depends(_settings)]
 SessionsDep = Annotated[sessionmaker[Session], Depends(_sessions)]
+ReadSessionsDep = Annotated[sessionmaker[Session], Depends(_read_sessions)]
 ReadSessionDep = Annotated[Session, Depends(_read_session)]

@@ -237,7 +237,7 @@ async def metrics_text(request: Request, who: Reader) -> Response:
     read key; a key limited to rails sees only those rails' gauges)."""
     rails = [
         r
-        for r in await run_in_threadpool(_rails, request.app.state.sessions)
+        for r in await run_in_threadpool(_rails, request.app.state.read_sessions)
         if who.may_use(r["rail"])
     ]
     return Response(request.app.state.metrics.render(rails), media_type=OPENMETRICS)

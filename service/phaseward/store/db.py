@@ -33,11 +33,12 @@ def build_engine(settings: Settings) -> Engine:
 
 
 def _configure_sqlite(engine: Engine, settings: Settings) -> None:
-    """WAL, foreign keys, a busy timeout, and BEGIN IMMEDIATE for every transaction.
+    """WAL, foreign keys, a busy timeout, and BEGIN IMMEDIATE for every writing transaction.
 
     pysqlite's own transaction handling is switched off (isolation_level=None) so that we
     emit BEGIN ourselves: IMMEDIATE takes the write lock at the start, so two writers queue
     on the busy timeout instead of one failing on lock upgrade in the middle of a request.
+    Read-only sessions begin DEFERRED and take no lock.
     """
 
     @event.listens_for(engine, "connect")
@@ -51,7 +52,9 @@ def _configure_sqlite(engine: Engine, settings: Settings) -> None:
 
     @event.listens_for(engine, "begin")
     def _on_begin(conn: Any) -> None:
-        conn.exec_driver_sql("BEGIN IMMEDIATE")
+        # Readers take no lock: in WAL mode they see the last commit while a writer works.
+        read_only = conn.get_execution_options().get(READ_ONLY, False)
+        conn.exec_driver_sql("BEGIN DEFERRED" if read_only else "BEGIN IMMEDIATE")
 
 
 def close_engine(engine: Engine, grace_s: float = 5.0) -> None:
@@ -69,8 +72,14 @@ def _checked_out(engine: Engine) -> int:
     return int(checkedout()) if callable(checkedout) else 0
 
 
-def build_sessionmaker(engine: Engine) -> sessionmaker[Session]:
-    return sessionmaker(engine, expire_on_commit=False, autoflush=False)
+def build_sessionmaker(engine: Engine, *, read_only: bool = False) -> sessionmaker[Session]:
+    """Sessions for units of work; ``read_only`` ones never write, so on SQLite they begin
+    without the write lock and never queue behind ingest."""
+    bind = engine.execution_options(**{READ_ONLY: True}) if read_only else engine
+    return sessionmaker(bind, expire_on_commit=False, autoflush=False)
+
+
+READ_ONLY = "phaseward_read_only"  # an execution option of ours, seen by the begin hook
 
 
 def migrate(engine: Engine) -> None:

@@ -17,7 +17,7 @@ from fastapi.responses import StreamingResponse
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.api.auth import Reader
-from phaseward.api.deps import SessionsDep
+from phaseward.api.deps import ReadSessionsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.schemas.common import MAX_ROW_ID, is_row_id
 from phaseward.api.schemas.events import EventOut
@@ -65,7 +65,7 @@ _EVENT_FRAME = {
 )
 async def stream_events(
     request: Request,
-    sessions: SessionsDep,
+    sessions: ReadSessionsDep,
     who: Reader,
     rail_id: Annotated[str | None, Query(max_length=64)] = None,
     kind: Annotated[list[str], Query(max_length=20)] = [],  # noqa: B006 - copied by FastAPI

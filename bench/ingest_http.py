@@ -1,0 +1,190 @@
+"""Ingest over HTTP against its baselines (issue benchmarks 1, 2 and the memory of 7).
+
+1. Single samples of a 12-phase rail, one per request, from many concurrent connections to a
+   real ``phaseward serve`` (SQLite, synchronous=FULL: every answer follows a durable
+   commit), against a bare FastAPI endpoint that parses the same bodies with the same schema
+   and stores nothing. Throughput share, target >= 0.8. The server's CPU time per request is
+   printed beside it: on these 2 cores it is what decides the share.
+2. Batches of 100 samples per request: stored rows per second against raw ``sqlite3``
+   ``executemany`` of the same rows into the same schema and pragmas, one transaction per
+   100-row batch (the durability the service gives each request). Target >= 0.5.
+7. The server's peak resident memory after each, printed.
+
+Run: ``python -m bench.ingest_http [seconds]``.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sqlite3
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+from typing import Any
+
+import httpx
+import numpy as np
+from tests.factories import rail_spec
+from tests.servers import free_port, start_server
+
+from bench import loadgen
+from bench.common import Row, peak_rss_bytes, print_rows
+from phaseward.settings import Settings
+from phaseward.store.db import build_engine, migrate
+
+SINGLE_CONNECTIONS = 64  # concurrent rigs, each posting its samples one by one
+BATCH_CONNECTIONS = 8
+BATCH = 100
+RAIL = "ingest-12"
+PATH = f"/v1/rails/{RAIL}/samples"
+
+
+def cpu_seconds(pid: int) -> float:
+    """User + system CPU time of a process so far (/proc/<pid>/stat, Linux)."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def _load(
+    port: int, pid: int, connections: int, per_request: int, seconds: float
+) -> dict[str, Any]:
+    """Closed-loop load; requests per second, statuses and server CPU per request."""
+    t0 = time.time() - 3600
+    count = int(8000 * seconds / connections / per_request) + 50  # more than can be sent
+    streams = [
+        {"paths": [PATH], "bodies": loadgen.bodies(c, connections, count, per_request, t0)}
+        for c in range(connections)
+    ]
+    cpu = cpu_seconds(pid)
+    found = loadgen.run({"port": port, "duration_s": seconds, "streams": streams})
+    done = sum(len(x) for x in found["latencies_s"])
+    return {
+        "rate": done / found["elapsed_s"],
+        "statuses": found["statuses"],
+        "cpu_ms_per_request": 1e3 * (cpu_seconds(pid) - cpu) / max(done, 1),
+    }
+
+
+def _bare(seconds: float) -> dict[str, Any]:
+    port = free_port()
+    proc = subprocess.Popen([sys.executable, "-m", "bench.bare_app", str(port)])
+    try:
+        _wait_up(port, proc)
+        _load(port, proc.pid, SINGLE_CONNECTIONS, 1, 1.0)  # warm-up
+        return _load(port, proc.pid, SINGLE_CONNECTIONS, 1, seconds)
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)
+
+
+def _wait_up(port: int, proc: subprocess.Popen[bytes]) -> None:
+    for _ in range(300):
+        try:
+            if httpx.get(f"http://127.0.0.1:{port}/healthz", timeout=1).status_code == 200:
+                return
+        except httpx.TransportError:
+            time.sleep(0.1)
+        if proc.poll() is not None:
+            break
+    raise RuntimeError("the bare endpoint did not come up")
+
+
+def _phaseward(
+    data_dir: Path, connections: int, per_request: int, seconds: float
+) -> dict[str, Any]:
+    port = free_port()
+    proc = start_server(data_dir, port)
+    try:
+        spec = rail_spec(id=RAIL, phase_count=loadgen.PHASES, load_a=300.0)
+        httpx.post(f"http://127.0.0.1:{port}/v1/rails", json=spec).raise_for_status()
+        found = _load(port, proc.pid, connections, per_request, seconds)
+        found["rss_mb"] = peak_rss_bytes(proc.pid) / 2**20
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)
+    with sqlite3.connect(data_dir / "phaseward.db") as db:  # what was stored, not what was sent
+        found["rows"] = db.execute("SELECT count(*) FROM samples").fetchone()[0]
+    return found
+
+
+def _raw_rows(batches: int) -> list[list[tuple[Any, ...]]]:
+    """The rows the service stores for the benchmark's samples, as the service packs them."""
+    t0 = time.time() - 3600
+    out = []
+    for b in range(batches):
+        rows = []
+        for item in json.loads(loadgen.bodies(b, batches, 1, BATCH, t0)[0]):
+            current = np.array([p["current_a"] for p in item["phases"]], dtype="<f8")
+            temp = np.array([p["temp_c"] for p in item["phases"]], dtype="<f8")
+            rows.append((
+                RAIL, item["seq"], item["time"], 1, item["vin_v"], item["vout_v"], None, None,
+                current.tobytes(), temp.tobytes(), bytes(loadgen.PHASES),
+            ))  # fmt: skip
+        out.append(rows)
+    return out
+
+
+def _raw_sqlite(data_dir: Path, batches: list[list[tuple[Any, ...]]]) -> float:
+    """Rows per second: executemany of each batch in its own transaction, into the service's
+    schema with its pragmas (WAL, synchronous=FULL)."""
+    settings = Settings(data_dir=data_dir)
+    engine = build_engine(settings)
+    migrate(engine)
+    engine.dispose()
+    db = sqlite3.connect(data_dir / "phaseward.db", isolation_level=None)
+    db.execute("PRAGMA journal_mode=WAL")
+    db.execute(f"PRAGMA synchronous={settings.sqlite_synchronous}")
+    db.execute("INSERT INTO rails (id, version, created_s, updated_s) VALUES (?, 1, 0, 0)", (RAIL,))
+    sql = (
+        "INSERT INTO samples (rail_id, seq, t_s, version, vin_v, vout_v, iout_a, ambient_c, "
+        "current_a, temp_c, flags) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
+    )
+    started = time.perf_counter()
+    for rows in batches:
+        db.execute("BEGIN IMMEDIATE")
+        db.executemany(sql, rows)
+        db.execute("COMMIT")
+    elapsed = time.perf_counter() - started
+    stored = db.execute("SELECT count(*) FROM samples").fetchone()[0]
+    db.close()
+    assert stored == sum(len(r) for r in batches)
+    return stored / elapsed
+
+
+def rows(seconds: float = 10.0) -> list[Row]:
+    with tempfile.TemporaryDirectory() as tmp:
+        bare = _bare(seconds)
+        single = _phaseward(Path(tmp, "single"), SINGLE_CONNECTIONS, 1, seconds)
+        batched = _phaseward(Path(tmp, "batched"), BATCH_CONNECTIONS, BATCH, seconds)
+        raw_rate = _raw_sqlite(Path(tmp, "raw"), _raw_rows(2000))
+    stored_per_s = batched["rows"] / seconds
+    return [
+        Row(
+            f"single-sample ingest over HTTP, 12 phases, {SINGLE_CONNECTIONS} connections, "
+            "vs a bare parsing endpoint",
+            f"{single['rate']:.0f} req/s", f"{bare['rate']:.0f} req/s",
+            single["rate"] / bare["rate"], 0.8,
+            note=(
+                f"server CPU per request {single['cpu_ms_per_request']:.3f} ms vs bare "
+                f"{bare['cpu_ms_per_request']:.3f} ms; statuses {single['statuses']} vs "
+                f"{bare['statuses']}; {single['rows']} rows stored; "
+                f"peak RSS {single['rss_mb']:.0f} MiB"
+            ),
+        ),
+        Row(
+            f"batched ingest, {BATCH} samples per request, {BATCH_CONNECTIONS} connections, "
+            "vs sqlite3 executemany per batch",
+            f"{stored_per_s:.0f} rows/s", f"{raw_rate:.0f} rows/s", stored_per_s / raw_rate, 0.5,
+            note=(
+                f"server CPU per 100-sample request {batched['cpu_ms_per_request']:.2f} ms; "
+                f"statuses {batched['statuses']}; peak RSS {batched['rss_mb']:.0f} MiB"
+            ),
+        ),
+    ]  # fmt: skip
+
+
+if __name__ == "__main__":
+    print_rows(rows(float(sys.argv[1]) if len(sys.argv) > 1 else 10.0))

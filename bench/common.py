@@ -90,13 +90,16 @@ def machine() -> str:
     )
 
 
-def write_results(rows: Sequence[Row], path: Path, *, started: str, host: str) -> None:
+def write_results(
+    rows: Sequence[Row], path: Path, *, started: str, host: str, appendix: str = ""
+) -> None:
     path.write_text(
         "# Benchmark results\n\n"
-        f"Run `python bench/run.py` to measure again. This run: {started} on {host}.\n"
+        f"Run `python -m bench` to measure again. This run: {started} on {host}.\n"
         "Every ratio compares figures measured side by side in the same run.\n\n"
         + table(rows)
         + "\n"
+        + (f"\n{appendix}" if appendix else "")
     )
 
 

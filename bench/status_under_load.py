@@ -83,6 +83,8 @@ def rows(seconds: float = 10.0) -> list[Row]:
             proc.terminate()
             proc.wait(timeout=20)
     ingest = loaded["ingest"]
+    if set(ingest["statuses"]) != {"200"}:
+        raise RuntimeError(f"ingest under load failed: {ingest['statuses']}")
     achieved = sum(len(x) for x in ingest["latencies_s"]) / ingest["elapsed_s"]
     out = []
     for name in ("status", "events"):

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import gc
 import sys
 import threading
 import time
@@ -23,6 +24,10 @@ def _server(settings: Settings) -> uvicorn.Server:
         create_app(settings), host=settings.host, port=settings.port,
         log_level=settings.log_level, log_config=None,  # our JSON lines, not uvicorn's format
     )  # fmt: skip
+    # What exists now (libraries, schemas, the app) lives as long as the process: out of the
+    # collector's sight, a full collection walks only what requests leave behind (a full pass
+    # over everything paused every request for tens of milliseconds under load).
+    gc.freeze()
     return uvicorn.Server(config)
 
 

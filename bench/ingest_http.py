@@ -28,7 +28,7 @@ from typing import Any
 import httpx
 import numpy as np
 from tests.factories import rail_spec
-from tests.servers import free_port, start_server
+from tests.servers import free_port, start_server, wait_until_healthy
 
 from bench import loadgen
 from bench.common import Row, peak_rss_bytes, print_rows
@@ -72,24 +72,12 @@ def _bare(seconds: float) -> dict[str, Any]:
     port = free_port()
     proc = subprocess.Popen([sys.executable, "-m", "bench.bare_app", str(port)])
     try:
-        _wait_up(port, proc)
+        wait_until_healthy(proc, port)
         _load(port, proc.pid, SINGLE_CONNECTIONS, 1, 1.0)  # warm-up
         return _load(port, proc.pid, SINGLE_CONNECTIONS, 1, seconds)
     finally:
         proc.terminate()
         proc.wait(timeout=20)
-
-
-def _wait_up(port: int, proc: subprocess.Popen[bytes]) -> None:
-    for _ in range(300):
-        try:
-            if httpx.get(f"http://127.0.0.1:{port}/healthz", timeout=1).status_code == 200:
-                return
-        except httpx.TransportError:
-            time.sleep(0.1)
-        if proc.poll() is not None:
-            break
-    raise RuntimeError("the bare endpoint did not come up")
 
 
 def _phaseward(

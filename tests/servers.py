@@ -34,11 +34,17 @@ def start_server(
     }
     env.pop("PHASEWARD_DATABASE_URL", None)
     proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)
+    wait_until_healthy(proc, port)
+    return proc
+
+
+def wait_until_healthy(proc: subprocess.Popen[bytes], port: int) -> None:
+    """Wait until ``proc`` answers GET /healthz on ``port`` (at most 30 s)."""
     deadline = time.monotonic() + 30
     while True:
         try:
             if httpx.get(f"http://127.0.0.1:{port}/healthz", timeout=1).status_code == 200:
-                return proc
+                return
         except httpx.TransportError:
             pass
         if proc.poll() is not None:

@@ -11,6 +11,7 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
+from scipy import signal
 
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.sequences import changes, debounce, latch
@@ -76,6 +77,7 @@ class Finding:
 class Judgement:
     codes: npt.NDArray[np.int8]  # (n, n_phases) debounced phase conditions
     load_a: F64  # (n,) total output current
+    weights: F64  # (n, n_phases) sharing weights after each sample
     findings: list[Finding]
     watch: Watch
 
@@ -178,7 +180,7 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     watch = Watch(
         codes=[int(c) for c in codes[-1]],
         tail=history.astype(int).tolist(),
-        weights=[float(w) for w in weights],
+        weights=[float(w) for w in weights[-1]],
         thermal=[bool(h) for h in hot[-1]],
         imbalance=bool(imbalance[-1]),
         undervoltage=bool(undervoltage[-1]),
@@ -186,7 +188,7 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         last_t_s=float(batch.t_s[-1]),
     )
     findings.sort(key=lambda f: f.sample)
-    return Judgement(codes=codes, load_a=load, findings=findings, watch=watch)
+    return Judgement(codes=codes, load_a=load, weights=weights, findings=findings, watch=watch)
 
 
 def _r(x: Any) -> float | None:
@@ -208,7 +210,8 @@ def _mean_of_others(values: F64) -> F64:
 def _sharing(
     model: RailModel, codes: npt.NDArray[np.int8], cur: F64, prev_weights: F64
 ) -> tuple[F64, F64, npt.NDArray[np.intp]]:
-    """Running sharing weights (end of batch), per-sample imbalance in % and worst phase.
+    """Running sharing weights after each sample (n, p), per-sample imbalance in % and worst
+    phase.
 
     A weight is a phase's share relative to an equal share (1.0 = equal), so what a phase
     teaches while another is isolated still holds when it returns; capacity renormalises
@@ -227,16 +230,27 @@ def _sharing(
     deviation = np.where(active & informative[:, None], np.abs(relative - 1.0), 0.0) * 100.0
     imbalance = deviation.max(axis=1)
     worst = deviation.argmax(axis=1)
-    # Exponential smoothing per phase over the samples that teach it, in closed form: a
-    # sample's weight decays with the number of teaching samples that came after it.
+    # Exponential smoothing per phase over the samples that teach it, w <- keep w + a x, run
+    # as a linear filter over each phase's teaching samples (a loop over phases, not samples)
+    # and held between them. The recurrence is evaluated in sample order with the previous
+    # batch's last weight as its start, so the weights are the same however the samples were
+    # cut into batches.
     teach = active & informative[:, None]
-    later = teach[::-1].cumsum(axis=0)[::-1] - teach
     keep = 1.0 - SHARE_SMOOTHING
     # A phase driving current backwards (a sinking fault, read before it is isolated) carries
     # no share of the load: it teaches a weight of 0, never a negative one.
     taught = np.maximum(relative, 0.0)
-    contribution = np.where(teach, SHARE_SMOOTHING * keep**later * taught, 0.0).sum(axis=0)
-    weights = keep ** teach.sum(axis=0) * prev_weights + contribution
+    weights = np.empty(cur.shape)
+    for i in range(cur.shape[1]):
+        rows = np.flatnonzero(teach[:, i])
+        if rows.size == 0:
+            weights[:, i] = prev_weights[i]
+            continue
+        smoothed = signal.lfilter(
+            [SHARE_SMOOTHING], [1.0, -keep], taught[rows, i], zi=[keep * prev_weights[i]]
+        )[0]
+        last = np.cumsum(teach[:, i]) - 1
+        weights[:, i] = np.where(last >= 0, smoothed[np.maximum(last, 0)], prev_weights[i])
     return weights, imbalance, worst
 
 

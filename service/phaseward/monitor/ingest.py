@@ -4,7 +4,28 @@ A batch is atomic: every sample is stored, or (on any error) none is and the cli
 4xx naming the first bad field; a rejected batch leaves a ``telemetry.rejected`` event.
 Resends are absorbed: a sample whose (rail, seq) is stored already with the same content counts
 as a duplicate; the same seq with other content is a conflict. Samples older than the live
-state are stored but do not roll it back.
+state are stored but do not roll it back. The requests of a group commit are stored and judged
+as one batch; a sample two of them carry is stored and judged once.
+
+Events and the live state are a pure function of the sample sequence, however it was cut into
+requests. Everything carried from one batch to the next (debounce tails, hysteresis latches,
+sharing weights, the Kalman estimate, the last verdict) is the state the same recurrence would
+hold after that sample, and where the rail is assessed depends on the samples alone:
+
+* phase conditions are judged at every sample against the one before it (the previous
+  batch's last sample for a batch's first);
+* the estimator propagates each interval on its own, its length rounded to a 0.5 % geometric
+  grid (``_step_runs``), held at the loss and ambient of the sample that starts it;
+* the rail (capacity, N-1 screening, forecast, condition) is assessed at the rail's first
+  sample; at every sample whose phase conditions differ from the sample before; at the first
+  sample in each ``ASSESS_GRID_S`` cell of absolute time; and at every sample where what a
+  verdict depends on moved beyond its tolerance since the last assessment (load and each phase
+  current, each junction estimate, ambient, output voltage, each sharing weight; see
+  ``_signature``, the reference is carried in the live state as ``assessed``). Each verdict is
+  compared with the one before it for the rail events. The live state's verdict is the last
+  assessment's (at most one grid cell, or one tolerance, behind the newest sample; the live
+  state records which sample it was taken at). A recompute driven by tolerances alone, off
+  the per-sample path, keeps this rule: it only needs the carried reference.
 """
 
 from __future__ import annotations
@@ -22,7 +43,15 @@ from sqlalchemy.orm import Session, sessionmaker
 from phaseward.errors import Conflict, InvalidInput, NotFound, PhasewardError
 from phaseward.monitor import fault_class, rail_model
 from phaseward.monitor.assess import Assessment, assess, hottest_margin
-from phaseward.monitor.conditions import ACTIVE, PHASE_CONDITIONS, SUSPECT, Finding, Watch, judge
+from phaseward.monitor.conditions import (
+    ACTIVE,
+    PHASE_CONDITIONS,
+    SUSPECT,
+    Finding,
+    Judgement,
+    Watch,
+    judge,
+)
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
 from phaseward.physics.estimator import EstimatorState, initial_state, kalman_run
@@ -84,7 +113,7 @@ def ingest_together(
     if len(batches) > 1:
         try:
             with transaction(sessions) as session:
-                outcome = _ingest(session, rail_id, concat(batches))
+                outcome = _ingest(session, rail_id, concat(batches), [b.n for b in batches])
             return list(outcome.split([b.n for b in batches]))
         except PhasewardError:
             pass
@@ -97,20 +126,36 @@ def ingest_together(
     return results
 
 
-def _ingest(session: Session, rail_id: str, incoming: IncomingSamples) -> _Outcome:
+def _ingest(
+    session: Session, rail_id: str, incoming: IncomingSamples, parts: Sequence[int] = ()
+) -> _Outcome:
+    """Store and judge ``incoming``: one request, or the requests of a group (``parts``: their
+    sizes). A sample two requests of a group both carry (a resend racing its original) is
+    stored once and judged once, as if the requests had come one after the other."""
     now_s = time.time()
     rail = rails.get(session, rail_id, for_update=True)
     if rail is None:
         raise NotFound(f"no rail '{rail_id}'", field="rail_id")
     model = rail_model.build(rail.id, rail.version, rails.spec(session, rail.id, rail.version))
-    _check_unique_seq(incoming)
+    for part in np.split(incoming.seq, np.cumsum(parts or [incoming.n])[:-1]):
+        _check_unique_seq(part)
     batch = to_batch(incoming, model)
     rows = _rows(rail_id, rail.version, batch)
 
     stored_before = samples.existing(session, rail_id, [int(s) for s in batch.seq])
     fresh = np.ones(batch.n, dtype=bool)
+    first: dict[int, dict[str, Any]] = {}
     for k, row in enumerate(rows):
         old = stored_before.get(row["seq"])
+        earlier = first.setdefault(row["seq"], row)
+        if earlier is not row:  # an earlier request of the group carries it
+            if any(earlier[key] != row[key] for key in _CONTENT):
+                raise Conflict(
+                    f"sequence number {row['seq']} is sent twice with other content",
+                    field=f"[{k}].seq",
+                )
+            fresh[k] = False
+            continue
         if old is None:
             continue
         if any(getattr(old, key) != row[key] for key in _CONTENT):
@@ -150,11 +195,11 @@ def _ingest(session: Session, rail_id: str, incoming: IncomingSamples) -> _Outco
 _CONTENT = ("t_s", "vin_v", "vout_v", "iout_a", "ambient_c", "current_a", "temp_c", "flags")
 
 
-def _check_unique_seq(incoming: IncomingSamples) -> None:
-    _, first, counts = np.unique(incoming.seq, return_index=True, return_counts=True)
+def _check_unique_seq(seqs: npt.NDArray[np.int64]) -> None:
+    _, first, counts = np.unique(seqs, return_index=True, return_counts=True)
     if (counts > 1).any():
-        seq = int(incoming.seq[first[counts > 1][0]])
-        second = int(np.nonzero(incoming.seq == seq)[0][1])
+        seq = int(seqs[first[counts > 1][0]])
+        second = int(np.nonzero(seqs == seq)[0][1])
         raise InvalidInput(
             f"sequence number {seq} appears twice in the batch", field=f"[{second}].seq"
         )
@@ -185,7 +230,11 @@ def _rows(rail_id: str, version: int, batch: SampleBatch) -> list[dict[str, Any]
 def advance(
     model: RailModel, batch: SampleBatch, previous: dict[str, Any]
 ) -> tuple[dict[str, Any], list[Finding]]:
-    """The live state after ``batch`` (in time order, newer than ``previous``) and its findings."""
+    """The live state after ``batch`` (in time order, newer than ``previous``) and its findings.
+
+    The rail is assessed at the points :func:`_assessment_points` picks, each judged against
+    the verdict of the point before it (carried in the live state across batches).
+    """
     watch = (
         Watch.load(previous["watch"], model.n_phases)
         if "watch" in previous
@@ -198,31 +247,30 @@ def advance(
         model, batch, judgement.codes, current, ambient, previous
     )
 
-    # Judge the rail where the phase conditions change and at the end of the batch: between
-    # those points the verdict moves only with load and temperature, which the newest
-    # sample speaks for.
-    change = np.any(judgement.codes[1:] != judgement.codes[:-1], axis=1)
     prior = previous.get("rail", {})
-    first = [] if prior else [0]  # a rail's first verdict belongs to its first sample
-    points = sorted({*first, *(np.nonzero(change)[0] + 1).tolist(), batch.n - 1})
-    weights = np.asarray(judgement.watch.weights)
+    signature = _signature(model, judgement, current, nodes[1:], ambient, batch.vout_v)
+    points, reference = _assessment_points(
+        model, batch, judgement.codes, signature, previous if prior else {}
+    )
     findings = list(judgement.findings)
-    verdict: Assessment | None = None
     for k in points:
         verdict = assess(
             model, codes=judgement.codes[k], current_a=current[k],
-            load_a=float(judgement.load_a[k]), vout_v=float(batch.vout_v[k]), weights=weights,
-            nodes_c=nodes[k + 1], ambient_c=float(ambient[k]),
+            load_a=float(judgement.load_a[k]), vout_v=float(batch.vout_v[k]),
+            weights=judgement.weights[k], nodes_c=nodes[k + 1], ambient_c=float(ambient[k]),
         )  # fmt: skip
         findings += _rail_findings(k, verdict, prior)
         prior = verdict.as_dict()
-    assert verdict is not None  # points always holds the last sample
+        assessed = {"seq": int(batch.seq[k]), "t_s": float(batch.t_s[k])}
+    if not points:
+        assessed = previous["assessed"]
     findings.sort(key=lambda f: f.sample)
     last = batch.n - 1
     active_now = judgement.codes[last] == ACTIVE
     new_state = {
         "watch": judgement.watch.__dict__,
-        "rail": verdict.as_dict() | {"margin_k": hottest_margin(model, nodes[-1], active_now)[1]},
+        "rail": prior | {"margin_k": hottest_margin(model, nodes[-1], active_now)[1]},
+        "assessed": assessed | {"signature": reference.tolist()},
         "nodes_c": nodes[-1].tolist(),
         "junction_std_k": junction_std[-1].tolist(),
         "estimate": {"mean_c": estimate.mean_c.tolist(), "cov_k2": estimate.cov_k2.tolist()},
@@ -246,6 +294,77 @@ def advance(
     return new_state, findings
 
 
+# Where the rail is assessed (module docstring): a time grid, and tolerances on what moves a
+# verdict between the points where phase conditions change (common practice: well inside
+# the margins the verdicts are drawn with, and above sensor noise).
+ASSESS_GRID_S = 10.0  # s, absolute time: one assessment at least in every grid cell
+LOAD_TOLERANCE = 0.02  # of the rail's total rated current, on the load and each phase current
+TEMP_TOLERANCE_K = 1.0  # on each junction estimate and on ambient
+VOUT_TOLERANCE = 0.02  # of nominal output voltage
+WEIGHT_TOLERANCE = 0.02  # on each sharing weight (1.0 = an equal share)
+_LOOKAHEAD = 64  # samples scanned at a time for the next drift beyond tolerance
+
+
+def _signature(
+    model: RailModel, judgement: Judgement, current: F64, nodes: F64, ambient: F64, vout: F64
+) -> F64:
+    """What a verdict depends on at each sample, in units of its tolerance. (n, m)."""
+    amps = LOAD_TOLERANCE * float(model.rated_current_a.sum())
+    return np.column_stack(
+        [
+            judgement.load_a / amps,
+            current / amps,
+            nodes[:, model.network.junction_node] / TEMP_TOLERANCE_K,
+            ambient / TEMP_TOLERANCE_K,
+            vout / (VOUT_TOLERANCE * model.vout_v),
+            judgement.weights / WEIGHT_TOLERANCE,
+        ]
+    )
+
+
+def _assessment_points(
+    model: RailModel,
+    batch: SampleBatch,
+    codes: npt.NDArray[np.int8],
+    signature: F64,
+    previous: dict[str, Any],
+) -> tuple[list[int], F64]:
+    """Samples of the batch at which the rail is assessed, and the signature of the last one.
+
+    ``previous``: the live state before the batch, or {} when the rail has no verdict yet.
+    """
+    known = bool(previous) and "assessed" in previous
+    codes_before = np.asarray(previous["watch"]["codes"]) if known else codes[0]
+    t_before = float(previous["sample"]["t_s"]) if known else batch.t_s[0]
+    cell = np.floor(batch.t_s / ASSESS_GRID_S)
+    forced = np.any(codes != np.concatenate([codes_before[None, :], codes[:-1]]), axis=1)
+    forced |= cell != np.concatenate([[np.floor(t_before / ASSESS_GRID_S)], cell[:-1]])
+    if known:
+        reference = np.asarray(previous["assessed"]["signature"], dtype=np.float64)
+    else:
+        forced[0] = True  # a rail's first verdict belongs to its first sample
+        reference = signature[0]
+    forced_at = np.flatnonzero(forced)
+    points: list[int] = []
+    start = 0
+    while start < batch.n:  # one turn per point (or per look-ahead window), not per sample
+        j = int(np.searchsorted(forced_at, start))
+        stop = int(forced_at[j]) if j < forced_at.size else batch.n
+        end = min(stop, start + _LOOKAHEAD)
+        drift = np.any(np.abs(signature[start:end] - reference) > 1.0, axis=1)
+        if drift.any():
+            k = start + int(np.argmax(drift))
+        elif end == stop and stop < batch.n:
+            k = stop
+        else:
+            start = end
+            continue
+        points.append(k)
+        reference = signature[k]
+        start = k + 1
+    return points, reference
+
+
 def _opt(x: float) -> float | None:
     return float(x) if np.isfinite(x) else None
 
@@ -262,9 +381,10 @@ def _estimate(
     node means (n + 1, n_nodes), junction std (n + 1, n_phases), and the final estimate.
 
     The network is driven by the measured currents through the loss model, each held until
-    the next sample, and corrected by the temperature readings (a suspect phase's reading is
-    not trusted). Without a previous estimate the filter starts from the steady state of the
-    first sample's losses, with a wide uncertainty.
+    the next sample with the ambient of the sample that starts the interval, and corrected by
+    the temperature readings (a suspect phase's reading is not trusted). Without a previous
+    estimate the filter starts from the steady state of the first sample's losses, with a
+    wide uncertainty.
     """
     rules = model.rules
     lagged = rules.sensor_tau_s is not None
@@ -282,24 +402,24 @@ def _estimate(
             np.asarray([p["condition"] == "active" for p in last]),
         )
         t_prev = float(previous["sample"]["t_s"])
+        ambient_prev = float(previous["sample"]["ambient_c"])
     else:
         try:
             start = steady_state_c(model.network, p0[0], slope[0], float(ambient[0]))
         except ThermalRunaway:
             start = np.full(model.network.n_nodes, float(ambient[0]))
         state = initial_state(model.network, start, std_k=START_STD_K, sensor_lag=lagged)
-        q0, qs, t_prev = p0[0], slope[0], float(batch.t_s[0])
+        q0, qs, t_prev, ambient_prev = p0[0], slope[0], float(batch.t_s[0]), float(ambient[0])
     dt = np.diff(np.concatenate([[t_prev], batch.t_s]))
     power0 = np.concatenate([q0[None, :], p0[:-1]])
     power_slope = np.concatenate([qs[None, :], slope[:-1]])
-    held_ambient = np.concatenate([ambient[:1], ambient[:-1]])
+    held_ambient = np.concatenate([[ambient_prev], ambient[:-1]])
     readings = np.where(codes == SUSPECT, np.nan, batch.temp_c)
     n_nodes = model.network.n_nodes
     means = [state.mean_c]
     stds = [np.sqrt(np.diag(state.cov_k2))[model.network.junction_node]]
     try:
-        for lo, hi in _similar_runs(dt):
-            step = float(dt[lo:hi].mean())
+        for lo, hi, step in _step_runs(dt):
             if step <= 0.0:  # samples at one instant: nothing to propagate
                 means.extend([means[-1]] * (hi - lo))
                 stds.extend([stds[-1]] * (hi - lo))
@@ -324,20 +444,25 @@ def _estimate(
 START_STD_K = 5.0  # uncertainty of a first estimate taken from the steady state
 
 
-SIMILAR_STEP = 0.02  # relative: sample intervals closer than this are propagated as one step
+STEP_GRID = 0.005  # relative: each interval is propagated with its length on this grid
 
 
-def _similar_runs(dt: F64) -> list[tuple[int, int]]:
-    """Split intervals into runs of near-equal length, each propagated with its mean step.
+def _step_runs(dt: F64) -> list[tuple[int, int, float]]:
+    """Runs of consecutive intervals that share one propagation step: (start, stop, step s).
 
-    The exact propagator wants a constant step. Rack clocks jitter by far less than the
-    thermal time constants, so intervals are grouped by their length in 2 % wide buckets:
-    a run keeps its total duration and no sample moves by more than 2 % of the time elapsed
-    in its run. This loops per run, not per sample.
+    The exact propagator is cached per step length, and rack clocks jitter. Each interval's
+    length is rounded to a geometric grid 0.5 % wide, (1 + 0.005)^m s: a pure function of the
+    interval itself, so the estimate does not depend on which samples share a request, and
+    no interval is propagated more than 0.25 % longer or shorter than it lasted. An interval
+    of zero (two samples at one instant) gets step 0. This loops per run, not per sample.
     """
-    bucket = np.round(np.log(np.maximum(dt, 1e-9)) / np.log1p(SIMILAR_STEP))
-    edges = np.concatenate([[0], np.flatnonzero(np.diff(bucket) != 0) + 1, [dt.size]])
-    return [(int(a), int(b)) for a, b in pairwise(edges)]
+    with np.errstate(divide="ignore"):
+        grid = np.where(dt > 0.0, np.round(np.log(dt) / np.log1p(STEP_GRID)), -np.inf)
+    edges = np.concatenate([[0], np.flatnonzero(np.diff(grid) != 0) + 1, [dt.size]])
+    return [
+        (int(a), int(b), (1.0 + STEP_GRID) ** int(grid[a]) if np.isfinite(grid[a]) else 0.0)
+        for a, b in pairwise(edges)
+    ]
 
 
 def _rail_findings(k: int, verdict: Assessment, prior: dict[str, Any]) -> list[Finding]:

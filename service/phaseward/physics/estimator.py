@@ -435,13 +435,15 @@ def kalman_run(
     if np.ndim(ambient_c) not in (0, 1):
         raise ValueError("ambient_c must be a float or have shape (n_steps,)")
     ambient = _array("ambient_c", ambient_c, shape[:1])
-    drive = p0 @ model.loss_input_k_per_w.T + ambient[:, None] * model.ambient_input
     means = np.empty((shape[0] + 1, model.n_states))
     variances = np.empty((shape[0] + 1, model.n_states))
     mean, cov = np.array(state.mean_c), np.array(state.cov_k2)
     means[0], variances[0] = mean, np.diag(cov)
     for k in range(shape[0]):
-        mean, cov = _predict(model, mean, cov, slope[k], drive[k])
+        # Each step's drive on its own (not one product over the run): the same sample then
+        # gives the same bits however a trace is split into runs.
+        drive = model.loss_input_k_per_w @ p0[k] + model.ambient_input * ambient[k]
+        mean, cov = _predict(model, mean, cov, slope[k], drive)
         mean, cov = _update(model, mean, cov, reading[k])
         means[k + 1], variances[k + 1] = mean, np.diag(cov)
     junction_var = variances[:, model.junction_state]

@@ -730,7 +730,11 @@ def time_to_limit_batch_s(
         return np.asarray(np.einsum("bgm,bpm->bgp", coef, phi_j[rows]))
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
-        return np.asarray(np.max(junction_c(rows, t) - limit[rows, None, :], axis=-1))
+        # A mode growing past float64 range (garbage losses) has reached any limit: overflow
+        # and the NaN it leaves count as reached, the safe side.
+        with np.errstate(over="ignore", invalid="ignore"):
+            hot = np.max(junction_c(rows, t) - limit[rows, None, :], axis=-1)
+        return np.asarray(np.where(np.isnan(hot), np.inf, hot))
 
     rate = np.maximum(np.abs(lam), 1e-300)
     runaway = lam[:, 0] <= 0.0

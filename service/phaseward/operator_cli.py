@@ -20,7 +20,7 @@ from rich.progress import BarColumn, Progress, TaskProgressColumn, TextColumn
 from rich.table import Table
 
 if TYPE_CHECKING:
-    from phaseward_client import Client
+    from phaseward_client import Client, Event
 
 DEFAULT_URL = "http://127.0.0.1:8470"
 out = Console()
@@ -122,7 +122,10 @@ def events(args: argparse.Namespace) -> int:
                 if args.json:
                     print(json.dumps(e.__dict__), flush=True)
                 else:
-                    out.print(f"{e.time}  {e.severity:<8} {e.rail_id}  {e.kind}  {e.message}")
+                    out.print(
+                        f"{e.time}  {e.severity:<8} {e.rail_id}  {event_kind(e)}  {e.message}",
+                        style=_EXPOSED_STYLE if _security_lost(e) else None,
+                    )
             return 0
         page = client.list_events(args.rail, kind=kinds, limit=args.limit)
     if args.json:
@@ -131,9 +134,27 @@ def events(args: argparse.Namespace) -> int:
     table = Table("id", "time", "severity", "rail", "kind", "phase", "message")
     for e in page.items:
         phase = "" if e.phase is None else str(e.phase)
-        table.add_row(str(e.id), e.time, e.severity, e.rail_id, e.kind, phase, e.message)
+        table.add_row(
+            str(e.id), e.time, e.severity, e.rail_id, event_kind(e), phase, e.message,
+            style=_EXPOSED_STYLE if _security_lost(e) else None,
+        )  # fmt: skip
     out.print(table)
     return 0
+
+
+_EXPOSED_STYLE = "bold yellow"
+
+
+def event_kind(e: Event) -> str:
+    """An event's kind as printed: N-1 security lost or regained is spelled out beside
+    ``capacity.exposed``, which reads too much like the rail condition ``exposed``."""
+    if e.kind == "capacity.exposed":
+        return f"{e.kind} (N-1 {'regained' if e.cleared else 'LOST'})"
+    return e.kind
+
+
+def _security_lost(e: Event) -> bool:
+    return e.kind == "capacity.exposed" and not e.cleared
 
 
 def screening(args: argparse.Namespace) -> int:

@@ -157,3 +157,25 @@ def test_unknown_rail_says_so_and_the_skip_link_reaches_main(
     # The 404 of the status fetch is the page's answer, not a script error.
     watched.console_errors[:] = [e for e in watched.console_errors if "404" not in e]
     same_origin_only(watched, server)
+
+
+def test_losing_n1_security_shows_as_its_own_event(
+    server: str, api: httpx.Client, page: Page, watched: Watched
+) -> None:
+    """``capacity.exposed`` is marked "N-1 lost" (not to be read as the condition "exposed")
+    with the weakest further loss and its shortfall; its clearing "N-1 regained"."""
+    assert api.post("/v1/rails", json=SMALL_RAIL).status_code == 201
+    body = [sample(k, [25.0] * 4) for k in range(3)] + [sample(k, [15.0] * 4) for k in (3, 4)]
+    assert api.post("/v1/rails/bench-a/samples", json=body).status_code == 200
+    page.goto(f"{server}/rails/bench-a")
+    rows = page.locator("#sec-events tr[data-kind='capacity.exposed']")
+    # Four events: new -> exposed, N-1 lost, exposed -> nominal, N-1 regained.
+    expect(page.locator("#sec-events .counts")).to_contain_text("4 loaded", timeout=60_000)
+    expect(rows).to_have_count(2)
+    lost, regained = rows.nth(1), rows.nth(0)  # newest first
+    expect(lost.locator(".n1-badge")).to_have_text("N-1 lost")
+    # 100 A against 3 x 30 A after any single loss (common practice): 10 A short.
+    expect(lost).to_contain_text("Weakest further loss: phase")
+    expect(lost).to_contain_text("10.0 A short (4 of 4 single losses overload)")
+    expect(regained.locator(".n1-badge.is-regained")).to_have_text("N-1 regained")
+    same_origin_only(watched, server)

@@ -131,9 +131,9 @@ async def test_every_trace_raises_the_events_it_was_invented_for(
         events, _ = await reference(client, app, trace)
         kinds[name] = {e[0] for e in events}
     assert {"phase.isolated", "phase.restored", "rail.condition"} <= kinds["trip"]
-    assert {"phase.isolated", "phase.restored", "rail.condition"} <= kinds["collapse"]
+    assert {"phase.isolated", "phase.restored", "capacity.exposed"} <= kinds["collapse"]
     assert {"telemetry.gap", "input.undervoltage", "output.excursion"} <= kinds["dropout"]
-    assert {"phase.isolated", "rail.condition"} <= kinds["exposed"]
+    assert {"phase.isolated", "rail.condition", "capacity.exposed"} <= kinds["exposed"]
     assert {"thermal.warning", "thermal.forecast"} <= kinds["thermal"]
 
 

@@ -30,6 +30,8 @@ class Assessment:
     binding: str
     n1_secure: bool
     n1_weakest: list[dict[str, Any]]
+    n1_overloading: int  # how many of the single further losses would overload the rail
+    n1_cases: int
     steady_junction_c: list[float | None]
     runaway: bool
     time_to_limit_s: float | None
@@ -69,6 +71,8 @@ def assess(
         ambient_c=ambient_c, depth=1,
     )  # fmt: skip
 
+    cases = n1.rows()
+
     current = np.where(np.isfinite(current_a), current_a, 0.0)
     p0, slope = phase_power(model, current, active)
     try:
@@ -101,7 +105,9 @@ def assess(
         binding_phase=binding_phase,
         binding=kind,
         n1_secure=n1.secure,
-        n1_weakest=n1.rows()[:3],
+        n1_weakest=cases[:3],
+        n1_overloading=int(sum(row["overloads"] for row in cases)),
+        n1_cases=int(n1.lost.shape[0]),
         steady_junction_c=steady_j,
         runaway=runaway,
         time_to_limit_s=ttl_value,

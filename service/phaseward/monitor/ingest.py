@@ -492,6 +492,7 @@ def _rail_findings(k: int, verdict: Assessment, prior: dict[str, Any]) -> list[F
                  "cleared": not short},
             )
         )  # fmt: skip
+    out += _security_findings(k, verdict, prior)
     forecast = verdict.time_to_limit_s is not None or verdict.runaway
     was_forecast = prior.get("time_to_limit_s") is not None or bool(prior.get("runaway"))
     if forecast != was_forecast:
@@ -513,6 +514,45 @@ def _rail_findings(k: int, verdict: Assessment, prior: dict[str, Any]) -> list[F
             )
         )  # fmt: skip
     return out
+
+
+def _security_findings(k: int, verdict: Assessment, prior: dict[str, Any]) -> list[Finding]:
+    """``capacity.exposed`` when the rail, whatever its condition, loses N-1 security (some
+    single further phase loss would overload it), cleared when it is regained. A rail's first
+    verdict is compared with a secure rail, so a rail that starts insecure says so."""
+    was_secure = bool(prior.get("n1_secure", True))
+    if verdict.n1_secure == was_secure:
+        return []
+    if verdict.n1_secure:
+        return [
+            Finding(
+                k, "capacity.exposed", "info", None,
+                "N-1 security regained: any single further phase loss is survivable",
+                {"cleared": True, "load_a": round(verdict.load_a, 3)},
+            )
+        ]  # fmt: skip
+    weakest = next((row for row in verdict.n1_weakest if row["overloads"]), None)
+    details: dict[str, Any] = {
+        "cleared": False,
+        "load_a": round(verdict.load_a, 3),
+        "overloading_losses": verdict.n1_overloading,
+        "single_losses": verdict.n1_cases,
+        "weakest": weakest,
+        "shortfall_a": None,
+    }
+    if weakest is None:  # no phase left to lose: nothing further can be survived
+        message = "N-1 security lost: no active phase left to lose"
+    else:
+        shortfall = max(0.0, verdict.load_a - weakest["capacity_a"])
+        details["shortfall_a"] = round(shortfall, 3)
+        lost = ", ".join(str(p) for p in weakest["lose_phases"])
+        message = (
+            f"N-1 security lost: losing phase {lost} would leave {weakest['capacity_a']:.1f} A "
+            f"for {verdict.load_a:.1f} A ({shortfall:.1f} A short)"
+            if shortfall > 0
+            else f"N-1 security lost: losing phase {lost} would overheat the survivors"
+        ) + f"; {verdict.n1_overloading} of {verdict.n1_cases} single losses overload"
+    return [Finding(k, "capacity.exposed", "warning", None, message, details)]
 
 
 def _event_row(model: RailModel, batch: SampleBatch, f: Finding) -> dict[str, Any]:

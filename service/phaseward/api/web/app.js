@@ -605,9 +605,9 @@ function renderEvents() {
     h('td', { class: 'when' }, h('time', { datetime: fmt.isoOf(e.time_s) },
       h('span', { class: 'clock' }, fmt.utc(e.time_s).slice(11, 19)), h('span', { class: 'sub' }, `${fmt.utc(e.time_s).slice(0, 10)} UTC`))),
     h('td', {}, tag(e.severity)),
-    h('th', { scope: 'row', class: 'kind' }, e.kind, e.details && e.details.cleared ? h('span', { class: 'cleared' }, 'cleared') : null),
+    h('th', { scope: 'row', class: 'kind' }, e.kind, securityBadge(e) || (e.details && e.details.cleared ? h('span', { class: 'cleared' }, 'cleared') : null)),
     h('td', { class: 'num' }, e.phase == null ? fmt.dash : `${e.phase}`),
-    h('td', { class: 'message' }, e.message, signature(e)),
+    h('td', { class: 'message' }, e.message, signature(e), weakestLoss(e)),
     h('td', { class: 'ack' }, ackCell(e))));
   replaceKeepingFocus(body,
     controls,
@@ -621,6 +621,22 @@ function renderEvents() {
         h('tbody', {}, rows)))
       : h('p', { class: 'empty' }, d.onlyOpen ? 'Nothing left to acknowledge.' : 'No events yet.'),
     d.nextCursor ? h('p', {}, h('button', { type: 'button', class: 'quiet', 'data-focus-key': 'older', onclick: () => loadEvents(d, { older: true }) }, 'Load older events')) : null);
+}
+
+// capacity.exposed (N-1 security lost or regained) reads too much like the rail condition
+// "exposed": say which it is, and name the weakest further loss.
+function securityBadge(e) {
+  if (e.kind !== 'capacity.exposed') return null;
+  const regained = !!(e.details && e.details.cleared);
+  return h('span', { class: `n1-badge${regained ? ' is-regained' : ''}` }, regained ? 'N-1 regained' : 'N-1 lost');
+}
+
+function weakestLoss(e) {
+  const d = e.details;
+  if (e.kind !== 'capacity.exposed' || !d || d.cleared || !d.weakest) return null;
+  const lost = d.weakest.lose_phases.join(', ');
+  const short = typeof d.shortfall_a === 'number' && d.shortfall_a > 0 ? `${fmt.num(d.shortfall_a, 1)} A short` : 'overheats the survivors';
+  return h('span', { class: 'signature' }, `Weakest further loss: phase ${lost}, ${short} (${d.overloading_losses} of ${d.single_losses} single losses overload)`);
 }
 
 function signature(e) {

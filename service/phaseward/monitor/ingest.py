@@ -54,7 +54,7 @@ from phaseward.monitor.conditions import (
 )
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
-from phaseward.physics.estimator import EstimatorState, initial_state, kalman_run
+from phaseward.physics.estimator import EstimatorState, initial_from_readings, kalman_run
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c
 from phaseward.store import events, rails, samples, state
 from phaseward.store.db import transaction
@@ -383,8 +383,8 @@ def _estimate(
     The network is driven by the measured currents through the loss model, each held until
     the next sample with the ambient of the sample that starts the interval, and corrected by
     the temperature readings (a suspect phase's reading is not trusted). Without a previous
-    estimate the filter starts from the steady state of the first sample's losses, with a
-    wide uncertainty.
+    estimate the filter starts from the first sample's readings and ambient
+    (:func:`~phaseward.physics.estimator.initial_from_readings`).
     """
     rules = model.rules
     lagged = rules.sensor_tau_s is not None
@@ -403,18 +403,22 @@ def _estimate(
         )
         t_prev = float(previous["sample"]["t_s"])
         ambient_prev = float(previous["sample"]["ambient_c"])
-    else:
+    readings = np.where(codes == SUSPECT, np.nan, batch.temp_c)
+    if "estimate" not in previous:
         try:
-            start = steady_state_c(model.network, p0[0], slope[0], float(ambient[0]))
+            steady = steady_state_c(model.network, p0[0], slope[0], float(ambient[0]))
         except ThermalRunaway:
-            start = np.full(model.network.n_nodes, float(ambient[0]))
-        state = initial_state(model.network, start, std_k=START_STD_K, sensor_lag=lagged)
+            steady = np.full(model.network.n_nodes, float(ambient[0]))
+        state = initial_from_readings(
+            model.network, float(ambient[0]), steady, readings[0],
+            sensor_noise_k=rules.sensor_noise_k, sensor_offset_k=rules.sensor_offset_k,
+            sensor_lag=lagged,
+        )  # fmt: skip
         q0, qs, t_prev, ambient_prev = p0[0], slope[0], float(batch.t_s[0]), float(ambient[0])
     dt = np.diff(np.concatenate([[t_prev], batch.t_s]))
     power0 = np.concatenate([q0[None, :], p0[:-1]])
     power_slope = np.concatenate([qs[None, :], slope[:-1]])
     held_ambient = np.concatenate([[ambient_prev], ambient[:-1]])
-    readings = np.where(codes == SUSPECT, np.nan, batch.temp_c)
     n_nodes = model.network.n_nodes
     means = [state.mean_c]
     stds = [np.sqrt(np.diag(state.cov_k2))[model.network.junction_node]]
@@ -439,9 +443,6 @@ def _estimate(
         means.extend([means[-1]] * (batch.n + 1 - len(means)))
         stds.extend([stds[-1]] * (batch.n + 1 - len(stds)))
     return np.asarray(means)[:, :n_nodes], np.asarray(stds), state
-
-
-START_STD_K = 5.0  # uncertainty of a first estimate taken from the steady state
 
 
 STEP_GRID = 0.005  # relative: each interval is propagated with its length on this grid

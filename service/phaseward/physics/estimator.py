@@ -278,6 +278,64 @@ def initial_state(
     return EstimatorState(mean, np.diag(std**2))
 
 
+START_RISE_STD = 0.5  # std of the fraction of the steady rise reached at the first sample
+START_COMMON_STD_K = 5.0  # K, std of an offset shared by every node (warm from before)
+START_NODE_STD_K = 2.0  # K, std of each node (and sensor state) on its own
+
+
+def initial_from_readings(
+    net: ThermalNetwork,
+    ambient_c: float,
+    steady_c: npt.ArrayLike,
+    measured_c: npt.ArrayLike,
+    *,
+    sensor_noise_k: npt.ArrayLike,
+    sensor_offset_k: npt.ArrayLike = 0.0,
+    sensor_lag: bool = False,
+) -> EstimatorState:
+    """Starting estimate from a rail's first sample: a prior from physics, conditioned on the
+    first temperature readings.
+
+    Prior (a choice, stated): T = T_amb + a (T_ss - T_amb) + c + e, with T_ss the steady state
+    of the first sample's losses (``steady_c``, (n_nodes,)), a ~ N(1/2, (1/2)^2) the unknown
+    fraction of that rise reached (just started .. long settled), c ~ N(0, 5^2 K^2) an offset
+    shared by every node (the rail warm from before, or ambient read off) and e ~ N(0, 2^2 K^2)
+    each node's own deviation; with ``sensor_lag`` each sensor state is its junction plus its
+    own N(0, 2^2 K^2). The readings (``measured_c``, (n_phases,), NaN: none) then update it as
+    a Kalman measurement would (Gaussian conditioning), so the nodes move together with what
+    the sensors say and the reported std is the posterior's.
+
+    >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
+    >>> net = build_coupled_network([CauerStages(np.array([2.0]), np.array([0.5]))],
+    ...                             board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> s = initial_from_readings(net, 25.0, [40.0, 30.0], [32.0], sensor_noise_k=0.5)
+    >>> print(f"{s.mean_c[0]:.1f} +- {np.sqrt(s.cov_k2[0, 0]):.2f} degC")
+    32.0 +- 0.50 degC
+    >>> bool(25.0 < s.mean_c[1] < 30.0)  # the board follows: cooler than the steady state
+    True
+    """
+    n, n_ph = net.n_nodes, net.n_phases
+    ambient = float(_array("ambient_c", ambient_c, ()))
+    rise = _array("steady_c", steady_c, (n,)) - ambient
+    reading = _array("measured_c", measured_c, (n_ph,), allow_nan=True)
+    var = _array("sensor_noise_k", sensor_noise_k, (n_ph,), positive=True) ** 2
+    offset = _array("sensor_offset_k", sensor_offset_k, (n_ph,))
+    size = n + (n_ph if sensor_lag else 0)
+    # Every state as a linear map of the independent draws (a, c, e_nodes, e_sensors).
+    loading = np.zeros((size, 2 + size))
+    loading[:n, 0] = START_RISE_STD * rise
+    loading[:, 1] = START_COMMON_STD_K
+    loading[:n, 2 : 2 + n] = START_NODE_STD_K * np.eye(n)
+    mean = np.concatenate([ambient + 0.5 * rise, np.zeros(size - n)])
+    if sensor_lag:
+        mean[n:] = mean[net.junction_node]
+        loading[n:, :] = loading[net.junction_node, :]
+        loading[n:, 2 + n :] = START_NODE_STD_K * np.eye(n_ph)
+    cov = loading @ loading.T
+    sensor = np.array(net.junction_node if not sensor_lag else n + np.arange(n_ph))
+    return EstimatorState(*_condition(mean, cov, sensor, var, offset, reading))
+
+
 def _predict(
     model: DiscreteModel,
     mean: FloatArray,
@@ -306,16 +364,31 @@ def _update(
     model: DiscreteModel, mean: FloatArray, cov: FloatArray, reading_c: FloatArray
 ) -> tuple[FloatArray, FloatArray]:
     """Measurement update with the finite readings (n_phases,) only; Joseph form."""
+    return _condition(
+        mean, cov, model.sensor_state, model.sensor_var_k2, model.sensor_offset_k, reading_c
+    )
+
+
+def _condition(
+    mean: FloatArray,
+    cov: FloatArray,
+    sensor_state: IntArray,
+    sensor_var_k2: FloatArray,
+    sensor_offset_k: FloatArray,
+    reading_c: FloatArray,
+) -> tuple[FloatArray, FloatArray]:
+    """Condition N(mean, cov) on the finite readings, reading p = state[sensor_state[p]] +
+    offset_p + N(0, var_p); Joseph form."""
     seen = np.isfinite(reading_c)
     if not np.any(seen):
         return mean, cov
-    rows = model.sensor_state[seen]
-    var = model.sensor_var_k2[seen]
+    rows = sensor_state[seen]
+    var = sensor_var_k2[seen]
     innovation_cov = cov[np.ix_(rows, rows)] + np.diag(var)
     # K = P H^T S^-1 with H picking ``rows``: P H^T = P[:, rows], and S is symmetric. numpy's
     # LU solve, not scipy's: this runs once per sample and scipy's checks cost twice the solve.
     gain = np.linalg.solve(innovation_cov, cov[rows]).T
-    innovation = reading_c[seen] - model.sensor_offset_k[seen] - mean[rows]
+    innovation = reading_c[seen] - sensor_offset_k[seen] - mean[rows]
     keep = np.eye(mean.size)
     keep[:, rows] -= gain
     cov = keep @ cov @ keep.T + (gain * var) @ gain.T

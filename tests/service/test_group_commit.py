@@ -18,7 +18,7 @@ from phaseward.api.group_commit import GroupCommit
 from phaseward.api.schemas.samples import SAMPLES, to_incoming
 from phaseward.errors import Conflict, PhasewardError
 from phaseward.monitor import ingest as ingest_module
-from phaseward.monitor.ingest import IngestResult, ingest
+from phaseward.monitor.ingest import IngestResult, ingest, ingest_together
 from phaseward.monitor.telemetry import IncomingSamples
 from phaseward.store import events
 from phaseward.store import state as state_store
@@ -183,3 +183,24 @@ async def test_a_database_failure_reaches_every_request_of_the_group(
             tg.start_soon(one, k)
     assert len(outcomes) == 3
     assert writer._queues == {}  # nothing left waiting
+
+
+async def test_a_resend_racing_its_original_in_one_group_is_judged_once(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """Two requests of one group carrying the same samples (a resend overlapping its original)
+    once refused the merged batch ("sequence number appears twice"); each request then went
+    alone in arrival order, and the later samples of the first-served request made the
+    earlier ones late: never judged. Now the group stores and judges each sample once."""
+    assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
+    bodies = [[body for [body] in requests()[k : k + 4]] for k in (0, 4)]  # seq 0-3, 4-7
+    resend = bodies[0][2:] + bodies[1]  # seq 2-7, overlapping the first request
+    [late, early] = ingest_together(
+        app.state.sessions, "bench-a", [incoming(resend), incoming(bodies[0])]
+    )
+    assert isinstance(late, IngestResult)
+    assert isinstance(early, IngestResult)
+    assert (late.stored, late.late, early.stored, early.duplicates) == (6, 0, 2, 2)
+    assert early.late == 0  # seq 0 and 1 were judged, not taken as older than the live state
+    assert ("phase.isolated", 1) in event_kinds(app)
+    assert live_state(app)["sample"]["seq"] == 7

@@ -21,11 +21,15 @@ hold after that sample, and where the rail is assessed depends on the samples al
   sample in each ``ASSESS_GRID_S`` cell of absolute time; and at every sample where what a
   verdict depends on moved beyond its tolerance since the last assessment (load and each phase
   current, each junction estimate, ambient, output voltage, each sharing weight; see
-  ``_signature``, the reference is carried in the live state as ``assessed``). Each verdict is
-  compared with the one before it for the rail events. The live state's verdict is the last
-  assessment's (at most one grid cell, or one tolerance, behind the newest sample; the live
-  state records which sample it was taken at). A recompute driven by tolerances alone, off
-  the per-sample path, keeps this rule: it only needs the carried reference.
+  ``_signature``: 2 % of the rail's total rated current, 1 K, 2 % of nominal output voltage,
+  0.02 of an equal share; the reference is carried in the live state as ``assessed``). Each
+  verdict is compared with the one before it for the rail events. The live state's verdict
+  is the last assessment's (at most one grid cell, or one tolerance, behind the newest
+  sample; the live state records which sample it was taken at). A recompute driven by
+  tolerances alone, off the per-sample path, keeps this rule: it needs only the carried
+  reference.
+* an isolation's fault class is decided from a fixed window of stored samples around it,
+  once the window is complete (``fault_class``), whichever request completes it.
 """
 
 from __future__ import annotations

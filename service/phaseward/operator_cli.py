@@ -86,6 +86,17 @@ def _n(value: float | None, digits: int = 1) -> str:
     return "-" if value is None else f"{value:.{digits}f}"
 
 
+def sample_age(age_s: float) -> str:
+    """A sample's age on the server's clock, honest about samples dated ahead of it.
+
+    >>> sample_age(5.2), sample_age(-12.0)
+    ('5 s ago', "12 s ahead of this server's clock")
+    """
+    if age_s < 0:
+        return f"{-age_s:.0f} s ahead of this server's clock"
+    return f"{age_s:.0f} s ago"
+
+
 def status(args: argparse.Namespace) -> int:
     with connected(args.url, embedded=False) as client:
         s = client.status(args.rail)
@@ -96,6 +107,8 @@ def status(args: argparse.Namespace) -> int:
     out.print(
         f"[bold]{s.rail_id}[/bold] v{s.version}: [bold]{s.condition or 'no telemetry yet'}[/bold]"
     )
+    if s.last_sample is not None:
+        out.print(f"newest sample seq {s.last_sample.seq}, {sample_age(s.last_sample.age_s)}")
     if cap is not None and th is not None:
         out.print(
             f"load {_n(s.load_a)} A, capacity {_n(cap.capacity_a)} A ({cap.binding}), "

@@ -77,22 +77,23 @@ def ingest(
 
 def ingest_together(
     sessions: sessionmaker[Session], rail_id: str, batches: Sequence[IncomingSamples]
-) -> list[IngestResult | PhasewardError]:
+) -> list[IngestResult | Exception]:
     """Several requests' batches for one rail in one transaction and one monitor pass (group
-    commit). Each batch stays all-or-nothing: if the merged batch is refused, every batch is
-    ingested on its own, so only the bad ones fail and each failure names its own field."""
+    commit). Each batch stays all-or-nothing: if the merged batch fails, for a refusal or for
+    anything unexpected, every batch is ingested on its own, so only the bad ones fail and
+    each failure is its own (one request's data never fails another request)."""
     if len(batches) > 1:
         try:
             with transaction(sessions) as session:
                 outcome = _ingest(session, rail_id, concat(batches))
             return list(outcome.split([b.n for b in batches]))
-        except PhasewardError:
+        except Exception:  # retried one by one below, where each failure is reported
             pass
-    results: list[IngestResult | PhasewardError] = []
+    results: list[IngestResult | Exception] = []
     for batch in batches:
         try:
             results.append(ingest(sessions, rail_id, batch))
-        except PhasewardError as err:
+        except Exception as err:  # handed to that request alone
             results.append(err)
     return results
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import time
 from typing import Any
 
 import numpy as np
@@ -16,7 +15,8 @@ from phaseward.monitor.telemetry import FLAG_NAMES
 from phaseward.store import state
 
 
-def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
+def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, Any]:
+    """``now_s``: the service's clock, which the newest sample's age is measured on."""
     rail, spec = rail_service.get(session, rail_id)
     model = rail_model.build(rail.id, rail.version, spec)
     live = state.get(session, rail_id)
@@ -49,7 +49,8 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
         last_sample={
             "seq": sample["seq"],
             "time_s": sample["t_s"],
-            "age_s": max(0.0, time.time() - sample["t_s"]),
+            "age_s": now_s - sample["t_s"],
+            "ahead_of_clock": sample["t_s"] > now_s,
             "vin_v": sample["vin_v"],
             "vout_v": sample["vout_v"],
             "ambient_c": sample["ambient_c"],

@@ -160,10 +160,11 @@ class PhaseStatus(Model):
 class LastSample(Model):
     seq: int
     time_s: float
-    age_s: float
+    age_s: float  # negative: dated ahead of the server's clock (within its allowed skew)
     vin_v: float
     vout_v: float
     ambient_c: float
+    ahead_of_clock: bool = False
 
 
 @dataclass(frozen=True)

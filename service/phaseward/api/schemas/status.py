@@ -22,7 +22,13 @@ class PhaseStatus(BaseModel):
 class LastSample(BaseModel):
     seq: int
     time_s: float
-    age_s: float
+    age_s: float = Field(
+        description="seconds since the sample by this server's clock; negative when the "
+        "sample is dated ahead of it (at most the allowed skew, PHASEWARD_FUTURE_SKEW_S)"
+    )
+    ahead_of_clock: bool = Field(
+        default=False, description="the sample is dated ahead of this server's clock"
+    )
     vin_v: float
     vout_v: float
     ambient_c: float

@@ -215,7 +215,7 @@ function announce(text) {
 function ageText(entry) {
   const st = entry && entry.status;
   if (!st || !st.last_sample) return fmt.dash;
-  return `${fmt.duration(st.last_sample.age_s + (Date.now() - entry.fetchedAt) / 1000)} ago`;
+  return fmt.age(st.last_sample.age_s + (Date.now() - entry.fetchedAt) / 1000);
 }
 
 function ageEl(id) {

@@ -22,10 +22,21 @@ from sqlalchemy.orm import Session, sessionmaker
 from phaseward.errors import Conflict, InvalidInput, NotFound, PhasewardError
 from phaseward.monitor import fault_class, rail_model
 from phaseward.monitor.assess import Assessment, assess, hottest_margin
-from phaseward.monitor.conditions import ACTIVE, PHASE_CONDITIONS, SUSPECT, Finding, Watch, judge
+from phaseward.monitor.conditions import (
+    ACTIVE,
+    ISOLATED,
+    MISSING,
+    PHASE_CONDITIONS,
+    READINGS,
+    Finding,
+    Judgement,
+    Watch,
+    judge,
+)
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
 from phaseward.physics.estimator import EstimatorState, initial_state, kalman_run
+from phaseward.physics.plausibility import RULES
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c
 from phaseward.store import events, rails, samples, state
 from phaseward.store.db import transaction
@@ -193,6 +204,7 @@ def advance(
         else Watch.fresh(model.n_phases)
     )
     judgement = judge(model, batch, watch)
+    received, batch = batch, judgement.clean  # judged without its implausible readings
     ambient = np.where(np.isfinite(batch.ambient_c), batch.ambient_c, model.ambient_c)
     current = np.where(np.isfinite(batch.current_a), batch.current_a, 0.0)
     nodes, junction_std, estimate = _estimate(
@@ -238,13 +250,40 @@ def advance(
             {
                 "condition": PHASE_CONDITIONS[int(judgement.codes[last, i])],
                 "current_a": _opt(batch.current_a[last, i]),
-                "temp_c": _opt(batch.temp_c[last, i]),
+                "temp_c": _opt(judgement.held_temp_c[last, i]),
                 "flags": int(batch.flags[last, i]),
             }
+            | telemetry_view(judgement, received, last, i)
             for i in range(model.n_phases)
         ],
+        "load_assumed_a": float(np.nansum(judgement.assumed_a[last]))
+        if np.isfinite(judgement.assumed_a[last]).any()
+        else None,
     }
     return new_state, findings
+
+
+def telemetry_view(judgement: Judgement, received: SampleBatch, k: int, i: int) -> dict[str, Any]:
+    """What phase ``i``'s figures at sample ``k`` rest on: ``reading`` fresh, held (the last
+    good one, ``reading_age_s`` old) or missing; ``assumed_a`` the current the load assumed
+    for it; ``implausible`` the rule its received reading broke, with the value received."""
+    rules = judgement.rules
+    rule = int(rules.current[k, i]) or int(rules.temp[k, i])
+    reading = int(judgement.reading[k, i])
+    return {
+        "reading": READINGS[reading],
+        "reading_age_s": None
+        if reading == MISSING
+        else float(received.t_s[k] - judgement.reading_t_s[i]),
+        "assumed_a": _opt(judgement.assumed_a[k, i]),
+        "implausible": None
+        if not rule
+        else {
+            "rule": RULES[rule],
+            "current_a": _opt(received.current_a[k, i]),
+            "temp_c": _opt(received.temp_c[k, i]),
+        },
+    }
 
 
 def _opt(x: float) -> float | None:
@@ -263,14 +302,14 @@ def _estimate(
     node means (n + 1, n_nodes), junction std (n + 1, n_phases), and the final estimate.
 
     The network is driven by the measured currents through the loss model, each held until
-    the next sample, and corrected by the temperature readings (a suspect phase's reading is
-    not trusted). Without a previous estimate the filter starts from the steady state of the
+    the next sample, and corrected by the temperature readings (an implausible one never
+    reaches here). Without a previous estimate the filter starts from the steady state of the
     first sample's losses, with a wide uncertainty.
     """
     rules = model.rules
     lagged = rules.sensor_tau_s is not None
-    active = codes == ACTIVE
-    p0, slope = phase_power(model, current, active)
+    powered = codes != ISOLATED  # a suspect or silent phase may still carry its current
+    p0, slope = phase_power(model, current, powered)
     if "estimate" in previous:
         state = EstimatorState(
             mean_c=np.asarray(previous["estimate"]["mean_c"], dtype=np.float64),
@@ -280,7 +319,7 @@ def _estimate(
         q0, qs = phase_power(
             model,
             np.asarray([p["current_a"] or 0.0 for p in last], dtype=np.float64),
-            np.asarray([p["condition"] == "active" for p in last]),
+            np.asarray([p["condition"] != "isolated" for p in last]),
         )
         t_prev = float(previous["sample"]["t_s"])
     else:
@@ -294,7 +333,7 @@ def _estimate(
     power0 = np.concatenate([q0[None, :], p0[:-1]])
     power_slope = np.concatenate([qs[None, :], slope[:-1]])
     held_ambient = np.concatenate([ambient[:1], ambient[:-1]])
-    readings = np.where(codes == SUSPECT, np.nan, batch.temp_c)
+    readings = batch.temp_c  # the gate has left out every implausible one
     n_nodes = model.network.n_nodes
     means = [state.mean_c]
     stds = [np.sqrt(np.diag(state.cov_k2))[model.network.junction_node]]

@@ -56,6 +56,10 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
             "ambient_c": sample["ambient_c"],
         },
         load_a=verdict["load_a"],
+        load_assumed_a=s.get("load_assumed_a"),
+        stale_phases=[i for i, p in enumerate(s["phases"]) if p.get("reading") == "held"],
+        silent_phases=[i for i, p in enumerate(s["phases"]) if p["condition"] == "silent"],
+        suspect_phases=[i for i, p in enumerate(s["phases"]) if p["condition"] == "suspect"],
         capacity={
             "capacity_a": verdict["capacity_a"],
             "binding_phase": verdict["binding_phase"],
@@ -90,6 +94,10 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
                 "rated_current_a": float(model.rated_current_a[i]),
                 "junction_limit_c": float(model.junction_limit_c[i]),
                 "flags": [name for name, bit in FLAG_NAMES.items() if p["flags"] & bit],
+                "reading": p.get("reading", "fresh"),
+                "reading_age_s": p.get("reading_age_s"),
+                "assumed_a": p.get("assumed_a"),
+                "implausible": p.get("implausible"),
             }
             for i, p in enumerate(s["phases"])
         ],

@@ -145,6 +145,15 @@ class SampleWindow(Model):
 
 
 @dataclass(frozen=True)
+class Implausible(Model):
+    """The plausibility rule a phase's newest reading broke, and the values as received."""
+
+    rule: str
+    current_a: float | None
+    temp_c: float | None
+
+
+@dataclass(frozen=True)
 class PhaseStatus(Model):
     index: int
     condition: str
@@ -154,6 +163,10 @@ class PhaseStatus(Model):
     rated_current_a: float
     junction_limit_c: float
     flags: list[str]
+    reading: str = "fresh"  # fresh, held (last good reading) or missing
+    reading_age_s: float | None = None
+    assumed_a: float | None = None  # current the load assumed for this phase
+    implausible: Implausible | None = None
 
 
 @dataclass(frozen=True)
@@ -228,6 +241,10 @@ class RailStatus(Model):
     caution: str
     state_version: int | None = None
     load_a: float | None = None
+    load_assumed_a: float | None = None
+    stale_phases: list[int] = field(default_factory=list)
+    silent_phases: list[int] = field(default_factory=list)
+    suspect_phases: list[int] = field(default_factory=list)
 
 
 # --- events ------------------------------------------------------------------------------

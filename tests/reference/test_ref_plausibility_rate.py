@@ -49,7 +49,8 @@ def slopes(spec_changes: dict[str, object], heating: bool) -> tuple[np.ndarray, 
     run = solve_ivp(rhs, (0.0, 30.0), start, method="Radau", t_eval=times, **TOL)
     assert run.success
     rates = np.array([rhs(t, y) for t, y in zip(run.t, run.y.T, strict=True)])[:, j]
-    below = run.y[j].T <= model.junction_limit_c
+    hot_c = run.y[j].T
+    below = hot_c <= model.junction_limit_c
     fastest = np.where(below, np.abs(rates), 0.0).max(axis=0)
     return fastest, model.plausible.temp_rate_k_per_s / rail_model.RATE_FACTOR
 

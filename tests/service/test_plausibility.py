@@ -167,9 +167,10 @@ GATE_KINDS = {"telemetry.implausible", "phase.suspect", "phase.isolated", "phase
               "telemetry.gap"}  # fmt: skip
 
 
-def gate_trace() -> list[dict[str, Any]]:
+def gate_trace(glitches: tuple[tuple[int, int, str], ...] = ()) -> list[dict[str, Any]]:
     """Invented: glitches of every rule, a phase that stops reporting past the staleness
-    window and comes back, a fast temperature jump, a bad input voltage."""
+    window and comes back, a fast temperature jump, a bad input voltage; ``glitches`` adds
+    (sample, phase, kind) spoilings of a drawn trace."""
     out = []
     for k in range(40):
         body = sample(k, [20.0, 21.0, 19.0, 20.0], temps=60.0 + 0.1 * k)
@@ -186,12 +187,26 @@ def gate_trace() -> list[dict[str, Any]]:
         if k == 33:
             body["vin_v"] = 1e6
         out.append(body)
+    for k, phase, kind in glitches:
+        reading = next((p for p in out[k]["phases"] if p["index"] == phase), None)
+        if kind == "drop" and reading is not None:
+            out[k]["phases"].remove(reading)
+        elif kind == "vout":
+            out[k]["vout_v"] = 50.0
+        elif reading is not None:
+            reading.update({"amps": {"current_a": 5e3}, "reverse": {"current_a": -40.0},
+                            "hot": {"temp_c": 900.0}, "cold": {"temp_c": -60.0}}[kind])  # fmt: skip
+    for body in out:
+        if not body["phases"]:  # a sample needs one reading
+            body["phases"] = [{"index": 0, "current_a": 20.0}]
     return out
 
 
-def run(cuts: list[int]) -> tuple[list[tuple[Any, ...]], dict[str, Any]]:
+def run(
+    cuts: list[int], glitches: tuple[tuple[int, int, str], ...] = ()
+) -> tuple[list[tuple[Any, ...]], dict[str, Any]]:
     model = rail_model.build("bench-a", 1, RailCreate.model_validate(SMALL_RAIL).stored())
-    whole = to_batch(to_incoming(SAMPLES.validate_python(gate_trace())), model)
+    whole = to_batch(to_incoming(SAMPLES.validate_python(gate_trace(glitches))), model)
     found: list[tuple[Any, ...]] = []
     state: dict[str, Any] = {}
     for lo, hi in zip([0, *cuts], [*cuts, whole.n], strict=True):
@@ -205,11 +220,19 @@ def run(cuts: list[int]) -> tuple[list[tuple[Any, ...]], dict[str, Any]]:
     return sorted(found, key=repr), state
 
 
+GLITCHES = st.tuples(
+    st.integers(0, 39), st.integers(0, 3),
+    st.sampled_from(["drop", "vout", "amps", "reverse", "hot", "cold"]),
+)  # fmt: skip
+
+
 @hyp_settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(st.sets(st.integers(1, 39), max_size=12))
-def test_gate_events_and_state_do_not_depend_on_how_samples_are_cut(cuts: set[int]) -> None:
-    one_by_one, last_state = run(list(range(1, 40)))
-    found, state = run(sorted(cuts))
+@given(st.sets(st.integers(1, 39), max_size=12), st.lists(GLITCHES, max_size=8).map(tuple))
+def test_gate_events_and_state_do_not_depend_on_how_samples_are_cut(
+    cuts: set[int], glitches: tuple[tuple[int, int, str], ...]
+) -> None:
+    one_by_one, last_state = run(list(range(1, 40)), glitches)
+    found, state = run(sorted(cuts), glitches)
     assert found == one_by_one
     # Sharing weights are a running average: equal within rounding, however summed.
     np.testing.assert_allclose(state["watch"]["weights"], last_state["watch"]["weights"])

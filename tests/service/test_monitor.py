@@ -126,6 +126,7 @@ async def test_missing_phase_goes_silent(client: httpx.AsyncClient, rail: str) -
     assert (status["load_a"], status["load_assumed_a"]) == (80.0, 20.0)
     assert status["stale_phases"] == []
     assert status["silent_phases"] == [3]
+    assert status["capacity"]["counted_phases"] == [0, 1, 2]
     assert ("telemetry.gap", 3) in await kinds(client, rail)
 
 

@@ -66,6 +66,7 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
             "binding": verdict["binding"],
             "headroom_a": verdict["capacity_a"] - verdict["load_a"],
             "headroom_rated_a": verdict["capacity_a"] - model.load_a,
+            "counted_phases": np.flatnonzero(active).tolist(),
         },
         thermal={
             "hottest_phase": hottest,

@@ -187,6 +187,7 @@ class CapacityStatus(Model):
     binding: str
     headroom_a: float
     headroom_rated_a: float
+    counted_phases: list[int] = field(default_factory=list)
 
 
 @dataclass(frozen=True)

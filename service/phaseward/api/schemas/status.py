@@ -62,6 +62,10 @@ class CapacityStatus(BaseModel):
     )
     headroom_a: float = Field(description="capacity minus the present load")
     headroom_rated_a: float = Field(description="capacity minus the load the rail must deliver")
+    counted_phases: list[int] = Field(
+        default_factory=list,
+        description="the active phases the capacity counts (not isolated, suspect or silent)",
+    )
 
 
 class ThermalStatus(BaseModel):

@@ -142,6 +142,21 @@ async def test_a_megavolt_input_is_flagged_and_judged_by_nothing(
     assert window["vin_v"][-1] == 1e6  # stored as received
 
 
+async def test_an_impossible_rail_current_or_ambient_is_flagged_and_judged_by_nothing(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    await client.post(f"{rail}/samples", json=[sample(k, EVEN, iout_a=80.0) for k in range(3)])
+    answer = await client.post(f"{rail}/samples", json=sample(3, EVEN, iout_a=1e9, ambient_c=999.0))
+    assert answer.json()["condition"] == "nominal"
+    status = (await client.get(f"{rail}/status")).json()
+    assert status["load_a"] == pytest.approx(80.0)  # the phases' sum stands in for 1e9 A
+    assert status["thermal"]["time_to_limit_s"] is None
+    flagged = [e for e in await events(client) if e["kind"] == "telemetry.implausible"]
+    assert sorted((e["details"]["reading"], e["details"]["rule"]) for e in flagged) == [
+        ("ambient_c", "ambient_out_of_range"), ("iout_a", "iout_out_of_range"),
+    ]  # fmt: skip
+
+
 async def test_a_per_rail_plausibility_section_sets_the_ranges(client: httpx.AsyncClient) -> None:
     spec = rail_spec(plausibility={"current_factor": 1.5})  # 60 A on a 40 A trip
     assert (await client.post("/v1/rails", json=spec)).status_code == 201
@@ -191,8 +206,9 @@ def gate_trace(glitches: tuple[tuple[int, int, str], ...] = ()) -> list[dict[str
         reading = next((p for p in out[k]["phases"] if p["index"] == phase), None)
         if kind == "drop" and reading is not None:
             out[k]["phases"].remove(reading)
-        elif kind == "vout":
-            out[k]["vout_v"] = 50.0
+        elif kind in ("vout", "iout", "ambient"):
+            out[k].update({"vout": {"vout_v": 50.0}, "iout": {"iout_a": 9e5},
+                           "ambient": {"ambient_c": 500.0}}[kind])  # fmt: skip
         elif reading is not None:
             reading.update({"amps": {"current_a": 5e3}, "reverse": {"current_a": -40.0},
                             "hot": {"temp_c": 900.0}, "cold": {"temp_c": -60.0}}[kind])  # fmt: skip
@@ -222,7 +238,7 @@ def run(
 
 GLITCHES = st.tuples(
     st.integers(0, 39), st.integers(0, 3),
-    st.sampled_from(["drop", "vout", "amps", "reverse", "hot", "cold"]),
+    st.sampled_from(["drop", "vout", "iout", "ambient", "amps", "reverse", "hot", "cold"]),
 )  # fmt: skip
 
 

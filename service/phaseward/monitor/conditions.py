@@ -7,6 +7,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -55,6 +56,8 @@ class Watch:
     good_vout_v: float | None = None
     vin_implausible: bool = False
     vout_implausible: bool = False
+    iout_implausible: bool = False
+    ambient_implausible: bool = False
 
     @classmethod
     def fresh(cls, n_phases: int) -> Watch:
@@ -122,7 +125,7 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     # suspect at once; a phase without a good reading keeps its last good one for stale_s.
     verdict = gate(
         model.plausible, t_s=batch.t_s, present=batch.present, current_a=cur, temp_c=temp,
-        ambient_c=ambient, vin_v=batch.vin_v, vout_v=batch.vout_v,
+        ambient_c=ambient, vin_v=batch.vin_v, vout_v=batch.vout_v, iout_a=batch.iout_a,
         ref_temp_c=prev.per_phase("ref_temp_c", n_phases),
         ref_t_s=prev.per_phase("ref_t_s", n_phases),
     )  # fmt: skip
@@ -166,7 +169,8 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         length=rules.debounce_samples,
         immediate=(batch.present & (flagged | bad)) | ~cur_within,  # the window was the wait
     )
-    load, assumed = _load(batch.iout_a, cur_used, codes)
+    iout = np.where(verdict.iout == 0, batch.iout_a, np.nan)
+    load, assumed = _load(iout, cur_used, codes)
     cur, temp = cur_used, temp_used  # what the watches below judge by
 
     findings: list[Finding] = []
@@ -241,16 +245,17 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     was_open = np.asarray(prev.implausible or [False] * n_phases, dtype=bool)
     episodes = latch(bad, (codes != SUSPECT) & ~bad, was_open)
     findings += _implausible_findings(model, episodes, was_open, verdict, batch)
-    vin_open, found = _watch(
-        verdict.vin != 0, verdict.vin == 0, prev.vin_implausible, "telemetry.implausible",
-        lambda k, on: _voltage_finding("vin_v", batch.vin_v[k], verdict.vin[k], model, on),
-    )  # fmt: skip
-    findings += found
-    vout_open, found = _watch(
-        verdict.vout != 0, verdict.vout == 0, prev.vout_implausible, "telemetry.implausible",
-        lambda k, on: _voltage_finding("vout_v", batch.vout_v[k], verdict.vout[k], model, on),
-    )  # fmt: skip
-    findings += found
+    rail_wide: dict[str, npt.NDArray[np.bool_]] = {}  # an episode per rail-wide reading
+    for name, rules_hit, values in (
+        ("vin_v", verdict.vin, batch.vin_v), ("vout_v", verdict.vout, batch.vout_v),
+        ("iout_a", verdict.iout, batch.iout_a), ("ambient_c", verdict.ambient, batch.ambient_c),
+    ):  # fmt: skip
+        rail_wide[name], found = _watch(
+            rules_hit != 0, rules_hit == 0, getattr(prev, f"{name[:-2]}_implausible"),
+            "telemetry.implausible",
+            partial(_rail_wide_finding, name, values, rules_hit),
+        )  # fmt: skip
+        findings += found
 
     history = np.concatenate([tail, raw])[-width:] if width else raw[:0]
     watch = Watch(
@@ -271,13 +276,16 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         implausible=[bool(e) for e in episodes[-1]],
         good_vin_v=_nones(vin[-1])[0],
         good_vout_v=_nones(vout[-1])[0],
-        vin_implausible=bool(vin_open[-1]),
-        vout_implausible=bool(vout_open[-1]),
+        vin_implausible=bool(rail_wide["vin_v"][-1]),
+        vout_implausible=bool(rail_wide["vout_v"][-1]),
+        iout_implausible=bool(rail_wide["iout_a"][-1]),
+        ambient_implausible=bool(rail_wide["ambient_c"][-1]),
     )
     findings.sort(key=lambda f: f.sample)
     clean = replace(
         batch, current_a=cur_used, temp_c=np.where(good_temp & batch.present, temp, np.nan),
-        vin_v=vin_v, vout_v=vout_v,
+        vin_v=vin_v, vout_v=vout_v, iout_a=iout,
+        ambient_c=np.where(verdict.ambient == 0, batch.ambient_c, np.nan),  # the rail's then
     )  # fmt: skip
     return Judgement(
         codes=codes, load_a=load, findings=findings, watch=watch, clean=clean, reading=reading,
@@ -318,16 +326,19 @@ def _load(iout_a: F64, cur_used: F64, codes: npt.NDArray[np.int8]) -> tuple[F64,
     return load, assumed
 
 
-def _voltage_finding(
-    name: str, value: float, rule: int, model: RailModel, on: bool
+def _rail_wide_finding(
+    name: str, values: F64, rules_hit: npt.NDArray[np.int8], k: int, on: bool
 ) -> tuple[str, dict[str, Any], int | None]:
-    limit = model.plausible.vin_max_v if name == "vin_v" else model.plausible.vout_max_v
+    value, rule = float(values[k]), int(rules_hit[k])
     if not on:
         return f"{name} reads plausibly again", {"reading": name}, None
+    instead = "the rail's definition" if name == "ambient_c" else "the last good value"
+    if name == "iout_a":
+        instead = "the phases' sum"
     return (
-        f"implausible reading {name} = {value:g} ({RULES[int(rule)].replace('_', ' ')}); "
-        "the last good value stands in",
-        {"reading": name, "value": _r(value), "rule": RULES[int(rule)], "limit": _r(limit)},
+        f"implausible reading {name} = {value:g} ({RULES[rule].replace('_', ' ')}); "
+        f"{instead} stands in",
+        {"reading": name, "value": _r(value), "rule": RULES[rule]},
         None,
     )
 

@@ -27,10 +27,12 @@ RULES = (
     "temp_rate",  # moved faster than the thermal network lets the junction move
     "vin_out_of_range",  # input voltage far above nominal
     "vout_out_of_range",  # output voltage above what a step-down converter can give
+    "iout_out_of_range",  # rail current beyond what all phases together can read
+    "ambient_out_of_range",  # ambient outside the temperature sensors' range
 )
 (
     PLAUSIBLE, CURRENT_ABOVE, CURRENT_REVERSE, TEMP_RANGE, TEMP_BELOW_AMBIENT, TEMP_RATE,
-    VIN_RANGE, VOUT_RANGE,
+    VIN_RANGE, VOUT_RANGE, IOUT_RANGE, AMBIENT_RANGE,
 ) = range(len(RULES))  # fmt: skip
 
 
@@ -52,7 +54,8 @@ class PlausibleRanges:
 
 @dataclass(frozen=True)
 class GateVerdict:
-    """Per reading: the rule it broke (0: none). current, temp: (n, n_phases); vin, vout: (n,).
+    """Per reading: the rule it broke (0: none). current, temp: (n, n_phases); vin, vout,
+    iout, ambient: (n,) (a missing iout or ambient is plausible).
     ref_temp_c, ref_t_s (n_phases,): the newest temperature inside the sensor range and its
     time, which the next batch's rate rule starts from (NaN: none yet)."""
 
@@ -60,6 +63,8 @@ class GateVerdict:
     temp: I8
     vin: I8
     vout: I8
+    iout: I8
+    ambient: I8
     ref_temp_c: F64
     ref_t_s: F64
 
@@ -74,11 +79,12 @@ def gate(
     ambient_c: F64,
     vin_v: F64,
     vout_v: F64,
+    iout_a: F64,
     ref_temp_c: F64,
     ref_t_s: F64,
 ) -> GateVerdict:
-    """Judge a batch of samples in time order. ``t_s``, ``ambient_c``, ``vin_v``, ``vout_v``:
-    (n,); ``present``, ``current_a``, ``temp_c``: (n, n_phases), NaN where not reported
+    """Judge a batch of samples in time order. ``t_s``, ``ambient_c``, ``vin_v``, ``vout_v``,
+    ``iout_a`` (NaN: not reported): (n,); ``present``, ``current_a``, ``temp_c``: (n, n_phases), NaN where not reported
     (a missing reading is not implausible, only absent); ``ref_*``: from the previous batch.
 
     The rate rule compares each temperature with the newest earlier one that was inside the
@@ -89,7 +95,7 @@ def gate(
     >>> v = gate(r, t_s=np.arange(4.0), present=np.ones((4, 1), bool),
     ...     current_a=np.array([[20.0], [1e9], [-28.0], [20.0]]),
     ...     temp_c=np.array([[60.0], [999.0], [61.0], [90.0]]), ambient_c=np.full(4, 25.0),
-    ...     vin_v=np.array([12.0, 12.0, 1e6, 12.0]), vout_v=np.ones(4),
+    ...     vin_v=np.array([12.0, 12.0, 1e6, 12.0]), vout_v=np.ones(4), iout_a=np.full(4, np.nan),
     ...     ref_temp_c=np.array([np.nan]), ref_t_s=np.array([np.nan]))
     >>> [RULES[c] for c in v.current[:, 0]]
     ['plausible', 'current_above_limit', 'current_reverse', 'plausible']
@@ -97,6 +103,7 @@ def gate(
     (['plausible', 'temp_out_of_range', 'plausible', 'temp_rate'], ['plausible', 'plausible', 'vin_out_of_range', 'plausible'])
     """  # noqa: E501
     n = t_s.shape[0]
+    air_ok = (ambient_c >= ranges.temp_min_c.min()) & (ambient_c <= ranges.temp_max_c.min())
     with np.errstate(invalid="ignore"):
         current = np.select(
             [
@@ -108,7 +115,9 @@ def gate(
             PLAUSIBLE,
         ).astype(np.int8)
         out_of_range = (temp_c < ranges.temp_min_c) | (temp_c > ranges.temp_max_c)
-        below_ambient = temp_c < ambient_c[:, None] - ranges.below_ambient_k
+        below_ambient = (
+            temp_c < np.where(air_ok, ambient_c, np.nan)[:, None] - ranges.below_ambient_k
+        )
 
         # The newest in-range temperature before each sample, carried across batches.
         usable = np.isfinite(temp_c) & ~out_of_range
@@ -127,12 +136,17 @@ def gate(
     ).astype(np.int8)
     vin = np.where(vin_v > ranges.vin_max_v, VIN_RANGE, PLAUSIBLE).astype(np.int8)
     vout = np.where(vout_v > ranges.vout_max_v, VOUT_RANGE, PLAUSIBLE).astype(np.int8)
+    iout_bad = (iout_a > ranges.current_max_a.sum()) | (iout_a < ranges.current_min_a.sum())
+    iout = np.where(iout_bad, IOUT_RANGE, PLAUSIBLE).astype(np.int8)
+    ambient = np.where(air_ok, PLAUSIBLE, AMBIENT_RANGE).astype(np.int8)
     last = newest[-1] if n else np.full(temp_c.shape[1], -1)
     return GateVerdict(
         current=current,
         temp=temp,
         vin=vin,
         vout=vout,
+        iout=iout,
+        ambient=ambient,
         ref_temp_c=np.where(last >= 0, temp_c[np.maximum(last, 0), cols], ref_temp_c),
         ref_t_s=np.where(last >= 0, t_s[np.maximum(last, 0)], ref_t_s),
     )

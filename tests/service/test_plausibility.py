@@ -142,6 +142,21 @@ async def test_a_megavolt_input_is_flagged_and_judged_by_nothing(
     assert window["vin_v"][-1] == 1e6  # stored as received
 
 
+async def test_a_sensed_current_is_not_trusted_at_an_implausible_temperature(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    """A sense voltage converts with the DCR at the phase's reported temperature: at 999 degC
+    that would read about a fifth of the true current, and shrink the load."""
+    await client.post(f"{rail}/samples", json=[sample(k, EVEN) for k in range(3)])
+    body = glitch(3, 1, temp_c=999.0)
+    body["phases"][1] = {"index": 1, "sense_v": 0.006, "temp_c": 999.0}  # 20 A at 20 degC
+    assert (await client.post(f"{rail}/samples", json=body)).status_code == 200
+    status = (await client.get(f"{rail}/status")).json()
+    assert status["phases"][1]["condition"] == "suspect"
+    assert status["phases"][1]["reading"] == "held"
+    assert status["load_a"] == pytest.approx(80.0)
+
+
 async def test_an_impossible_rail_current_or_ambient_is_flagged_and_judged_by_nothing(
     client: httpx.AsyncClient, rail: str
 ) -> None:

@@ -130,7 +130,11 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         ref_t_s=prev.per_phase("ref_t_s", n_phases),
     )  # fmt: skip
     bad = batch.present & ((verdict.current != 0) | (verdict.temp != 0))
-    good_cur = batch.present & (verdict.current == 0) & np.isfinite(cur)
+    # A current converted from a sense voltage at an implausible temperature is no better.
+    good_cur = (
+        batch.present & (verdict.current == 0) & np.isfinite(cur)
+        & ~(batch.sensed & (verdict.temp != 0))
+    )  # fmt: skip
     good_temp = (verdict.temp == 0) & np.isfinite(temp)
     held_cur, cur_t = _hold(
         cur, good_cur, batch.t_s, prev.per_phase("good_current_a", n_phases),

@@ -51,7 +51,7 @@ def database_url(tmp_path: Path) -> Iterator[str]:
 def settings(tmp_path: Path, database_url: str) -> Settings:
     return Settings(
         data_dir=tmp_path, database_url=database_url, auth_mode="open", max_body_bytes=64 * 1024,
-        max_batch_samples=50,
+        max_batch_samples=50, future_skew_s=1e8,  # invented test data is dated 2027
     )  # fmt: skip
 
 

@@ -30,6 +30,7 @@ def start_server(
         "PHASEWARD_PORT": str(port),
         "PHASEWARD_LOG_LEVEL": "warning",
         "PHASEWARD_AUTH_MODE": "open",
+        "PHASEWARD_FUTURE_SKEW_S": "1e8",  # invented test data is dated 2027
         **(extra_env or {}),
     }
     env.pop("PHASEWARD_DATABASE_URL", None)

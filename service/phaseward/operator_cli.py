@@ -21,6 +21,7 @@ from rich.table import Table
 
 if TYPE_CHECKING:
     from phaseward_client import Client, Event
+    from phaseward_client.models import PhaseStatus
 
 DEFAULT_URL = "http://127.0.0.1:8470"
 out = Console()
@@ -86,6 +87,36 @@ def _n(value: float | None, digits: int = 1) -> str:
     return "-" if value is None else f"{value:.{digits}f}"
 
 
+def sample_age(age_s: float) -> str:
+    """A sample's age on the server's clock, honest about samples dated ahead of it.
+
+    >>> sample_age(5.2), sample_age(-12.0)
+    ('5 s ago', "12 s ahead of this server's clock")
+    """
+    if age_s < 0:
+        return f"{-age_s:.0f} s ahead of this server's clock"
+    return f"{age_s:.0f} s ago"
+
+
+def reading_note(p: PhaseStatus) -> str:
+    """What a phase's figures rest on, in words (the page says the same)."""
+    notes = []
+    if p.implausible is not None:
+        got = (
+            f"{p.implausible.current_a:g} A"
+            if p.implausible.rule.startswith("current") and p.implausible.current_a is not None
+            else f"{p.implausible.temp_c:g} degC"
+        )
+        notes.append(f"suspect: implausible reading {got} ({p.implausible.rule}), left out")
+    if p.reading == "held" and p.reading_age_s is not None:
+        notes.append(f"last good reading, {p.reading_age_s:.0f} s old")
+    if p.reading == "missing":
+        notes.append("no reading")
+    if p.assumed_a is not None:
+        notes.append(f"load assumes {p.assumed_a:.1f} A")
+    return "; ".join(notes) or "fresh"
+
+
 def status(args: argparse.Namespace) -> int:
     with connected(args.url, embedded=False) as client:
         s = client.status(args.rail)
@@ -96,18 +127,25 @@ def status(args: argparse.Namespace) -> int:
     out.print(
         f"[bold]{s.rail_id}[/bold] v{s.version}: [bold]{s.condition or 'no telemetry yet'}[/bold]"
     )
+    if s.last_sample is not None:
+        out.print(f"newest sample seq {s.last_sample.seq}, {sample_age(s.last_sample.age_s)}")
     if cap is not None and th is not None:
         out.print(
             f"load {_n(s.load_a)} A, capacity {_n(cap.capacity_a)} A ({cap.binding}), "
             f"headroom {_n(cap.headroom_a)} A; hottest junction {_n(th.hottest_temp_c)} degC, "
             f"margin {_n(th.margin_k)} K"
         )
-    table = Table("phase", "condition", "current A", "sensor degC", "junction degC", "share")
+    if s.load_assumed_a is not None:
+        out.print(f"the load assumes {_n(s.load_assumed_a)} A for phases without a reading")
+    table = Table(
+        "phase", "condition", "current A", "sensor degC", "junction degC", "share", "reading"
+    )
     junctions = th.estimated_junction_c if th is not None else []
     for p in s.phases:
         table.add_row(
             str(p.index), p.condition, _n(p.current_a), _n(p.temp_c),
             _n(junctions[p.index] if junctions else None), f"{100 * p.share:.1f} %",
+            reading_note(p),
         )  # fmt: skip
     out.print(table)
     out.print(f"[dim]{s.caution}[/dim]")

@@ -43,6 +43,10 @@ class Settings(BaseSettings):
     retention_every_s: float = Field(default=3600.0, gt=0)
     max_trace_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
     max_trace_samples: int = Field(default=500_000, ge=2)
+    # Clock policy: a sample dated more than this ahead of the service's clock is refused
+    # (422 naming its time). One wrong clock would otherwise freeze the rail's live state,
+    # since every later sample would count as late.
+    future_skew_s: float = Field(default=60.0, ge=0, le=1e9)
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

@@ -74,6 +74,7 @@ def server(tmp_path: Path) -> Iterator[str]:
         "PHASEWARD_HOST": "127.0.0.1",
         "PHASEWARD_LOG_LEVEL": "warning",
         "PHASEWARD_AUTH_MODE": "open",
+        "PHASEWARD_FUTURE_SKEW_S": "1e8",  # invented test data is dated 2027
     }
     env.pop("PHASEWARD_DATABASE_URL", None)
     proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)

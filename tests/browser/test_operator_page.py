@@ -179,3 +179,20 @@ def test_losing_n1_security_shows_as_its_own_event(
     expect(lost).to_contain_text("10.0 A short (4 of 4 single losses overload)")
     expect(regained.locator(".n1-badge.is-regained")).to_have_text("N-1 regained")
     same_origin_only(watched, server)
+
+
+def test_page_says_suspect_with_the_implausible_reading_and_an_age_ahead_of_the_clock(
+    server: str, api: httpx.Client, page: Page, watched: Watched
+) -> None:
+    assert api.post("/v1/rails", json=SMALL_RAIL).status_code == 201
+    t0 = time.time() + 40.0  # every sample dated about half a minute ahead of the server
+    body = [sample(k, [20.0] * 4, t0=t0) for k in range(3)]
+    body.append(sample(3, [1e9, 20.0, 20.0, 20.0], t0=t0))
+    assert api.post("/v1/rails/bench-a/samples", json=body).status_code == 200
+    page.goto(f"{server}/rails/bench-a")
+    phase0 = page.locator("#sec-phases tr[data-phase='0']")
+    expect(phase0).to_contain_text(
+        "suspect: implausible reading 1000000000.0 A (current above limit), left out"
+    )
+    expect(page.locator("main")).to_contain_text("ahead of this server's clock")
+    same_origin_only(watched, server)

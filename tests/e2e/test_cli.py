@@ -110,3 +110,17 @@ def test_retain_and_keys_commands(tmp_path: Path) -> None:
     assert "wall display" in listed
     assert plain not in listed
     assert "revoked" in cli("keys", "revoke", "1")
+
+
+def test_status_in_words_names_an_implausible_reading_and_the_sample_age(base: str) -> None:
+    glitch = sample(5, [1e9, 20.0, 20.0, 20.0])
+    httpx.post(f"{base}/v1/rails/bench-a/samples", json=glitch).raise_for_status()
+    done = subprocess.run(
+        [sys.executable, "-m", "phaseward.cli", "status", "bench-a", "--url", base],
+        capture_output=True, text=True, timeout=120, env=os.environ | {"COLUMNS": "200"},
+    )  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    assert "suspect: implausible reading 1e+09 A (current_above_limit), left out" in done.stdout
+    # The test data is dated 2027, the server's clock is the real one: honest either way.
+    assert "newest sample seq 5, " in done.stdout
+    assert ("ahead of this server's clock" in done.stdout) != (" s ago" in done.stdout)

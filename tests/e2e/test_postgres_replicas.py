@@ -93,6 +93,7 @@ def serve(data_dir: Path, database_url: str) -> tuple[subprocess.Popen[bytes], s
         "PHASEWARD_PORT": str(port),
         "PHASEWARD_AUTH_MODE": "open",
         "PHASEWARD_LOG_LEVEL": "warning",
+        "PHASEWARD_FUTURE_SKEW_S": "1e8",  # invented test data is dated 2027
     }
     proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)
     return proc, f"http://127.0.0.1:{port}"

@@ -204,3 +204,42 @@ async def test_a_resend_racing_its_original_in_one_group_is_judged_once(
     assert early.late == 0  # seq 0 and 1 were judged, not taken as older than the live state
     assert ("phase.isolated", 1) in event_kinds(app)
     assert live_state(app)["sample"]["seq"] == 7
+
+
+async def test_an_unexpected_failure_on_one_requests_data_fails_that_request_alone(
+    client: httpx.AsyncClient, app: FastAPI, group_sizes: list[int], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Issue 17.5: one request's data that made the physics raise (not a refusal) failed the
+    whole group, and other clients' good requests answered 500."""
+    assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
+    real = ingest_module.to_batch
+
+    def fails_on_seq_13(incoming: IncomingSamples, model: Any) -> Any:
+        if 13 in incoming.seq:  # stands in for a numeric failure no validation foresaw
+            raise FloatingPointError("overflow in the loss model")
+        return real(incoming, model)
+
+    monkeypatch.setattr(ingest_module, "to_batch", fails_on_seq_13)
+    bodies = [
+        [sample(0, HEALTHY)],
+        [sample(1, HEALTHY)],
+        [sample(13, HEALTHY)],
+        [sample(2, HEALTHY)],
+    ]
+    writer = GroupCommit(app.state.sessions, max_samples=100)
+    outcomes: list[IngestResult | BaseException | None] = [None] * len(bodies)
+
+    async def one(k: int) -> None:
+        try:
+            outcomes[k] = await writer.submit("bench-a", incoming(bodies[k]))
+        except FloatingPointError as err:
+            outcomes[k] = err
+
+    async with anyio.create_task_group() as tg:
+        for k in range(len(bodies)):
+            tg.start_soon(one, k)
+    assert group_sizes == [4]  # the four went as one group, and the merged pass failed
+    assert isinstance(outcomes[2], FloatingPointError)
+    assert all(isinstance(outcomes[k], IngestResult) for k in (0, 1, 3))
+    window = await client.get("/v1/rails/bench-a/samples", params={"since": 0, "until": 4e9})
+    assert window.json()["seq"] == [0, 1, 2]

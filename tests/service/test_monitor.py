@@ -104,13 +104,29 @@ async def test_implausible_reading_without_flag_is_suspect(
 
 
 async def test_missing_phase_goes_silent(client: httpx.AsyncClient, rail: str) -> None:
+    """A phase not reported keeps its last good reading for the staleness window (5 s by
+    default), then it is silent."""
     await client.post(f"{rail}/samples", json=[sample(k, EVEN) for k in range(2)])
-    partial = [sample(k, EVEN) for k in (2, 3)]
+    partial = [sample(k, EVEN) for k in range(2, 9)]
     for p in partial:
         p["phases"] = p["phases"][:3]
-    await client.post(f"{rail}/samples", json=partial)
+    await client.post(f"{rail}/samples", json=partial[:2])
+    held = (await client.get(f"{rail}/status")).json()
+    assert held["phases"][3] | {"share": 0} == held["phases"][3] | {
+        "condition": "active", "reading": "held", "reading_age_s": 2.0, "current_a": 20.0,
+        "share": 0,
+    }  # fmt: skip
+    assert held["load_a"] == 80.0
+    await client.post(f"{rail}/samples", json=partial[2:])
     status = (await client.get(f"{rail}/status")).json()
     assert status["phases"][3]["condition"] == "silent"
+    assert status["phases"][3]["reading"] == "missing"
+    # Silent, it is assumed to carry what the others carry: the load is not shrunk by it.
+    assert status["phases"][3]["assumed_a"] == 20.0
+    assert (status["load_a"], status["load_assumed_a"]) == (80.0, 20.0)
+    assert status["stale_phases"] == []
+    assert status["silent_phases"] == [3]
+    assert status["capacity"]["counted_phases"] == [0, 1, 2]
     assert ("telemetry.gap", 3) in await kinds(client, rail)
 
 

@@ -103,6 +103,7 @@ def start_service(data_dir: Path, port: int) -> subprocess.Popen[bytes]:
         "PHASEWARD_LOG_LEVEL": "warning",
         "PHASEWARD_AUTH_MODE": "open",
         "PHASEWARD_SQLITE_SYNCHRONOUS": "NORMAL",
+        "PHASEWARD_FUTURE_SKEW_S": "1e8",  # invented test data is dated 2027
         "PYTHONPATH": os.pathsep.join(
             p for p in (str(REPO / "service"), env.get("PYTHONPATH", "")) if p
         ),

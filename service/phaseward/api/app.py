@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import time
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
@@ -15,6 +16,7 @@ from threadpoolctl import threadpool_limits
 from phaseward import __version__
 from phaseward.api import errors, observability
 from phaseward.api.auth import RateLimiter
+from phaseward.api.deps import Clock
 from phaseward.api.group_commit import GroupCommit
 from phaseward.api.routes import (
     analyses,
@@ -48,7 +50,9 @@ async def _retention_loop(settings: Settings, sessions: sessionmaker[Session]) -
         await asyncio.sleep(settings.retention_every_s)
 
 
-def create_app(settings: Settings | None = None) -> FastAPI:
+def create_app(settings: Settings | None = None, *, clock: Clock = time.time) -> FastAPI:
+    """``clock`` is the service's clock (epoch seconds): the clock policy refuses samples dated
+    ahead of it, and ages are measured on it. Tests pass a fixed one."""
     settings = settings or Settings()
     threadpool_limits(limits=settings.blas_threads, user_api="blas")  # for the whole process
     engine = build_engine(settings)
@@ -71,6 +75,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         lifespan=lifespan,
     )
     app.state.settings = settings
+    app.state.clock = clock
     app.state.engine = engine
     app.state.sessions = sessions
     app.state.read_sessions = read_sessions

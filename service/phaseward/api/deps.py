@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from typing import Annotated
 
 from fastapi import Depends, Request
@@ -14,6 +14,14 @@ from phaseward.settings import Settings
 def _settings(request: Request) -> Settings:
     settings: Settings = request.app.state.settings
     return settings
+
+
+Clock = Callable[[], float]  # epoch seconds now; time.time in service, a fixed one in tests
+
+
+def _clock(request: Request) -> Clock:
+    clock: Clock = request.app.state.clock
+    return clock
 
 
 def _sessions(request: Request) -> sessionmaker[Session]:
@@ -36,6 +44,7 @@ def _read_session(
 
 
 SettingsDep = Annotated[Settings, Depends(_settings)]
+ClockDep = Annotated[Clock, Depends(_clock)]
 SessionsDep = Annotated[sessionmaker[Session], Depends(_sessions)]
 ReadSessionsDep = Annotated[sessionmaker[Session], Depends(_read_sessions)]
 ReadSessionDep = Annotated[Session, Depends(_read_session)]

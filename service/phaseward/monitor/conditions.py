@@ -6,7 +6,8 @@ Codes (stored in the live state as words, in arrays as int8): see ``PHASE_CONDIT
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -16,18 +17,17 @@ from scipy import signal
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.sequences import changes, debounce, latch
 from phaseward.monitor.telemetry import ISOLATING_FLAGS, SampleBatch
+from phaseward.physics.plausibility import RULES, GateVerdict, gate
 
 F64 = npt.NDArray[np.float64]
 
 PHASE_CONDITIONS = ("active", "isolated", "suspect", "silent")
 ACTIVE, ISOLATED, SUSPECT, SILENT = range(4)
 
-# Plausibility bounds for a reading without a fault flag (common practice: a sensor that
-# reads far beyond what the hardware's own protection allows is more likely broken).
-SUSPECT_OVERCURRENT_FACTOR = 2.0
-SUSPECT_REVERSE_FRACTION = 0.5  # of rated current, flowing backwards
-SUSPECT_TEMP_BELOW_AMBIENT_K = 15.0
-SUSPECT_TEMP_ABOVE_LIMIT_K = 60.0
+# Where a phase's reading in use comes from (status ``reading``): reported in this sample,
+# the last good one held within the staleness window, or none.
+READINGS = ("fresh", "held", "missing")
+FRESH, HELD, MISSING = range(3)
 SHARE_SMOOTHING = 0.2  # weight of each new sample in the running sharing estimate
 
 
@@ -43,6 +43,22 @@ class Watch:
     undervoltage: bool = False
     excursion: bool = False
     last_t_s: float | None = None
+    # The plausibility gate and partial samples (None: nothing yet). Per phase: the last good
+    # current and temperature and their times, the newest in-range temperature the rate rule
+    # starts from, and whether an implausible-reading episode is open.
+    good_current_a: list[float | None] = field(default_factory=list)
+    good_current_t_s: list[float | None] = field(default_factory=list)
+    good_temp_c: list[float | None] = field(default_factory=list)
+    good_temp_t_s: list[float | None] = field(default_factory=list)
+    ref_temp_c: list[float | None] = field(default_factory=list)
+    ref_t_s: list[float | None] = field(default_factory=list)
+    implausible: list[bool] = field(default_factory=list)
+    good_vin_v: float | None = None
+    good_vout_v: float | None = None
+    vin_implausible: bool = False
+    vout_implausible: bool = False
+    iout_implausible: bool = False
+    ambient_implausible: bool = False
 
     @classmethod
     def fresh(cls, n_phases: int) -> Watch:
@@ -59,6 +75,13 @@ class Watch:
         if len(watch.codes) != n_phases:  # definition changed the phase count
             return cls.fresh(n_phases)
         return watch
+
+    def per_phase(self, name: str, n_phases: int) -> F64:
+        """A carried per-phase value as an array, NaN where unknown (or never stored)."""
+        values = getattr(self, name)
+        if len(values) != n_phases:
+            return np.full(n_phases, np.nan)
+        return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
 
 
 @dataclass(frozen=True)
@@ -80,30 +103,64 @@ class Judgement:
     weights: F64  # (n, n_phases) sharing weights after each sample
     findings: list[Finding]
     watch: Watch
+    # The samples as judged: implausible readings left out, missing or implausible phase
+    # readings replaced by the last good one within the staleness window (NaN beyond it),
+    # implausible voltages by the last good ones. Temperatures only where fresh and good
+    # (a held reading must not correct the estimator twice).
+    clean: SampleBatch
+    reading: npt.NDArray[np.int8]  # (n, n_phases) READINGS code of the current in use
+    reading_t_s: F64  # (n_phases,) time of the current in use at the last sample (NaN: none)
+    held_temp_c: F64  # (n, n_phases) temperature in use: fresh, held, or NaN
+    assumed_a: F64  # (n, n_phases) current assumed in the load for a phase without one
+    rules: GateVerdict
 
 
 def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     """Conditions and findings for a batch of in-order samples newer than the live state."""
     rules = model.rules
+    n_phases = model.n_phases
     cur, temp = batch.current_a, batch.temp_c
     ambient = np.where(np.isfinite(batch.ambient_c), batch.ambient_c, model.ambient_c)
     flagged = (batch.flags & ISOLATING_FLAGS) != 0
 
-    load = np.where(np.isfinite(batch.iout_a), batch.iout_a, np.nansum(cur, axis=1))
-    others_mean = _mean_of_others(np.where(flagged | ~batch.present, np.nan, np.abs(cur)))
-    collapsed = (np.abs(cur) < rules.collapse_fraction * others_mean) & (
+    # The plausibility gate: an implausible reading is judged by nothing, and its phase is
+    # suspect at once; a phase without a good reading keeps its last good one for stale_s.
+    verdict = gate(
+        model.plausible, t_s=batch.t_s, present=batch.present, current_a=cur, temp_c=temp,
+        ambient_c=ambient, vin_v=batch.vin_v, vout_v=batch.vout_v, iout_a=batch.iout_a,
+        ref_temp_c=prev.per_phase("ref_temp_c", n_phases),
+        ref_t_s=prev.per_phase("ref_t_s", n_phases),
+    )  # fmt: skip
+    bad = batch.present & ((verdict.current != 0) | (verdict.temp != 0))
+    # A current converted from a sense voltage at an implausible temperature is no better.
+    good_cur = (
+        batch.present & (verdict.current == 0) & np.isfinite(cur)
+        & ~(batch.sensed & (verdict.temp != 0))
+    )  # fmt: skip
+    good_temp = (verdict.temp == 0) & np.isfinite(temp)
+    held_cur, cur_t = _hold(
+        cur, good_cur, batch.t_s, prev.per_phase("good_current_a", n_phases),
+        prev.per_phase("good_current_t_s", n_phases),
+    )  # fmt: skip
+    held_temp, temp_t = _hold(
+        temp, good_temp, batch.t_s, prev.per_phase("good_temp_c", n_phases),
+        prev.per_phase("good_temp_t_s", n_phases),
+    )  # fmt: skip
+    with np.errstate(invalid="ignore"):
+        cur_within = batch.t_s[:, None] - cur_t <= rules.stale_s
+        temp_within = batch.t_s[:, None] - temp_t <= rules.stale_s
+    cur_used = np.where(cur_within, held_cur, np.nan)
+    temp_used = np.where(temp_within, held_temp, np.nan)
+    reading = np.select([good_cur, cur_within], [FRESH, HELD], MISSING).astype(np.int8)
+
+    usable = ~(flagged | bad) & np.isfinite(cur_used)
+    others_mean = _mean_of_others(np.where(usable, np.abs(cur_used), np.nan))
+    collapsed = (np.abs(cur_used) < rules.collapse_fraction * others_mean) & (
         others_mean > rules.collapse_fraction * model.rated_current_a
     )
-    implausible = (
-        ~np.isfinite(cur)
-        | (cur > SUSPECT_OVERCURRENT_FACTOR * model.overcurrent_limit_a)
-        | (cur < -SUSPECT_REVERSE_FRACTION * model.rated_current_a)
-        | (temp < ambient[:, None] - SUSPECT_TEMP_BELOW_AMBIENT_K)
-        | (temp > model.junction_limit_c + SUSPECT_TEMP_ABOVE_LIMIT_K)
-    )
     raw = np.select(
-        [~batch.present, flagged, implausible, collapsed],
-        [SILENT, ISOLATED, SUSPECT, ISOLATED],
+        [flagged & batch.present, bad, ~cur_within, collapsed],
+        [ISOLATED, SUSPECT, SILENT, ISOLATED],
         ACTIVE,
     ).astype(np.int8)
     width = rules.debounce_samples - 1
@@ -116,11 +173,16 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         tail=tail,
         prev=np.asarray(prev.codes, dtype=np.int8),
         length=rules.debounce_samples,
-        immediate=flagged & batch.present,
+        immediate=(batch.present & (flagged | bad)) | ~cur_within,  # the window was the wait
     )
+    iout = np.where(verdict.iout == 0, batch.iout_a, np.nan)
+    load, assumed = _load(iout, cur_used, codes)
+    cur, temp = cur_used, temp_used  # what the watches below judge by
 
     findings: list[Finding] = []
-    findings += _phase_findings(codes, np.asarray(prev.codes, np.int8), cur, temp, batch.flags)
+    findings += _phase_findings(
+        codes, np.asarray(prev.codes, np.int8), batch.current_a, batch.temp_c, batch.flags
+    )
     findings += _gap_findings(batch.t_s, prev.last_t_s, rules.gap_s)
 
     weights, imbalance_pct, worst = _sharing(model, codes, cur, np.asarray(prev.weights))
@@ -153,28 +215,53 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
             )
         )  # fmt: skip
 
-    uv_frac = batch.vin_v / model.vin_v
+    vin, _ = _hold(
+        batch.vin_v[:, None], verdict.vin[:, None] == 0, batch.t_s,
+        np.array([np.nan if prev.good_vin_v is None else prev.good_vin_v]), np.zeros(1),
+    )  # fmt: skip
+    vout, _ = _hold(
+        batch.vout_v[:, None], verdict.vout[:, None] == 0, batch.t_s,
+        np.array([np.nan if prev.good_vout_v is None else prev.good_vout_v]), np.zeros(1),
+    )  # fmt: skip
+    vin_v = np.where(np.isfinite(vin[:, 0]), vin[:, 0], model.vin_v)
+    vout_v = np.where(np.isfinite(vout[:, 0]), vout[:, 0], model.vout_v)
+    uv_frac = vin_v / model.vin_v
     undervoltage, found = _watch(
         uv_frac < rules.undervoltage_fraction, uv_frac > rules.undervoltage_fraction + 0.02,
         prev.undervoltage, "input.undervoltage",
         lambda k, on: (
-            f"input at {batch.vin_v[k]:.2f} V, nominal {model.vin_v:.2f} V"
+            f"input at {vin_v[k]:.2f} V, nominal {model.vin_v:.2f} V"
             if on else "input voltage recovered",
-            {"vin_v": _r(batch.vin_v[k])}, None,
+            {"vin_v": _r(vin_v[k])}, None,
         ),
     )  # fmt: skip
     findings += found
-    deviation = np.abs(batch.vout_v / model.vout_v - 1.0)
+    deviation = np.abs(vout_v / model.vout_v - 1.0)
     excursion, found = _watch(
         deviation > rules.excursion_fraction, deviation < 0.8 * rules.excursion_fraction,
         prev.excursion, "output.excursion",
         lambda k, on: (
-            f"output at {batch.vout_v[k]:.4f} V, {100 * deviation[k]:.1f} % off nominal"
+            f"output at {vout_v[k]:.4f} V, {100 * deviation[k]:.1f} % off nominal"
             if on else "output voltage back within its band",
-            {"vout_v": _r(batch.vout_v[k]), "deviation_pct": _r(100 * deviation[k])}, None,
+            {"vout_v": _r(vout_v[k]), "deviation_pct": _r(100 * deviation[k])}, None,
         ),
     )  # fmt: skip
     findings += found
+
+    was_open = np.asarray(prev.implausible or [False] * n_phases, dtype=bool)
+    episodes = latch(bad, (codes != SUSPECT) & ~bad, was_open)
+    findings += _implausible_findings(model, episodes, was_open, verdict, batch)
+    rail_wide: dict[str, npt.NDArray[np.bool_]] = {}  # an episode per rail-wide reading
+    for name, rules_hit, values in (
+        ("vin_v", verdict.vin, batch.vin_v), ("vout_v", verdict.vout, batch.vout_v),
+        ("iout_a", verdict.iout, batch.iout_a), ("ambient_c", verdict.ambient, batch.ambient_c),
+    ):  # fmt: skip
+        rail_wide[name], found = _watch(
+            rules_hit != 0, rules_hit == 0, getattr(prev, f"{name[:-2]}_implausible"),
+            "telemetry.implausible",
+            partial(_rail_wide_finding, name, values, rules_hit),
+        )  # fmt: skip
+        findings += found
 
     history = np.concatenate([tail, raw])[-width:] if width else raw[:0]
     watch = Watch(
@@ -186,9 +273,123 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         undervoltage=bool(undervoltage[-1]),
         excursion=bool(excursion[-1]),
         last_t_s=float(batch.t_s[-1]),
+        good_current_a=_nones(held_cur[-1]),
+        good_current_t_s=_nones(cur_t[-1]),
+        good_temp_c=_nones(held_temp[-1]),
+        good_temp_t_s=_nones(temp_t[-1]),
+        ref_temp_c=_nones(verdict.ref_temp_c),
+        ref_t_s=_nones(verdict.ref_t_s),
+        implausible=[bool(e) for e in episodes[-1]],
+        good_vin_v=_nones(vin[-1])[0],
+        good_vout_v=_nones(vout[-1])[0],
+        vin_implausible=bool(rail_wide["vin_v"][-1]),
+        vout_implausible=bool(rail_wide["vout_v"][-1]),
+        iout_implausible=bool(rail_wide["iout_a"][-1]),
+        ambient_implausible=bool(rail_wide["ambient_c"][-1]),
     )
     findings.sort(key=lambda f: f.sample)
-    return Judgement(codes=codes, load_a=load, weights=weights, findings=findings, watch=watch)
+    clean = replace(
+        batch, current_a=cur_used, temp_c=np.where(good_temp & batch.present, temp, np.nan),
+        vin_v=vin_v, vout_v=vout_v, iout_a=iout,
+        ambient_c=np.where(verdict.ambient == 0, batch.ambient_c, np.nan),  # the rail's then
+    )  # fmt: skip
+    return Judgement(
+        codes=codes, load_a=load, weights=weights, findings=findings, watch=watch, clean=clean,
+        reading=reading, reading_t_s=cur_t[-1], held_temp_c=temp_used, assumed_a=assumed,
+        rules=verdict,
+    )  # fmt: skip
+
+
+def _nones(values: F64) -> list[float | None]:
+    return [float(v) if np.isfinite(v) else None for v in values]
+
+
+def _hold(
+    values: F64, good: npt.NDArray[np.bool_], t_s: F64, prev: F64, prev_t: F64
+) -> tuple[F64, F64]:
+    """The last good value of each column at each row, and its time: a forward fill that
+    starts from the previous batch's ``prev`` and ``prev_t`` (NaN: none). (n, m) -> (n, m)."""
+    rows = np.where(good, np.arange(values.shape[0])[:, None], -1)
+    last = np.maximum.accumulate(rows, axis=0)
+    at = np.maximum(last, 0)
+    held = np.where(last >= 0, values[at, np.arange(values.shape[1])], prev)
+    held_t = np.where(last >= 0, t_s[at], prev_t)
+    return held, held_t
+
+
+def _load(iout_a: F64, cur_used: F64, codes: npt.NDArray[np.int8]) -> tuple[F64, F64]:
+    """The rail's load per sample and the current assumed for each phase without a reading.
+
+    The rail's own output current when reported; else the phases' currents in use, and a
+    phase that is not isolated yet has no current in use is assumed to carry the mean of the
+    phases that have one (never nothing: an unread phase must not shrink the load)."""
+    counted = np.isfinite(cur_used) & (codes != ISOLATED)
+    unknown = ~np.isfinite(cur_used) & (codes != ISOLATED)
+    total = np.where(counted, np.maximum(cur_used, 0.0), 0.0).sum(axis=1)
+    mean = total / np.maximum(counted.sum(axis=1), 1)
+    measured = np.isfinite(iout_a)
+    assumed = np.where(unknown & ~measured[:, None], mean[:, None], np.nan)
+    load = np.where(measured, iout_a, np.nansum(cur_used, axis=1) + np.nansum(assumed, axis=1))
+    return load, assumed
+
+
+def _rail_wide_finding(
+    name: str, values: F64, rules_hit: npt.NDArray[np.int8], k: int, on: bool
+) -> tuple[str, dict[str, Any], int | None]:
+    value, rule = float(values[k]), int(rules_hit[k])
+    if not on:
+        return f"{name} reads plausibly again", {"reading": name}, None
+    instead = "the rail's definition" if name == "ambient_c" else "the last good value"
+    if name == "iout_a":
+        instead = "the phases' sum"
+    return (
+        f"implausible reading {name} = {value:g} ({RULES[rule].replace('_', ' ')}); "
+        f"{instead} stands in",
+        {"reading": name, "value": _r(value), "rule": RULES[rule]},
+        None,
+    )
+
+
+def _implausible_findings(
+    model: RailModel,
+    episodes: npt.NDArray[np.bool_],
+    prev: npt.NDArray[np.bool_],
+    verdict: GateVerdict,
+    batch: SampleBatch,
+) -> list[Finding]:
+    """One ``telemetry.implausible`` per phase per episode: opened by the first implausible
+    reading (naming it and its rule), cleared when the phase is no longer suspect."""
+    out: list[Finding] = []
+    limits = model.plausible
+    for k, i in zip(*changes(episodes, prev), strict=True):
+        if not episodes[k, i]:
+            out.append(
+                Finding(int(k), "telemetry.implausible", "info", int(i),
+                        f"phase {i} reads plausibly again", {"cleared": True})
+            )  # fmt: skip
+            continue
+        on_current = verdict.current[k, i] != 0
+        name = "current_a" if on_current else "temp_c"
+        value = float(batch.current_a[k, i] if on_current else batch.temp_c[k, i])
+        rule = RULES[int(verdict.current[k, i] if on_current else verdict.temp[k, i])]
+        limit = {
+            "current_above_limit": limits.current_max_a[i],
+            "current_reverse": limits.current_min_a[i],
+            "temp_out_of_range": limits.temp_max_c[i]
+            if value > limits.temp_max_c[i]
+            else limits.temp_min_c[i],
+            "temp_rate": limits.temp_rate_k_per_s[i],
+        }.get(rule, np.nan)
+        out.append(
+            Finding(
+                int(k), "telemetry.implausible", "warning", int(i),
+                f"phase {i}: implausible reading {name} = {value:g} "
+                f"({rule.replace('_', ' ')}); left out of every judgement",
+                {"reading": name, "value": _r(value), "rule": rule, "limit": _r(limit),
+                 "cleared": False},
+            )
+        )  # fmt: skip
+    return out
 
 
 def _r(x: Any) -> float | None:

@@ -49,8 +49,10 @@ from phaseward.monitor import fault_class, rail_model
 from phaseward.monitor.assess import Assessment, assess, hottest_margin
 from phaseward.monitor.conditions import (
     ACTIVE,
+    ISOLATED,
+    MISSING,
     PHASE_CONDITIONS,
-    SUSPECT,
+    READINGS,
     Finding,
     Judgement,
     Watch,
@@ -59,6 +61,7 @@ from phaseward.monitor.conditions import (
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
 from phaseward.physics.estimator import EstimatorState, initial_from_readings, kalman_run
+from phaseward.physics.plausibility import RULES
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c
 from phaseward.store import events, rails, samples, state
 from phaseward.store.db import transaction
@@ -110,22 +113,23 @@ def ingest(
 
 def ingest_together(
     sessions: sessionmaker[Session], rail_id: str, batches: Sequence[IncomingSamples]
-) -> list[IngestResult | PhasewardError]:
+) -> list[IngestResult | Exception]:
     """Several requests' batches for one rail in one transaction and one monitor pass (group
-    commit). Each batch stays all-or-nothing: if the merged batch is refused, every batch is
-    ingested on its own, so only the bad ones fail and each failure names its own field."""
+    commit). Each batch stays all-or-nothing: if the merged batch fails, for a refusal or for
+    anything unexpected, every batch is ingested on its own, so only the bad ones fail and
+    each failure is its own (one request's data never fails another request)."""
     if len(batches) > 1:
         try:
             with transaction(sessions) as session:
                 outcome = _ingest(session, rail_id, concat(batches), [b.n for b in batches])
             return list(outcome.split([b.n for b in batches]))
-        except PhasewardError:
+        except Exception:  # retried one by one below, where each failure is reported
             pass
-    results: list[IngestResult | PhasewardError] = []
+    results: list[IngestResult | Exception] = []
     for batch in batches:
         try:
             results.append(ingest(sessions, rail_id, batch))
-        except PhasewardError as err:
+        except Exception as err:  # handed to that request alone
             results.append(err)
     return results
 
@@ -245,6 +249,7 @@ def advance(
         else Watch.fresh(model.n_phases)
     )
     judgement = judge(model, batch, watch)
+    received, batch = batch, judgement.clean  # judged without its implausible readings
     ambient = np.where(np.isfinite(batch.ambient_c), batch.ambient_c, model.ambient_c)
     current = np.where(np.isfinite(batch.current_a), batch.current_a, 0.0)
     nodes, junction_std, estimate = _estimate(
@@ -289,11 +294,15 @@ def advance(
             {
                 "condition": PHASE_CONDITIONS[int(judgement.codes[last, i])],
                 "current_a": _opt(batch.current_a[last, i]),
-                "temp_c": _opt(batch.temp_c[last, i]),
+                "temp_c": _opt(judgement.held_temp_c[last, i]),
                 "flags": int(batch.flags[last, i]),
             }
+            | telemetry_view(judgement, received, last, i)
             for i in range(model.n_phases)
         ],
+        "load_assumed_a": float(np.nansum(judgement.assumed_a[last]))
+        if np.isfinite(judgement.assumed_a[last]).any()
+        else None,
     }
     return new_state, findings
 
@@ -369,6 +378,29 @@ def _assessment_points(
     return points, reference
 
 
+def telemetry_view(judgement: Judgement, received: SampleBatch, k: int, i: int) -> dict[str, Any]:
+    """What phase ``i``'s figures at sample ``k`` rest on: ``reading`` fresh, held (the last
+    good one, ``reading_age_s`` old) or missing; ``assumed_a`` the current the load assumed
+    for it; ``implausible`` the rule its received reading broke, with the value received."""
+    rules = judgement.rules
+    rule = int(rules.current[k, i]) or int(rules.temp[k, i])
+    reading = int(judgement.reading[k, i])
+    return {
+        "reading": READINGS[reading],
+        "reading_age_s": None
+        if reading == MISSING
+        else float(received.t_s[k] - judgement.reading_t_s[i]),
+        "assumed_a": _opt(judgement.assumed_a[k, i]),
+        "implausible": None
+        if not rule
+        else {
+            "rule": RULES[rule],
+            "current_a": _opt(received.current_a[k, i]),
+            "temp_c": _opt(received.temp_c[k, i]),
+        },
+    }
+
+
 def _opt(x: float) -> float | None:
     return float(x) if np.isfinite(x) else None
 
@@ -386,14 +418,14 @@ def _estimate(
 
     The network is driven by the measured currents through the loss model, each held until
     the next sample with the ambient of the sample that starts the interval, and corrected by
-    the temperature readings (a suspect phase's reading is not trusted). Without a previous
+    the temperature readings (an implausible one never reaches here). Without a previous
     estimate the filter starts from the first sample's readings and ambient
     (:func:`~phaseward.physics.estimator.initial_from_readings`).
     """
     rules = model.rules
     lagged = rules.sensor_tau_s is not None
-    active = codes == ACTIVE
-    p0, slope = phase_power(model, current, active)
+    powered = codes != ISOLATED  # a suspect or silent phase may still carry its current
+    p0, slope = phase_power(model, current, powered)
     if "estimate" in previous:
         state = EstimatorState(
             mean_c=np.asarray(previous["estimate"]["mean_c"], dtype=np.float64),
@@ -403,11 +435,11 @@ def _estimate(
         q0, qs = phase_power(
             model,
             np.asarray([p["current_a"] or 0.0 for p in last], dtype=np.float64),
-            np.asarray([p["condition"] == "active" for p in last]),
+            np.asarray([p["condition"] != "isolated" for p in last]),
         )
         t_prev = float(previous["sample"]["t_s"])
         ambient_prev = float(previous["sample"]["ambient_c"])
-    readings = np.where(codes == SUSPECT, np.nan, batch.temp_c)
+    readings = batch.temp_c  # the gate has left out every implausible one
     if "estimate" not in previous:
         try:
             steady = steady_state_c(model.network, p0[0], slope[0], float(ambient[0]))

@@ -12,6 +12,7 @@ import numpy as np
 import numpy.typing as npt
 
 from phaseward.physics.losses import PhaseLossParams, loss_coefficients
+from phaseward.physics.plausibility import PlausibleRanges
 from phaseward.physics.thermal import (
     FosterStages,
     ThermalNetwork,
@@ -40,6 +41,7 @@ class MonitorRules:
     sensor_noise_k: float
     sensor_tau_s: float | None
     sensor_offset_k: float
+    stale_s: float = 5.0  # definitions stored before the setting existed get the default
 
 
 @dataclass(frozen=True)
@@ -69,6 +71,7 @@ class RailModel:
     network: ThermalNetwork
     rules: MonitorRules
     reliability: Reliability | None
+    plausible: PlausibleRanges
 
     @property
     def n_phases(self) -> int:
@@ -122,6 +125,9 @@ def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
         board_to_ambient_k_per_w=float(spec["board"]["to_ambient_k_per_w"]),
         board_c_j_per_k=float(spec["board"]["capacitance_j_per_k"]),
     )
+    rated = arr(lambda p: p["rated_current_a"])
+    trip = arr(lambda p: p["overcurrent_limit_a"])
+    junction_limit = arr(lambda p: p["junction_limit_c"])
     return RailModel(
         rail_id=rail_id,
         version=version,
@@ -129,9 +135,9 @@ def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
         vout_v=float(spec["vout_v"]),
         load_a=float(spec["load_a"]),
         ambient_c=float(spec["ambient_c"]),
-        rated_current_a=arr(lambda p: p["rated_current_a"]),
-        overcurrent_limit_a=arr(lambda p: p["overcurrent_limit_a"]),
-        junction_limit_c=arr(lambda p: p["junction_limit_c"]),
+        rated_current_a=rated,
+        overcurrent_limit_a=trip,
+        junction_limit_c=junction_limit,
         warning_margin_k=arr(lambda p: p["warning_margin_k"]),
         dcr_ohm=arr(lambda p: p["inductor"]["dcr_ohm"]),
         dcr_ref_c=arr(lambda p: p["inductor"]["dcr_ref_c"]),
@@ -139,6 +145,64 @@ def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
         network=network,
         rules=MonitorRules(**spec["monitor"]),
         reliability=Reliability(**spec["reliability"]) if spec.get("reliability") else None,
+        plausible=_plausible(spec, losses, network, rated, trip, junction_limit),
+    )
+
+
+# Defaults of the plausibility gate (the README's "Plausibility gate" gives each basis).
+CURRENT_FACTOR = 3.0  # x trip current; common practice: the breaker holds a fault near its trip
+REVERSE_FRACTION = 0.1  # of rated current; common practice: light-load negative current in
+# forced-continuous mode stays a small fraction of the rating
+TEMP_MIN_C = -55.0  # bottom of the usual industrial sensor range, from memory
+TEMP_ABOVE_LIMIT_K = 50.0  # a reading this far past the junction limit: the part is gone
+BELOW_AMBIENT_K = 15.0  # a powered stage cannot sit far below the air cooling it (common practice)
+RATE_FACTOR = 2.0  # margin on the heating rate the thermal network allows
+TEMP_STEP_K = 5.0  # sensor noise and quantisation between two readings, common practice
+VOLTAGE_FACTOR = 2.0  # common practice: parts of a rail are rated well below twice its input
+
+
+def _plausible(
+    spec: Mapping[str, Any],
+    losses: PhaseLossParams,
+    network: ThermalNetwork,
+    rated: F64,
+    trip: F64,
+    junction_limit: F64,
+) -> PlausibleRanges:
+    """The plausibility gate's ranges: the definition's ``plausibility`` section where given,
+    else derived from the rest of the definition.
+
+    The default rate bound: the junction node cannot heat faster than the loss at the trip
+    current (at the junction limit, where losses are largest) over its own heat capacity,
+    dT/dt <= P / C_j (the node equation C dT/dt = P - flows, with the flows out >= 0 while it
+    heats); a sensor behind the junction moves slower still. Cooling is bounded by the same
+    flows, so the rate holds both ways."""
+    given = {k: v for k, v in (spec.get("plausibility") or {}).items() if v is not None}
+    p0, slope = loss_coefficients(losses, trip)
+    heat_w = p0 + slope * junction_limit
+    c_junction = network.capacitance_j_per_k[network.junction_node]
+    rate = (
+        np.full_like(rated, float(given["temp_rate_k_per_s"]))
+        if "temp_rate_k_per_s" in given
+        else RATE_FACTOR * np.maximum(heat_w, 0.0) / c_junction
+    )
+    voltage = float(given.get("voltage_factor", VOLTAGE_FACTOR)) * float(spec["vin_v"])
+    return PlausibleRanges(
+        current_max_a=float(given.get("current_factor", CURRENT_FACTOR)) * trip,
+        current_min_a=-(
+            np.full_like(rated, float(given["reverse_band_a"]))
+            if "reverse_band_a" in given
+            else REVERSE_FRACTION * rated
+        ),
+        temp_min_c=np.full_like(rated, float(given.get("temp_min_c", TEMP_MIN_C))),
+        temp_max_c=np.full_like(rated, float(given["temp_max_c"]))
+        if "temp_max_c" in given
+        else junction_limit + TEMP_ABOVE_LIMIT_K,
+        temp_rate_k_per_s=rate,
+        temp_step_k=float(given.get("temp_step_k", TEMP_STEP_K)),
+        below_ambient_k=float(given.get("below_ambient_k", BELOW_AMBIENT_K)),
+        vin_max_v=voltage,
+        vout_max_v=voltage,
     )
 
 

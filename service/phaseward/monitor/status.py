@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import time
 from typing import Any
 
 import numpy as np
@@ -16,7 +15,8 @@ from phaseward.monitor.telemetry import FLAG_NAMES
 from phaseward.store import state
 
 
-def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
+def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, Any]:
+    """``now_s``: the service's clock, which the newest sample's age is measured on."""
     rail, spec = rail_service.get(session, rail_id)
     model = rail_model.build(rail.id, rail.version, spec)
     live = state.get(session, rail_id)
@@ -49,18 +49,24 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
         last_sample={
             "seq": sample["seq"],
             "time_s": sample["t_s"],
-            "age_s": max(0.0, time.time() - sample["t_s"]),
+            "age_s": now_s - sample["t_s"],
+            "ahead_of_clock": sample["t_s"] > now_s,
             "vin_v": sample["vin_v"],
             "vout_v": sample["vout_v"],
             "ambient_c": sample["ambient_c"],
         },
         load_a=verdict["load_a"],
+        load_assumed_a=s.get("load_assumed_a"),
+        stale_phases=[i for i, p in enumerate(s["phases"]) if p.get("reading") == "held"],
+        silent_phases=[i for i, p in enumerate(s["phases"]) if p["condition"] == "silent"],
+        suspect_phases=[i for i, p in enumerate(s["phases"]) if p["condition"] == "suspect"],
         capacity={
             "capacity_a": verdict["capacity_a"],
             "binding_phase": verdict["binding_phase"],
             "binding": verdict["binding"],
             "headroom_a": verdict["capacity_a"] - verdict["load_a"],
             "headroom_rated_a": verdict["capacity_a"] - model.load_a,
+            "counted_phases": np.flatnonzero(active).tolist(),
         },
         thermal={
             "hottest_phase": hottest,
@@ -89,6 +95,10 @@ def rail_status(session: Session, rail_id: str) -> dict[str, Any]:
                 "rated_current_a": float(model.rated_current_a[i]),
                 "junction_limit_c": float(model.junction_limit_c[i]),
                 "flags": [name for name, bit in FLAG_NAMES.items() if p["flags"] & bit],
+                "reading": p.get("reading", "fresh"),
+                "reading_age_s": p.get("reading_age_s"),
+                "assumed_a": p.get("assumed_a"),
+                "implausible": p.get("implausible"),
             }
             for i, p in enumerate(s["phases"])
         ],

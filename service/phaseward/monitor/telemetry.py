@@ -78,7 +78,9 @@ def concat(parts: Sequence[IncomingSamples]) -> IncomingSamples:
 @dataclass(frozen=True)
 class SampleBatch:
     """Samples in engineering units, (n,) per sample and (n, n_phases) per phase.
-    ``present`` is False where a phase was not reported (its values are NaN, flags 0)."""
+    ``present`` is False where a phase was not reported (its values are NaN, flags 0);
+    ``sensed`` is True where its current was converted from a sense voltage (at its reported
+    temperature, so it is only as good as that temperature)."""
 
     seq: I64
     t_s: F64
@@ -90,6 +92,7 @@ class SampleBatch:
     current_a: F64
     temp_c: F64
     flags: npt.NDArray[np.uint8]
+    sensed: npt.NDArray[np.bool_]
 
     @property
     def n(self) -> int:
@@ -153,6 +156,8 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
     temp[incoming.item, incoming.phase] = incoming.temp_c
     flags[incoming.item, incoming.phase] = incoming.flags
     seen[incoming.item, incoming.phase] = True
+    sensed = np.zeros((n, p), dtype=bool)
+    sensed[incoming.item, incoming.phase] = np.isfinite(incoming.sense_v)
     return SampleBatch(
         seq=incoming.seq,
         t_s=incoming.t_s,
@@ -164,6 +169,7 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
         current_a=current,
         temp_c=temp,
         flags=flags,
+        sensed=sensed,
     )
 
 

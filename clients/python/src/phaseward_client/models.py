@@ -145,6 +145,15 @@ class SampleWindow(Model):
 
 
 @dataclass(frozen=True)
+class Implausible(Model):
+    """The plausibility rule a phase's newest reading broke, and the values as received."""
+
+    rule: str
+    current_a: float | None
+    temp_c: float | None
+
+
+@dataclass(frozen=True)
 class PhaseStatus(Model):
     index: int
     condition: str
@@ -154,16 +163,21 @@ class PhaseStatus(Model):
     rated_current_a: float
     junction_limit_c: float
     flags: list[str]
+    reading: str = "fresh"  # fresh, held (last good reading) or missing
+    reading_age_s: float | None = None
+    assumed_a: float | None = None  # current the load assumed for this phase
+    implausible: Implausible | None = None
 
 
 @dataclass(frozen=True)
 class LastSample(Model):
     seq: int
     time_s: float
-    age_s: float
+    age_s: float  # negative: dated ahead of the server's clock (within its allowed skew)
     vin_v: float
     vout_v: float
     ambient_c: float
+    ahead_of_clock: bool = False
 
 
 @dataclass(frozen=True)
@@ -173,6 +187,7 @@ class CapacityStatus(Model):
     binding: str
     headroom_a: float
     headroom_rated_a: float
+    counted_phases: list[int] = field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -227,6 +242,10 @@ class RailStatus(Model):
     caution: str
     state_version: int | None = None
     load_a: float | None = None
+    load_assumed_a: float | None = None
+    stale_phases: list[int] = field(default_factory=list)
+    silent_phases: list[int] = field(default_factory=list)
+    suspect_phases: list[int] = field(default_factory=list)
 
 
 # --- events ------------------------------------------------------------------------------

@@ -7,7 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Path, Query, Response, status
 
 from phaseward.api.auth import Admin, RailAdmin, RailReader, Reader
-from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
+from phaseward.api.deps import ClockDep, ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.schemas.common import MAX_ROW_ID
 from phaseward.api.schemas.events import iso
@@ -76,5 +76,7 @@ def delete_rail(rail_id: RailId, sessions: SessionsDep, _: RailAdmin) -> None:
 
 
 @router.get("/{rail_id}/status")
-def get_status(rail_id: RailId, session: ReadSessionDep, _: RailReader) -> RailStatus:
-    return RailStatus.model_validate(rail_status(session, rail_id))
+def get_status(
+    rail_id: RailId, session: ReadSessionDep, clock: ClockDep, _: RailReader
+) -> RailStatus:
+    return RailStatus.model_validate(rail_status(session, rail_id, now_s=clock()))

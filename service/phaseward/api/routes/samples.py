@@ -12,7 +12,7 @@ from fastapi.concurrency import run_in_threadpool
 from pydantic import ValidationError
 
 from phaseward.api.auth import RailIngester, RailReader
-from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
+from phaseward.api.deps import ClockDep, ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES, field_path
 from phaseward.api.group_commit import GroupCommit
 from phaseward.api.observability import Metrics
@@ -22,6 +22,7 @@ from phaseward.api.schemas.samples import (
     SAMPLES,
     HistoryOut,
     IngestOut,
+    SampleIn,
     SampleWindow,
     to_incoming,
 )
@@ -65,6 +66,12 @@ async def read_limited(request: Request, limit: int) -> bytes:
     return b"".join(chunks)
 
 
+def _too_deep(where: str) -> BadRequest:
+    """JSON nested deeper than the parser's recursion limit (no sample nests more than three
+    levels): a client error, not the parser's crash."""
+    return BadRequest(f"{where} is JSON nested too deeply to be samples", field=where)
+
+
 def parse_items(body: bytes, content_type: str, *, max_items: int) -> list[Any]:
     """The samples of a JSON object, a JSON array or NDJSON lines, at most ``max_items``."""
     media = content_type.split(";")[0].strip().lower()
@@ -79,11 +86,15 @@ def parse_items(body: bytes, content_type: str, *, max_items: int) -> list[Any]:
                 raise BadRequest(
                     f"NDJSON line {number} is not JSON: {err}", field=f"line {number}"
                 ) from err
+            except RecursionError:
+                raise _too_deep(f"line {number}") from None
     elif media in ("application/json", ""):
         try:
             doc = json.loads(body)
         except ValueError as err:
             raise BadRequest(f"body is not JSON: {err}", field="body") from err
+        except RecursionError:
+            raise _too_deep("body") from None
         items = doc if isinstance(doc, list) else [doc]
     else:
         raise UnsupportedMediaType(
@@ -96,11 +107,32 @@ def parse_items(body: bytes, content_type: str, *, max_items: int) -> list[Any]:
     return items
 
 
+def ahead_of_clock(items: list[SampleIn], *, now_s: float, skew_s: float) -> InvalidInput | None:
+    """The refusal of the first sample dated more than ``skew_s`` ahead of ``now_s``, if any
+    (the clock policy: one wrong clock must not freeze a rail's live state)."""
+    times = np.array([s.time for s in items], dtype=np.float64)
+    ahead = np.nonzero(times > now_s + skew_s)[0]
+    if not ahead.size:
+        return None
+    k = int(ahead[0])
+    return InvalidInput(
+        f"sample dated {times[k] - now_s:.1f} s ahead of this server's clock; at most "
+        f"{skew_s:g} s of clock skew is allowed (PHASEWARD_FUTURE_SKEW_S)",
+        field=f"[{k}].time",
+    )
+
+
 @router.post("/{rail_id}/samples", openapi_extra=_BODY_DOC)
 async def post_samples(
-    rail_id: RailId, request: Request, sessions: SessionsDep, settings: SettingsDep, _: RailIngester
+    rail_id: RailId,
+    request: Request,
+    sessions: SessionsDep,
+    settings: SettingsDep,
+    clock: ClockDep,
+    _: RailIngester,
 ) -> IngestOut:
-    """Store samples and advance the rail's live state. The answer comes after the commit."""
+    """Store samples and advance the rail's live state. The answer comes after the commit.
+    A batch with a sample dated beyond the allowed clock skew is refused whole (422)."""
     body = await read_limited(request, settings.max_body_bytes)
     raw = parse_items(
         body, request.headers.get("content-type", ""), max_items=settings.max_batch_samples
@@ -116,6 +148,11 @@ async def post_samples(
         )
         metrics.count_samples(rejected=len(raw))
         raise
+    ahead = ahead_of_clock(items, now_s=clock(), skew_s=settings.future_skew_s)
+    if ahead is not None:
+        await run_in_threadpool(record_rejection, sessions, rail_id, samples=len(raw), error=ahead)
+        metrics.count_samples(rejected=len(raw))
+        raise ahead
     group_commit: GroupCommit = request.app.state.group_commit
     try:
         result = await group_commit.submit(rail_id, to_incoming(items))

@@ -120,6 +120,40 @@ class MonitorSpec(Contract):
         default=None, description="first-order lag of the sensor behind the junction"
     )
     sensor_offset_k: float = Field(default=0.0, ge=-50, le=50)
+    stale_s: Annotated[float, Field(gt=0, le=86400)] = Field(
+        default=5.0,
+        description="a phase not reported (or read implausibly) keeps its last good reading "
+        "this long, then it is silent (or suspect)",
+    )
+
+
+class PlausibilitySpec(Contract):
+    """What this rail's telemetry can plausibly read. A field left out (null) follows from the
+    rest of the definition (defaults and each rule's basis: README, "Plausibility gate")."""
+
+    current_factor: Annotated[float, Field(gt=1, le=100)] | None = Field(
+        default=None, description="currents above this multiple of overcurrent_limit_a (3)"
+    )
+    reverse_band_a: Annotated[float, Field(ge=0, le=1e6)] | None = Field(
+        default=None, description="backward current beyond this (10 % of rated_current_a)"
+    )
+    temp_min_c: Celsius | None = Field(default=None, description="(-55 degC)")
+    temp_max_c: Celsius | None = Field(default=None, description="(junction limit + 50 K)")
+    below_ambient_k: Annotated[float, Field(gt=0, le=200)] | None = Field(
+        default=None, description="a sensor colder than ambient by more than this (15 K)"
+    )
+    temp_rate_k_per_s: Annotated[float, Field(gt=0, le=1e6)] | None = Field(
+        default=None,
+        description="fastest plausible change of a temperature reading (twice the "
+        "junction's heating rate at the trip current and limit, from the thermal network)",
+    )
+    temp_step_k: Annotated[float, Field(ge=0, le=100)] | None = Field(
+        default=None, description="change allowed on top of the rate, for noise (5 K)"
+    )
+    voltage_factor: Annotated[float, Field(gt=1, le=100)] | None = Field(
+        default=None,
+        description="vin above this multiple of vin_v, or vout above it times vin_v (2)",
+    )
 
 
 class ReliabilitySpec(Contract):
@@ -151,6 +185,7 @@ class RailBody(Contract):
     overrides: list[PhaseOverride] = Field(default_factory=list, max_length=32)
     board: BoardSpec
     monitor: MonitorSpec = Field(default_factory=MonitorSpec)
+    plausibility: PlausibilitySpec | None = None
     reliability: ReliabilitySpec | None = None
     output: OutputSpec | None = None
 
@@ -176,6 +211,29 @@ class RailBody(Contract):
                 raise ValueError(f"phase index {o.index} is out of range for {count} phases")
             seen.add(o.index)
         return overrides
+
+    @field_validator("plausibility")
+    @classmethod
+    def _plausible_covers_the_limits(
+        cls, p: PlausibilitySpec | None, info: ValidationInfo
+    ) -> PlausibilitySpec | None:
+        """A plausibility range narrower than the rail's own limits would hide a real
+        overtemperature as a broken sensor: refused."""
+        if p is None or p.temp_max_c is None:
+            return p
+        if p.temp_min_c is not None and p.temp_min_c >= p.temp_max_c:
+            raise ValueError("temp_min_c must be below temp_max_c")
+        phase: PhaseSpec | None = info.data.get("phase")
+        overrides: list[PhaseOverride] = info.data.get("overrides", [])
+        limits = [o.junction_limit_c for o in overrides if o.junction_limit_c is not None]
+        if phase is not None:
+            limits.append(phase.junction_limit_c)
+        if limits and p.temp_max_c <= max(limits):
+            raise ValueError(
+                f"temp_max_c ({p.temp_max_c}) must be above every junction limit "
+                f"({max(limits)}): a real overtemperature must never read as implausible"
+            )
+        return p
 
     def stored(self) -> dict[str, Any]:
         return self.model_dump(mode="json")

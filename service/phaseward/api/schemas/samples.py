@@ -10,12 +10,19 @@ import numpy as np
 import numpy.typing as npt
 from pydantic import BeforeValidator, Field, TypeAdapter, WithJsonSchema, model_validator
 
-from phaseward.api.schemas.common import Celsius, Contract, NonNegative
+from phaseward.api.schemas.common import Celsius, Contract
 from phaseward.monitor.telemetry import FLAG_NAMES, NO_WORD, IncomingSamples
 from phaseward.physics.pmbus import status_word_flags
 
 EPOCH_MAX_S = 1.0e11  # far beyond any real clock; catches milliseconds sent as seconds
 Word = Annotated[int, Field(ge=0, le=0xFFFF)]
+# Bounds of what can be a reading at all, far beyond any real rail, so that nothing accepted
+# can overflow the physics (a current of 1e300 A squared is infinite). Readings inside these
+# bounds that the rail cannot produce are stored as received and flagged by the plausibility
+# gate (physics/plausibility.py), which is where a rail's own limits apply.
+Amps = Annotated[float, Field(ge=-1e9, le=1e9)]
+SenseVolts = Annotated[float, Field(ge=-1e3, le=1e3)]  # DCR sense voltages are millivolts
+Volts = Annotated[float, Field(ge=0, le=1e6)]
 
 
 class PhaseReading(Contract):
@@ -24,8 +31,8 @@ class PhaseReading(Contract):
     ``read_iout`` (a raw PMBus READ_IOUT word, LINEAR11)."""
 
     index: Annotated[int, Field(ge=0, le=63)]
-    current_a: float | None = None
-    sense_v: float | None = None
+    current_a: Amps | None = None
+    sense_v: SenseVolts | None = None
     read_iout: Word | None = None
     temp_c: Celsius | None = None
     breaker_tripped: bool = False
@@ -81,9 +88,9 @@ Timestamp = Annotated[
 class SampleIn(Contract):
     time: Timestamp
     seq: Annotated[int, Field(ge=0, le=2**62)]
-    vin_v: NonNegative
-    vout_v: NonNegative
-    iout_a: float | None = None
+    vin_v: Volts
+    vout_v: Volts
+    iout_a: Amps | None = None
     ambient_c: Celsius | None = None
     phases: list[PhaseReading] = Field(min_length=1, max_length=64)
 

@@ -8,6 +8,12 @@ from phaseward.api.schemas.analyses import ScreeningCase
 from phaseward.api.schemas.common import CAUTION
 
 
+class Implausible(BaseModel):
+    rule: str
+    current_a: float | None = Field(description="as received")
+    temp_c: float | None = Field(description="as received")
+
+
 class PhaseStatus(BaseModel):
     index: int
     condition: str = Field(description="active, isolated, suspect or silent")
@@ -17,12 +23,30 @@ class PhaseStatus(BaseModel):
     rated_current_a: float
     junction_limit_c: float
     flags: list[str]
+    reading: str = Field(
+        default="fresh",
+        description="where current_a comes from: fresh (this sample), held (the last good "
+        "reading, within the rail's monitor.stale_s), missing",
+    )
+    reading_age_s: float | None = Field(default=None, description="age of the reading in use")
+    assumed_a: float | None = Field(
+        default=None, description="current the load assumed for this phase (no reading in use)"
+    )
+    implausible: Implausible | None = Field(
+        default=None, description="the newest reading broke a plausibility rule (suspect)"
+    )
 
 
 class LastSample(BaseModel):
     seq: int
     time_s: float
-    age_s: float
+    age_s: float = Field(
+        description="seconds since the sample by this server's clock; negative when the "
+        "sample is dated ahead of it (at most the allowed skew, PHASEWARD_FUTURE_SKEW_S)"
+    )
+    ahead_of_clock: bool = Field(
+        default=False, description="the sample is dated ahead of this server's clock"
+    )
     vin_v: float
     vout_v: float
     ambient_c: float
@@ -38,6 +62,10 @@ class CapacityStatus(BaseModel):
     )
     headroom_a: float = Field(description="capacity minus the present load")
     headroom_rated_a: float = Field(description="capacity minus the load the rail must deliver")
+    counted_phases: list[int] = Field(
+        default_factory=list,
+        description="the active phases the capacity counts (not isolated, suspect or silent)",
+    )
 
 
 class ThermalStatus(BaseModel):
@@ -81,6 +109,16 @@ class RailStatus(BaseModel):
     condition: str | None = Field(description="nominal, exposed, degraded, overloaded, down")
     rated_load_a: float
     load_a: float | None = None
+    load_assumed_a: float | None = Field(
+        default=None,
+        description="part of load_a assumed for phases without a reading (each at the mean "
+        "of the phases with one); null: all measured",
+    )
+    stale_phases: list[int] = Field(default_factory=list, description="on a held reading")
+    silent_phases: list[int] = Field(default_factory=list)
+    suspect_phases: list[int] = Field(
+        default_factory=list, description="an implausible reading: not vouched for"
+    )
     last_sample: LastSample | None
     capacity: CapacityStatus | None
     thermal: ThermalStatus | None

@@ -215,7 +215,7 @@ function announce(text) {
 function ageText(entry) {
   const st = entry && entry.status;
   if (!st || !st.last_sample) return fmt.dash;
-  return `${fmt.duration(st.last_sample.age_s + (Date.now() - entry.fetchedAt) / 1000)} ago`;
+  return fmt.age(st.last_sample.age_s + (Date.now() - entry.fetchedAt) / 1000);
 }
 
 function ageEl(id) {
@@ -425,7 +425,8 @@ function renderCapacity(st) {
     h('dl', { class: 'facts' },
       fact('Capacity', fmt.amps(cap.capacity_a)),
       fact('Limited by', by),
-      fact('Present load', fmt.amps(st.load_a)),
+      fact('Present load', fmt.amps(st.load_a), st.load_assumed_a != null
+        ? h('span', { class: 'sub' }, ` of which ${fmt.amps(st.load_assumed_a)} assumed for phases without a reading`) : null),
       fact('Headroom now', h('span', { class: short ? 'neg' : '' }, fmt.amps(cap.headroom_a))),
       fact('Rated load', fmt.amps(st.rated_load_a)),
       fact('Headroom at rated', h('span', { class: cap.headroom_rated_a < 0 ? 'neg' : '' }, fmt.amps(cap.headroom_rated_a)))));
@@ -470,6 +471,21 @@ function phaseLimits(st, spec) {
   return out;
 }
 
+/** What a phase's figures rest on: an implausible reading (suspect), a held last good reading,
+ * or none at all (and what the load assumed for it). */
+function readingNote(p) {
+  const notes = [];
+  if (p.implausible) {
+    const got = p.implausible.current_a != null && p.implausible.rule.startsWith('current')
+      ? fmt.amps(p.implausible.current_a) : fmt.celsius(p.implausible.temp_c);
+    notes.push(`suspect: implausible reading ${got} (${p.implausible.rule.replace(/_/g, ' ')}), left out`);
+  }
+  if (p.reading === 'held') notes.push(`last good reading, ${fmt.duration(p.reading_age_s)} old`);
+  if (p.reading === 'missing') notes.push('no reading');
+  if (p.assumed_a != null) notes.push(`load assumes ${fmt.amps(p.assumed_a)}`);
+  return notes.length ? h('span', { class: 'sub' }, notes.join(' \u00b7 ')) : null;
+}
+
 function renderPhases(st, spec) {
   const body = $('sec-phases-body');
   if (!st.phases.length) {
@@ -491,7 +507,7 @@ function renderPhases(st, spec) {
     const jHi = Math.max(lim.limit + 10, est ?? 0);
     return h('tr', { class: `phase-row row-${p.condition}`, 'data-phase': p.index },
       h('th', { scope: 'row' }, `${p.index}`),
-      h('td', { class: 'phase-condition' }, tag(p.condition)),
+      h('td', { class: 'phase-condition' }, tag(p.condition), readingNote(p)),
       h('td', { class: 'with-gauge' },
         h('span', { class: `num lvl-text lvl-${iState}` }, fmt.amps(p.current_a)),
         gauge({ value: p.current_a, lo: 0, hi: iMax, state: iState, marks: [{ at: lim.rated, kind: 'hold' }, { at: lim.ocl, kind: 'limit' }] }),

@@ -28,6 +28,14 @@ export function duration(seconds) {
   return `${num(seconds / 86400, 1)} d`;
 }
 
+/** A sample's age on the server's clock; a sample dated ahead of that clock (allowed within
+ * the service's clock skew) says so instead of pretending to be fresh. */
+export function age(seconds) {
+  if (seconds === null || seconds === undefined || !Number.isFinite(seconds)) return DASH;
+  if (seconds < 0) return `${duration(-seconds)} ahead of this server's clock`;
+  return `${duration(seconds)} ago`;
+}
+
 /** Epoch seconds as an unambiguous UTC stamp. */
 export function utc(epochSeconds) {
   if (epochSeconds == null) return DASH;

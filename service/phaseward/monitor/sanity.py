@@ -67,8 +67,9 @@ class Notice:
 def review(rail_id: str, spec: Mapping[str, Any]) -> tuple[RailModel, list[Notice]]:
     """The rail's model and the warnings of a definition; InvalidInput if it cannot be right."""
     try:
-        model = rail_model.build(rail_id, 0, spec)
-    except ValueError as err:  # physics names the argument it refused
+        with np.errstate(divide="raise", over="raise", invalid="raise"):
+            model = rail_model.build(rail_id, 0, spec)
+    except (ValueError, FloatingPointError) as err:  # physics names the argument it refused
         raise InvalidInput(f"the definition cannot be modelled: {err}", field="phase") from err
     phases = phase_specs(spec)
     origin = _Origins(spec)

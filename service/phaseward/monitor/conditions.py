@@ -14,6 +14,7 @@ import numpy.typing as npt
 
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.sequences import changes, debounce, latch
+from phaseward.monitor.sharing import SHARE_NOISE_FLOOR, learn
 from phaseward.monitor.telemetry import ISOLATING_FLAGS, SampleBatch
 
 F64 = npt.NDArray[np.float64]
@@ -27,7 +28,6 @@ SUSPECT_OVERCURRENT_FACTOR = 2.0
 SUSPECT_REVERSE_FRACTION = 0.5  # of rated current, flowing backwards
 SUSPECT_TEMP_BELOW_AMBIENT_K = 15.0
 SUSPECT_TEMP_ABOVE_LIMIT_K = 60.0
-SHARE_SMOOTHING = 0.2  # weight of each new sample in the running sharing estimate
 
 
 @dataclass
@@ -42,21 +42,28 @@ class Watch:
     undervoltage: bool = False
     excursion: bool = False
     last_t_s: float | None = None
+    # Sharing (monitor/sharing.py): ``weights`` are the shares capacity uses; these the learned
+    # shares and their spread (absent from states stored before sharing could be declared).
+    share_learned: list[float] | None = None
+    share_var: list[float] | None = None
 
     @classmethod
-    def fresh(cls, n_phases: int) -> Watch:
+    def fresh(cls, model: RailModel) -> Watch:
+        n_phases = model.n_phases
         return cls(
             codes=[ACTIVE] * n_phases,
             tail=[],
-            weights=[1.0] * n_phases,
+            weights=model.share_target.tolist(),
             thermal=[False] * n_phases,
+            share_learned=model.share_target.tolist(),
+            share_var=[SHARE_NOISE_FLOOR**2] * n_phases,
         )
 
     @classmethod
-    def load(cls, data: dict[str, Any], n_phases: int) -> Watch:
+    def load(cls, data: dict[str, Any], model: RailModel) -> Watch:
         watch = cls(**data)
-        if len(watch.codes) != n_phases:  # definition changed the phase count
-            return cls.fresh(n_phases)
+        if len(watch.codes) != model.n_phases:  # definition changed the phase count
+            return cls.fresh(model)
         return watch
 
 
@@ -121,12 +128,17 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     findings += _phase_findings(codes, np.asarray(prev.codes, np.int8), cur, temp, batch.flags)
     findings += _gap_findings(batch.t_s, prev.last_t_s, rules.gap_s)
 
-    weights, imbalance_pct, worst = _sharing(model, codes, cur, np.asarray(prev.weights))
+    sharing = learn(
+        model, codes == ACTIVE, cur, weights=np.asarray(prev.weights),
+        learned=np.asarray(prev.share_learned or prev.weights),
+        var=np.asarray(prev.share_var or [SHARE_NOISE_FLOOR**2] * model.n_phases),
+    )  # fmt: skip
+    imbalance_pct, worst = sharing.imbalance_pct, sharing.worst
     imbalance, found = _watch(
         imbalance_pct > rules.imbalance_pct, imbalance_pct < 0.8 * rules.imbalance_pct,
         prev.imbalance, "sharing.imbalance",
         lambda k, on: (
-            f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from an equal share"
+            f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from its declared share"
             if on else "current sharing back within limits",
             {"deviation_pct": _r(imbalance_pct[k]), "worst_phase": int(worst[k])},
             int(worst[k]) if on else None,
@@ -178,12 +190,14 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     watch = Watch(
         codes=[int(c) for c in codes[-1]],
         tail=history.astype(int).tolist(),
-        weights=[float(w) for w in weights],
+        weights=[float(w) for w in sharing.weights],
         thermal=[bool(h) for h in hot[-1]],
         imbalance=bool(imbalance[-1]),
         undervoltage=bool(undervoltage[-1]),
         excursion=bool(excursion[-1]),
         last_t_s=float(batch.t_s[-1]),
+        share_learned=[float(w) for w in sharing.learned],
+        share_var=[float(v) for v in sharing.var],
     )
     findings.sort(key=lambda f: f.sample)
     return Judgement(codes=codes, load_a=load, findings=findings, watch=watch)
@@ -203,41 +217,6 @@ def _mean_of_others(values: F64) -> F64:
     others = count - finite
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(others > 0, (total - own) / others, np.nan)
-
-
-def _sharing(
-    model: RailModel, codes: npt.NDArray[np.int8], cur: F64, prev_weights: F64
-) -> tuple[F64, F64, npt.NDArray[np.intp]]:
-    """Running sharing weights (end of batch), per-sample imbalance in % and worst phase.
-
-    A weight is a phase's share relative to an equal share (1.0 = equal), so what a phase
-    teaches while another is isolated still holds when it returns; capacity renormalises
-    over whichever phases are active. Only samples carrying a real load teach the weights:
-    at light load phase currents are dominated by ripple and offsets. An isolated phase keeps
-    the weight it had.
-    """
-    active = codes == ACTIVE
-    carried = np.where(active, cur, 0.0)
-    total = carried.sum(axis=1)
-    n_active = active.sum(axis=1)
-    rated_active = np.where(active, model.rated_current_a, 0.0).sum(axis=1)
-    informative = (total > model.rules.min_share_load_fraction * rated_active) & (n_active > 1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        relative = carried / total[:, None] * n_active[:, None]
-    deviation = np.where(active & informative[:, None], np.abs(relative - 1.0), 0.0) * 100.0
-    imbalance = deviation.max(axis=1)
-    worst = deviation.argmax(axis=1)
-    # Exponential smoothing per phase over the samples that teach it, in closed form: a
-    # sample's weight decays with the number of teaching samples that came after it.
-    teach = active & informative[:, None]
-    later = teach[::-1].cumsum(axis=0)[::-1] - teach
-    keep = 1.0 - SHARE_SMOOTHING
-    # A phase driving current backwards (a sinking fault, read before it is isolated) carries
-    # no share of the load: it teaches a weight of 0, never a negative one.
-    taught = np.maximum(relative, 0.0)
-    contribution = np.where(teach, SHARE_SMOOTHING * keep**later * taught, 0.0).sum(axis=0)
-    weights = keep ** teach.sum(axis=0) * prev_weights + contribution
-    return weights, imbalance, worst
 
 
 def _phase_findings(

@@ -189,9 +189,9 @@ def advance(
 ) -> tuple[dict[str, Any], list[Finding]]:
     """The live state after ``batch`` (in time order, newer than ``previous``) and its findings."""
     watch = (
-        Watch.load(previous["watch"], model.n_phases)
+        Watch.load(previous["watch"], model)
         if "watch" in previous
-        else Watch.fresh(model.n_phases)
+        else Watch.fresh(model)
     )
     judgement = judge(model, batch, watch)
     ambient = np.where(np.isfinite(batch.ambient_c), batch.ambient_c, model.ambient_c)

@@ -188,11 +188,7 @@ def advance(
     model: RailModel, batch: SampleBatch, previous: dict[str, Any]
 ) -> tuple[dict[str, Any], list[Finding]]:
     """The live state after ``batch`` (in time order, newer than ``previous``) and its findings."""
-    watch = (
-        Watch.load(previous["watch"], model)
-        if "watch" in previous
-        else Watch.fresh(model)
-    )
+    watch = Watch.load(previous["watch"], model) if "watch" in previous else Watch.fresh(model)
     judgement = judge(model, batch, watch)
     ambient = np.where(np.isfinite(batch.ambient_c), batch.ambient_c, model.ambient_c)
     current = np.where(np.isfinite(batch.current_a), batch.current_a, 0.0)

@@ -98,15 +98,26 @@ class Model:
 
 
 @dataclass(frozen=True)
+class DefinitionWarning(Model):
+    """Something unusual about a stored definition: the field, the rule's name, the detail."""
+
+    field: str
+    rule: str
+    detail: str
+
+
+@dataclass(frozen=True)
 class Rail(Model):
     """A stored rail definition (``spec`` is the definition as the service stored it, with
-    its defaults filled in; ``version`` grows with every PUT)."""
+    its defaults filled in; ``version`` grows with every PUT). ``warnings``: what is unusual
+    about it, in the answer of a create or put (empty on reads)."""
 
     id: str
     version: int
     created: str
     updated: str
     spec: dict[str, Any]
+    warnings: list[DefinitionWarning] = field(default_factory=list)
 
 
 @dataclass(frozen=True)

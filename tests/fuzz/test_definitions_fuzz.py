@@ -36,15 +36,22 @@ BASE: Json = copy.deepcopy(SMALL_RAIL) | {
     "reliability": {"fit_at_ref": 50.0, "ref_c": 55.0, "activation_ev": 0.7},
     "output": {"capacitance_f": 1e-3, "esr_ohm": 1e-3},
     "overrides": [
-        {"index": 1, "loss_table": {"current_a": [0.0, 20.0, 40.0], "loss_w": [0.5, 2.0, 6.0]},
+        {"index": 1, "loss_table": {"current_a": [0.0, 20.0, 40.0], "loss_w": [0.5, 2.0, 6.0],
+                                    "ref_c": 25.0, "tc_per_k": 0.002},
          "share_target": 1.2, "sense_gain": 1.0, "sense_offset_a": 0.0},
     ],
 }  # fmt: skip
-BASE["phase"]["power_stage"] |= {"rds_ref_c": 25.0, "rds_tc_per_k": 0.004, "drive_v": 5.0}
+BASE["phase"]["power_stage"] |= {
+    "rds_ref_c": 25.0, "rds_tc_per_k": 0.004, "drive_v": 5.0, "diode_drop_v": 0.7,
+}  # fmt: skip
+BASE["phase"] |= {"share_target": 1.0, "sense_gain": 1.0, "sense_offset_a": 0.0}
 BASE["phase"]["inductor"]["dcr_ref_c"] = 20.0
 BASE["monitor"] |= {
     "gap_s": 10.0, "forecast_horizon_s": 900.0, "hysteresis_k": 2.0, "process_noise_w": 0.2,
     "sensor_noise_k": 0.5, "sensor_tau_s": 2.0, "share_learning_rate": 0.2,
+    "share_significance": 5.0, "sensor_offset_k": 0.0, "collapse_fraction": 0.1,
+    "imbalance_pct": 25.0, "min_share_load_fraction": 0.2, "undervoltage_fraction": 0.85,
+    "excursion_fraction": 0.05,
 }  # fmt: skip
 
 

@@ -13,8 +13,8 @@ Slug = Annotated[str, Field(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)
 # Physical ranges of definition fields. Each is far wider than any real part (so no real
 # rail is refused) and narrow enough that every product, square and ratio the physics forms
 # of them stays finite in float64 (a load of 2.7e307 A overflowed the loss model).
-Volts = Annotated[float, Field(gt=0, le=1e4)]  # a buck converter's input or output
-Amps = Annotated[float, Field(gt=0, le=1e5)]  # a rail's load, a phase's rating or trip
+Volts = Annotated[float, Field(ge=1e-3, le=1e4)]  # a buck converter's input or output
+Amps = Annotated[float, Field(ge=1e-3, le=1e5)]  # a rail's load, a phase's rating or trip
 PhaseAmps = Annotated[float, Field(ge=0, le=1e5)]  # a point of a loss table
 Hertz = Annotated[float, Field(ge=1e3, le=1e8)]  # switching frequency
 Henry = Annotated[float, Field(ge=1e-10, le=1.0)]
@@ -23,7 +23,7 @@ Watts = Annotated[float, Field(ge=0, le=1e5)]  # a fixed loss, a loss-table poin
 DefCelsius = Annotated[float, Field(ge=-100, le=500)]  # ambient, limits, reference points
 Kelvin = Annotated[float, Field(ge=0, le=500)]  # a margin or hysteresis
 Instant = Annotated[float, Field(ge=0, le=1e-3)]  # switching edges and dead time
-Duration = Annotated[float, Field(gt=0, le=1e6)]  # gaps, horizons, lags (about 11 days)
+Duration = Annotated[float, Field(ge=1e-3, le=1e6)]  # gaps, horizons, lags (about 11 days)
 # A thermal resistance: below a microkelvin per watt a stage's capacitance tau / R overflowed
 # the Foster to Cauer conversion.
 ThermalOhms = Annotated[float, Field(ge=1e-6, le=1e6)]
@@ -153,16 +153,16 @@ class MonitorSpec(Contract):
     # Learned sharing: each informative sample moves a phase's learned share by this fraction
     # of its difference; capacity follows the learned shares only once they differ from the
     # shares it uses by more than share_significance standard errors (an EWMA chart).
-    share_learning_rate: Annotated[float, Field(gt=0, le=1)] = 0.2
+    share_learning_rate: Annotated[float, Field(ge=1e-4, le=1)] = 0.2
     share_significance: Annotated[float, Field(ge=1, le=20)] = 5.0
 
 
 class ReliabilitySpec(Contract):
     """Per-phase failure rate at a reference temperature, accelerated per JEDEC JEP122."""
 
-    fit_at_ref: float = Field(gt=0, le=1e9, description="failures per 1e9 phase-hours at ref_c")
+    fit_at_ref: float = Field(ge=1e-6, le=1e9, description="failures per 1e9 phase-hours at ref_c")
     ref_c: DefCelsius
-    activation_ev: Annotated[float, Field(gt=0, le=3)] = 0.7  # a usual default, common practice
+    activation_ev: Annotated[float, Field(ge=0.01, le=3)] = 0.7  # a usual default, common practice
 
 
 class OutputSpec(Contract):

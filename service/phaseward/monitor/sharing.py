@@ -13,8 +13,8 @@ renormalises over whichever phases are active.
   but taken over only when a phase's learned share has moved from the used one by more than
   ``monitor.share_significance`` standard errors, so noise alone never moves capacity. This
   is an EWMA control chart (Roberts 1959; Montgomery, *Introduction to Statistical Quality
-  Control*, the EWMA chart: an EWMA of rate lambda over independent samples of standard
-  deviation sigma has standard deviation sigma sqrt(lambda / (2 - lambda))). The difference
+  Control*, the EWMA chart, from memory: an EWMA of rate lambda over independent samples of
+  standard deviation sigma has standard deviation sigma sqrt(lambda / (2 - lambda))). The difference
   of two such averages, the used one taken from an earlier stretch, has sqrt(2) times that.
   sigma is learned per phase as an EWMA of the squared one-step innovation (whose expectation
   is sigma^2 2 / (2 - lambda), corrected here), never below ``SHARE_NOISE_FLOOR``.
@@ -99,7 +99,7 @@ def learn(
         v[:, i] = _hold(v[:, i], rows, var[i])
 
     sigma = np.sqrt(np.maximum(v, SHARE_NOISE_FLOOR**2))
-    limit = n_sigma * np.sqrt(2.0) * sigma * np.sqrt(rate / (2.0 - rate))
+    limit = n_sigma * np.sqrt(2.0) * ewma_std(sigma, rate)
     used = np.asarray(weights, dtype=np.float64).copy()
     start = 0
     while start < z.shape[0]:  # once per take-over, a handful per real shift
@@ -116,6 +116,13 @@ def learn(
         imbalance_pct=deviation.max(axis=1),
         worst=deviation.argmax(axis=1),
     )
+
+
+def ewma_std(sigma: F64, rate: float) -> F64:
+    """Standard deviation of a settled EWMA of rate ``rate`` over independent samples of
+    standard deviation ``sigma`` (the EWMA chart's limit, Montgomery; from memory, checked
+    against a simulation in the tests)."""
+    return np.asarray(sigma * np.sqrt(rate / (2.0 - rate)))
 
 
 def _hold(values: F64, rows: npt.NDArray[np.intp], before: float) -> F64:

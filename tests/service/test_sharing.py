@@ -108,6 +108,9 @@ async def test_capacity_stays_fixed_under_a_noisy_steady_trace(client: httpx.Asy
         assert answer.status_code == 200, answer.text
         seen.append(await capacity(client))
     assert len(set(seen)) == 1, seen  # not a hundredth of an amp of jitter
+    phases = (await client.get(f"{RAIL}/status")).json()["phases"]
+    assert [p["share"] for p in phases] == [0.25] * 4
+    assert [p["share_learned"] for p in phases] != [0.25] * 4  # what the noise did teach
     assert seen[0] == pytest.approx(120.0)  # four 30 A phases sharing equally
 
     for start in range(400, 600, 50):  # phase 0 now carries 26 A of the 90 A
@@ -130,8 +133,9 @@ async def test_a_new_rail_starts_from_its_declared_shares(client: httpx.AsyncCli
     assert (await client.post("/v1/rails", json=_skewed_rail(share_target=1.3))).status_code == 201
     light = sample(0, [5.0, 5.0, 5.0, 5.0])  # too light a load to teach anything
     assert (await client.post(f"{RAIL}/samples", json=[light])).status_code == 200
-    shares = [p["share"] for p in (await client.get(f"{RAIL}/status")).json()["phases"]]
-    assert shares == pytest.approx([1.3 / 4.3, 1 / 4.3, 1 / 4.3, 1 / 4.3])
+    phases = (await client.get(f"{RAIL}/status")).json()["phases"]
+    for key in ("share", "share_learned", "share_declared"):
+        assert [p[key] for p in phases] == pytest.approx([1.3 / 4.3, 1 / 4.3, 1 / 4.3, 1 / 4.3])
     assert await capacity(client) == pytest.approx(30.0 * 4.3 / 1.3)
 
 

@@ -165,6 +165,9 @@ class PhaseStatus(Model):
     rated_current_a: float
     junction_limit_c: float
     flags: list[str]
+    # The share from the learned sharing, and from the definition (capacity uses ``share``).
+    share_learned: float | None = None
+    share_declared: float | None = None
 
 
 @dataclass(frozen=True)

@@ -36,7 +36,12 @@ IMPOSSIBLE = [
     ),
     pytest.param(
         {"overrides": [{"index": 1, "rated_current_a": 45.0}]},
-        "phase.overcurrent_limit_a", "trip_below_rating", id="override rates above the trip",
+        "overrides[0].rated_current_a", "trip_below_rating", id="override rates above the trip",
+    ),
+    pytest.param(
+        {"overrides": [{"index": 1, "junction_limit_c": 30.0}]},
+        "overrides[0].junction_limit_c", "warning_not_above_ambient",
+        id="override limit leaves no room for the margin",
     ),
     pytest.param(
         {"ambient_c": 130.0}, "phase.junction_limit_c", "limit_not_above_ambient",

@@ -88,10 +88,15 @@ class _Origins:
                 keys |= set(_LOSS_MODELS)
             self._given[int(o["index"])] = (j, keys)
 
-    def field(self, phase: int, path: str) -> str:
-        head = path.split(".")[0]
+    def field(self, phase: int, path: str, *, against: str | None = None) -> str:
+        """Where ``path`` of ``phase`` is given; for a rule between two fields, the one the
+        phase's override sets if only ``against`` is set there (the override made the clash)."""
         j, keys = self._given.get(phase, (-1, set()))
-        return f"overrides[{j}].{path}" if head in keys else f"phase.{path}"
+        if path.split(".")[0] in keys:
+            return f"overrides[{j}].{path}"
+        if against is not None and against.split(".")[0] in keys:
+            return f"overrides[{j}].{against}"
+        return f"phase.{path}"
 
 
 def _first(bad: np.ndarray[Any, Any]) -> int | None:
@@ -105,7 +110,7 @@ def _refuse_impossible(model: RailModel, phases: list[dict[str, Any]], origin: _
         raise InvalidInput(
             f"trip_below_rating: phase {i} trips at {model.overcurrent_limit_a[i]:g} A, below "
             f"its rated {model.rated_current_a[i]:g} A, so it can never carry its rating",
-            field=origin.field(i, "overcurrent_limit_a"),
+            field=origin.field(i, "overcurrent_limit_a", against="rated_current_a"),
         )
     i = _first(model.junction_limit_c <= model.ambient_c)
     if i is not None:
@@ -121,7 +126,7 @@ def _refuse_impossible(model: RailModel, phases: list[dict[str, Any]], origin: _
             f"warning_not_above_ambient: phase {i}'s warning line {model.temp_limit_c[i]:g} "
             f"degC (limit minus warning_margin_k {model.warning_margin_k[i]:g} K) is not above "
             f"the ambient {model.ambient_c:g} degC",
-            field=origin.field(i, "warning_margin_k"),
+            field=origin.field(i, "warning_margin_k", against="junction_limit_c"),
         )
     drop = model.rated_current_a * model.dcr_ohm
     i = _first(drop >= model.vin_v - model.vout_v)
@@ -130,7 +135,7 @@ def _refuse_impossible(model: RailModel, phases: list[dict[str, Any]], origin: _
             f"winding_drop_exceeds_headroom: phase {i}'s winding drops {drop[i]:g} V at its "
             f"rated {model.rated_current_a[i]:g} A, at least vin_v - vout_v = "
             f"{model.vin_v - model.vout_v:g} V: the duty cycle would exceed 1",
-            field=origin.field(i, "inductor.dcr_ohm"),
+            field=origin.field(i, "inductor.dcr_ohm", against="rated_current_a"),
         )
 
 

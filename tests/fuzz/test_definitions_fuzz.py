@@ -93,33 +93,66 @@ NUMBERS = leaves(BASE)
 
 @st.composite
 def edge(draw: st.DrawFn, lo: float, hi: float) -> float:
-    """A number at or near an end of [lo, hi], or inside it spread over its decades, or
-    (rarely) beyond it."""
-    how = draw(st.integers(0, 19))
-    if how < 6:
+    """A number at or near an end of [lo, hi], or inside it spread over its decades."""
+    if draw(st.integers(0, 2)) == 0:
         return draw(st.sampled_from([lo, hi, math.nextafter(lo, hi), math.nextafter(hi, lo)]))
-    if how < 18:
-        if lo > 0:
-            return min(hi, max(lo, 10 ** draw(st.floats(math.log10(lo), math.log10(hi)))))
-        return draw(st.floats(lo, hi, allow_nan=False, allow_infinity=False))
-    return draw(st.sampled_from([2.7e307, -2.7e307, 1.7e308, 5e-324, hi * 10 if hi else 1.0]))
+    if lo > 0:
+        return min(hi, max(lo, 10 ** draw(st.floats(math.log10(lo), math.log10(hi)))))
+    return draw(st.floats(lo, hi, allow_nan=False, allow_infinity=False))
+
+
+BEYOND = st.sampled_from([2.7e307, -2.7e307, 1.7e308, 5e-324, -5e-324, 1e-300])
+
+
+def _set(spec: Json, path: tuple[str | int, ...], value: float) -> None:
+    target = spec
+    for key in path[:-1]:
+        target = target[key]
+    target[path[-1]] = value
 
 
 @st.composite
 def definitions(draw: st.DrawFn) -> Json:
+    """Most fields at their usual value, some at or near their range edges, and in one example
+    of four one field beyond its range (near a float limit)."""
     spec = copy.deepcopy(BASE)
     spec["id"] = f"fuzz-{next(RAIL_NUMBERS)}"
     spec["phase_count"] = draw(st.integers(2, 6))
     for path in NUMBERS:
-        if draw(st.integers(0, 4)):  # most fields keep their usual value
-            continue
-        target = spec
-        for key in path[:-1]:
-            target = target[key]
-        target[path[-1]] = draw(edge(*bounds(path)))
+        if draw(st.integers(0, 7)) == 0:
+            _set(spec, path, draw(edge(*bounds(path))))
+    if draw(st.integers(0, 3)) == 0:
+        path = draw(st.sampled_from(NUMBERS))
+        lo, hi = bounds(path)
+        value = draw(BEYOND.filter(lambda v: not lo <= v <= hi))
+        _set(spec, path, value)
     if draw(st.booleans()):
         spec["overrides"] = []
+    if draw(st.integers(0, 3)):
+        consistent(spec)
     return spec
+
+
+def consistent(spec: Json) -> None:
+    """Mend the clashes between fields that the refusal rules catch (most examples should
+    reach the analyses): vout below vin, the trip at or above the rating, the warning line
+    above ambient, a loss table in increasing current. Edge values stay where they are."""
+    if spec["vout_v"] >= spec["vin_v"]:
+        spec["vin_v"], spec["vout_v"] = spec["vout_v"], spec["vin_v"]
+        if spec["vout_v"] == spec["vin_v"]:
+            spec["vout_v"] = spec["vin_v"] / 2
+    phase = spec["phase"]
+    phase["overcurrent_limit_a"] = max(phase["overcurrent_limit_a"], phase["rated_current_a"])
+    margin = min(phase["warning_margin_k"], 300.0)
+    phase["warning_margin_k"] = margin
+    if phase["junction_limit_c"] - margin <= spec["ambient_c"]:
+        spec["ambient_c"] = max(-100.0, phase["junction_limit_c"] - margin - 1.0)
+    if phase["junction_limit_c"] - margin <= spec["ambient_c"]:
+        phase["junction_limit_c"] = spec["ambient_c"] + margin + 1.0
+    for override in spec["overrides"]:
+        table = override["loss_table"]
+        if any(b <= a for a, b in itertools.pairwise(table["current_a"])):
+            table["current_a"] = [0.0, 20.0, 40.0]
 
 
 def _ok(answer: httpx.Response) -> None:

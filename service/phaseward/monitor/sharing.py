@@ -7,8 +7,9 @@ renormalises over whichever phases are active.
 * **Declared** (``share_target`` per phase in the definition): where learning starts, and
   what the imbalance watch measures deviations from.
 * **Learned**: an exponentially weighted moving average (EWMA) of each phase's share over
-  the samples that teach it (all phases active or not, only samples carrying a real load, at
-  light load ripple and offsets dominate), at ``monitor.share_learning_rate`` per sample.
+  the samples that teach it (while it is active, and only samples carrying a real load: at
+  light load ripple and offsets dominate), at ``monitor.share_learning_rate`` per sample; an
+  isolated phase keeps what it learned.
 * **Used** (``weights``, what capacity, screening and forecasts take): the learned shares,
   but taken over only when a phase's learned share has moved from the used one by more than
   ``monitor.share_significance`` standard errors, so noise alone never moves capacity. This

@@ -56,6 +56,21 @@ IMPOSSIBLE = [
         "warning_not_above_ambient", id="margin wider than ambient to limit",
     ),
     pytest.param(
+        {"phase": _phase(
+            power_stage={**SMALL_RAIL["phase"]["power_stage"], "rds_ref_c": 500.0,
+                         "rds_tc_per_k": 0.05},
+        )},
+        "phase.power_stage.rds_tc_per_k", "loss_vanishes_above_ambient",
+        id="Rds(on) law negative at ambient",
+    ),
+    pytest.param(
+        {"overrides": [{"index": 2, "loss_table": {
+            "current_a": [0.0, 40.0], "loss_w": [0.5, 6.0], "ref_c": 125.0, "tc_per_k": 0.02,
+        }}]},
+        "overrides[0].loss_table.tc_per_k", "loss_vanishes_above_ambient",
+        id="loss table law negative at ambient",
+    ),
+    pytest.param(
         {"phase": _phase(inductor={"inductance_h": 2e-7, "dcr_ohm": 1.0})},
         "phase.inductor.dcr_ohm", "winding_drop_exceeds_headroom", id="1 ohm DCR on 30 A",
     ),

@@ -19,6 +19,10 @@ Refused (``InvalidInput``):
   Vout = D Vin - I R_L (Erickson & Maksimovic, *Fundamentals of Power Electronics*, the
   inductor copper loss model of chapter 3, from memory), so the duty cycle would have to
   exceed 1.
+* ``loss_vanishes_above_ambient``: a temperature coefficient and reference temperature (of
+  Rds(on), or of a loss table) whose linear law reaches zero above the ambient: colder than
+  that the resistance, and the loss, would be negative. A linear coefficient is a fit around
+  its reference (common practice), and a resistance is never negative.
 
 Warned (stored, listed in the answer):
 
@@ -128,6 +132,20 @@ def _refuse_impossible(model: RailModel, phases: list[dict[str, Any]], origin: _
             f"the ambient {model.ambient_c:g} degC",
             field=origin.field(i, "warning_margin_k", against="junction_limit_c"),
         )
+    for tc_key, ref, tc in (
+        ("power_stage.rds_tc_per_k", model.losses.rds_ref_c, model.losses.rds_tc_per_k),
+        ("loss_table.tc_per_k", model.losses.table_ref_c, model.losses.table_tc_per_k),
+    ):
+        with np.errstate(divide="ignore"):
+            zero_c = np.where(tc > 0.0, ref - 1.0 / tc, -np.inf)
+        i = _first(zero_c >= model.ambient_c)
+        if i is not None:
+            raise InvalidInput(
+                f"loss_vanishes_above_ambient: phase {i}'s loss law 1 + {tc[i]:g} (T - "
+                f"{ref[i]:g}) reaches zero at {zero_c[i]:g} degC, above the ambient "
+                f"{model.ambient_c:g} degC: colder than that its loss would be negative",
+                field=origin.field(i, tc_key),
+            )
     drop = model.rated_current_a * model.dcr_ohm
     i = _first(drop >= model.vin_v - model.vout_v)
     if i is not None:

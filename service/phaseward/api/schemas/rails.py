@@ -6,7 +6,7 @@ from typing import Annotated, Any, Self
 
 from pydantic import Field, ValidationInfo, field_validator, model_validator
 
-from phaseward.api.schemas.common import Contract, Seconds
+from phaseward.api.schemas.common import Contract, KelvinPerWatt, Seconds
 
 Slug = Annotated[str, Field(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)]
 
@@ -24,9 +24,6 @@ DefCelsius = Annotated[float, Field(ge=-100, le=500)]  # ambient, limits, refere
 Kelvin = Annotated[float, Field(ge=0, le=500)]  # a margin or hysteresis
 Instant = Annotated[float, Field(ge=0, le=1e-3)]  # switching edges and dead time
 Duration = Annotated[float, Field(ge=1e-3, le=1e6)]  # gaps, horizons, lags (about 11 days)
-# A thermal resistance: below a microkelvin per watt a stage's capacitance tau / R overflowed
-# the Foster to Cauer conversion.
-ThermalOhms = Annotated[float, Field(ge=1e-6, le=1e6)]
 ShareTarget = Annotated[
     float,
     Field(
@@ -81,7 +78,7 @@ class LossTableSpec(Contract):
 
 
 class FosterStage(Contract):
-    r_k_per_w: ThermalOhms
+    r_k_per_w: KelvinPerWatt
     tau_s: Seconds
 
 
@@ -127,7 +124,7 @@ class PhaseOverride(Contract):
 class BoardSpec(Contract):
     """The shared board node every phase's thermal chain ends on, and its path to ambient."""
 
-    to_ambient_k_per_w: ThermalOhms
+    to_ambient_k_per_w: KelvinPerWatt
     capacitance_j_per_k: Annotated[float, Field(ge=1e-6, le=1e9)]
 
 

@@ -52,6 +52,12 @@ def test_rail_create_get_list_put_delete(client: Client) -> None:
     assert (gone.value.status, gone.value.error) == (404, "not_found")
 
 
+def test_an_unusual_definition_comes_back_with_warnings(client: Client) -> None:
+    created = client.create_rail(rail_definition(new_rail_id(), load_a=130.0))
+    assert [(w.field, w.rule) for w in created.warnings] == [("load_a", "load_above_ratings")]
+    assert client.get_rail(created.id).warnings == []
+
+
 def test_refusals_carry_status_error_detail_field(client: Client, rail_id: str) -> None:
     with pytest.raises(PhasewardError) as taken:
         client.create_rail(rail_definition(rail_id))

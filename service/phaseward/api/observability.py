@@ -38,12 +38,14 @@ class Metrics:
         self._lock = threading.Lock()
         self.samples_accepted = 0
         self.samples_rejected = 0
+        self.batches_rejected = 0
         self._hist: dict[tuple[str, str, str], list[float]] = {}  # bucket counts, sum, count
 
     def count_samples(self, *, accepted: int = 0, rejected: int = 0) -> None:
         with self._lock:
             self.samples_accepted += accepted
             self.samples_rejected += rejected
+            self.batches_rejected += rejected > 0  # a refused batch holds at least one sample
 
     def observe(self, method: str, route: str, status: int, seconds: float) -> None:
         key = (method, route, f"{status // 100}xx")
@@ -63,6 +65,10 @@ class Metrics:
             "# TYPE phaseward_samples_rejected counter",
             "# HELP phaseward_samples_rejected Samples in batches this process refused.",
             f"phaseward_samples_rejected_total {self.samples_rejected}",
+            "# TYPE phaseward_batches_rejected counter",
+            "# HELP phaseward_batches_rejected Batches this process refused (each one counted, "
+            "while events report them per episode).",
+            f"phaseward_batches_rejected_total {self.batches_rejected}",
             "# TYPE phaseward_request_seconds histogram",
             "# UNIT phaseward_request_seconds seconds",
             "# HELP phaseward_request_seconds Request latency by route.",

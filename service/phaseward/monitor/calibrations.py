@@ -75,7 +75,7 @@ def calibrate(
             for r, t in zip(result.stages.r_k_per_w, result.stages.tau_s, strict=True)
         ]
         new_spec = with_thermal(spec, stages, phase=None if apply == "all" else phase)
-        applied, _, _ = rail_service.put_version(sessions, rail_id, new_spec)
+        applied, _, _, _ = rail_service.put_version(sessions, rail_id, new_spec)
         out["applied_version"] = applied.version
     return out
 

@@ -12,10 +12,10 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
-from scipy import signal
 
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.sequences import changes, debounce, latch
+from phaseward.monitor.sharing import SHARE_NOISE_FLOOR, learn
 from phaseward.monitor.telemetry import ISOLATING_FLAGS, SampleBatch
 from phaseward.physics.plausibility import RULES, GateVerdict, gate
 
@@ -28,7 +28,6 @@ ACTIVE, ISOLATED, SUSPECT, SILENT = range(4)
 # the last good one held within the staleness window, or none.
 READINGS = ("fresh", "held", "missing")
 FRESH, HELD, MISSING = range(3)
-SHARE_SMOOTHING = 0.2  # weight of each new sample in the running sharing estimate
 
 
 @dataclass
@@ -59,21 +58,28 @@ class Watch:
     vout_implausible: bool = False
     iout_implausible: bool = False
     ambient_implausible: bool = False
+    # Sharing (monitor/sharing.py): ``weights`` are the shares capacity uses; these the learned
+    # shares and their spread (absent from states stored before sharing could be declared).
+    share_learned: list[float] | None = None
+    share_var: list[float] | None = None
 
     @classmethod
-    def fresh(cls, n_phases: int) -> Watch:
+    def fresh(cls, model: RailModel) -> Watch:
+        n_phases = model.n_phases
         return cls(
             codes=[ACTIVE] * n_phases,
             tail=[],
-            weights=[1.0] * n_phases,
+            weights=model.share_target.tolist(),
             thermal=[False] * n_phases,
+            share_learned=model.share_target.tolist(),
+            share_var=[SHARE_NOISE_FLOOR**2] * n_phases,
         )
 
     @classmethod
-    def load(cls, data: dict[str, Any], n_phases: int) -> Watch:
+    def load(cls, data: dict[str, Any], model: RailModel) -> Watch:
         watch = cls(**data)
-        if len(watch.codes) != n_phases:  # definition changed the phase count
-            return cls.fresh(n_phases)
+        if len(watch.codes) != model.n_phases:  # definition changed the phase count
+            return cls.fresh(model)
         return watch
 
     def per_phase(self, name: str, n_phases: int) -> F64:
@@ -185,12 +191,17 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     )
     findings += _gap_findings(batch.t_s, prev.last_t_s, rules.gap_s)
 
-    weights, imbalance_pct, worst = _sharing(model, codes, cur, np.asarray(prev.weights))
+    sharing = learn(
+        model, codes == ACTIVE, cur, weights=np.asarray(prev.weights),
+        learned=np.asarray(prev.share_learned or prev.weights),
+        var=np.asarray(prev.share_var or [SHARE_NOISE_FLOOR**2] * model.n_phases),
+    )  # fmt: skip
+    imbalance_pct, worst = sharing.imbalance_pct, sharing.worst
     imbalance, found = _watch(
         imbalance_pct > rules.imbalance_pct, imbalance_pct < 0.8 * rules.imbalance_pct,
         prev.imbalance, "sharing.imbalance",
         lambda k, on: (
-            f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from an equal share"
+            f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from its declared share"
             if on else "current sharing back within limits",
             {"deviation_pct": _r(imbalance_pct[k]), "worst_phase": int(worst[k])},
             int(worst[k]) if on else None,
@@ -267,7 +278,7 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     watch = Watch(
         codes=[int(c) for c in codes[-1]],
         tail=history.astype(int).tolist(),
-        weights=[float(w) for w in weights[-1]],
+        weights=[float(w) for w in sharing.weights],
         thermal=[bool(h) for h in hot[-1]],
         imbalance=bool(imbalance[-1]),
         undervoltage=bool(undervoltage[-1]),
@@ -286,6 +297,8 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         vout_implausible=bool(rail_wide["vout_v"][-1]),
         iout_implausible=bool(rail_wide["iout_a"][-1]),
         ambient_implausible=bool(rail_wide["ambient_c"][-1]),
+        share_learned=[float(w) for w in sharing.learned],
+        share_var=[float(v) for v in sharing.var],
     )
     findings.sort(key=lambda f: f.sample)
     clean = replace(
@@ -294,9 +307,9 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         ambient_c=np.where(verdict.ambient == 0, batch.ambient_c, np.nan),  # the rail's then
     )  # fmt: skip
     return Judgement(
-        codes=codes, load_a=load, weights=weights, findings=findings, watch=watch, clean=clean,
-        reading=reading, reading_t_s=cur_t[-1], held_temp_c=temp_used, assumed_a=assumed,
-        rules=verdict,
+        codes=codes, load_a=load, weights=sharing.weights_at, findings=findings, watch=watch,
+        clean=clean, reading=reading, reading_t_s=cur_t[-1], held_temp_c=temp_used,
+        assumed_a=assumed, rules=verdict,
     )  # fmt: skip
 
 
@@ -406,53 +419,6 @@ def _mean_of_others(values: F64) -> F64:
     others = count - finite
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(others > 0, (total - own) / others, np.nan)
-
-
-def _sharing(
-    model: RailModel, codes: npt.NDArray[np.int8], cur: F64, prev_weights: F64
-) -> tuple[F64, F64, npt.NDArray[np.intp]]:
-    """Running sharing weights after each sample (n, p), per-sample imbalance in % and worst
-    phase.
-
-    A weight is a phase's share relative to an equal share (1.0 = equal), so what a phase
-    teaches while another is isolated still holds when it returns; capacity renormalises
-    over whichever phases are active. Only samples carrying a real load teach the weights:
-    at light load phase currents are dominated by ripple and offsets. An isolated phase keeps
-    the weight it had.
-    """
-    active = codes == ACTIVE
-    carried = np.where(active, cur, 0.0)
-    total = carried.sum(axis=1)
-    n_active = active.sum(axis=1)
-    rated_active = np.where(active, model.rated_current_a, 0.0).sum(axis=1)
-    informative = (total > model.rules.min_share_load_fraction * rated_active) & (n_active > 1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        relative = carried / total[:, None] * n_active[:, None]
-    deviation = np.where(active & informative[:, None], np.abs(relative - 1.0), 0.0) * 100.0
-    imbalance = deviation.max(axis=1)
-    worst = deviation.argmax(axis=1)
-    # Exponential smoothing per phase over the samples that teach it, w <- keep w + a x, run
-    # as a linear filter over each phase's teaching samples (a loop over phases, not samples)
-    # and held between them. The recurrence is evaluated in sample order with the previous
-    # batch's last weight as its start, so the weights are the same however the samples were
-    # cut into batches.
-    teach = active & informative[:, None]
-    keep = 1.0 - SHARE_SMOOTHING
-    # A phase driving current backwards (a sinking fault, read before it is isolated) carries
-    # no share of the load: it teaches a weight of 0, never a negative one.
-    taught = np.maximum(relative, 0.0)
-    weights = np.empty(cur.shape)
-    for i in range(cur.shape[1]):
-        rows = np.flatnonzero(teach[:, i])
-        if rows.size == 0:
-            weights[:, i] = prev_weights[i]
-            continue
-        smoothed = signal.lfilter(
-            [SHARE_SMOOTHING], [1.0, -keep], taught[rows, i], zi=[keep * prev_weights[i]]
-        )[0]
-        last = np.cumsum(teach[:, i]) - 1
-        weights[:, i] = np.where(last >= 0, smoothed[np.maximum(last, 0)], prev_weights[i])
-    return weights, imbalance, worst
 
 
 def _phase_findings(

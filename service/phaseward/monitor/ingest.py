@@ -1,7 +1,8 @@
 """Ingest: store a batch of samples, advance the live state, derive events, in one transaction.
 
 A batch is atomic: every sample is stored, or (on any error) none is and the client gets one
-4xx naming the first bad field; a rejected batch leaves a ``telemetry.rejected`` event.
+4xx naming the first bad field; a rejected batch counts into a ``telemetry.rejected`` episode
+(:mod:`rejections`).
 Resends are absorbed: a sample whose (rail, seq) is stored already with the same content counts
 as a duplicate; the same seq with other content is a conflict. Samples older than the live
 state are stored but do not roll it back. The requests of a group commit are stored and judged
@@ -44,7 +45,7 @@ import numpy as np
 import numpy.typing as npt
 from sqlalchemy.orm import Session, sessionmaker
 
-from phaseward.errors import Conflict, InvalidInput, NotFound, PhasewardError
+from phaseward.errors import Conflict, InvalidInput, NotFound
 from phaseward.monitor import fault_class, rail_model
 from phaseward.monitor.assess import Assessment, assess, hottest_margin
 from phaseward.monitor.conditions import (
@@ -59,6 +60,7 @@ from phaseward.monitor.conditions import (
     judge,
 )
 from phaseward.monitor.rail_model import RailModel, phase_power
+from phaseward.monitor.rejections import record_rejection
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
 from phaseward.physics.estimator import EstimatorState, initial_from_readings, kalman_run
 from phaseward.physics.plausibility import RULES
@@ -243,11 +245,7 @@ def advance(
     The rail is assessed at the points :func:`_assessment_points` picks, each judged against
     the verdict of the point before it (carried in the live state across batches).
     """
-    watch = (
-        Watch.load(previous["watch"], model.n_phases)
-        if "watch" in previous
-        else Watch.fresh(model.n_phases)
-    )
+    watch = Watch.load(previous["watch"], model) if "watch" in previous else Watch.fresh(model)
     judgement = judge(model, batch, watch)
     received, batch = batch, judgement.clean  # judged without its implausible readings
     ambient = np.where(np.isfinite(batch.ambient_c), batch.ambient_c, model.ambient_c)
@@ -603,24 +601,3 @@ def _event_row(model: RailModel, batch: SampleBatch, f: Finding) -> dict[str, An
         "message": f.message,
         "details": {**f.details, "seq": int(batch.seq[f.sample])},
     }
-
-
-def record_rejection(
-    sessions: sessionmaker[Session], rail_id: str, *, samples: int, error: PhasewardError
-) -> None:
-    """Leave a trace of a refused batch on a known rail, in its own transaction."""
-    with transaction(sessions) as session:
-        rail = rails.get(session, rail_id)
-        if rail is None:
-            return
-        row = {
-            "rail_id": rail_id,
-            "version": rail.version,
-            "t_s": time.time(),
-            "kind": "telemetry.rejected",
-            "severity": "warning",
-            "phase": None,
-            "message": f"batch of {samples} samples refused: {error.detail}",
-            "details": {"field": error.field, "error": error.error, "samples": samples},
-        }
-        events.add_many(session, [row])

@@ -31,7 +31,8 @@ class LiveRail:
 
 def live_rail(session: Session, rail_id: str) -> LiveRail:
     """The rail as of its newest sample; with no telemetry yet (or a new definition since),
-    all phases active, equal sharing, the rated load, and the network at its steady state."""
+    all phases active, the declared sharing, the rated load, and the network at its steady
+    state."""
     rail, spec = rail_service.get(session, rail_id)
     model = rail_model.build(rail.id, rail.version, spec)
     row = state.get(session, rail_id)
@@ -47,8 +48,8 @@ def live_rail(session: Session, rail_id: str) -> LiveRail:
             t_s=float(s["sample"]["t_s"]),
         )
     active = np.ones(model.n_phases, dtype=bool)
-    share = model.load_a / model.n_phases
-    p0, slope = phase_power(model, np.full(model.n_phases, share), active)
+    share = model.load_a * model.share_target / model.share_target.sum()
+    p0, slope = phase_power(model, share, active)
     try:
         nodes = steady_state_c(model.network, p0, slope, model.ambient_c)
     except ThermalRunaway as err:
@@ -56,6 +57,6 @@ def live_rail(session: Session, rail_id: str) -> LiveRail:
             "the rated load has no thermal steady state on this definition", field="load_a"
         ) from err
     return LiveRail(
-        model=model, active=active, weights=np.ones(model.n_phases), load_a=model.load_a,
+        model=model, active=active, weights=model.share_target, load_a=model.load_a,
         nodes_c=nodes, ambient_c=model.ambient_c, t_s=None,
     )  # fmt: skip

@@ -42,6 +42,9 @@ class MonitorRules:
     sensor_tau_s: float | None
     sensor_offset_k: float
     stale_s: float = 5.0  # definitions stored before the setting existed get the default
+    # Absent from definitions stored before sharing could be declared.
+    share_learning_rate: float = 0.2
+    share_significance: float = 5.0
 
 
 @dataclass(frozen=True)
@@ -67,6 +70,9 @@ class RailModel:
     warning_margin_k: F64
     dcr_ohm: F64
     dcr_ref_c: F64
+    share_target: F64  # declared relative shares, mean 1 over all phases
+    sense_gain: F64
+    sense_offset_a: F64
     losses: PhaseLossParams
     network: ThermalNetwork
     rules: MonitorRules
@@ -111,6 +117,7 @@ def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
         return np.array([float(get(p)) for p in phases], dtype=np.float64)
 
     losses = _loss_params(spec, phases)
+    target = arr(lambda p: p.get("share_target", 1.0))
     chains = [
         foster_to_cauer(
             FosterStages(
@@ -141,6 +148,9 @@ def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
         warning_margin_k=arr(lambda p: p["warning_margin_k"]),
         dcr_ohm=arr(lambda p: p["inductor"]["dcr_ohm"]),
         dcr_ref_c=arr(lambda p: p["inductor"]["dcr_ref_c"]),
+        share_target=target * target.size / target.sum(),
+        sense_gain=arr(lambda p: p.get("sense_gain", 1.0)),
+        sense_offset_a=arr(lambda p: p.get("sense_offset_a", 0.0)),
         losses=losses,
         network=network,
         rules=MonitorRules(**spec["monitor"]),

@@ -71,9 +71,12 @@ def mission(live: LiveRail, hours: float) -> dict[str, Any]:
     p0, slope = phase_power(model, current, masks)
     steady, runaway = steady_state_c(model.network, p0, slope, ambient, runaway="flag")
     junction = steady[:, model.network.junction_node]
+    # A steady state beyond float range is no steady state either.
+    runaway = runaway | (masks & ~np.isfinite(junction)).any(axis=1)
+    working = masks & ~runaway[:, None]
     rates = np.where(
-        masks & ~runaway[:, None],
-        failure_rate_per_h(rel.fit_at_ref, np.where(masks, junction, rel.ref_c),
+        working,
+        failure_rate_per_h(rel.fit_at_ref, np.where(working, junction, rel.ref_c),
                            ref_temp_c=rel.ref_c, activation_ev=rel.activation_ev),
         np.inf,
     )  # fmt: skip
@@ -88,7 +91,7 @@ def mission(live: LiveRail, hours: float) -> dict[str, Any]:
             "mttf_h": float(mttf[j]) if np.isfinite(mttf[j]) else None,
             "runaway": bool(runaway[j]),
             "junction_c": [
-                float(x) if m else None for x, m in zip(junction[j], masks[j], strict=True)
+                float(x) if m else None for x, m in zip(junction[j], working[j], strict=True)
             ],
             "fit": [float(r * DEVICE_HOURS_PER_FIT) if np.isfinite(r) else None for r in rates[j]],
         }

@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 from sqlalchemy.orm import Session
 
 from phaseward.monitor import rail_model
@@ -36,10 +37,13 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
         return out  # no sample judged under the present definition yet
     s = live.state
     verdict, sample = s["rail"], s["sample"]
-    weights = np.asarray(s["watch"]["weights"])
+    watch = s["watch"]
     active = np.array([p["condition"] == "active" for p in s["phases"]])
-    shares = np.where(active, weights, 0.0)
-    shares = shares / shares.sum() if shares.sum() > 0 else shares
+    shares, learned, declared = (
+        _fractions(np.asarray(w, dtype=np.float64), active)
+        for w in (watch["weights"], watch.get("share_learned") or watch["weights"],
+                  model.share_target)
+    )  # fmt: skip
     limit = model.temp_limit_c
     junction = np.asarray(s["nodes_c"])[model.network.junction_node]  # estimates, not sensors
     hottest, margin = hottest_margin(model, np.asarray(s["nodes_c"]), active)
@@ -92,6 +96,8 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
                 "current_a": p["current_a"],
                 "temp_c": p["temp_c"],
                 "share": float(shares[i]),
+                "share_learned": float(learned[i]),
+                "share_declared": float(declared[i]),
                 "rated_current_a": float(model.rated_current_a[i]),
                 "junction_limit_c": float(model.junction_limit_c[i]),
                 "flags": [name for name, bit in FLAG_NAMES.items() if p["flags"] & bit],
@@ -104,3 +110,10 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
         ],
     )
     return out
+
+
+def _fractions(weights: npt.NDArray[np.float64], active: npt.NDArray[np.bool_]) -> list[float]:
+    """Relative shares as fractions of the rail current over the active phases."""
+    shares = np.where(active, weights, 0.0)
+    total = shares.sum()
+    return [float(x) for x in (shares / total if total > 0 else shares)]

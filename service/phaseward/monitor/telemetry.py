@@ -106,7 +106,9 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
     """Check phase indexes against the rail and convert sense voltages and READ_IOUT words.
 
     A sense voltage is converted with the DCR at the phase's reported temperature (the
-    inductor sits beside the power stage), else the sample's ambient, else the rail's.
+    inductor sits beside the power stage), else the sample's ambient, else the rail's. Every
+    current, however given, is then calibrated with the phase's declared sense gain and offset:
+    amps = sense_gain x reading + sense_offset_a.
     """
     n, p = incoming.n, model.n_phases
     bad = np.nonzero(incoming.phase >= p)[0]
@@ -143,11 +145,12 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
     from_word = np.where(
         has_word, linear11_decode(np.where(has_word, incoming.iout_word, 0)), np.nan
     )
-    amps = np.where(
+    read = np.where(
         np.isfinite(incoming.current_a),
         incoming.current_a,
         np.where(np.isfinite(incoming.sense_v), from_sense, from_word),
     )
+    amps = model.sense_gain[incoming.phase] * read + model.sense_offset_a[incoming.phase]
 
     current = np.full((n, p), np.nan)
     temp = np.full((n, p), np.nan)

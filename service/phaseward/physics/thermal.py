@@ -726,15 +726,21 @@ def time_to_limit_batch_s(
     def junction_c(rows: IntArray, t: FloatArray) -> FloatArray:
         """Junction temperatures (len(rows), n_t, n_phases) at times t (len(rows), n_t)."""
         x = -lam[rows, None, :] * t[..., None]
-        coef = np.exp(x) * z0[rows, None, :] + t[..., None] * special.exprel(x) * u[rows, None, :]
-        return np.asarray(np.einsum("bgm,bpm->bgp", coef, phi_j[rows]))
+        # A growing mode may pass float range (inf, or NaN where infinities cancel): the
+        # junction is then beyond any limit, which the caller sees as such.
+        with np.errstate(over="ignore", invalid="ignore"):
+            coef = (
+                np.exp(x) * z0[rows, None, :] + t[..., None] * special.exprel(x) * u[rows, None, :]
+            )
+            return np.asarray(np.einsum("bgm,bpm->bgp", coef, phi_j[rows]))
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
-        # A mode growing past float64 range (garbage losses) has reached any limit: overflow
-        # and the NaN it leaves count as reached, the safe side.
-        with np.errstate(over="ignore", invalid="ignore"):
-            hot = np.max(junction_c(rows, t) - limit[rows, None, :], axis=-1)
-        return np.asarray(np.where(np.isnan(hot), np.inf, hot))
+        held = np.isfinite(limit[rows, None, :])
+        with np.errstate(invalid="ignore"):
+            over = junction_c(rows, t) - limit[rows, None, :]
+        # Past float range: over a limit the phase is held to (hot side), not one it ignores.
+        over = np.where(np.isnan(over), np.where(held, np.inf, -np.inf), over)
+        return np.asarray(np.max(over, axis=-1))
 
     rate = np.maximum(np.abs(lam), 1e-300)
     runaway = lam[:, 0] <= 0.0

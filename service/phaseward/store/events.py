@@ -52,6 +52,18 @@ def page(
     return session.scalars(stmt).all()
 
 
+def newest_of_kind(session: Session, rail_id: str, kind: str) -> Event | None:
+    """The rail's newest event of ``kind``, locked for update where the database can."""
+    stmt = (
+        select(Event)
+        .where(Event.rail_id == rail_id, Event.kind == kind)
+        .order_by(Event.id.desc())
+        .limit(1)
+        .with_for_update()
+    )
+    return session.scalars(stmt).one_or_none()
+
+
 def get(session: Session, event_id: int) -> Event | None:
     return session.get(Event, event_id)
 

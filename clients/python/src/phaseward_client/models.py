@@ -98,15 +98,26 @@ class Model:
 
 
 @dataclass(frozen=True)
+class DefinitionWarning(Model):
+    """Something unusual about a stored definition: the field, the rule's name, the detail."""
+
+    field: str
+    rule: str
+    detail: str
+
+
+@dataclass(frozen=True)
 class Rail(Model):
     """A stored rail definition (``spec`` is the definition as the service stored it, with
-    its defaults filled in; ``version`` grows with every PUT)."""
+    its defaults filled in; ``version`` grows with every PUT). ``warnings``: what is unusual
+    about it, in the answer of a create or put (empty on reads)."""
 
     id: str
     version: int
     created: str
     updated: str
     spec: dict[str, Any]
+    warnings: list[DefinitionWarning] = field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -167,6 +178,9 @@ class PhaseStatus(Model):
     reading_age_s: float | None = None
     assumed_a: float | None = None  # current the load assumed for this phase
     implausible: Implausible | None = None
+    # The share from the learned sharing, and from the definition (capacity uses ``share``).
+    share_learned: float | None = None
+    share_declared: float | None = None
 
 
 @dataclass(frozen=True)

@@ -11,10 +11,11 @@ from phaseward.api.deps import ClockDep, ReadSessionDep, SessionsDep, SettingsDe
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.schemas.common import MAX_ROW_ID
 from phaseward.api.schemas.events import iso
-from phaseward.api.schemas.rails import RailBody, RailCreate, RailOut
+from phaseward.api.schemas.rails import DefinitionWarning, RailBody, RailCreate, RailOut, RailSaved
 from phaseward.api.schemas.status import RailStatus
 from phaseward.errors import Forbidden
 from phaseward.monitor import rails as rail_service
+from phaseward.monitor.sanity import Notice
 from phaseward.monitor.status import rail_status
 from phaseward.store import rails as rail_store
 from phaseward.store.models import Rail
@@ -31,13 +32,20 @@ def _out(rail: Rail, spec: dict[str, object]) -> RailOut:
     )  # fmt: skip
 
 
+def _saved(rail: Rail, spec: dict[str, object], warnings: list[Notice]) -> RailSaved:
+    notes = [DefinitionWarning(field=w.field, rule=w.rule, detail=w.detail) for w in warnings]
+    return RailSaved(**_out(rail, spec).model_dump(), warnings=notes)
+
+
 @router.post("", status_code=status.HTTP_201_CREATED)
-def create_rail(body: RailCreate, sessions: SessionsDep, who: Admin) -> RailOut:
+def create_rail(body: RailCreate, sessions: SessionsDep, who: Admin) -> RailSaved:
+    """Store a new rail. A definition that cannot be right is refused (422 naming the field);
+    one that is merely unusual is stored, and the answer lists ``warnings``."""
     if not who.may_use(body.id):
         raise Forbidden(f"this key may not define rail '{body.id}'", field="id")
     spec = RailBody.model_validate(body.model_dump(exclude={"id"})).stored()
-    rail, spec = rail_service.create(sessions, body.id, spec)
-    return _out(rail, spec)
+    rail, spec, warnings = rail_service.create(sessions, body.id, spec)
+    return _saved(rail, spec, warnings)
 
 
 @router.get("")
@@ -64,10 +72,12 @@ def get_rail(rail_id: RailId, session: ReadSessionDep, _: RailReader) -> RailOut
 @router.put("/{rail_id}")
 def put_rail(
     rail_id: RailId, body: RailBody, sessions: SessionsDep, response: Response, _: RailAdmin
-) -> RailOut:
-    rail, spec, created = rail_service.put_version(sessions, rail_id, body.stored())
+) -> RailSaved:
+    """Store the next version (or the first). Refusals and ``warnings`` as for POST; a
+    refused definition leaves the stored one as it was."""
+    rail, spec, created, warnings = rail_service.put_version(sessions, rail_id, body.stored())
     response.status_code = status.HTTP_201_CREATED if created else status.HTTP_200_OK
-    return _out(rail, spec)
+    return _saved(rail, spec, warnings)
 
 
 @router.delete("/{rail_id}", status_code=status.HTTP_204_NO_CONTENT)

@@ -35,7 +35,7 @@ from phaseward.errors import (
 )
 from phaseward.monitor import rails as rail_service
 from phaseward.monitor import retention
-from phaseward.monitor.ingest import record_rejection
+from phaseward.monitor.rejections import record_rejection
 from phaseward.store import samples as sample_store
 
 router = APIRouter(prefix="/v1/rails", tags=["telemetry"], responses=ERROR_RESPONSES)

@@ -34,7 +34,9 @@ Celsius = Annotated[float, Field(ge=-273.15, le=1000)]
 # to about eleven days; thermal resistances up to a million K/W. Far beyond real parts, and
 # inside what float64 sums and ratios of them can hold (1e308 K/W overflowed a Zth sum).
 Seconds = Annotated[float, Field(ge=1e-9, le=1e6)]
-KelvinPerWatt = Annotated[float, Field(gt=0, le=1e6)]
+# Thermal resistances from a microkelvin per watt (below, a stage's capacitance tau / R
+# overflowed the Foster to Cauer conversion).
+KelvinPerWatt = Annotated[float, Field(ge=1e-6, le=1e6)]
 
 CAUTION = (
     "phaseward is a monitoring aid: hardware protection stays in hardware, and local codes "

@@ -6,45 +6,66 @@ from typing import Annotated, Any, Self
 
 from pydantic import Field, ValidationInfo, field_validator, model_validator
 
-from phaseward.api.schemas.common import (
-    Celsius,
-    Contract,
-    KelvinPerWatt,
-    NonNegative,
-    Positive,
-    Seconds,
-)
+from phaseward.api.schemas.common import Contract, KelvinPerWatt, Seconds
 
 Slug = Annotated[str, Field(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)]
 
+# Physical ranges of definition fields. Each is far wider than any real part (so no real
+# rail is refused) and narrow enough that every product, square and ratio the physics forms
+# of them stays finite in float64 (a load of 2.7e307 A overflowed the loss model).
+Volts = Annotated[float, Field(ge=1e-3, le=1e4)]  # a buck converter's input or output
+Amps = Annotated[float, Field(ge=1e-3, le=1e5)]  # a rail's load, a phase's rating or trip
+PhaseAmps = Annotated[float, Field(ge=0, le=1e5)]  # a point of a loss table
+Hertz = Annotated[float, Field(ge=1e3, le=1e8)]  # switching frequency
+Henry = Annotated[float, Field(ge=1e-10, le=1.0)]
+Ohms = Annotated[float, Field(ge=1e-7, le=10.0)]  # a winding or switch resistance
+Watts = Annotated[float, Field(ge=0, le=1e5)]  # a fixed loss, a loss-table point
+DefCelsius = Annotated[float, Field(ge=-100, le=500)]  # ambient, limits, reference points
+Kelvin = Annotated[float, Field(ge=0, le=500)]  # a margin or hysteresis
+Instant = Annotated[float, Field(ge=0, le=1e-3)]  # switching edges and dead time
+Duration = Annotated[float, Field(ge=1e-3, le=1e6)]  # gaps, horizons, lags (about 11 days)
+ShareTarget = Annotated[
+    float,
+    Field(
+        ge=0.01, le=100,
+        description="the phase's declared share of the load relative to the others (only "
+        "ratios matter; 1 for every phase is equal sharing): where sharing learning starts",
+    ),
+]  # fmt: skip
+SenseGain = Annotated[
+    float,
+    Field(ge=0.1, le=10, description="current-sense calibration: amps = gain x reading + offset"),
+]
+SenseOffset = Annotated[float, Field(ge=-1e3, le=1e3, description="A, added after the gain")]
+
 
 class InductorSpec(Contract):
-    inductance_h: Positive
-    dcr_ohm: Positive
-    dcr_ref_c: Celsius = 20.0
+    inductance_h: Henry
+    dcr_ohm: Ohms
+    dcr_ref_c: DefCelsius = 20.0
 
 
 class PowerStageSpec(Contract):
     """Analytic switch losses (Erickson & Maksimovic); Rds(on) rises linearly with T."""
 
-    rds_high_ohm: Positive
-    rds_low_ohm: Positive
-    rds_ref_c: Celsius = 25.0
+    rds_high_ohm: Ohms
+    rds_low_ohm: Ohms
+    rds_ref_c: DefCelsius = 25.0
     rds_tc_per_k: Annotated[float, Field(ge=0, le=0.05)] = 0.004  # typical Si MOSFET, from memory
-    rise_time_s: NonNegative = 0.0
-    fall_time_s: NonNegative = 0.0
-    gate_charge_c: NonNegative = 0.0
-    drive_v: NonNegative = 5.0
-    dead_time_s: NonNegative = 0.0
-    diode_drop_v: NonNegative = 0.7
+    rise_time_s: Instant = 0.0
+    fall_time_s: Instant = 0.0
+    gate_charge_c: Annotated[float, Field(ge=0, le=1e-3)] = 0.0
+    drive_v: Annotated[float, Field(ge=0, le=100)] = 5.0
+    dead_time_s: Instant = 0.0
+    diode_drop_v: Annotated[float, Field(ge=0, le=10)] = 0.7
 
 
 class LossTableSpec(Contract):
     """Power-stage loss versus phase current from a datasheet curve at ``ref_c``."""
 
-    current_a: list[NonNegative] = Field(min_length=2, max_length=64)
-    loss_w: list[NonNegative] = Field(min_length=2, max_length=64)
-    ref_c: Celsius = 25.0
+    current_a: list[PhaseAmps] = Field(min_length=2, max_length=64)
+    loss_w: list[Watts] = Field(min_length=2, max_length=64)
+    ref_c: DefCelsius = 25.0
     tc_per_k: Annotated[float, Field(ge=0, le=0.05)] = 0.0
 
     @model_validator(mode="after")
@@ -62,15 +83,18 @@ class FosterStage(Contract):
 
 
 class PhaseSpec(Contract):
-    rated_current_a: Positive
-    overcurrent_limit_a: Positive
-    junction_limit_c: Celsius
-    warning_margin_k: NonNegative = 10.0
+    rated_current_a: Amps
+    overcurrent_limit_a: Amps
+    junction_limit_c: DefCelsius
+    warning_margin_k: Kelvin = 10.0
     inductor: InductorSpec
     power_stage: PowerStageSpec | None = None
     loss_table: LossTableSpec | None = None
-    core_loss_w: NonNegative = 0.0
+    core_loss_w: Watts = 0.0
     thermal: list[FosterStage] = Field(min_length=1, max_length=6)
+    share_target: ShareTarget = 1.0
+    sense_gain: SenseGain = 1.0
+    sense_offset_a: SenseOffset = 0.0
 
     @model_validator(mode="after")
     def _one_loss_model(self) -> Self:
@@ -83,22 +107,25 @@ class PhaseOverride(Contract):
     """Per-phase exceptions: any top-level phase field given here replaces the default."""
 
     index: Annotated[int, Field(ge=0)]
-    rated_current_a: Positive | None = None
-    overcurrent_limit_a: Positive | None = None
-    junction_limit_c: Celsius | None = None
-    warning_margin_k: NonNegative | None = None
+    rated_current_a: Amps | None = None
+    overcurrent_limit_a: Amps | None = None
+    junction_limit_c: DefCelsius | None = None
+    warning_margin_k: Kelvin | None = None
     inductor: InductorSpec | None = None
     power_stage: PowerStageSpec | None = None
     loss_table: LossTableSpec | None = None
-    core_loss_w: NonNegative | None = None
+    core_loss_w: Watts | None = None
     thermal: list[FosterStage] | None = Field(default=None, min_length=1, max_length=6)
+    share_target: ShareTarget | None = None
+    sense_gain: SenseGain | None = None
+    sense_offset_a: SenseOffset | None = None
 
 
 class BoardSpec(Contract):
     """The shared board node every phase's thermal chain ends on, and its path to ambient."""
 
-    to_ambient_k_per_w: Positive
-    capacitance_j_per_k: Positive
+    to_ambient_k_per_w: KelvinPerWatt
+    capacitance_j_per_k: Annotated[float, Field(ge=1e-6, le=1e9)]
 
 
 class MonitorSpec(Contract):
@@ -110,16 +137,21 @@ class MonitorSpec(Contract):
     min_share_load_fraction: Annotated[float, Field(ge=0, lt=1)] = 0.2
     undervoltage_fraction: Annotated[float, Field(gt=0, lt=1)] = 0.85
     excursion_fraction: Annotated[float, Field(gt=0, lt=1)] = 0.05
-    gap_s: Positive = 10.0
-    forecast_horizon_s: Positive = 900.0
-    hysteresis_k: NonNegative = 2.0
+    gap_s: Duration = 10.0
+    forecast_horizon_s: Duration = 900.0
+    hysteresis_k: Kelvin = 2.0
     # The junction estimator: how far to trust the loss model and the temperature sensors.
-    process_noise_w: Positive = 0.2
-    sensor_noise_k: Positive = 0.5
-    sensor_tau_s: Positive | None = Field(
+    process_noise_w: Annotated[float, Field(ge=1e-9, le=1e6)] = 0.2
+    sensor_noise_k: Annotated[float, Field(ge=1e-6, le=1e3)] = 0.5
+    sensor_tau_s: Duration | None = Field(
         default=None, description="first-order lag of the sensor behind the junction"
     )
     sensor_offset_k: float = Field(default=0.0, ge=-50, le=50)
+    # Learned sharing: each informative sample moves a phase's learned share by this fraction
+    # of its difference; capacity follows the learned shares only once they differ from the
+    # shares it uses by more than share_significance standard errors (an EWMA chart).
+    share_learning_rate: Annotated[float, Field(ge=1e-4, le=1)] = 0.2
+    share_significance: Annotated[float, Field(ge=1, le=20)] = 5.0
     stale_s: Annotated[float, Field(gt=0, le=86400)] = Field(
         default=5.0,
         description="a phase not reported (or read implausibly) keeps its last good reading "
@@ -137,8 +169,8 @@ class PlausibilitySpec(Contract):
     reverse_band_a: Annotated[float, Field(ge=0, le=1e6)] | None = Field(
         default=None, description="backward current beyond this (10 % of rated_current_a)"
     )
-    temp_min_c: Celsius | None = Field(default=None, description="(-55 degC)")
-    temp_max_c: Celsius | None = Field(default=None, description="(junction limit + 50 K)")
+    temp_min_c: DefCelsius | None = Field(default=None, description="(-55 degC)")
+    temp_max_c: DefCelsius | None = Field(default=None, description="(junction limit + 50 K)")
     below_ambient_k: Annotated[float, Field(gt=0, le=200)] | None = Field(
         default=None, description="a sensor colder than ambient by more than this (15 K)"
     )
@@ -159,27 +191,27 @@ class PlausibilitySpec(Contract):
 class ReliabilitySpec(Contract):
     """Per-phase failure rate at a reference temperature, accelerated per JEDEC JEP122."""
 
-    fit_at_ref: Positive = Field(description="failures per 1e9 phase-hours at ref_c")
-    ref_c: Celsius
-    activation_ev: Annotated[float, Field(gt=0, le=3)] = 0.7  # a usual default, common practice
+    fit_at_ref: float = Field(ge=1e-6, le=1e9, description="failures per 1e9 phase-hours at ref_c")
+    ref_c: DefCelsius
+    activation_ev: Annotated[float, Field(ge=0.01, le=3)] = 0.7  # a usual default, common practice
 
 
 class OutputSpec(Contract):
     """The output capacitor bank, for the ripple voltage the interleaving leaves."""
 
-    capacitance_f: Positive
-    esr_ohm: NonNegative = 0.0
+    capacitance_f: Annotated[float, Field(ge=1e-12, le=100)]
+    esr_ohm: Annotated[float, Field(ge=0, le=10)] = 0.0
 
 
 class RailBody(Contract):
     """A rail definition as PUT takes it (the id comes from the path)."""
 
     name: Annotated[str, Field(min_length=1, max_length=200)]
-    vin_v: Positive
-    vout_v: Positive
-    switching_hz: Positive
-    load_a: Positive
-    ambient_c: Celsius = 25.0
+    vin_v: Volts
+    vout_v: Volts
+    switching_hz: Hertz
+    load_a: Amps
+    ambient_c: DefCelsius = 25.0
     phase_count: Annotated[int, Field(ge=1, le=32)]
     phase: PhaseSpec
     overrides: list[PhaseOverride] = Field(default_factory=list, max_length=32)
@@ -249,3 +281,15 @@ class RailOut(Contract):
     created: str
     updated: str
     spec: dict[str, Any]
+
+
+class DefinitionWarning(Contract):
+    field: str
+    rule: str = Field(description="the rule's name; the README lists each with its basis")
+    detail: str
+
+
+class RailSaved(RailOut):
+    """A stored definition and what is unusual about it (empty when nothing is)."""
+
+    warnings: list[DefinitionWarning]

@@ -19,7 +19,14 @@ class PhaseStatus(BaseModel):
     condition: str = Field(description="active, isolated, suspect or silent")
     current_a: float | None
     temp_c: float | None
-    share: float = Field(description="fraction of the rail current this phase carries")
+    share: float = Field(
+        description="fraction of the rail current this phase carries, as capacity takes it"
+    )
+    share_learned: float = Field(
+        description="the same from the learned sharing; capacity follows it only once it "
+        "differs significantly (see the README, declared current sharing)"
+    )
+    share_declared: float = Field(description="the same from the definition's share_target")
     rated_current_a: float
     junction_limit_c: float
     flags: list[str]

@@ -39,6 +39,13 @@ def grid_size(settings: dict[str, float | list[float]]) -> int:
     return math.prod(len(v) if isinstance(v, list) else 1 for v in settings.values())
 
 
+def rail_of(request: dict[str, Any]) -> str | None:
+    """The rail whose samples a stored rehearsal request replays (None for an uploaded trace,
+    which belongs to no rail)."""
+    rail: str | None = request["trace"].get("rail_id")
+    return rail
+
+
 def _trace(session: Session, spec: dict[str, Any]) -> RehearsalTrace:
     if "trace_id" in spec:
         t = traces.load(session, int(spec["trace_id"]))

@@ -71,7 +71,7 @@ TRACE_CSV = "time_s,vin_v,i0_a,i1_a\n" + "\n".join(f"{k},12,10,10" for k in rang
 @pytest.fixture
 def keyed_app(tmp_path: Path, database_url: str) -> FastAPI:
     settings = Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys",
-                        rate_per_s=1000.0, rate_burst=100_000)  # fmt: skip
+                        rate_per_s=1000.0, rate_burst=100_000, auth_failure_burst=1000)  # fmt: skip
     return create_app(settings)
 
 

@@ -14,7 +14,7 @@ from threadpoolctl import threadpool_limits
 
 from phaseward import __version__
 from phaseward.api import errors, observability
-from phaseward.api.auth import RateLimiter
+from phaseward.api.auth import Gate, RateLimiter
 from phaseward.api.group_commit import GroupCommit
 from phaseward.api.routes import (
     analyses,
@@ -80,6 +80,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     runner.resume()  # jobs a stopped process left unfinished run again
     app.state.metrics = observability.Metrics()
     errors.install(app)
+    app.add_middleware(Gate, settings=settings, state=app.state)  # inside the request log
     observability.install(app)
     app.include_router(observability.router)
     app.include_router(rails.router)

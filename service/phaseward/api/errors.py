@@ -46,22 +46,26 @@ def validation_response(errors: list[Any]) -> JSONResponse:
     return _render(422, "invalid_input", f"{field}: {first['msg']}", field, errors=items)
 
 
+def error_response(err: PhasewardError) -> JSONResponse:
+    response = _render(err.status_code, err.error, err.detail, err.field)
+    if isinstance(err, Unauthorized):
+        response.headers["WWW-Authenticate"] = 'Bearer realm="phaseward"'
+    if isinstance(err, TooManyRequests):
+        response.headers["Retry-After"] = str(max(1, math.ceil(err.retry_after_s)))
+    return response
+
+
 def install(app: FastAPI) -> None:
     @app.exception_handler(PhasewardError)
     async def _ours(_: Request, err: PhasewardError) -> JSONResponse:
-        response = _render(err.status_code, err.error, err.detail, err.field)
-        if isinstance(err, Unauthorized):
-            response.headers["WWW-Authenticate"] = 'Bearer realm="phaseward"'
-        if isinstance(err, TooManyRequests):
-            response.headers["Retry-After"] = str(max(1, math.ceil(err.retry_after_s)))
-        return response
+        return error_response(err)
 
     @app.exception_handler(HTTPException)
     async def _http(_: Request, err: HTTPException) -> JSONResponse:
         # The framework's own refusals (a body it cannot parse, an unknown path, a method the
         # path lacks) in the same shape as ours, not as a bare {"detail"}.
         error = _HTTP_ERRORS.get(err.status_code, "http_error")
-        field = "body" if err.status_code == 400 else None
+        field = "body" if err.status_code in (400, 413) else None
         response = _render(err.status_code, error, str(err.detail), field)
         response.headers.update(err.headers or {})
         return response
@@ -88,7 +92,12 @@ def install(app: FastAPI) -> None:
         return _unavailable(err)
 
 
-_HTTP_ERRORS = {400: "bad_request", 404: "not_found", 405: "method_not_allowed"}
+_HTTP_ERRORS = {
+    400: "bad_request",
+    404: "not_found",
+    405: "method_not_allowed",
+    413: "payload_too_large",
+}
 READ_ONLY_SQLSTATE = "25006"  # read_only_sql_transaction
 
 

@@ -80,7 +80,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     runner.resume()  # jobs a stopped process left unfinished run again
     app.state.metrics = observability.Metrics()
     errors.install(app)
-    app.add_middleware(Gate, settings=settings, state=app.state)  # inside the request log
+    app.add_middleware(Gate, settings=settings, state=app.state)
+    app.add_middleware(errors.CatchAll)  # inside the request log, which then counts the 500
     observability.install(app)
     app.include_router(observability.router)
     app.include_router(rails.router)

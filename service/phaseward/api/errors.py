@@ -1,7 +1,9 @@
-"""One handler per error family, all rendering ``{"error", "detail", "field"}``."""
+"""One handler per error family, all rendering ``{"error", "detail", "field"}``, and
+``CatchAll`` for the unexpected."""
 
 from __future__ import annotations
 
+import logging
 import math
 from typing import Any
 
@@ -11,6 +13,7 @@ from fastapi.responses import JSONResponse
 from pydantic import ValidationError
 from sqlalchemy.exc import DBAPIError, InternalError, OperationalError
 from starlette.exceptions import HTTPException
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from phaseward.api.schemas.common import ErrorBody
 from phaseward.errors import PhasewardError, TooManyRequests, Unauthorized
@@ -53,6 +56,38 @@ def error_response(err: PhasewardError) -> JSONResponse:
     if isinstance(err, TooManyRequests):
         response.headers["Retry-After"] = str(max(1, math.ceil(err.retry_after_s)))
     return response
+
+
+class CatchAll:
+    """An exception no handler knows becomes a logged 500 in the same JSON shape, and the
+    server keeps the connection: left to the framework it would answer plain text and the
+    server would drop the connection, resetting the client's next request on it. (Once a
+    streamed response has begun there is nothing left to answer with: that one is re-raised.)
+    """
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        started = False
+
+        async def watch(message: Message) -> None:
+            nonlocal started
+            started = started or message["type"] == "http.response.start"
+            await send(message)
+
+        try:
+            await self.app(scope, receive, watch)
+        except Exception:
+            if started:
+                raise
+            logging.getLogger(__name__).exception("unexpected error")
+            response = _render(500, "internal_error", "an unexpected error; see the server log "
+                               "for this request's id (X-Request-ID)", None)  # fmt: skip
+            await response(scope, receive, send)
 
 
 def install(app: FastAPI) -> None:
@@ -118,6 +153,7 @@ ERROR_RESPONSES: dict[int | str, dict[str, Any]] = {
         415: "Unsupported content type",
         422: "A value that cannot be right; `field` names it",
         429: "Over the key's rate; see Retry-After",
+        500: "An unexpected error (logged with the request's id)",
         503: "Database unavailable",
     }.items()
 }

@@ -74,9 +74,9 @@ async def test_roles(keyed_app: FastAPI, anon: httpx.AsyncClient) -> None:
     assert (
         await anon.post(f"/v1/events/{event_id}/ack", json=ack, headers=reader)
     ).status_code == 403
-    assert (
-        await anon.post(f"/v1/events/{event_id}/ack", json=ack, headers=operate)
-    ).status_code == 200
+    acked = await anon.post(f"/v1/events/{event_id}/ack", json=ack, headers=operate)
+    assert acked.status_code == 200
+    assert acked.json()["acked_key"] == "operate test"  # the key's name, whatever "by" says
     assert (await anon.delete("/v1/rails/bench-a", headers=operate)).status_code == 403
 
 

@@ -120,6 +120,7 @@ class Event(Base):
     acked_by: Mapped[str | None] = mapped_column(String(120))
     ack_note: Mapped[str | None] = mapped_column(Text)
     acked_s: Mapped[float | None] = mapped_column(Float)
+    acked_key: Mapped[str | None] = mapped_column(String(120))  # the name of the key used
     # The writing transaction's id on PostgreSQL (a column default), 0 on SQLite: orders the
     # live stream by commit (store.events.stream_after).
     txid: Mapped[int] = mapped_column(BigInteger, server_default=FetchedValue())

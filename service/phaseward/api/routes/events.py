@@ -16,7 +16,14 @@ from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RailId, RowId
 from phaseward.api.schemas.common import is_row_id
-from phaseward.api.schemas.events import CSV_COLUMNS, SEVERITIES, AckIn, EventOut, EventPage
+from phaseward.api.schemas.events import (
+    CSV_COLUMNS,
+    SEVERITIES,
+    AckIn,
+    EventOut,
+    EventPage,
+    csv_cell,
+)
 from phaseward.errors import InvalidInput
 from phaseward.monitor import rails as rail_service
 from phaseward.monitor.acknowledge import acknowledge
@@ -89,7 +96,7 @@ def _page(
         writer = csv.writer(buf)
         writer.writerow(CSV_COLUMNS)
         for e in items:
-            writer.writerow([getattr(e, c) for c in CSV_COLUMNS])
+            writer.writerow([csv_cell(getattr(e, c)) for c in CSV_COLUMNS])
         headers = {"X-Next-Cursor": next_cursor} if next_cursor else {}
         return Response(buf.getvalue(), media_type="text/csv", headers=headers)
     return EventPage(items=items, next_cursor=next_cursor)
@@ -126,6 +133,7 @@ def list_rail_events(
 
 @router.post("/v1/events/{event_id}/ack")
 def ack_event(event_id: RowId, body: AckIn, sessions: SessionsDep, who: Operator) -> EventOut:
-    return EventOut.of(
-        acknowledge(sessions, event_id, by=body.by, note=body.note, may_use=who.may_use)
+    event = acknowledge(
+        sessions, event_id, by=body.by, note=body.note, key_name=who.name, may_use=who.may_use
     )
+    return EventOut.of(event)

@@ -1,4 +1,5 @@
-"""security: events record their writing transaction (commit-ordered stream)
+"""security: events record their writing transaction (commit-ordered stream) and the name
+of the key that acknowledged them
 
 Revision ID: 0005_security
 Revises: 0004
@@ -17,6 +18,7 @@ def upgrade() -> None:
     # Rows stored before this revision are final long since: they sort first (txid 0).
     with op.batch_alter_table("events") as batch:
         batch.add_column(sa.Column("txid", sa.BigInteger(), nullable=False, server_default="0"))
+        batch.add_column(sa.Column("acked_key", sa.String(length=120), nullable=True))
     if op.get_bind().dialect.name == "postgresql":
         # Each new event records the id of the transaction that wrote it (see store.events).
         op.execute("ALTER TABLE events ALTER COLUMN txid SET DEFAULT txid_current()")
@@ -26,4 +28,5 @@ def upgrade() -> None:
 def downgrade() -> None:
     op.drop_index("ix_events_txid_id", table_name="events")
     with op.batch_alter_table("events") as batch:
+        batch.drop_column("acked_key")
         batch.drop_column("txid")

@@ -46,6 +46,9 @@ class Settings(BaseSettings):
     retention_every_s: float = Field(default=3600.0, gt=0)
     max_trace_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
     max_trace_samples: int = Field(default=500_000, ge=2)
+    # A background job's lease: renewed every third of this while its server lives; after it
+    # expires another server takes the job over.
+    job_lease_s: float = Field(default=30.0, ge=0.3)
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

@@ -55,7 +55,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     migrate(engine)
     sessions = build_sessionmaker(engine)
     read_sessions = build_sessionmaker(engine, read_only=True)
-    runner = JobRunner(sessions, {rehearsal_jobs.KIND: rehearsal_jobs.run})
+    runner = JobRunner(
+        sessions, {rehearsal_jobs.KIND: rehearsal_jobs.run}, lease_s=settings.job_lease_s
+    )
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
@@ -77,7 +79,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.jobs = runner
     app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples)
     app.state.rate_limiter = RateLimiter(settings.rate_per_s, settings.rate_burst)
-    runner.resume()  # jobs a stopped process left unfinished run again
+    runner.resume()  # jobs whose server stopped run again here; leases renewed from now on
     app.state.metrics = observability.Metrics()
     errors.install(app)
     app.add_middleware(Gate, settings=settings, state=app.state)

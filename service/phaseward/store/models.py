@@ -176,6 +176,10 @@ class Job(Base):
     error: Mapped[str | None] = mapped_column(Text)
     created_s: Mapped[float] = mapped_column(Float)
     finished_s: Mapped[float | None] = mapped_column(Float)
+    # The lease: which server holds the job (queued or running) and until when; a server
+    # renews its leases while alive, and an expired lease lets another server take the job.
+    lease_owner: Mapped[str | None] = mapped_column(String(64))
+    lease_until_s: Mapped[float | None] = mapped_column(Float)
 
 
 class ApiKey(Base):

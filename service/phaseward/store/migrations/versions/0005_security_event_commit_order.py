@@ -1,5 +1,5 @@
 """security: events record their writing transaction (commit-ordered stream) and the name
-of the key that acknowledged them
+of the key that acknowledged them; job leases
 
 Revision ID: 0005_security
 Revises: 0004
@@ -23,9 +23,16 @@ def upgrade() -> None:
         # Each new event records the id of the transaction that wrote it (see store.events).
         op.execute("ALTER TABLE events ALTER COLUMN txid SET DEFAULT txid_current()")
     op.create_index("ix_events_txid_id", "events", ["txid", "id"])
+    # Job leases: the server running a job (or holding it queued) and until when it holds it.
+    with op.batch_alter_table("jobs") as batch:
+        batch.add_column(sa.Column("lease_owner", sa.String(length=64), nullable=True))
+        batch.add_column(sa.Column("lease_until_s", sa.Float(), nullable=True))
 
 
 def downgrade() -> None:
+    with op.batch_alter_table("jobs") as batch:
+        batch.drop_column("lease_until_s")
+        batch.drop_column("lease_owner")
     op.drop_index("ix_events_txid_id", table_name="events")
     with op.batch_alter_table("events") as batch:
         batch.drop_column("acked_key")

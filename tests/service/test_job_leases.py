@@ -115,7 +115,7 @@ def test_two_servers_sweeping_at_once_run_each_orphan_once(
         ids = [
             jobs.add(
                 session, kind="test", request={"n": n}, now_s=0.0, owner="gone", lease_until_s=1.0
-            ).id  # fmt: skip
+            ).id
             for n in range(6)
         ]
     rec = Recorder()

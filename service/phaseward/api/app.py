@@ -6,6 +6,7 @@ import asyncio
 import logging
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from typing import Any
 
 from fastapi import FastAPI
 from fastapi.concurrency import run_in_threadpool
@@ -26,6 +27,7 @@ from phaseward.api.routes import (
     traces,
     web,
 )
+from phaseward.api.schemas.samples import BODY_COMPONENTS
 from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor import retention
 from phaseward.monitor.jobs import JobRunner
@@ -95,8 +97,24 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(traces.router)
     app.include_router(rehearsals.router)
     app.include_router(web.router)
+    _complete_openapi(app)
 
     return app
+
+
+def _complete_openapi(app: FastAPI) -> None:
+    """Add the models that hand-written request schemas refer to (the samples body, read
+    without a pydantic parameter) to the generated document's components."""
+    generate = app.openapi
+
+    def openapi() -> dict[str, Any]:
+        if app.openapi_schema is None:
+            schemas = generate().setdefault("components", {}).setdefault("schemas", {})
+            for name, schema in BODY_COMPONENTS.items():
+                schemas.setdefault(name, schema)
+        return app.openapi_schema or {}
+
+    app.openapi = openapi  # type: ignore[method-assign]
 
 
 def close(app: FastAPI) -> None:

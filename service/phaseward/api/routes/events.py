@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import io
+import math
 from datetime import datetime
 from typing import Annotated, Any
 
@@ -53,9 +54,13 @@ def _time(value: str | None, name: str) -> float | None:
     if value is None:
         return None
     try:
-        return float(value)
+        epoch_s = float(value)
     except ValueError:
         pass
+    else:
+        if not math.isfinite(epoch_s):
+            raise InvalidInput(f"{name} must be a finite time", field=name)
+        return epoch_s
     try:
         moment = datetime.fromisoformat(value)
     except ValueError as err:

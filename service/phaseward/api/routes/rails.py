@@ -61,7 +61,9 @@ def get_rail(rail_id: RailId, session: ReadSessionDep, _: RailReader) -> RailOut
     return _out(rail, spec)
 
 
-@router.put("/{rail_id}")
+@router.put(
+    "/{rail_id}", responses={201: {"model": RailOut, "description": "The rail was new: created"}}
+)
 def put_rail(
     rail_id: RailId, body: RailBody, sessions: SessionsDep, response: Response, _: RailAdmin
 ) -> RailOut:

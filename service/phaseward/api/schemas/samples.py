@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from datetime import datetime
-from typing import Annotated, Self
+from typing import Annotated, Any, Self
 
 import numpy as np
 import numpy.typing as npt
@@ -89,7 +89,12 @@ class SampleIn(Contract):
 
 
 SAMPLES = TypeAdapter(list[SampleIn])
-BODY_SCHEMA = TypeAdapter(SampleIn | list[SampleIn]).json_schema(ref_template="#/$defs/{model}")
+BODY_SCHEMA = TypeAdapter(SampleIn | list[SampleIn]).json_schema(
+    ref_template="#/components/schemas/{model}"
+)
+# The models the body schema refers to, for the OpenAPI document's components (a "$defs" left
+# inside an operation would not resolve from the document's root).
+BODY_COMPONENTS: dict[str, Any] = BODY_SCHEMA.pop("$defs")
 
 
 def to_incoming(items: list[SampleIn]) -> IncomingSamples:

@@ -57,6 +57,13 @@ def _trace(session: Session, spec: dict[str, Any]) -> RehearsalTrace:
     )  # fmt: skip
     if rows.t_s.size < 2:
         raise InvalidInput("the window holds fewer than two samples", field="trace")
+    if np.unique(rows.phase_count).size > 1:
+        versions = ", ".join(str(v) for v in np.unique(rows.version))
+        raise InvalidInput(
+            f"the window spans definition versions {versions} with different phase counts; "
+            "rehearse each version's part of it on its own",
+            field="trace",
+        )
     current = np.nan_to_num(rows.current_a, nan=0.0)  # a phase not reported carries nothing
     return RehearsalTrace(rows.t_s, current, rows.temp_c, rows.vin_v)
 

@@ -155,7 +155,9 @@ class IngestOut(Contract):
 
 
 class SampleWindow(Contract):
-    """Stored samples, oldest first; per-phase lists are indexed by phase (None: not reported)."""
+    """Stored samples, oldest first; per-phase lists are indexed by phase (None: not reported).
+    Each sample names the definition version it was taken under and that version's phase
+    count; across versions with different counts the lists are as long as the most phases."""
 
     rail_id: str
     count: int
@@ -163,6 +165,7 @@ class SampleWindow(Contract):
     seq: list[int]
     time_s: list[float]
     version: list[int]
+    phase_count: list[int]
     vin_v: list[float]
     vout_v: list[float]
     iout_a: list[float | None]

@@ -101,10 +101,13 @@ class Gate:
         await self.app(scope, _limited(receive, limit), send)
 
     def _limit(self, scope: Scope) -> int:
+        headers = Headers(scope=scope)
         limit = self.settings.max_body_bytes
-        if scope["path"] == "/v1/traces":
+        if scope["path"] == "/v1/traces" and headers.get("content-type", "").startswith(
+            "text/csv"
+        ):  # a CSV trace is streamed to disk and parsed row by row; JSON is parsed whole
             limit = self.settings.max_trace_bytes
-        declared = Headers(scope=scope).get("content-length")
+        declared = headers.get("content-length")
         if declared is not None and declared.isdigit() and int(declared) > limit:
             raise PayloadTooLarge(
                 f"body of {declared} bytes exceeds the limit of {limit}", field="body"

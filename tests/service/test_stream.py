@@ -89,7 +89,7 @@ async def test_an_event_committed_after_a_higher_id_is_streamed(
         params = {"after": 0, "limit": len(committed) + 1}
         got.extend(frames((await client.get("/v1/events/stream", params=params)).text))
 
-    with anyio.fail_after(20):
+    with anyio.fail_after(60):  # long transactions of other tests on the server delay it
         async with anyio.create_task_group() as tasks:
             tasks.start_soon(follow)
             await anyio.sleep(1.5)  # the stream polls meanwhile: b's events are final, a's not

@@ -94,7 +94,9 @@ def stream_after(
     each event records the id of the transaction that wrote it (``txid``), the stream hands
     out only events of transactions older than every one still in flight, ordered by
     ``(txid, id)``: an event that becomes visible later always sorts after everything handed
-    out already. On SQLite one writer runs at a time, so id order is commit order (txid 0)."""
+    out already. The price: a long write transaction anywhere on the database server (a
+    retention pass, say) holds the stream back until it ends; it delays, never skips. On
+    SQLite one writer runs at a time, so id order is commit order (txid 0)."""
     if _commit_ordered(session):
         stmt = select(Event).where(
             tuple_(Event.txid, Event.id) > tuple_(*after), Event.txid < _horizon()

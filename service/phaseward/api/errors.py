@@ -141,6 +141,19 @@ def _unavailable(err: DBAPIError) -> JSONResponse:
     return _render(503, "service_unavailable", f"database unavailable: {text}", None)
 
 
+def links(param: str, *targets: str) -> dict[str, Any]:
+    """OpenAPI links from a created resource's ``id`` to the operations that take it as
+    ``param`` (targets as "METHOD /path"), so clients and stateful fuzzing can follow them."""
+    out = {}
+    for target in targets:
+        method, path = target.split(" ", 1)
+        name = method.title() + "".join(p.title() for p in path.replace(".", "/").split("/")
+                                        if p and not p.startswith("{"))  # fmt: skip
+        ref = "#/paths/" + path.replace("~", "~0").replace("/", "~1") + "/" + method.lower()
+        out[name] = {"operationRef": ref, "parameters": {param: "$response.body#/id"}}
+    return {"links": out}
+
+
 ERROR_RESPONSES: dict[int | str, dict[str, Any]] = {
     code: {"model": ErrorBody, "description": text}
     for code, text in {

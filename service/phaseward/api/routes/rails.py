@@ -8,7 +8,7 @@ from fastapi import APIRouter, Path, Query, Response, status
 
 from phaseward.api.auth import Admin, RailAdmin, RailReader, Reader
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
-from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.errors import ERROR_RESPONSES, links
 from phaseward.api.schemas.common import MAX_ROW_ID
 from phaseward.api.schemas.events import iso
 from phaseward.api.schemas.rails import RailBody, RailCreate, RailOut
@@ -31,7 +31,13 @@ def _out(rail: Rail, spec: dict[str, object]) -> RailOut:
     )  # fmt: skip
 
 
-@router.post("", status_code=status.HTTP_201_CREATED)
+@router.post(
+    "",
+    status_code=status.HTTP_201_CREATED,
+    responses={201: links("rail_id", "GET /v1/rails/{rail_id}", "GET /v1/rails/{rail_id}/status",
+                          "POST /v1/rails/{rail_id}/samples", "GET /v1/rails/{rail_id}/events",
+                          "GET /v1/rails/{rail_id}/screening")},
+)  # fmt: skip
 def create_rail(body: RailCreate, sessions: SessionsDep, who: Admin) -> RailOut:
     if not who.may_use(body.id):
         raise Forbidden(f"this key may not define rail '{body.id}'", field="id")

@@ -10,7 +10,7 @@ from fastapi.responses import Response
 
 from phaseward.api.auth import Operator
 from phaseward.api.deps import ReadSessionDep
-from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.errors import ERROR_RESPONSES, links
 from phaseward.api.plots import pareto_svg
 from phaseward.api.routes.rails import RowId
 from phaseward.api.schemas.rehearsals import RailWindow, RehearsalIn, RehearsalOut
@@ -56,7 +56,13 @@ def _done(session: ReadSessionDep, job_id: int, who: Principal) -> Job:
     return job
 
 
-@router.post("", status_code=status.HTTP_202_ACCEPTED)
+@router.post(
+    "",
+    status_code=status.HTTP_202_ACCEPTED,
+    responses={202: links("rehearsal_id", "GET /v1/rehearsals/{rehearsal_id}",
+                          "GET /v1/rehearsals/{rehearsal_id}/table.csv",
+                          "GET /v1/rehearsals/{rehearsal_id}/pareto.svg")},
+)  # fmt: skip
 def start_rehearsal(body: RehearsalIn, request: Request, who: Operator) -> RehearsalOut:
     """Queue a rehearsal; poll ``GET /v1/rehearsals/{id}`` for progress and the result."""
     if isinstance(body.trace, RailWindow) and not who.may_use(body.trace.rail_id):

@@ -11,7 +11,7 @@ from fastapi.concurrency import run_in_threadpool
 
 from phaseward.api.auth import Operator
 from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
-from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.errors import ERROR_RESPONSES, links
 from phaseward.api.routes.rails import RowId
 from phaseward.api.routes.samples import NDJSON, parse_items, read_limited
 from phaseward.api.schemas.traces import TraceOut, parse_csv, parse_samples
@@ -31,7 +31,11 @@ def _out(trace_id: int, trace: TraceArrays) -> TraceOut:
     )  # fmt: skip
 
 
-@router.post("", status_code=status.HTTP_201_CREATED)
+@router.post(
+    "",
+    status_code=status.HTTP_201_CREATED,
+    responses={201: links("trace_id", "GET /v1/traces/{trace_id}")},
+)
 async def upload_trace(
     request: Request,
     sessions: SessionsDep,

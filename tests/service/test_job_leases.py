@@ -16,7 +16,13 @@ from sqlalchemy.orm import Session, sessionmaker
 from phaseward.monitor.jobs import JobRunner, Progress
 from phaseward.settings import Settings
 from phaseward.store import jobs
-from phaseward.store.db import build_engine, build_sessionmaker, migrate, transaction
+from phaseward.store.db import (
+    build_engine,
+    build_sessionmaker,
+    close_engine,
+    migrate,
+    transaction,
+)
 
 LEASE_S = 0.6
 
@@ -47,7 +53,7 @@ def sessions(settings: Settings) -> Iterator[sessionmaker[Session]]:
     engine = build_engine(settings)
     migrate(engine)
     yield build_sessionmaker(engine)
-    engine.dispose()
+    close_engine(engine)  # once the runners' threads have returned their connections
 
 
 def runner(sessions: sessionmaker[Session], recorder: Recorder, name: str) -> JobRunner:

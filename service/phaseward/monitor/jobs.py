@@ -69,7 +69,11 @@ class JobRunner:
                 self._pool.submit(self._run, job_id)
 
     def shutdown(self) -> None:
+        """Stop renewing and sweeping (a job still running is not awaited: once its lease
+        expires a live server takes it over)."""
         self._stop.set()
+        if self._keeper.is_alive():  # let a renewal under way return its connection
+            self._keeper.join(timeout=self.lease_s)
         self._pool.shutdown(wait=False, cancel_futures=True)
 
     def _keep(self) -> None:

@@ -23,8 +23,9 @@ pytestmark = pytest.mark.anyio
 def keyed_app(request: pytest.FixtureRequest, tmp_path: Path, database_url: str) -> FastAPI:
     """An app that needs keys; a test marked with a ``burst`` parameter gets a tight limit."""
     burst = getattr(request, "param", 1000)
+    # A slow refill, so a loaded machine's slow requests do not refill the bucket in time.
     settings = Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys",
-                        rate_per_s=5.0, rate_burst=burst)  # fmt: skip
+                        rate_per_s=0.2, rate_burst=burst)  # fmt: skip
     return create_app(settings)
 
 

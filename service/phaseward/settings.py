@@ -26,6 +26,9 @@ class Settings(BaseSettings):
     auth_mode: Literal["keys", "open"] = "keys"
     rate_per_s: float = Field(default=200.0, gt=0)  # requests per second per key, sustained
     rate_burst: int = Field(default=400, ge=1)
+    # Requests with a missing or unknown key, per client address: one every 5 s sustained.
+    auth_failure_rate_per_s: float = Field(default=0.2, gt=0)
+    auth_failure_burst: int = Field(default=20, ge=1)
 
     # SQLite durability: FULL survives power loss, NORMAL survives process crashes only.
     sqlite_synchronous: Literal["FULL", "NORMAL"] = "FULL"
@@ -47,6 +50,9 @@ class Settings(BaseSettings):
     # (422 naming its time). One wrong clock would otherwise freeze the rail's live state,
     # since every later sample would count as late.
     future_skew_s: float = Field(default=60.0, ge=0, le=1e9)
+    # A background job's lease: renewed every third of this while its server lives; after it
+    # expires another server takes the job over.
+    job_lease_s: float = Field(default=30.0, ge=0.3)
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

@@ -158,7 +158,9 @@ def all_events(client: httpx.Client) -> list[dict[str, Any]]:
 
 def reference(database_url: str, data_dir: Path) -> list[dict[str, Any]]:
     """The events of one process fed every sample in time order, in batches of BATCH."""
-    settings = Settings(data_dir=data_dir, database_url=database_url, auth_mode="open")
+    settings = Settings(
+        data_dir=data_dir, database_url=database_url, auth_mode="open", future_skew_s=1e8
+    )
     app = create_app(settings)
     ordered = [story(step, step) for step in range(STEPS)]
 
@@ -263,3 +265,95 @@ def test_two_replicas_store_every_sample_once_and_record_every_transition_once(
     assert expected[("phase.isolated", 1, "isolated")] == 1
     assert expected[("phase.isolated", 3, "isolated")] == 1
     assert transitions(events) == expected
+
+
+RAILS = 6
+FLICKER_STEPS = 240  # per rail
+FLICKER_BATCH = 2
+
+
+def flicker(step: int) -> dict[str, Any]:
+    """A rail whose phase 2 breaker trips for 4 s out of every 8: many events per rail."""
+    tripped = step % 8 >= 4
+    currents = [80.0 / 3] * 4 if tripped else [20.0] * 4
+    if tripped:
+        currents[2] = 0.0
+    body = sample(step, currents)
+    body["phases"][2]["breaker_tripped"] = tripped
+    return body
+
+
+def follow(base: str, got: list[int], done: threading.Event, deadline: float) -> None:
+    """Read the stream in pieces of 40 events, resuming each with Last-Event-ID, until
+    ``done`` is set and the stream has been quiet for a while (or the deadline)."""
+    last: str | None = "0"
+    while time.monotonic() < deadline:
+        headers = {"last-event-id": last} if last is not None else {}
+        try:
+            with httpx.stream(
+                "GET", f"{base}/v1/events/stream", params={"limit": 40}, headers=headers,
+                timeout=httpx.Timeout(30, read=3),
+            ) as answer:  # fmt: skip
+                for line in answer.iter_lines():
+                    if line.startswith("id: "):
+                        last = line[4:]
+                        got.append(int(last))
+        except httpx.ReadTimeout:
+            if done.is_set():
+                return
+
+
+def test_the_stream_hands_out_every_event_of_many_rails_fed_through_two_replicas(
+    new_schema: Callable[[], str], tmp_path: Path
+) -> None:
+    """Issue 17 item 1: transactions for different rails commit out of id order; each
+    replica's stream, resumed with Last-Event-ID every 40 events, equals the events table."""
+    shared = new_schema()
+    replicas = [serve(tmp_path / f"replica-{n}", shared) for n in range(2)]
+    try:
+        for proc, base in replicas:
+            wait_up(proc, base)
+        bases = [base for _, base in replicas]
+        for k in range(RAILS):
+            spec = {**SMALL_RAIL, "id": f"r{k}"}
+            assert httpx.post(f"{bases[0]}/v1/rails", json=spec, timeout=30).status_code == 201
+        done = threading.Event()
+        deadline = time.monotonic() + 600
+        streams: list[list[int]] = [[], []]
+        readers = [
+            threading.Thread(target=follow, args=(base, got, done, deadline))
+            for base, got in zip(bases, streams, strict=True)
+        ]
+        failures: list[str] = []
+
+        def feed(k: int) -> None:
+            with httpx.Client(timeout=60) as c:
+                for n, i in enumerate(range(0, FLICKER_STEPS, FLICKER_BATCH)):
+                    batch = [flicker(s) for s in range(i, i + FLICKER_BATCH)]
+                    answer = c.post(f"{bases[(n + k) % 2]}/v1/rails/r{k}/samples", json=batch)
+                    if answer.status_code != 200:
+                        failures.append(answer.text)
+                        return
+
+        feeders = [threading.Thread(target=feed, args=(k,)) for k in range(RAILS)]
+        for t in [*readers, *feeders]:
+            t.start()
+        for t in feeders:
+            t.join(timeout=600)
+        done.set()
+        for t in readers:
+            t.join(timeout=600)
+        assert failures == []
+        engine = create_engine(shared)
+        with engine.connect() as conn:
+            stored = sorted(conn.execute(text("SELECT id FROM events")).scalars())
+        engine.dispose()
+    finally:
+        for proc, _ in replicas:
+            proc.terminate()
+        for proc, _ in replicas:
+            proc.wait(timeout=30)
+    assert len(stored) > RAILS * FLICKER_STEPS // 8  # several events per flicker period
+    for got in streams:
+        assert len(got) == len(set(got)), "an event was streamed twice"
+        assert sorted(got) == stored, f"missing: {sorted(set(stored) - set(got))[:20]}"

@@ -1,6 +1,7 @@
 """Authentication is not ignored: with keys required, every operation of the OpenAPI document
-answers 401 to a request without a key, except the health and readiness probes and the
-page's static files (which carry no data)."""
+answers 401 to a request without a key, except what the README names as open: the health
+and readiness probes, the OpenAPI document and its viewers, and the page's static files (none
+carries rail data)."""
 
 from __future__ import annotations
 
@@ -15,10 +16,13 @@ from phaseward.settings import Settings
 
 pytestmark = pytest.mark.anyio
 OPEN_PATHS = {"/healthz", "/readyz", "/", "/rails/{rail_id}", "/static/{name}"}
+OPEN_DOCS = {"/openapi.json", "/docs", "/redoc"}  # served outside the document itself
 
 
 async def test_every_operation_needs_a_key(tmp_path: Path, database_url: str) -> None:
-    app = create_app(Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys"))
+    settings = Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys",
+                        auth_failure_burst=1000, future_skew_s=1e8)  # fmt: skip
+    app = create_app(settings)
     schema = app.openapi()
     checked = 0
     transport = httpx.ASGITransport(app=app)
@@ -31,7 +35,8 @@ async def test_every_operation_needs_a_key(tmp_path: Path, database_url: str) ->
                 answer = await c.request(method.upper(), url, json={})
                 assert answer.status_code == 401, (method, path, answer.status_code)
                 checked += 1
-        for path in OPEN_PATHS & {"/healthz", "/readyz"}:
-            assert (await c.get(path)).status_code == 200
+        for path in (OPEN_PATHS & {"/healthz", "/readyz", "/"}) | OPEN_DOCS:
+            assert (await c.get(path)).status_code == 200, path
+        assert (await c.get("/metrics")).status_code == 401
     close(app)
     assert checked >= 25  # every data operation of the service was tried

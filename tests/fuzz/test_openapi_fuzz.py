@@ -13,9 +13,11 @@ from typing import Any
 
 import anyio
 import httpx
+import hypothesis
 import pytest
 import schemathesis
 from fastapi import FastAPI
+from hypothesis.stateful import run_state_machine_as_test
 from schemathesis import Case
 from schemathesis.checks import negative_data_rejection
 from schemathesis.schemas import BaseSchema
@@ -26,32 +28,51 @@ from phaseward.api.schemas.events import EventOut
 from phaseward.settings import Settings
 
 EXAMPLES_PER_OPERATION = 12
-CONFIG = schemathesis.Config.from_dict(
-    {
-        "generation": {
-            "mode": "all",
-            "max-examples": EXAMPLES_PER_OPERATION,
-            "database": "none",
-            "deterministic": True,  # the same requests on every run: a gate, not a lottery
-            # Open mode: the keys the document declares are not needed (tests/fuzz/
-            # test_authentication.py checks every operation refuses a missing key).
-            "with-security-parameters": False,
+SETTINGS: dict[str, Any] = {
+    "generation": {
+        "mode": "all",
+        "max-examples": EXAMPLES_PER_OPERATION,
+        "database": "none",
+        "deterministic": True,  # the same requests on every run: a gate, not a lottery
+        # Open mode: the keys the document declares are not needed (tests/fuzz/
+        # test_authentication.py checks every operation refuses a missing key).
+        "with-security-parameters": False,
+    },
+    "phases": {"stateful": {"enabled": False}},
+    "checks": {
+        "enabled": False,
+        "not_a_server_error": {"enabled": True},
+        "status_code_conformance": {"enabled": True},
+        "content_type_conformance": {"enabled": True},
+        "response_schema_conformance": {"enabled": True},
+        # Invalid data may also be refused for its size (413, every body has a limit).
+        "negative_data_rejection": {
+            "enabled": True,
+            "expected-statuses": [
+                400,
+                401,
+                403,
+                404,
+                405,
+                406,
+                409,
+                413,
+                415,
+                422,
+                428,
+                429,
+                "5XX",
+            ],
         },
-        "phases": {"stateful": {"enabled": False}},
-        "checks": {
-            "enabled": False,
-            "not_a_server_error": {"enabled": True},
-            "status_code_conformance": {"enabled": True},
-            "content_type_conformance": {"enabled": True},
-            "response_schema_conformance": {"enabled": True},
-            "negative_data_rejection": {"enabled": True},
-        },
-        "max-stream-events": 5,
-        "request-timeout": 30,
-        # The event stream has no end of its own: whatever it sent in half a second is checked.
-        "operations": [{"include-path": "/v1/events/stream", "request-timeout": 0.5}],
-    }
-)
+    },
+    "max-stream-events": 5,
+    "request-timeout": 30,
+    # The event stream has no end of its own: whatever it sent in half a second is checked.
+    "operations": [{"include-path": "/v1/events/stream", "request-timeout": 0.5}],
+}
+CONFIG = schemathesis.Config.from_dict(SETTINGS)
+# The same checks over sequences that follow the document's links.
+STATEFUL = schemathesis.Config.from_dict(SETTINGS | {"phases": {"stateful": {"enabled": True}}})
 TRACE_CSV = "time_s,vin_v,i0_a,i1_a\n" + "".join(
     f"{k},12,{25 if 3 <= k <= 6 else 10},10\n" for k in range(10)
 )
@@ -270,3 +291,23 @@ async def test_booleans_are_not_numbers(
     """Lax validation took true for 1 and false for 0 where the schema says number."""
     answer = await seeded_client.post(path, json=body)
     assert_error_body(answer, 422, field)
+
+
+def test_stateful_sequences_along_the_documented_links(settings: Settings) -> None:
+    """Create a rail, trace or rehearsal, then follow the document's links to the operations
+    that take its id (posting samples, reading status, the rehearsal's table), checking every
+    response against the contract as above."""
+    app = seeded(settings.model_copy(update={"auth_mode": "open"}))
+    try:
+        stateful = schemathesis.openapi.from_asgi("/openapi.json", app, config=STATEFUL)
+        machine = stateful.as_state_machine()
+        assert machine.bundles  # the links were found
+        run_state_machine_as_test(
+            machine,
+            settings=hypothesis.settings(
+                max_examples=8, stateful_step_count=4, deadline=None, derandomize=True,
+                database=None, suppress_health_check=list(hypothesis.HealthCheck),
+            ),
+        )  # fmt: skip
+    finally:
+        close(app)

@@ -23,8 +23,9 @@ pytestmark = pytest.mark.anyio
 def keyed_app(request: pytest.FixtureRequest, tmp_path: Path, database_url: str) -> FastAPI:
     """An app that needs keys; a test marked with a ``burst`` parameter gets a tight limit."""
     burst = getattr(request, "param", 1000)
+    # A slow refill, so a loaded machine's slow requests do not refill the bucket in time.
     settings = Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys",
-                        rate_per_s=5.0, rate_burst=burst)  # fmt: skip
+                        rate_per_s=0.2, rate_burst=burst, future_skew_s=1e8)  # fmt: skip
     return create_app(settings)
 
 
@@ -74,9 +75,9 @@ async def test_roles(keyed_app: FastAPI, anon: httpx.AsyncClient) -> None:
     assert (
         await anon.post(f"/v1/events/{event_id}/ack", json=ack, headers=reader)
     ).status_code == 403
-    assert (
-        await anon.post(f"/v1/events/{event_id}/ack", json=ack, headers=operate)
-    ).status_code == 200
+    acked = await anon.post(f"/v1/events/{event_id}/ack", json=ack, headers=operate)
+    assert acked.status_code == 200
+    assert acked.json()["acked_key"] == "operate test"  # the key's name, whatever "by" says
     assert (await anon.delete("/v1/rails/bench-a", headers=operate)).status_code == 403
 
 
@@ -140,3 +141,76 @@ async def test_rate_limit_answers_429_with_retry_after(
 def test_open_mode_binds_loopback_only() -> None:
     with pytest.raises(ValueError, match="binds loopback only"):
         Settings(auth_mode="open", host="0.0.0.0")
+
+
+async def test_the_key_is_checked_before_the_body_is_read(
+    keyed_app: FastAPI, anon: httpx.AsyncClient
+) -> None:
+    """Issue 17 item 3: without a key no body is read (the stream would fail if it were)."""
+    read: list[int] = []
+
+    async def body() -> AsyncIterator[bytes]:
+        for _ in range(100):
+            read.append(1)
+            yield b"[" * 1000
+
+    answer = await anon.post(
+        "/v1/rails", content=body(), headers={"content-type": "application/json"}
+    )
+    assert answer.status_code == 401
+    assert answer.json()["field"] == "authorization"
+    assert len(read) <= 1  # the transport may pull the first chunk; the app reads none
+
+
+@pytest.mark.parametrize(
+    "path",
+    ["/v1/rails", "/v1/rails/bench-a/forecast", "/v1/tools/breaker-stress", "/v1/rehearsals",
+     "/v1/events/1/ack"],
+)  # fmt: skip
+async def test_every_body_has_a_limit(
+    keyed_app: FastAPI, anon: httpx.AsyncClient, path: str
+) -> None:
+    """Issue 17 item 3: JSON model bodies too are refused past the limit, declared or not."""
+    admin = key(keyed_app, "admin")
+    assert (await anon.post("/v1/rails", json=SMALL_RAIL, headers=admin)).status_code == 201
+    limit = keyed_app.state.settings.max_body_bytes
+    big = b'{"x": "' + b"a" * limit + b'"}'
+    declared = await anon.post(
+        path, content=big, headers=admin | {"content-type": "application/json"}
+    )
+    assert declared.status_code == 413
+    assert declared.json()["field"] == "body"
+
+    async def chunks() -> AsyncIterator[bytes]:  # no Content-Length: counted as it arrives
+        for k in range(0, len(big), 65536):
+            yield big[k : k + 65536]
+
+    streamed = await anon.post(
+        path, content=chunks(), headers=admin | {"content-type": "application/json"}
+    )
+    assert streamed.status_code == 413
+    assert streamed.json()["error"] == "payload_too_large"
+    assert len((await anon.get("/v1/rails", headers=admin)).json()) == 1  # nothing stored
+
+
+@pytest.mark.parametrize("keyed_app", [1000], indirect=True)
+async def test_failed_authentication_is_rate_limited_per_address(
+    keyed_app: FastAPI, anon: httpx.AsyncClient
+) -> None:
+    """Issue 17 item 14: a client guessing keys gets 429 after the burst, even for a key that
+    would be right; another address is not affected, and a valid key's own limit is apart."""
+    burst = keyed_app.state.settings.auth_failure_burst
+    good = key(keyed_app, "read")
+    codes = [
+        (await anon.get("/v1/rails", headers={"authorization": f"Bearer pwk_guess{k}"})).status_code
+        for k in range(burst + 3)
+    ]
+    assert codes[:burst] == [401] * burst
+    assert codes[burst:] == [429] * 3
+    refused = await anon.get("/v1/rails", headers=good)
+    assert refused.status_code == 429
+    assert int(refused.headers["retry-after"]) >= 1
+    transport = httpx.ASGITransport(app=keyed_app, client=("127.0.0.9", 4000))
+    async with httpx.AsyncClient(transport=transport, base_url="http://phaseward.test") as other:
+        assert (await other.get("/v1/rails", headers=good)).status_code == 200
+        assert (await other.get("/v1/rails")).status_code == 401

@@ -87,6 +87,24 @@ async def test_csv(client: httpx.AsyncClient, events_stored: list[dict[str, obje
     assert rows[0]["kind"] == events_stored[0]["kind"]
 
 
+@pytest.mark.parametrize(
+    "by", ['=HYPERLINK("http://x.invalid","open")', "+1+cmd", "-2+3", "@SUM(A1)", "\tx", "\rx"]
+)
+async def test_csv_neutralises_formulas(
+    client: httpx.AsyncClient, events_stored: list[dict[str, object]], by: str
+) -> None:
+    """Issue 17 item 12: a text cell a spreadsheet would run as a formula starts with a single
+    quote (OWASP, CSV Injection); numbers, negative ones included, stay numbers."""
+    event_id = events_stored[0]["id"]
+    assert (await client.post(f"/v1/events/{event_id}/ack", json={"by": by})).status_code == 200
+    answer = await client.get("/v1/events", headers={"accept": "text/csv"})
+    rows = {r["id"]: r for r in csv.DictReader(io.StringIO(answer.text), strict=True)}
+    assert rows[str(event_id)]["acked_by"] == "'" + by
+    assert rows[str(event_id)]["acked_key"] == "open mode"
+    assert all(not r["message"].startswith(("=", "+", "-", "@")) for r in rows.values())
+    assert {r["phase"] for r in rows.values()} <= {"", "0", "1", "2", "3"}
+
+
 async def test_acknowledge(
     client: httpx.AsyncClient, events_stored: list[dict[str, object]]
 ) -> None:
@@ -96,6 +114,7 @@ async def test_acknowledge(
     )
     assert answer.status_code == 200, answer.text
     assert answer.json()["acked_by"] == "night shift"
+    assert answer.json()["acked_key"] == "open mode"  # the key's name; no key in open mode
     assert answer.json()["acked_at"] is not None
     again = await client.post(f"/v1/events/{event_id}/ack", json={"by": "day shift"})
     assert again.status_code == 409

@@ -84,7 +84,9 @@ def live_state(app: FastAPI) -> dict[str, Any]:
 
 def event_kinds(app: FastAPI) -> list[tuple[str, int | None]]:
     with transaction(app.state.sessions) as session:
-        found = events.after(session, events.EventFilter(rail_id="bench-a"), after_id=0, limit=99)
+        found = events.page(
+            session, events.EventFilter(rail_id="bench-a"), before_id=None, limit=99
+        )
         return sorted((e.kind, e.phase) for e in found)
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 from typing import Any
 
+import anyio
 import httpx
 import pytest
 from tests.factories import SMALL_RAIL, sample
@@ -199,3 +200,38 @@ async def test_rejected_batch_leaves_an_event(client: httpx.AsyncClient, rail: s
     page = (await client.get(f"{rail}/events", params={"kind": "telemetry.rejected"})).json()
     assert len(page["items"]) == 1
     assert page["items"][0]["details"]["field"] == "[1].seq"
+
+
+async def test_a_window_across_versions_with_different_phase_counts(
+    client: httpx.AsyncClient,
+) -> None:
+    """Issue 17 item 6: after a PUT from 4 to 6 phases the window answers each sample under
+    its own version, phases aligned by index (no values shifted between phases), history
+    answers, and a rehearsal over the window is refused."""
+    assert (await client.post("/v1/rails", json=SMALL_RAIL)).status_code == 201
+    before = [sample(k, [10.0, 11.0, 12.0, 13.0]) for k in range(3)]
+    assert (await client.post("/v1/rails/bench-a/samples", json=before)).status_code == 200
+    six = {k: v for k, v in SMALL_RAIL.items() if k != "id"} | {"phase_count": 6}
+    assert (await client.put("/v1/rails/bench-a", json=six)).status_code == 200
+    after = [sample(k, [20.0, 21.0, 22.0, 23.0, 24.0, 25.0]) for k in range(3, 6)]
+    assert (await client.post("/v1/rails/bench-a/samples", json=after)).status_code == 200
+    window = {"since": 0, "until": 1e10}
+    answer = await client.get("/v1/rails/bench-a/samples", params=window)
+    assert answer.status_code == 200, answer.text
+    got = answer.json()
+    assert got["version"] == [1, 1, 1, 2, 2, 2]
+    assert got["phase_count"] == [4, 4, 4, 6, 6, 6]
+    assert got["current_a"][0] == [10.0, 11.0, 12.0, 13.0, None, None]
+    assert got["current_a"][5] == [20.0, 21.0, 22.0, 23.0, 24.0, 25.0]
+    assert got["flags"][0][4:] == [0, 0]
+    history = await client.get("/v1/rails/bench-a/history", params=window)
+    assert history.status_code == 200, history.text
+    rehearsal = {"trace": {"rail_id": "bench-a"} | window, "settings": {"oc_level_a": 30.0}}
+    job = (await client.post("/v1/rehearsals", json=rehearsal)).json()
+    for _ in range(200):
+        state = (await client.get(f"/v1/rehearsals/{job['id']}")).json()
+        if state["status"] in ("done", "failed"):
+            break
+        await anyio.sleep(0.05)
+    assert state["status"] == "failed"
+    assert "different phase counts" in state["error"]

@@ -179,6 +179,7 @@ def test_events_filter_page_and_ack(client: Client, rail_id: str) -> None:
     acked = client.ack_event(isolated[0].id, by="bench operator", note="stage replaced")
     assert isinstance(acked, Event)
     assert (acked.acked_by, acked.ack_note) == ("bench operator", "stage replaced")
+    assert acked.acked_key is not None
     assert acked.acked_at is not None
     with pytest.raises(PhasewardError) as twice:
         client.ack_event(isolated[0].id, by="someone else")

@@ -7,6 +7,7 @@ import logging
 import time
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from typing import Any
 
 from fastapi import FastAPI
 from fastapi.concurrency import run_in_threadpool
@@ -15,7 +16,7 @@ from threadpoolctl import threadpool_limits
 
 from phaseward import __version__
 from phaseward.api import errors, observability
-from phaseward.api.auth import RateLimiter
+from phaseward.api.auth import Gate, RateLimiter
 from phaseward.api.deps import Clock
 from phaseward.api.group_commit import GroupCommit
 from phaseward.api.routes import (
@@ -28,6 +29,7 @@ from phaseward.api.routes import (
     traces,
     web,
 )
+from phaseward.api.schemas.samples import BODY_COMPONENTS
 from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor import retention
 from phaseward.monitor.jobs import JobRunner
@@ -59,7 +61,9 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     migrate(engine)
     sessions = build_sessionmaker(engine)
     read_sessions = build_sessionmaker(engine, read_only=True)
-    runner = JobRunner(sessions, {rehearsal_jobs.KIND: rehearsal_jobs.run})
+    runner = JobRunner(
+        sessions, {rehearsal_jobs.KIND: rehearsal_jobs.run}, lease_s=settings.job_lease_s
+    )
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
@@ -82,9 +86,11 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     app.state.jobs = runner
     app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples)
     app.state.rate_limiter = RateLimiter(settings.rate_per_s, settings.rate_burst)
-    runner.resume()  # jobs a stopped process left unfinished run again
+    runner.resume()  # jobs whose server stopped run again here; leases renewed from now on
     app.state.metrics = observability.Metrics()
     errors.install(app)
+    app.add_middleware(Gate, settings=settings, state=app.state)
+    app.add_middleware(errors.CatchAll)  # inside the request log, which then counts the 500
     observability.install(app)
     app.include_router(observability.router)
     app.include_router(rails.router)
@@ -96,8 +102,24 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     app.include_router(traces.router)
     app.include_router(rehearsals.router)
     app.include_router(web.router)
+    _complete_openapi(app)
 
     return app
+
+
+def _complete_openapi(app: FastAPI) -> None:
+    """Add the models that hand-written request schemas refer to (the samples body, read
+    without a pydantic parameter) to the generated document's components."""
+    generate = app.openapi
+
+    def openapi() -> dict[str, Any]:
+        if app.openapi_schema is None:
+            schemas = generate().setdefault("components", {}).setdefault("schemas", {})
+            for name, schema in BODY_COMPONENTS.items():
+                schemas.setdefault(name, schema)
+        return app.openapi_schema or {}
+
+    app.openapi = openapi  # type: ignore[method-assign]
 
 
 def close(app: FastAPI) -> None:

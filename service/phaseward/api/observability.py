@@ -20,6 +20,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from phaseward import __version__
 from phaseward.api.auth import Reader
+from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.errors import ServiceUnavailable
 from phaseward.store import state as state_store
 from phaseward.store.db import is_migrated
@@ -214,7 +215,10 @@ def healthz() -> dict[str, str]:
     return {"status": "ok", "version": __version__}
 
 
-@router.get("/readyz", responses={503: {"description": "database unreachable or not migrated"}})
+_NOT_READY = ERROR_RESPONSES[503] | {"description": "database unreachable or not migrated"}
+
+
+@router.get("/readyz", responses={503: _NOT_READY})
 async def readyz(request: Request) -> dict[str, str]:
     """The database answers and holds the newest schema."""
     engine = request.app.state.engine
@@ -236,7 +240,10 @@ async def readyz(request: Request) -> dict[str, str]:
 @router.get(
     "/metrics",
     response_class=Response,
-    responses={200: {"content": {OPENMETRICS: {"schema": {"type": "string"}}}}},
+    responses={
+        200: {"content": {OPENMETRICS: {"schema": {"type": "string"}}}},
+        **{code: ERROR_RESPONSES[code] for code in (401, 403, 429, 500, 503)},
+    },
 )
 async def metrics_text(request: Request, who: Reader) -> Response:
     """Counters, latency histograms and per-rail gauges in the OpenMetrics text format (a

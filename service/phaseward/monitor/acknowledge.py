@@ -19,10 +19,12 @@ def acknowledge(
     *,
     by: str,
     note: str | None,
+    key_name: str,
     may_use: Callable[[str], bool],
 ) -> Event:
-    """Record who acknowledged the event and why; ``may_use`` says which rails the caller may
-    touch (an event of another rail answers as unknown, revealing nothing of it)."""
+    """Record who acknowledged the event (as they say, and the name of the key they used),
+    when, and why; ``may_use`` says which rails the caller may touch (an event of another
+    rail answers as unknown, revealing nothing of it)."""
     with transaction(sessions) as session:
         event = events.get(session, event_id)
         if event is None or not may_use(event.rail_id):
@@ -32,4 +34,5 @@ def acknowledge(
                 f"event {event_id} was acknowledged by {event.acked_by} already", field="event_id"
             )
         event.acked_by, event.ack_note, event.acked_s = by, note, time.time()
+        event.acked_key = key_name
     return event

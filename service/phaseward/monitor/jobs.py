@@ -1,14 +1,21 @@
 """Background jobs: a small worker pool that runs long computations and keeps their progress
 and result in the database, so a client can poll, and fetch the result again later.
 
-A job left queued or running by a stopped process is run again at the next start: handlers
-are pure functions of the stored request, so a rerun gives the same result.
+Several servers may share one database, so each job carries a lease: the server that queued
+or runs it renews the lease every third of ``lease_s`` while it is alive. A job whose lease
+has expired (its server stopped or died) is taken over by whichever live server sweeps first
+(PostgreSQL row locks with SKIP LOCKED make the claim exclusive) and run again from the start:
+handlers are pure functions of the stored request, so a rerun gives the same result. Progress
+and results are written only while the lease is held, so a server that lost a job to another
+writes nothing. Leases compare the servers' wall clocks: keep them in sync (NTP).
 """
 
 from __future__ import annotations
 
 import logging
+import threading
 import time
+import uuid
 from collections.abc import Callable, Mapping
 from concurrent.futures import ThreadPoolExecutor
 from typing import Any
@@ -29,34 +36,71 @@ log = logging.getLogger(__name__)
 
 class JobRunner:
     def __init__(
-        self, sessions: sessionmaker[Session], handlers: Mapping[str, Handler], *, workers: int = 1
-    ) -> None:
+        self, sessions: sessionmaker[Session], handlers: Mapping[str, Handler], *,
+        workers: int = 1, lease_s: float = 30.0,
+    ) -> None:  # fmt: skip
         self._sessions = sessions
         self._handlers = dict(handlers)
         self._pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="phaseward-job")
+        self.owner = uuid.uuid4().hex  # this runner, as lease holder
+        self.lease_s = lease_s
+        self._stop = threading.Event()
+        self._keeper = threading.Thread(target=self._keep, name="phaseward-leases", daemon=True)
 
     def submit(self, kind: str, request: dict[str, Any]) -> Job:
+        now = time.time()
         with transaction(self._sessions) as session:
-            job = jobs.add(session, kind=kind, request=request, now_s=time.time())
+            job = jobs.add(session, kind=kind, request=request, now_s=now, owner=self.owner,
+                           lease_until_s=now + self.lease_s)  # fmt: skip
         self._pool.submit(self._run, job.id)
         return job
 
     def resume(self) -> None:
+        """Take over the jobs no live server holds, and keep sweeping and renewing."""
+        self.sweep()
+        self._keeper.start()
+
+    def sweep(self) -> None:
+        """Claim every job whose lease has expired and run it here."""
         with transaction(self._sessions) as session:
-            waiting = jobs.unfinished(session)
+            waiting = jobs.orphans(session, now_s=time.time())
         for job_id in waiting:
-            self._pool.submit(self._run, job_id)
+            if self._claim(job_id):
+                self._pool.submit(self._run, job_id)
 
     def shutdown(self) -> None:
+        """Stop renewing and sweeping (a job still running is not awaited: once its lease
+        expires a live server takes it over)."""
+        self._stop.set()
+        if self._keeper.is_alive():  # let a renewal under way return its connection
+            self._keeper.join(timeout=self.lease_s)
         self._pool.shutdown(wait=False, cancel_futures=True)
 
-    def _run(self, job_id: int) -> None:
+    def _keep(self) -> None:
+        while not self._stop.wait(self.lease_s / 3):
+            try:
+                with transaction(self._sessions) as session:
+                    jobs.renew(session, owner=self.owner, until_s=time.time() + self.lease_s)
+                self.sweep()
+            except Exception:  # a database hiccup: try again next round
+                log.exception("renewing job leases failed")
+
+    def _claim(self, job_id: int) -> bool:
+        now = time.time()
         with transaction(self._sessions) as session:
-            job = jobs.get(session, job_id)
-            if job is None:
+            job = jobs.claim(session, job_id, owner=self.owner, now_s=now,
+                             until_s=now + self.lease_s)  # fmt: skip
+            return job is not None
+
+    def _run(self, job_id: int) -> None:
+        owner = self.owner
+        now = time.time()
+        with transaction(self._sessions) as session:
+            job = jobs.claim(session, job_id, owner=owner, now_s=now, until_s=now + self.lease_s)
+            if job is None:  # finished, or another server holds it
                 return
             kind, request = job.kind, job.request
-            jobs.set_progress(session, job_id, status="running", percent=0.0)
+            jobs.set_progress(session, job_id, owner=owner, status="running", percent=0.0)
         last = [0.0]
 
         def progress(percent: float) -> None:
@@ -64,7 +108,8 @@ class JobRunner:
             if now - last[0] >= PROGRESS_EVERY_S:
                 last[0] = now
                 with transaction(self._sessions) as s:
-                    jobs.set_progress(s, job_id, status="running", percent=min(percent, 99.9))
+                    jobs.set_progress(s, job_id, owner=owner, status="running",
+                                      percent=min(percent, 99.9))  # fmt: skip
 
         result: dict[str, Any] | None = None
         error: str | None = None
@@ -76,4 +121,5 @@ class JobRunner:
             log.exception("job %s failed", job_id)
             error = f"internal error: {type(err).__name__}"
         with transaction(self._sessions) as session:
-            jobs.finish(session, job_id, result=result, error=error, now_s=time.time())
+            jobs.finish(session, job_id, owner=owner, result=result, error=error,
+                        now_s=time.time())  # fmt: skip

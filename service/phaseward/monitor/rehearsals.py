@@ -39,6 +39,13 @@ def grid_size(settings: dict[str, float | list[float]]) -> int:
     return math.prod(len(v) if isinstance(v, list) else 1 for v in settings.values())
 
 
+def rail_of(request: dict[str, Any]) -> str | None:
+    """The rail whose samples a stored rehearsal request replays (None for an uploaded trace,
+    which belongs to no rail)."""
+    rail: str | None = request["trace"].get("rail_id")
+    return rail
+
+
 def _trace(session: Session, spec: dict[str, Any]) -> RehearsalTrace:
     if "trace_id" in spec:
         t = traces.load(session, int(spec["trace_id"]))
@@ -50,6 +57,13 @@ def _trace(session: Session, spec: dict[str, Any]) -> RehearsalTrace:
     )  # fmt: skip
     if rows.t_s.size < 2:
         raise InvalidInput("the window holds fewer than two samples", field="trace")
+    if np.unique(rows.phase_count).size > 1:
+        versions = ", ".join(str(v) for v in np.unique(rows.version))
+        raise InvalidInput(
+            f"the window spans definition versions {versions} with different phase counts; "
+            "rehearse each version's part of it on its own",
+            field="trace",
+        )
     current = np.nan_to_num(rows.current_a, nan=0.0)  # a phase not reported carries nothing
     return RehearsalTrace(rows.t_s, current, rows.temp_c, rows.vin_v)
 

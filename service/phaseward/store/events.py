@@ -6,7 +6,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import func, insert, select
+from sqlalchemy import func, insert, select, tuple_
 from sqlalchemy.orm import Session
 
 from phaseward.store.models import Event
@@ -82,9 +82,41 @@ def attach_signature(
         event.details = {**event.details, "signature": signature}
 
 
-def after(session: Session, flt: EventFilter, *, after_id: int, limit: int) -> Sequence[Event]:
-    """Events newer than ``after_id``, oldest first (for live streams)."""
-    stmt = select(Event).where(Event.id > after_id).order_by(Event.id).limit(limit)
+Position = tuple[int, int]
+"""Where a live stream stands: (txid, id) of the last event handed out (see ``stream_after``)."""
+
+
+def _commit_ordered(session: Session) -> bool:
+    return session.get_bind().dialect.name == "postgresql"
+
+
+def _horizon() -> Any:
+    """The oldest transaction still in flight for this statement's snapshot: every
+    transaction with a smaller id has finished, so its rows are all visible or gone for good."""
+    return func.txid_snapshot_xmin(func.txid_current_snapshot())
+
+
+def stream_after(
+    session: Session, flt: EventFilter, *, after: Position, limit: int
+) -> Sequence[Event]:
+    """Events past ``after`` for a live stream, in the order they became final.
+
+    Ids are drawn at insert, and on PostgreSQL transactions for different rails commit out of
+    id order: asking for ``id > last sent`` skips an id that commits after a higher one. So
+    each event records the id of the transaction that wrote it (``txid``), the stream hands
+    out only events of transactions older than every one still in flight, ordered by
+    ``(txid, id)``: an event that becomes visible later always sorts after everything handed
+    out already. The price: a long write transaction anywhere on the database server (a
+    retention pass, say) holds the stream back until it ends; it delays, never skips. On
+    SQLite one writer runs at a time, so id order is commit order (txid 0)."""
+    if _commit_ordered(session):
+        stmt = select(Event).where(
+            tuple_(Event.txid, Event.id) > tuple_(*after), Event.txid < _horizon()
+        )
+        stmt = stmt.order_by(Event.txid, Event.id)
+    else:
+        stmt = select(Event).where(Event.id > after[1]).order_by(Event.id)
+    stmt = stmt.limit(limit)
     if flt.allowed_rails is not None:
         stmt = stmt.where(Event.rail_id.in_(flt.allowed_rails))
     if flt.rail_id is not None:
@@ -94,5 +126,29 @@ def after(session: Session, flt: EventFilter, *, after_id: int, limit: int) -> S
     return session.scalars(stmt).all()
 
 
-def latest_id(session: Session) -> int:
-    return session.scalar(select(func.max(Event.id))) or 0
+def position_after(session: Session, event_id: int) -> Position:
+    """The stream position just past event ``event_id`` (a Last-Event-ID).
+
+    For an id not stored (0, say) the stream starts at the oldest transaction that wrote a
+    higher id, visible now or still in flight: an event may come twice then, but none is
+    skipped."""
+    if not _commit_ordered(session):
+        return (0, event_id)
+    txid = session.scalar(select(Event.txid).where(Event.id == event_id))
+    if txid is not None:
+        return (txid, event_id)
+    later = select(func.min(Event.txid)).where(Event.id > event_id).scalar_subquery()
+    return (session.execute(select(func.least(later, _horizon()))).scalar_one(), 0)
+
+
+def position_now(session: Session) -> Position:
+    """The position of the newest event a stream could hand out now."""
+    if not _commit_ordered(session):
+        return (0, session.scalar(select(func.max(Event.id))) or 0)
+    newest = session.execute(
+        select(Event.txid, Event.id)
+        .where(Event.txid < _horizon())
+        .order_by(Event.txid.desc(), Event.id.desc())
+        .limit(1)
+    ).first()
+    return (0, 0) if newest is None else (newest[0], newest[1])

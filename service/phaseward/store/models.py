@@ -14,6 +14,7 @@ from typing import Any
 from sqlalchemy import (
     JSON,
     BigInteger,
+    FetchedValue,
     Float,
     ForeignKey,
     ForeignKeyConstraint,
@@ -102,6 +103,7 @@ class Event(Base):
     __table_args__ = (
         Index("ix_events_rail_id_desc", "rail_id", "id"),
         Index("ix_events_kind", "kind"),
+        Index("ix_events_txid_id", "txid", "id"),
     )
 
     id: Mapped[int] = mapped_column(
@@ -118,6 +120,10 @@ class Event(Base):
     acked_by: Mapped[str | None] = mapped_column(String(120))
     ack_note: Mapped[str | None] = mapped_column(Text)
     acked_s: Mapped[float | None] = mapped_column(Float)
+    acked_key: Mapped[str | None] = mapped_column(String(120))  # the name of the key used
+    # The writing transaction's id on PostgreSQL (a column default), 0 on SQLite: orders the
+    # live stream by commit (store.events.stream_after).
+    txid: Mapped[int] = mapped_column(BigInteger, server_default=FetchedValue())
 
 
 class RailState(Base):
@@ -170,6 +176,10 @@ class Job(Base):
     error: Mapped[str | None] = mapped_column(Text)
     created_s: Mapped[float] = mapped_column(Float)
     finished_s: Mapped[float | None] = mapped_column(Float)
+    # The lease: which server holds the job (queued or running) and until when; a server
+    # renews its leases while alive, and an expired lease lets another server take the job.
+    lease_owner: Mapped[str | None] = mapped_column(String(64))
+    lease_until_s: Mapped[float | None] = mapped_column(Float)
 
 
 class ApiKey(Base):

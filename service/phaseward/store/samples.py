@@ -18,11 +18,16 @@ F64 = npt.NDArray[np.float64]
 
 @dataclass(frozen=True)
 class SampleRows:
-    """Samples of one rail as arrays: per-sample (n,), per-phase (n, n_phases)."""
+    """Samples of one rail as arrays: per-sample (n,), per-phase (n, n_phases).
+
+    A window may span definition versions with different phase counts: per-phase arrays are
+    then as wide as the widest version, phase k in column k, and a sample of a version with
+    fewer phases has NaN (flags 0) beyond its own ``phase_count``."""
 
     seq: npt.NDArray[np.int64]
     t_s: F64
     version: npt.NDArray[np.int64]
+    phase_count: npt.NDArray[np.int64]
     vin_v: F64
     vout_v: F64
     iout_a: F64
@@ -96,19 +101,31 @@ def window(
     def column(i: int) -> F64:
         return np.array([np.nan if r[i] is None else r[i] for r in rows], dtype=np.float64)
 
-    def blobs(i: int, dtype: str) -> npt.NDArray[Any]:
-        joined = b"".join(cast(bytes, r[i]) for r in rows)
-        return np.frombuffer(joined, dtype=dtype).reshape(n, -1) if n else np.empty((0, 0))
+    # Phases per sample from the flags blob (one byte a phase): versions may differ.
+    phases = np.array([len(r[9]) for r in rows], dtype=np.int64)
+    widths = np.unique(phases)
+
+    def blobs(i: int, dtype: str, missing: float) -> npt.NDArray[Any]:
+        if widths.size <= 1:  # one phase count: one reshape
+            joined = b"".join(cast(bytes, r[i]) for r in rows)
+            return np.frombuffer(joined, dtype=dtype).reshape(n, -1) if n else np.empty((0, 0))
+        out = np.full((n, int(widths[-1])), missing, dtype=dtype)
+        for width in widths:  # one pass per phase count, not per sample
+            picked = np.flatnonzero(phases == width)
+            joined = b"".join(cast(bytes, rows[int(k)][i]) for k in picked)
+            out[picked, : int(width)] = np.frombuffer(joined, dtype=dtype).reshape(-1, width)
+        return out
 
     return SampleRows(
         seq=np.array([r[0] for r in rows], dtype=np.int64),
         t_s=column(1),
         version=np.array([r[2] for r in rows], dtype=np.int64),
+        phase_count=phases,
         vin_v=column(3),
         vout_v=column(4),
         iout_a=column(5),
         ambient_c=column(6),
-        current_a=blobs(7, "<f8").astype(np.float64),
-        temp_c=blobs(8, "<f8").astype(np.float64),
-        flags=blobs(9, "u1").astype(np.uint8),
+        current_a=blobs(7, "<f8", np.nan).astype(np.float64),
+        temp_c=blobs(8, "<f8", np.nan).astype(np.float64),
+        flags=blobs(9, "u1", 0).astype(np.uint8),
     )

@@ -280,6 +280,7 @@ class Event(Model):
     acked_by: str | None
     ack_note: str | None
     acked_at: str | None
+    acked_key: str | None = None  # the name of the access key that acknowledged
 
     @property
     def cleared(self) -> bool:

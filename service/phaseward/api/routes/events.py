@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import io
+import math
 from datetime import datetime
 from typing import Annotated, Any
 
@@ -16,7 +17,14 @@ from phaseward.api.deps import ReadSessionDep, SessionsDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RailId, RowId
 from phaseward.api.schemas.common import is_row_id
-from phaseward.api.schemas.events import CSV_COLUMNS, SEVERITIES, AckIn, EventOut, EventPage
+from phaseward.api.schemas.events import (
+    CSV_COLUMNS,
+    SEVERITIES,
+    AckIn,
+    EventOut,
+    EventPage,
+    csv_cell,
+)
 from phaseward.errors import InvalidInput
 from phaseward.monitor import rails as rail_service
 from phaseward.monitor.acknowledge import acknowledge
@@ -46,9 +54,13 @@ def _time(value: str | None, name: str) -> float | None:
     if value is None:
         return None
     try:
-        return float(value)
+        epoch_s = float(value)
     except ValueError:
         pass
+    else:
+        if not math.isfinite(epoch_s):
+            raise InvalidInput(f"{name} must be a finite time", field=name)
+        return epoch_s
     try:
         moment = datetime.fromisoformat(value)
     except ValueError as err:
@@ -89,7 +101,7 @@ def _page(
         writer = csv.writer(buf)
         writer.writerow(CSV_COLUMNS)
         for e in items:
-            writer.writerow([getattr(e, c) for c in CSV_COLUMNS])
+            writer.writerow([csv_cell(getattr(e, c)) for c in CSV_COLUMNS])
         headers = {"X-Next-Cursor": next_cursor} if next_cursor else {}
         return Response(buf.getvalue(), media_type="text/csv", headers=headers)
     return EventPage(items=items, next_cursor=next_cursor)
@@ -126,6 +138,7 @@ def list_rail_events(
 
 @router.post("/v1/events/{event_id}/ack")
 def ack_event(event_id: RowId, body: AckIn, sessions: SessionsDep, who: Operator) -> EventOut:
-    return EventOut.of(
-        acknowledge(sessions, event_id, by=body.by, note=body.note, may_use=who.may_use)
+    event = acknowledge(
+        sessions, event_id, by=body.by, note=body.note, key_name=who.name, may_use=who.may_use
     )
+    return EventOut.of(event)

@@ -8,7 +8,7 @@ from fastapi import APIRouter, Path, Query, Response, status
 
 from phaseward.api.auth import Admin, RailAdmin, RailReader, Reader
 from phaseward.api.deps import ClockDep, ReadSessionDep, SessionsDep, SettingsDep
-from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.errors import ERROR_RESPONSES, links
 from phaseward.api.schemas.common import MAX_ROW_ID
 from phaseward.api.schemas.events import iso
 from phaseward.api.schemas.rails import DefinitionWarning, RailBody, RailCreate, RailOut, RailSaved
@@ -37,7 +37,13 @@ def _saved(rail: Rail, spec: dict[str, object], warnings: list[Notice]) -> RailS
     return RailSaved(**_out(rail, spec).model_dump(), warnings=notes)
 
 
-@router.post("", status_code=status.HTTP_201_CREATED)
+@router.post(
+    "",
+    status_code=status.HTTP_201_CREATED,
+    responses={201: links("rail_id", "GET /v1/rails/{rail_id}", "GET /v1/rails/{rail_id}/status",
+                          "POST /v1/rails/{rail_id}/samples", "GET /v1/rails/{rail_id}/events",
+                          "GET /v1/rails/{rail_id}/screening")},
+)  # fmt: skip
 def create_rail(body: RailCreate, sessions: SessionsDep, who: Admin) -> RailSaved:
     """Store a new rail. A definition that cannot be right is refused (422 naming the field);
     one that is merely unusual is stored, and the answer lists ``warnings``."""
@@ -69,7 +75,9 @@ def get_rail(rail_id: RailId, session: ReadSessionDep, _: RailReader) -> RailOut
     return _out(rail, spec)
 
 
-@router.put("/{rail_id}")
+@router.put(
+    "/{rail_id}", responses={201: {"model": RailSaved, "description": "The rail was new: created"}}
+)
 def put_rail(
     rail_id: RailId, body: RailBody, sessions: SessionsDep, response: Response, _: RailAdmin
 ) -> RailSaved:

@@ -10,12 +10,13 @@ from fastapi.responses import Response
 
 from phaseward.api.auth import Operator
 from phaseward.api.deps import ReadSessionDep
-from phaseward.api.errors import ERROR_RESPONSES
+from phaseward.api.errors import ERROR_RESPONSES, links
 from phaseward.api.plots import pareto_svg
 from phaseward.api.routes.rails import RowId
 from phaseward.api.schemas.rehearsals import RailWindow, RehearsalIn, RehearsalOut
 from phaseward.errors import Conflict, Forbidden, InvalidInput, NotFound
 from phaseward.monitor import rehearsals
+from phaseward.monitor.access import Principal
 from phaseward.monitor.jobs import JobRunner
 from phaseward.store import jobs
 from phaseward.store.models import Job
@@ -35,16 +36,33 @@ def _out(job: Job) -> RehearsalOut:
     )
 
 
-def _done(session: ReadSessionDep, job_id: int) -> Job:
+def _job(session: ReadSessionDep, job_id: int, who: Principal) -> Job:
+    """The rehearsal, if the caller's key may use the rail it replays."""
     job = jobs.get(session, job_id)
     if job is None or job.kind != rehearsals.KIND:
         raise NotFound(f"no rehearsal {job_id}", field="rehearsal_id")
+    rail = rehearsals.rail_of(job.request)
+    if rail is not None and not who.may_use(rail):
+        raise Forbidden(
+            f"this key may not use the rail of rehearsal {job_id}", field="rehearsal_id"
+        )
+    return job
+
+
+def _done(session: ReadSessionDep, job_id: int, who: Principal) -> Job:
+    job = _job(session, job_id, who)
     if job.status != "done" or job.result is None:
         raise Conflict(f"rehearsal {job_id} is {job.status}", field="rehearsal_id")
     return job
 
 
-@router.post("", status_code=status.HTTP_202_ACCEPTED)
+@router.post(
+    "",
+    status_code=status.HTTP_202_ACCEPTED,
+    responses={202: links("rehearsal_id", "GET /v1/rehearsals/{rehearsal_id}",
+                          "GET /v1/rehearsals/{rehearsal_id}/table.csv",
+                          "GET /v1/rehearsals/{rehearsal_id}/pareto.svg")},
+)  # fmt: skip
 def start_rehearsal(body: RehearsalIn, request: Request, who: Operator) -> RehearsalOut:
     """Queue a rehearsal; poll ``GET /v1/rehearsals/{id}`` for progress and the result."""
     if isinstance(body.trace, RailWindow) and not who.may_use(body.trace.rail_id):
@@ -60,11 +78,8 @@ def start_rehearsal(body: RehearsalIn, request: Request, who: Operator) -> Rehea
 
 
 @router.get("/{rehearsal_id}")
-def get_rehearsal(rehearsal_id: RowId, session: ReadSessionDep, _: Operator) -> RehearsalOut:
-    job = jobs.get(session, rehearsal_id)
-    if job is None or job.kind != rehearsals.KIND:
-        raise NotFound(f"no rehearsal {rehearsal_id}", field="rehearsal_id")
-    return _out(job)
+def get_rehearsal(rehearsal_id: RowId, session: ReadSessionDep, who: Operator) -> RehearsalOut:
+    return _out(_job(session, rehearsal_id, who))
 
 
 @router.get(
@@ -72,9 +87,9 @@ def get_rehearsal(rehearsal_id: RowId, session: ReadSessionDep, _: Operator) -> 
     response_class=Response,
     responses={200: {"content": {"text/csv": {"schema": {"type": "string"}}}}},
 )
-def rehearsal_table(rehearsal_id: RowId, session: ReadSessionDep, _: Operator) -> Response:
+def rehearsal_table(rehearsal_id: RowId, session: ReadSessionDep, who: Operator) -> Response:
     """One row per combination: its settings, trips, false trips, misses and latencies."""
-    result = _done(session, rehearsal_id).result or {}
+    result = _done(session, rehearsal_id, who).result or {}
     buf = io.StringIO()
     writer = csv.writer(buf)
     rules = list(result["rows"][0]["trips_by_rule"]) if result["rows"] else []
@@ -98,8 +113,8 @@ def rehearsal_table(rehearsal_id: RowId, session: ReadSessionDep, _: Operator) -
     response_class=Response,
     responses={200: {"content": {"image/svg+xml": {"schema": {"type": "string"}}}}},
 )
-def rehearsal_pareto(rehearsal_id: RowId, session: ReadSessionDep, _: Operator) -> Response:
-    result = _done(session, rehearsal_id).result or {}
+def rehearsal_pareto(rehearsal_id: RowId, session: ReadSessionDep, who: Operator) -> Response:
+    result = _done(session, rehearsal_id, who).result or {}
     points = [(float(r["false_trips"]), r["max_latency_s"]) for r in result["rows"]]
     svg = pareto_svg(
         points, result["pareto"],

@@ -1,7 +1,9 @@
 """Live events as Server-Sent Events, resumable from the last event id.
 
 The stream polls the events table, so every replica of the service serves the same stream
-from the shared database; ids only grow, so ``Last-Event-ID`` resumes without gaps.
+from the shared database. It hands events out in the order they became final (on PostgreSQL
+that is not id order: ``store.events.stream_after``), and ``Last-Event-ID`` resumes just past
+the named event, so no event is skipped or sent twice.
 """
 
 from __future__ import annotations
@@ -30,15 +32,18 @@ HEARTBEAT_S = 15.0
 
 
 def _newer(
-    sessions: sessionmaker[Session], flt: event_store.EventFilter, after: int
-) -> list[EventOut]:
+    sessions: sessionmaker[Session], flt: event_store.EventFilter, after: event_store.Position
+) -> list[tuple[event_store.Position, EventOut]]:
     with sessions() as session, session.begin():
-        return [EventOut.of(e) for e in event_store.after(session, flt, after_id=after, limit=500)]
+        rows = event_store.stream_after(session, flt, after=after, limit=500)
+        return [((e.txid, e.id), EventOut.of(e)) for e in rows]
 
 
-def _latest(sessions: sessionmaker[Session]) -> int:
+def _start(sessions: sessionmaker[Session], after: int | None) -> event_store.Position:
     with sessions() as session, session.begin():
-        return event_store.latest_id(session)
+        if after is None:
+            return event_store.position_now(session)
+        return event_store.position_after(session, after)
 
 
 # One frame of the stream (OpenAPI 3.1 has a stream's schema describe each event): the event
@@ -79,9 +84,8 @@ async def stream_events(
     stream starts with the next new event."""
     if last_event_id is not None and not is_row_id(last_event_id):
         raise InvalidInput("Last-Event-ID must be an event id", field="last-event-id")
-    start = int(last_event_id) if last_event_id is not None else after
-    if start is None:
-        start = await run_in_threadpool(_latest, sessions)
+    after = int(last_event_id) if last_event_id is not None else after
+    start = await run_in_threadpool(_start, sessions, after)
     flt = event_store.EventFilter(rail_id=rail_id, kinds=tuple(kind), allowed_rails=who.rails)
 
     async def frames() -> AsyncIterator[str]:
@@ -91,10 +95,10 @@ async def stream_events(
             if await request.is_disconnected():
                 return
             batch = await run_in_threadpool(_newer, sessions, flt, last)
-            for event in batch[: None if limit is None else limit - sent]:
+            for position, event in batch[: None if limit is None else limit - sent]:
                 body = json.dumps(event.model_dump(), separators=(",", ":"))
                 yield f"id: {event.id}\nevent: {event.kind}\ndata: {body}\n\n"
-                last, sent, idle = event.id, sent + 1, 0.0
+                last, sent, idle = position, sent + 1, 0.0
             if not batch:
                 idle += POLL_S
                 if idle >= HEARTBEAT_S:

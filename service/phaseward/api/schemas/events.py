@@ -29,6 +29,7 @@ class EventOut(BaseModel):
     message: str
     details: dict[str, Any]
     acked_by: str | None
+    acked_key: str | None = Field(description="the name of the access key that acknowledged")
     ack_note: str | None
     acked_at: str | None
 
@@ -37,7 +38,7 @@ class EventOut(BaseModel):
         return cls(
             id=e.id, rail_id=e.rail_id, version=e.version, time=iso(e.t_s), time_s=e.t_s,
             kind=e.kind, severity=e.severity, phase=e.phase, message=e.message,
-            details=e.details, acked_by=e.acked_by, ack_note=e.ack_note,
+            details=e.details, acked_by=e.acked_by, acked_key=e.acked_key, ack_note=e.ack_note,
             acked_at=None if e.acked_s is None else iso(e.acked_s),
         )  # fmt: skip
 
@@ -62,4 +63,16 @@ CSV_COLUMNS = (
     "phase",
     "message",
     "acked_by",
+    "acked_key",
 )
+
+# A spreadsheet runs a cell beginning with one of these as a formula (OWASP, "CSV Injection").
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def csv_cell(value: object) -> object:
+    """A text cell that a spreadsheet would take for a formula, prefixed with a single quote
+    so it shows as text (the OWASP guidance on CSV injection); numbers pass as they are."""
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value

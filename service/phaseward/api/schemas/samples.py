@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from datetime import datetime
-from typing import Annotated, Self
+from typing import Annotated, Any, Self
 
 import numpy as np
 import numpy.typing as npt
@@ -96,7 +96,12 @@ class SampleIn(Contract):
 
 
 SAMPLES = TypeAdapter(list[SampleIn])
-BODY_SCHEMA = TypeAdapter(SampleIn | list[SampleIn]).json_schema(ref_template="#/$defs/{model}")
+BODY_SCHEMA = TypeAdapter(SampleIn | list[SampleIn]).json_schema(
+    ref_template="#/components/schemas/{model}"
+)
+# The models the body schema refers to, for the OpenAPI document's components (a "$defs" left
+# inside an operation would not resolve from the document's root).
+BODY_COMPONENTS: dict[str, Any] = BODY_SCHEMA.pop("$defs")
 
 
 def to_incoming(items: list[SampleIn]) -> IncomingSamples:
@@ -157,7 +162,9 @@ class IngestOut(Contract):
 
 
 class SampleWindow(Contract):
-    """Stored samples, oldest first; per-phase lists are indexed by phase (None: not reported)."""
+    """Stored samples, oldest first; per-phase lists are indexed by phase (None: not reported).
+    Each sample names the definition version it was taken under and that version's phase
+    count; across versions with different counts the lists are as long as the most phases."""
 
     rail_id: str
     count: int
@@ -165,6 +172,7 @@ class SampleWindow(Contract):
     seq: list[int]
     time_s: list[float]
     version: list[int]
+    phase_count: list[int]
     vin_v: list[float]
     vout_v: list[float]
     iout_a: list[float | None]

@@ -8,8 +8,8 @@ temperatures in degC (empty cell = no reading).
 from __future__ import annotations
 
 import csv
-import io
 import re
+from collections.abc import Iterable
 from typing import Any
 
 import numpy as np
@@ -34,11 +34,14 @@ class TraceOut(BaseModel):
     end_s: float
 
 
-def parse_csv(text: str, *, name: str, max_samples: int) -> TraceArrays:
-    rows = list(csv.reader(io.StringIO(text)))
-    if len(rows) < 3:
+def parse_csv(lines: Iterable[str], *, name: str, max_samples: int) -> TraceArrays:
+    """A CSV trace read row by row from ``lines`` (a text file): memory holds the numbers,
+    never the whole text or all its cells at once."""
+    reader = csv.reader(lines)
+    first = next(reader, None)
+    if first is None:
         raise BadRequest("a trace needs a header and at least two samples", field="body")
-    header = [h.strip() for h in rows[0]]
+    header = [h.strip() for h in first]
     if header[:2] != ["time_s", "vin_v"]:
         raise InvalidInput("the header must start with time_s,vin_v", field="header")
     currents = {int(m.group(1)): k for k, h in enumerate(header) if (m := _CURRENT.match(h))}
@@ -48,11 +51,14 @@ def parse_csv(text: str, *, name: str, max_samples: int) -> TraceArrays:
         raise InvalidInput("current columns must be i0_a .. i{N-1}_a", field="header")
     if any(i >= n_phases for i in temps) or len(header) != 2 + n_phases + len(temps):
         raise InvalidInput(f"unexpected columns in {header}", field="header")
-    body = rows[1:]
-    if len(body) > max_samples:
-        raise PayloadTooLarge(f"{len(body)} samples exceed {max_samples}", field="body")
-    values = np.full((len(body), len(header)), np.nan)
-    for r, row in enumerate(body, start=2):
+    values = np.full((1024, len(header)), np.nan)
+    n = 0
+    for r, row in enumerate(reader, start=2):
+        if n == max_samples:
+            raise PayloadTooLarge(f"more than {max_samples} samples", field="body")
+        if n == len(values):  # grow by doubling: amortised, bounded by max_samples
+            values = np.vstack([values, np.full_like(values, np.nan)])
+        n += 1
         if len(row) != len(header):
             raise InvalidInput(
                 f"line {r} has {len(row)} cells, the header {len(header)}", field=f"line {r}"
@@ -68,7 +74,10 @@ def parse_csv(text: str, *, name: str, max_samples: int) -> TraceArrays:
                 ) from None
             if not np.isfinite(values[r - 2, c]):
                 raise InvalidInput(f"line {r}, {header[c]}: not finite", field=f"line {r}")
-    temp_c = np.full((len(body), n_phases), np.nan)
+    if n < 2:
+        raise BadRequest("a trace needs a header and at least two samples", field="body")
+    values = values[:n]
+    temp_c = np.full((n, n_phases), np.nan)
     for i, k in temps.items():
         temp_c[:, i] = values[:, k]
     return _checked(

@@ -43,6 +43,9 @@ class Settings(BaseSettings):
     retention_every_s: float = Field(default=3600.0, gt=0)
     max_trace_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
     max_trace_samples: int = Field(default=500_000, ge=2)
+    # Fault captures: bytes as uploaded (and unpacked, for .npz), samples per channel.
+    max_capture_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
+    max_capture_samples: int = Field(default=2_000_000, ge=4)
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

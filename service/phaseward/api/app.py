@@ -18,6 +18,7 @@ from phaseward.api.auth import RateLimiter
 from phaseward.api.group_commit import GroupCommit
 from phaseward.api.routes import (
     analyses,
+    captures,
     events,
     rails,
     rehearsals,
@@ -86,6 +87,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(samples.router)
     app.include_router(stream.router)
     app.include_router(events.router)
+    app.include_router(captures.router)
     app.include_router(analyses.router)
     app.include_router(analyses.tools)
     app.include_router(traces.router)

@@ -89,6 +89,24 @@ def rail_role(needed: str) -> Callable[[str, Principal], Principal]:
     return check
 
 
+def rail_either(first: str, second: str) -> Callable[[str, Principal], Principal]:
+    """A key whose role grants ``first`` or ``second``, limited to the path's rail."""
+
+    def check(
+        rail_id: Annotated[str, Path()],
+        who: Annotated[Principal, Depends(principal)],
+    ) -> Principal:
+        if not (who.grants(first) or who.grants(second)):
+            raise Forbidden(
+                f"a '{who.role}' key may not {first} or {second}", field="authorization"
+            )
+        if not who.may_use(rail_id):
+            raise Forbidden(f"this key may not use rail '{rail_id}'", field="rail_id")
+        return who
+
+    return check
+
+
 Reader = Annotated[Principal, Depends(role("read"))]
 Operator = Annotated[Principal, Depends(role("operate"))]
 Admin = Annotated[Principal, Depends(role("admin"))]
@@ -96,3 +114,5 @@ RailReader = Annotated[Principal, Depends(rail_role("read"))]
 RailIngester = Annotated[Principal, Depends(rail_role("ingest"))]
 RailOperator = Annotated[Principal, Depends(rail_role("operate"))]
 RailAdmin = Annotated[Principal, Depends(rail_role("admin"))]
+# Captures come from the rack that posts samples or from an operator at the bench.
+RailUploader = Annotated[Principal, Depends(rail_either("ingest", "operate"))]

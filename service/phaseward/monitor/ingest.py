@@ -137,8 +137,7 @@ def _ingest(session: Session, rail_id: str, incoming: IncomingSamples) -> _Outco
             for f in findings
             if f.kind == "phase.isolated" and f.phase is not None
         ]
-        pending = fault_class.waiting(previous.get("pending_isolations", []), isolations)
-        new_state["pending_isolations"] = fault_class.settle(session, model, pending)
+        fault_class.settle(session, model, isolations)
         state.put(
             session, rail_id=rail_id, version=rail.version, last_seq=int(live_batch.seq[-1]),
             last_t_s=float(live_batch.t_s[-1]), state=new_state, now_s=now_s,

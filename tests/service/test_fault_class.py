@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import io
 from pathlib import Path
-from typing import Any
+from typing import Any, get_args
 
 import httpx
 import numpy as np
@@ -16,7 +16,9 @@ from tests.buck_sim import BuckCase, as_csv, as_npy, as_npz, columns, simulate
 from tests.factories import SMALL_RAIL, rail_spec, sample
 
 from phaseward.api.app import close, create_app
+from phaseward.api.schemas.rails import FeatureName
 from phaseward.monitor import access
+from phaseward.physics.signatures import FEATURES
 from phaseward.settings import Settings
 
 pytestmark = pytest.mark.anyio
@@ -265,3 +267,7 @@ async def test_access_follows_the_rail_and_role(keyed_app: FastAPI) -> None:
         assert (await anon.get(url, headers=reader)).status_code == 200
         assert (await anon.get(url, headers=key(keyed_app, "read", ["bench-b"]))).status_code == 403
     close(keyed_app)
+
+
+def test_definition_names_the_classifiers_features() -> None:
+    assert set(get_args(FeatureName)) == set(FEATURES)

@@ -146,7 +146,9 @@ def _ingest(session: Session, rail_id: str, incoming: IncomingSamples) -> _Outco
     return _Outcome(fresh=fresh, newer=newer, condition=condition, version=rail.version)
 
 
-_CONTENT = ("t_s", "vin_v", "vout_v", "iout_a", "ambient_c", "current_a", "temp_c", "flags")
+_CONTENT = (
+    "t_s", "vin_v", "vout_v", "iout_a", "iin_a", "ambient_c", "current_a", "temp_c", "flags",
+)  # fmt: skip
 
 
 def _check_unique_seq(incoming: IncomingSamples) -> None:
@@ -172,6 +174,7 @@ def _rows(rail_id: str, version: int, batch: SampleBatch) -> list[dict[str, Any]
             "vin_v": float(batch.vin_v[k]),
             "vout_v": float(batch.vout_v[k]),
             "iout_a": opt(batch.iout_a[k]),
+            "iin_a": opt(batch.iin_a[k]),
             "ambient_c": opt(batch.ambient_c[k]),
             "current_a": samples.pack(batch.current_a[k], "<f8"),
             "temp_c": samples.pack(batch.temp_c[k], "<f8"),

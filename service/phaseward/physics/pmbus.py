@@ -244,3 +244,21 @@ def status_word_flags(words: npt.ArrayLike) -> dict[str, BoolArray]:
     ([False, True, False], [False, False, True])
     """
     return _flags(_unsigned(words, "words", 16), STATUS_WORD_BITS)
+
+
+def status_iout_flags(bytes_: npt.ArrayLike) -> dict[str, BoolArray]:
+    """One boolean array (shape of ``bytes_``) per STATUS_IOUT bit name.
+
+    >>> status_iout_flags([0x00, 0x80, 0x20])["IOUT_OC_FAULT"].tolist()
+    [False, True, False]
+    """
+    return _flags(_unsigned(bytes_, "bytes", 8), STATUS_IOUT_BITS)
+
+
+def status_temperature_flags(bytes_: npt.ArrayLike) -> dict[str, BoolArray]:
+    """One boolean array (shape of ``bytes_``) per STATUS_TEMPERATURE bit name.
+
+    >>> status_temperature_flags([0x40, 0x80])["OT_WARNING"].tolist()
+    [True, False]
+    """
+    return _flags(_unsigned(bytes_, "bytes", 8), STATUS_TEMPERATURE_BITS)

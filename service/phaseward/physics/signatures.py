@@ -33,12 +33,15 @@ mean over one switching period, which removes the ripple but keeps anything slow
 
 * input_surge_ratio = max period-averaged iin in the event window / mean baseline iin (NaN
   without an input current channel)
-* vin_dip_pct = 100 (mean baseline vin - min period-averaged vin in the window) / vin_nominal;
-  vin_dip_duration_s = time the period-averaged vin spends below half that depth
+* vin_dip_pct = 100 (lowest period-averaged vin in the baseline - lowest in the window) /
+  vin_nominal: the dip beyond what noise and ripple already reach; vin_dip_duration_s = time
+  the period-averaged vin spends below half that depth
 * vout_overshoot_pct, vout_dip_pct: the same for the output against vout_nominal
-* phase_rise_ratio = (max period-averaged phase current in the window - baseline mean) / scale
-* phase_reversal_ratio = negative current in the window beyond the baseline's own (a short
-  moving mean, a fifth of a period), / scale
+* phase_rise_ratio = how far the phase current peaks above the baseline's own peaks (both on a
+  short moving mean over a fifth of a period, which keeps a rise within a period but little
+  noise), / scale
+* phase_reversal_ratio = negative current in the window beyond the baseline's own (the same
+  short mean), / scale
 * phase_remaining_ratio = |mean phase current in the settled window| / scale
 * phase_drop_ratio = largest fall of the phase current within three samples (3-sample means)
   in the event window / scale: near 1 for a path that opens, small for a diode ramp
@@ -80,9 +83,9 @@ DEFAULT_LIMITS: Final[Mapping[str, tuple[float, float, float]]] = MappingProxyTy
         # Shoot-through through a few tens of milliohms draws many times the load current;
         # load steps move the input current by tens of percent (common practice).
         "input_surge_ratio": (1.5, 2.0, 4.0),
-        # A stiff input bus holds within about 1 % through load steps; shoot-through
-        # discharging the input capacitors dips it by several % (common practice).
-        "vin_dip_pct": (1.0, 2.0, 5.0),
+        # A stiff input bus holds within a fraction of a percent through load steps;
+        # shoot-through discharging the input capacitors dips it by percents (common practice).
+        "vin_dip_pct": (0.3, 0.6, 2.5),
         # A phase in current-mode control stays within its ripple of its share; a switch node
         # stuck high drives it up by its whole share within microseconds (from memory).
         "phase_rise_ratio": (0.2, 0.5, 1.5),
@@ -310,21 +313,21 @@ def classify_capture(
     ripple = float(inductor_ripple_pp_a(vin_nominal_v, vout_nominal_v, inductance_h, fsw_hz))
     scale = max(i0, ripple / 2.0)
 
-    averaged = _moving_mean(own, width)
     short = _moving_mean(own, max(1, round(per_period / 5)))
     three = _moving_mean(own, 3)
     vin_avg = _moving_mean(vin, width)
     vout_avg = _moving_mean(vout, width)
-    vin0, vout0 = float(vin[base].mean()), float(vout[base].mean())
-    dip_v = vin0 - float(vin_avg[event].min())
+    vout0 = float(vout[base].mean())
+    floor = float(vin_avg[base].min())  # the baseline's own lowest (noise, ripple)
+    dip_v = floor - float(vin_avg[event].min())
     evidence |= {
         "vin_dip_pct": 100.0 * dip_v / vin_nominal_v,
-        "vin_dip_duration_s": dt * float(np.sum(vin_avg[event] < vin0 - dip_v / 2.0))
+        "vin_dip_duration_s": dt * float(np.sum(vin_avg[event] < floor - dip_v / 2.0))
         if dip_v > 0.0
         else 0.0,
         "vout_overshoot_pct": 100.0 * (float(vout_avg[event].max()) - vout0) / vout_nominal_v,
         "vout_dip_pct": 100.0 * (vout0 - float(vout_avg[event].min())) / vout_nominal_v,
-        "phase_rise_ratio": (float(averaged[event].max()) - i0) / scale,
+        "phase_rise_ratio": (float(short[event].max()) - float(short[base].max())) / scale,
         "phase_reversal_ratio": max(
             0.0, min(0.0, float(short[base].min())) - float(short[event].min())
         ) / scale,

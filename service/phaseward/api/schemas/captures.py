@@ -27,6 +27,7 @@ import numpy as np
 import numpy.typing as npt
 from pydantic import BaseModel
 
+from phaseward.api.schemas.common import CAUTION
 from phaseward.errors import InvalidInput, PayloadTooLarge, UnsupportedMediaType
 from phaseward.store.captures import CaptureArrays
 
@@ -47,6 +48,7 @@ class CaptureOut(BaseModel):
     n_phases: int
     channels: list[str]
     signature: dict[str, Any]
+    caution: str = CAUTION
 
 
 def capture_format(content_type: str) -> str:

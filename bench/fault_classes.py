@@ -67,6 +67,12 @@ def accuracy(matrix: Counter[tuple[str, str]]) -> float:
     return sum(matrix[f, f] for f in FAULTS) / sum(matrix.values())
 
 
+def wrong(matrix: Counter[tuple[str, str]]) -> int:
+    """Captures given another fault class (an ``undetermined`` answer is not wrong, only
+    unhelpful)."""
+    return sum(n for (f, k), n in matrix.items() if k not in (f, "undetermined"))
+
+
 def rows(report: Report) -> list[Row]:
     return [
         Row(
@@ -75,8 +81,7 @@ def rows(report: Report) -> list[Row]:
             baseline=f"{sum(m.values())} invented captures",
             ratio=accuracy(m),
             target=0.95,
-            note="wrong class (not undetermined): "
-            f"{sum(n for (f, k), n in m.items() if k not in (f, 'undetermined'))}",
+            note=f"given a wrong class (not undetermined): {wrong(m)}",
         )
         for (noise, channels), m in report.matrices.items()
     ]
@@ -95,7 +100,7 @@ def section(report: Report) -> str:
     for (noise, channels), m in report.matrices.items():
         head = "| true \\ answer | " + " | ".join(ANSWERS) + " |"
         lines = [
-            f"### {noise:.0%} noise, {channels}: {accuracy(m):.1%} correct",
+            f"### {noise:.0%} noise, {channels}: {accuracy(m):.1%} correct, {wrong(m)} wrong",
             "",
             head,
             "|" + "---|" * (len(ANSWERS) + 1),
@@ -110,7 +115,7 @@ def write_section(text: str, path: Path = RESULTS) -> None:
     old = path.read_text()
     pattern = re.compile(rf"{re.escape(HEADING)}\n.*?(?=\n## (?!#)|\Z)", re.S)
     if pattern.search(old):
-        new = pattern.sub(lambda _: text.rstrip("\n"), old)
+        new = pattern.sub(lambda _: text.rstrip("\n") + "\n", old)
     else:
         marker = "## Targets not met"
         cut = old.find(marker)

@@ -95,7 +95,10 @@ def section(report: Report) -> str:
         f"(`python -m bench.fault_classes`). Invented captures from the switching-level buck "
         "model in tests/buck_sim.py (12 V to 1.0 V, 500 kHz, 4 phases, 12..28 A in the phase, "
         "L 150..330 nH while the classifier assumes 220 nH, 100 us at 20 MSa/s); rows: the "
-        "true class, columns: the answer. Issue 14 asks for at least 95 % correct.",
+        "true class, columns: the answer. Noise: Gaussian on every sample, its standard deviation "
+        "the stated fraction of each channel's scale (the phase's share for currents, nominal "
+        "for voltages, the baseline input current for iin). Issue 14 asks for at least 95 % "
+        "correct.",
     ]
     for (noise, channels), m in report.matrices.items():
         head = "| true \\ answer | " + " | ".join(ANSWERS) + " |"

@@ -259,10 +259,10 @@ def columns(
     return out
 
 
-def as_csv(cols: dict[str, F64]) -> bytes:
+def as_csv(cols: dict[str, F64], fmt: str = "%.9g") -> bytes:
     table = np.column_stack(list(cols.values()))
     buf = io.StringIO()
-    np.savetxt(buf, table, delimiter=",", header=",".join(cols), comments="", fmt="%.9g")
+    np.savetxt(buf, table, delimiter=",", header=",".join(cols), comments="", fmt=fmt)
     return buf.getvalue().encode()
 
 

@@ -57,7 +57,7 @@ class's score is its smallest margin; the best class wins if its score reaches
 """
 
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from types import MappingProxyType
 from typing import Final, Literal
 
@@ -342,11 +342,18 @@ def classify_capture(
         )
     if drive is not None:
         evidence["drive_activity"] = _activity(drive, base, settled, width)
-    remaining = np.abs(current[settled].mean(axis=0)) / np.maximum(
-        np.abs(current[base].mean(axis=0)), 1e-12
+    before = current[base].mean(axis=0)  # phases too quiet to judge never count as collapsed
+    judged = before > rules.min_phase_share * total0
+    remaining = np.where(judged, np.abs(current[settled].mean(axis=0)), np.inf) / np.where(
+        judged, before, 1.0
     )
-    evidence["collapsed_phase"] = float(np.argmin(remaining))
-    return _decide(evidence, rules)
+    collapsed = int(np.argmin(remaining))
+    evidence["collapsed_phase"] = float(collapsed)
+    signature = _decide(evidence, rules)
+    if collapsed != phase and remaining[collapsed] < rules.limits["phase_remaining_ratio"][1]:
+        note = f"; phase {collapsed}, not {phase}, collapses most in the capture"
+        return replace(signature, reason=signature.reason + note)
+    return signature
 
 
 def _activity(drive: FloatArray, base: npt.NDArray[np.bool_], settled: npt.NDArray[np.bool_],

@@ -220,3 +220,10 @@ def test_same_answer_in_other_units(amps: float, volts: float) -> None:
     assert reference.kind == "low_side_short"
     assert scaled.kind == reference.kind
     assert scaled.confidence == pytest.approx(reference.confidence, rel=1e-6, abs=1e-9)
+
+
+def test_the_phase_that_collapses_is_named_when_it_is_another() -> None:
+    sig = open_phase().classify(phase=2)  # phase 0 is the one whose current falls
+    assert sig.evidence["collapsed_phase"] == 0.0
+    assert sig.reason.endswith("; phase 0, not 2, collapses most in the capture")
+    assert "collapses" not in open_phase().classify().reason

@@ -84,3 +84,11 @@ def test_a_sample_without_vin_needs_every_phases_word() -> None:
     with pytest.raises(InvalidInput, match="give vin_v or read_vin on every phase") as err:
         batch(phases)
     assert err.value.field == "[0].vin_v"
+
+
+def test_a_negative_input_word_is_refused_naming_it() -> None:
+    phases = [words(k) for k in range(4)]
+    phases[3]["read_iin"] = 0xCFC0  # N = -7, Y = 0x7C0 = 1984 - 2048 = -64 -> -0.5 A
+    with pytest.raises(InvalidInput, match=r"read_iin decodes to -0\.5") as err:
+        batch(phases)
+    assert err.value.field == "[0].phases[3].read_iin"

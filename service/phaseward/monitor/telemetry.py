@@ -159,7 +159,16 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
     )
     flags[incoming.item, incoming.phase] = incoming.flags
     seen[incoming.item, incoming.phase] = True
-    vin = _or_phases(incoming.vin_v, incoming, _decoded(incoming.vin_word, linear11_decode))
+    vin_words = _decoded(incoming.vin_word, linear11_decode)
+    iin_words = _decoded(incoming.iin_word, linear11_decode)
+    for word, values in (("read_vin", vin_words), ("read_iin", iin_words)):
+        if (values < 0.0).any():  # LINEAR11 is signed; an input voltage or current is not
+            k = int(np.argmax(values < 0.0))
+            raise InvalidInput(
+                f"{word} decodes to {float(values[k]):g}, below zero",
+                field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].{word}",
+            )
+    vin = _or_phases(incoming.vin_v, incoming, vin_words)
     vout = _or_phases(incoming.vout_v, incoming, _vout(incoming, model))
     for name, values, word in (("vin_v", vin, "read_vin"), ("vout_v", vout, "read_vout")):
         if np.isnan(values).any():
@@ -173,9 +182,7 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
         vin_v=vin,
         vout_v=vout,
         iout_a=incoming.iout_a,
-        iin_a=_or_phases(
-            incoming.iin_a, incoming, _decoded(incoming.iin_word, linear11_decode), sum_of=True
-        ),
+        iin_a=_or_phases(incoming.iin_a, incoming, iin_words, sum_of=True),
         ambient_c=incoming.ambient_c,
         present=seen,
         current_a=current,

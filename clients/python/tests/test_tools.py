@@ -6,7 +6,7 @@ import math
 import time
 
 from phaseward_client import Client
-from support import sample
+from support import open_phase_csv, sample
 
 CSV = "time_s,vin_v,i0_a,i1_a\n" + "\n".join(
     f"{k},12,{25 if 3 <= k <= 6 else 10},10" for k in range(10)
@@ -45,18 +45,6 @@ def test_follow_the_event_stream(client: Client, rail_id: str) -> None:
     # 120 degC is past the test rail's 115 degC warning level on all four phases.
     assert [e.kind for e in events] == ["rail.condition", "thermal.warning"]
     assert all(e.rail_id == rail_id for e in events)
-
-
-def open_phase_csv() -> bytes:
-    """An invented capture at 20 MSa/s: phase 1 carries 20 A and its path opens 1 us before
-    the trigger; the others take its share; input current and voltages stay put."""
-    rows = ["t_s,vin_v,vout_v,iin_a,i0_a,i1_a,i2_a,i3_a"]
-    for k in range(-1000, 400):
-        t = k * 50e-9
-        lost = t >= -1e-6
-        other = 80.0 / 3 if lost else 20.0
-        rows.append(f"{t:.9g},12,1,6.7,{other},{0.0 if lost else 20.0},{other},{other}")
-    return "\n".join(rows).encode()
 
 
 def test_upload_a_capture_for_an_isolation(client: Client, rail_id: str) -> None:

@@ -2,8 +2,9 @@
 READ_IIN and READ_TEMPERATURE_1 are LINEAR11 (bits 15..11 = N, 5-bit two's complement; bits
 10..0 = Y, 11-bit two's complement; value = Y * 2**N), READ_VOUT is LINEAR16 (value = V * 2**N,
 N from VOUT_MODE bits 4..0); STATUS_IOUT bit 7 = IOUT_OC_FAULT, bit 5 = IOUT_OC_WARNING;
-STATUS_TEMPERATURE bit 7 = OT_FAULT, bit 6 = OT_WARNING, bit 4 = UT_FAULT (bit positions from
-memory, as in physics/pmbus.py). Every word below is worked out by hand from those definitions
+STATUS_TEMPERATURE bit 7 = OT_FAULT, bit 6 = OT_WARNING, bit 4 = UT_FAULT; STATUS_INPUT bit 3 =
+unit off for low input voltage, bit 2 = IIN_OC_FAULT, bit 1 = IIN_OC_WARNING (bit positions
+from memory, as in physics/pmbus.py). Every word below is worked out by hand from those definitions
 and decoded the way ingest does (schema -> monitor.telemetry.to_batch).
 """
 
@@ -17,7 +18,13 @@ from phaseward.api.schemas.rails import RailCreate
 from phaseward.api.schemas.samples import SAMPLES, to_incoming
 from phaseward.errors import InvalidInput
 from phaseward.monitor import rail_model
-from phaseward.monitor.telemetry import FLAG_OVERCURRENT, FLAG_OVERTEMP, SampleBatch, to_batch
+from phaseward.monitor.telemetry import (
+    FLAG_DRIVER_OFF,
+    FLAG_OVERCURRENT,
+    FLAG_OVERTEMP,
+    SampleBatch,
+    to_batch,
+)
 
 VIN_12 = 0xD300  # N = 11010b = -6, Y = 0x300 = 768 -> 768 / 64 = 12.0 V
 VIN_11_984 = 0xD2FF  # Y = 767 -> 11.984375 V
@@ -70,6 +77,13 @@ def test_status_bytes_set_flags() -> None:
               words(2, status_temperature=0x40), words(3, status_temperature=0x10)]  # fmt: skip
     flags = batch(phases).flags[0].tolist()
     assert flags == [FLAG_OVERCURRENT, 0, FLAG_OVERTEMP, 0]
+
+
+def test_status_input_sets_flags() -> None:
+    phases = [words(0, status_input=0x04), words(1, status_input=0x02),
+              words(2, status_input=0x08), words(3, status_input=0x00)]  # fmt: skip
+    flags = batch(phases).flags[0].tolist()
+    assert flags == [FLAG_OVERCURRENT, 0, FLAG_DRIVER_OFF, 0]
 
 
 def test_read_vout_needs_the_rails_vout_mode() -> None:

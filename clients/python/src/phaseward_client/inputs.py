@@ -60,6 +60,7 @@ class PhaseReading:
     read_temperature_1: int | None = None
     status_iout: int | None = None
     status_temperature: int | None = None
+    status_input: int | None = None
 
     def to_json(self) -> JsonObject:
         given = [v is not None for v in (self.current_a, self.sense_v, self.read_iout)]
@@ -86,7 +87,7 @@ class PhaseReading:
 
 
 _WORDS = ("status_word", "read_vin", "read_iin", "read_vout", "read_temperature_1",
-          "status_iout", "status_temperature")  # fmt: skip
+          "status_iout", "status_temperature", "status_input")  # fmt: skip
 
 
 @dataclass(frozen=True)

@@ -13,6 +13,7 @@ from pydantic import BeforeValidator, Field, TypeAdapter, WithJsonSchema, model_
 from phaseward.api.schemas.common import Celsius, Contract, NonNegative
 from phaseward.monitor.telemetry import FLAG_NAMES, NO_WORD, IncomingSamples
 from phaseward.physics.pmbus import (
+    status_input_flags,
     status_iout_flags,
     status_temperature_flags,
     status_word_flags,
@@ -52,6 +53,10 @@ class PhaseReading(Contract):
     status_iout: Byte | None = Field(default=None, description="IOUT_OC_FAULT sets overcurrent")
     status_temperature: Byte | None = Field(
         default=None, description="OT_FAULT or OT_WARNING sets overtemperature"
+    )
+    status_input: Byte | None = Field(
+        default=None,
+        description="IIN_OC_FAULT sets overcurrent; UNIT_OFF_LOW_VIN sets driver_disabled",
     )
 
     @model_validator(mode="after")
@@ -138,8 +143,11 @@ def to_incoming(items: list[SampleIn]) -> IncomingSamples:
     iout = np.array([r.status_iout or 0 for _, _, r in readings], dtype=np.int64)
     temperature = np.array([r.status_temperature or 0 for _, _, r in readings], dtype=np.int64)
     hot = status_temperature_flags(temperature)
-    over = status_iout_flags(iout)["IOUT_OC_FAULT"]
+    inputs = status_input_flags([r.status_input or 0 for _, _, r in readings])
+    over = status_iout_flags(iout)["IOUT_OC_FAULT"] | inputs["IIN_OC_FAULT"]
     flags |= np.where(over, FLAG_NAMES["overcurrent"], 0).astype(np.uint8)
+    off = inputs["UNIT_OFF_LOW_VIN"]  # the stage stopped switching: the hardware has acted
+    flags |= np.where(off, FLAG_NAMES["driver_disabled"], 0).astype(np.uint8)
     flags |= np.where(hot["OT_FAULT"] | hot["OT_WARNING"], FLAG_NAMES["overtemperature"], 0).astype(
         np.uint8
     )

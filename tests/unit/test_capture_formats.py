@@ -8,7 +8,7 @@ import zipfile
 
 import numpy as np
 import pytest
-from hypothesis import assume, given
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from tests.buck_sim import as_csv, as_npy, as_npz
 
@@ -24,6 +24,7 @@ def parse(content: bytes, kind: str, *, limit: int = LIMIT) -> CaptureArrays:
     return parse_capture(io.BytesIO(content), kind=kind, size_limit=limit, max_samples=10_000)
 
 
+@settings(deadline=None)  # numeric work, timed only in bench/
 @given(
     n=st.integers(min_value=4, max_value=40),
     phases=st.integers(min_value=1, max_value=3),

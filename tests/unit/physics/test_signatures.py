@@ -7,7 +7,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 import numpy.typing as npt
 import pytest
-from hypothesis import given
+from hypothesis import given, settings
 from hypothesis import strategies as st
 from tests.buck_sim import BuckCase, simulate
 
@@ -203,6 +203,7 @@ def test_validation_names_the_argument() -> None:
 SIMULATED = simulate(BuckCase(fault="low_side_short", noise=0.02, seed=3))
 
 
+@settings(deadline=None)  # numeric work, timed only in bench/
 @given(st.floats(min_value=0.05, max_value=20.0), st.floats(min_value=0.2, max_value=5.0))
 def test_same_answer_in_other_units(amps: float, volts: float) -> None:
     """Scaling every current by a and every voltage by v (with L scaled by v / a, which keeps

@@ -7,6 +7,7 @@ from pathlib import Path
 
 from bench import (
     analyses_latency,
+    fault_classes,
     history_growth,
     ingest_http,
     rehearsal_sweep,
@@ -33,8 +34,13 @@ def main() -> None:
         found = module.rows()
         print_rows(found)
         rows += found
+    report = fault_classes.measure()
+    found = fault_classes.rows(report)
+    print_rows(found)
+    rows += found
     path = Path(__file__).with_name("RESULTS.md")
-    write_results(rows, path, started=started, host=host, appendix=GAPS.read_text())
+    appendix = fault_classes.section(report) + "\n" + GAPS.read_text()
+    write_results(rows, path, started=started, host=host, appendix=appendix)
     print("written to bench/RESULTS.md")
 
 

@@ -172,8 +172,9 @@ def events(args: argparse.Namespace) -> int:
     table = Table("id", "time", "severity", "rail", "kind", "phase", "message")
     for e in page.items:
         phase = "" if e.phase is None else str(e.phase)
+        message = e.message + _fault_class(e.details.get("signature"))
         table.add_row(
-            str(e.id), e.time, e.severity, e.rail_id, event_kind(e), phase, e.message,
+            str(e.id), e.time, e.severity, e.rail_id, event_kind(e), phase, message,
             style=_EXPOSED_STYLE if _security_lost(e) else None,
         )  # fmt: skip
     out.print(table)
@@ -193,6 +194,45 @@ def event_kind(e: Event) -> str:
 
 def _security_lost(e: Event) -> bool:
     return e.kind == "capacity.exposed" and not e.cleared
+
+
+def _fault_class(signature: dict[str, Any] | None) -> str:
+    if not signature:
+        return ""
+    return (
+        f"; fault class {signature['kind']} ({signature['confidence']:.2f}, from "
+        f"{signature.get('source', 'samples')}): {signature['reason']}"
+    )
+
+
+CAPTURE_TYPES = {".csv": "text/csv", ".npy": "application/x-npy", ".npz": "application/x-npz"}
+
+
+def capture(args: argparse.Namespace) -> int:
+    path = Path(args.file)
+    media = CAPTURE_TYPES.get(path.suffix.lower())
+    if media is None:
+        err.print(f"[red]a capture is a .csv, .npy or .npz file, not {path.name}[/red]")
+        return 2
+    with connected(args.url, embedded=False) as client:
+        answer = client.upload_capture(args.rail, args.event, path.read_bytes(), content_type=media)
+    if args.json:
+        _dump(answer)
+        return 0
+    sig = answer["signature"]
+    out.print(
+        f"capture {answer['id']} of event {answer['event_id']} (phase {answer['phase']}): "
+        f"{answer['n_samples']} samples, {', '.join(answer['channels'])}"
+    )
+    out.print(f"fault class: [bold]{sig['kind']}[/bold] (confidence {sig['confidence']:.2f})")
+    out.print(f"  {sig['reason']}")
+    table = Table("evidence", "value", "used")
+    for name, value in sig["evidence"].items():
+        shown = "-" if value is None else f"{value:.4g}"
+        table.add_row(name, shown, "yes" if name in sig["used"] else "")
+    out.print(table)
+    out.print(f"[dim]{answer['caution']}[/dim]")
+    return 0
 
 
 def screening(args: argparse.Namespace) -> int:
@@ -382,6 +422,10 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     p.add_argument("--labels", help="JSON list of fault windows")
     p.add_argument("--csv", help="write the result table here")
     p.add_argument("--svg", help="write the Pareto plot here")
+    p = command("capture", capture, "attach a capture of a trip to its event and classify it")
+    p.add_argument("rail")
+    p.add_argument("event", type=int, help="id of the phase.isolated event")
+    p.add_argument("file", help="CSV (.csv) or NumPy (.npy, .npz) waveform around the trip")
     p = command("calibrate", calibrate, "fit a phase's thermal model to a heating curve")
     p.add_argument("curve", help="CSV with time_s and temp_c")
     p.add_argument("--rail", required=True)

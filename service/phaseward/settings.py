@@ -53,6 +53,9 @@ class Settings(BaseSettings):
     # A background job's lease: renewed every third of this while its server lives; after it
     # expires another server takes the job over.
     job_lease_s: float = Field(default=30.0, ge=0.3)
+    # Fault captures: bytes as uploaded (and unpacked, for .npz), samples per channel.
+    max_capture_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
+    max_capture_samples: int = Field(default=2_000_000, ge=4)
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

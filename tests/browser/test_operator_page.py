@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING, Any
 
 import httpx
 import pytest
+from tests.buck_sim import BuckCase, as_csv, columns, simulate
 from tests.factories import SMALL_RAIL, sample
 
 from phaseward.api.schemas.common import CAUTION
@@ -195,4 +196,25 @@ def test_page_says_suspect_with_the_implausible_reading_and_an_age_ahead_of_the_
         "suspect: implausible reading 1000000000.0 A (current above limit), left out"
     )
     expect(page.locator("main")).to_contain_text("ahead of this server's clock")
+    same_origin_only(watched, server)
+
+
+def test_the_isolation_shows_the_fault_class_from_a_capture(
+    server: str, api: httpx.Client, page: Page, watched: Watched
+) -> None:
+    assert api.post("/v1/rails", json=SMALL_RAIL).status_code == 201
+    api.post("/v1/rails/bench-a/samples", json=[sample(k, [20.0] * 4) for k in range(3)])
+    api.post("/v1/rails/bench-a/samples", json=tripped(3)).raise_for_status()
+    [event] = api.get("/v1/rails/bench-a/events", params={"kind": "phase.isolated"}).json()["items"]
+    capture = as_csv(columns(simulate(BuckCase(fault="high_side_short", noise=0.02)), 2))
+    answer = api.post(
+        f"/v1/rails/bench-a/events/{event['id']}/capture", content=capture,
+        headers={"content-type": "text/csv"},
+    )  # fmt: skip
+    assert answer.status_code == 201, answer.text
+    page.goto(f"{server}/rails/bench-a")
+    isolated = page.locator("#sec-events tr[data-kind='phase.isolated']")
+    expect(isolated).to_contain_text("Fault class: high side short", timeout=LIVE_WITHIN_MS)
+    expect(isolated).to_contain_text(f"from capture {answer.json()['id']}")
+    expect(isolated.locator(".evidence")).to_contain_text("input surge ratio")
     same_origin_only(watched, server)

@@ -13,6 +13,7 @@ from typing import Any
 
 import httpx
 import pytest
+from tests.buck_sim import BuckCase, as_npz, columns, simulate
 from tests.factories import SMALL_RAIL, sample
 from tests.servers import free_port, start_server
 
@@ -124,3 +125,21 @@ def test_status_in_words_names_an_implausible_reading_and_the_sample_age(base: s
     # The test data is dated 2027, the server's clock is the real one: honest either way.
     assert "newest sample seq 5, " in done.stdout
     assert ("ahead of this server's clock" in done.stdout) != (" s ago" in done.stdout)
+
+
+def test_capture_is_uploaded_and_classified(base: str, tmp_path: Path) -> None:
+    tripped = [sample(k, [80 / 3, 0.0, 80 / 3, 80 / 3]) for k in range(5, 8)]
+    for body in tripped:
+        body["phases"][1]["breaker_tripped"] = True
+    httpx.post(f"{base}/v1/rails/bench-a/samples", json=tripped).raise_for_status()
+    (event,) = run("events", "--rail", "bench-a", "--kind", "phase.isolated", "--url", base)
+    path = tmp_path / "trip.npz"
+    path.write_bytes(as_npz(columns(simulate(BuckCase(fault="gate_drive_loss", noise=0.02)), 1)))
+    answer = run("capture", "bench-a", str(event["id"]), str(path), "--url", base)
+    assert answer["signature"]["kind"] == "gate_drive_loss"
+    assert answer["event_id"] == event["id"]
+    wrong = tmp_path / "trip.txt"
+    wrong.write_text("not a capture")
+    assert "a capture is a .csv, .npy or .npz file" in run(
+        "capture", "bench-a", str(event["id"]), str(wrong), "--url", base, ok=False
+    )

@@ -31,7 +31,7 @@ from phaseward.settings import Settings
 pytestmark = pytest.mark.anyio
 OPEN = "open"
 # (method, path) -> (role needed, what names the rail: "path", "body", "event", "rehearsal",
-# or None for routes that are not about one rail and filter what they return).
+# or None for routes that are not about one rail and filter what they return); "a|b": either.
 ACCESS: dict[tuple[str, str], tuple[str, str | None]] = {
     ("GET", "/healthz"): (OPEN, None),
     ("GET", "/readyz"): (OPEN, None),
@@ -60,6 +60,8 @@ ACCESS: dict[tuple[str, str], tuple[str, str | None]] = {
     ("GET", "/v1/rehearsals/{rehearsal_id}"): ("operate", "rehearsal"),
     ("GET", "/v1/rehearsals/{rehearsal_id}/table.csv"): ("operate", "rehearsal"),
     ("GET", "/v1/rehearsals/{rehearsal_id}/pareto.svg"): ("operate", "rehearsal"),
+    ("POST", "/v1/rails/{rail_id}/events/{event_id}/capture"): ("ingest|operate", "path"),
+    ("GET", "/v1/rails/{rail_id}/events/{event_id}/capture"): ("read", "path"),
 }
 ROLES = ("ingest", "read", "operate", "admin")
 GRANTS = {"ingest": {"ingest"}, "read": {"read"}, "operate": {"read", "operate"},
@@ -165,6 +167,11 @@ class World:
         }  # fmt: skip
         if method in ("POST", "PUT") and path in bodies:
             out["json"] = bodies[path]
+        if path.endswith("/capture") and method == "POST":
+            out["content"] = "t_s,vin_v,vout_v,i0_a\n" + "".join(
+                f"{k * 1e-6},12,1,{20 if k < 50 else 0}\n" for k in range(100)
+            )
+            out["headers"] = {"content-type": "text/csv"}
         if path == "/v1/traces":
             out["content"] = TRACE_CSV
             out["headers"] = {"content-type": "text/csv"}
@@ -181,7 +188,7 @@ def expected(needed: str, scope: str | None, role: str | None, rail: str) -> set
         return None
     if role is None:
         return {401}
-    if needed not in GRANTS[role]:
+    if not set(needed.split("|")) & GRANTS[role]:
         return {403}
     if scope is not None and rail == THEIRS:
         return {404} if scope == "event" else {403}

@@ -73,4 +73,6 @@ async def test_demo_scenario(client: httpx.AsyncClient) -> None:
     assert {"capacity.short", "thermal.forecast"} <= set(kinds[12:])
     assert "phase.restored" not in kinds
     isolated = next(e for e in page["items"] if e["kind"] == "phase.isolated")
-    assert isolated["details"]["signature"]["kind"] == "high_side_short"
+    # from 1 s samples alone the short cannot be told from any other trip (issue 14)
+    assert isolated["details"]["signature"]["kind"] == "undetermined"
+    assert isolated["details"]["signature"]["reason"].endswith("attach a capture")

@@ -235,3 +235,30 @@ async def test_a_window_across_versions_with_different_phase_counts(
         await anyio.sleep(0.05)
     assert state["status"] == "failed"
     assert "different phase counts" in state["error"]
+
+
+async def test_input_current_and_pmbus_words_are_decoded_and_stored(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    """READ_VIN 0xD300 = 12.0 V, READ_VOUT 0x0200 with VOUT_MODE 0x17 = 1.0 V, READ_IIN 0xC8C0 =
+    1.5 A, READ_TEMPERATURE_1 0xE2A4 = 42.25 degC (worked by hand in
+    tests/reference/test_ref_pmbus_telemetry.py); the rail in this module has no vout_mode."""
+    body = sample(0, [20.0] * 4, iin_a=6.9)
+    assert (await client.post(f"{rail}/samples", json=body)).status_code == 200
+    words = sample(1, [20.0] * 4)
+    del words["vin_v"]
+    for reading in words["phases"]:
+        reading |= {"read_vin": 0xD300, "read_iin": 0xC8C0}
+        del reading["temp_c"]
+        reading["read_temperature_1"] = 0xE2A4
+    assert (await client.post(f"{rail}/samples", json=words)).status_code == 200
+    window = (await client.get(f"{rail}/samples", params={"since": 0, "until": 2e9})).json()
+    assert window["iin_a"] == [6.9, 6.0]
+    assert window["vin_v"] == [12.0, 12.0]
+    assert window["temp_c"][1] == [42.25] * 4
+    vout_word = sample(2, [20.0] * 4)
+    vout_word["phases"][0]["read_vout"] = 0x0200
+    refused = await client.post(f"{rail}/samples", json=vout_word)
+    assert refused.status_code == 422
+    assert refused.json()["field"] == "[0].phases[0].read_vout"
+    assert await stored(client) == [0, 1]

@@ -224,3 +224,15 @@ def wait_until(predicate: Any, timeout_s: float = 10.0) -> None:
         if time.monotonic() > deadline:
             raise AssertionError("condition not reached in time")
         time.sleep(0.01)
+
+
+def open_phase_csv() -> bytes:
+    """An invented capture at 20 MSa/s: phase 1 carries 20 A and its path opens 1 us before
+    the trigger; the others take its share; input current and voltages stay put."""
+    rows = ["t_s,vin_v,vout_v,iin_a,i0_a,i1_a,i2_a,i3_a"]
+    for k in range(-1000, 400):
+        t = k * 50e-9
+        lost = t >= -1e-6
+        other = 80.0 / 3 if lost else 20.0
+        rows.append(f"{t:.9g},12,1,6.7,{other},{0.0 if lost else 20.0},{other},{other}")
+    return "\n".join(rows).encode()

@@ -8,7 +8,7 @@ import httpx
 import pytest
 
 from phaseward_client import AsyncClient, Load, PhasewardError
-from support import free_port, new_rail_id, rail_definition, sample
+from support import free_port, new_rail_id, open_phase_csv, rail_definition, sample
 
 
 def test_async_round_trip(service_url: str) -> None:
@@ -64,3 +64,18 @@ def test_async_transport_errors_pass_through() -> None:
 
     with pytest.raises(httpx.ConnectError):
         asyncio.run(scenario())
+
+
+def test_async_capture_upload(service_url: str) -> None:
+    async def scenario() -> None:
+        async with AsyncClient(service_url) as client:
+            rid = new_rail_id("c")
+            await client.create_rail(rail_definition(rid))
+            await client.post_samples(rid, [sample(k, [20.0] * 4) for k in range(3)])
+            await client.post_sample(rid, sample(3, [80 / 3, 0.0, 80 / 3, 80 / 3], tripped=1))
+            (event,) = (await client.list_events(rid, kind=["phase.isolated"])).items
+            answer = await client.upload_capture(rid, event.id, open_phase_csv())
+            assert answer["signature"]["kind"] == "open_phase"
+            assert answer["phase"] == 1
+
+    asyncio.run(scenario())

@@ -103,6 +103,21 @@ def test_typed_sample_with_aware_datetime_and_flags(client: Client, rail_id: str
     assert window.flags[1][0] == 0
 
 
+def test_typed_sample_with_pmbus_words(client: Client, rail_id: str) -> None:
+    """READ_VIN 0xD300 = 12.0 V, READ_IIN 0xC8C0 = 1.5 A, READ_TEMPERATURE_1 0xE2A4 = 42.25
+    degC (LINEAR11, worked in tests/reference/test_ref_pmbus_telemetry.py)."""
+    reading = [
+        PhaseReading(index=i, current_a=15.0, read_vin=0xD300, read_iin=0xC8C0,
+                     read_temperature_1=0xE2A4, status_iout=0x80 if i == 3 else None)
+        for i in range(4)
+    ]  # fmt: skip
+    client.post_sample(rail_id, Sample(time=T0, seq=0, vin_v=None, vout_v=1.0, phases=reading))
+    window = client.get_samples(rail_id, since=0, until=1e10)
+    assert (window.vin_v, window.iin_a) == ([12.0], [6.0])
+    assert window.temp_c[0] == [42.25] * 4
+    assert window.flags[0][3] != 0
+
+
 def test_client_refuses_what_json_cannot_carry(client: Client, rail_id: str) -> None:
     with pytest.raises(ValueError, match="finite"):
         client.post_sample(rail_id, Sample(1.8e9, 12, 1, [PhaseReading(0, current_a=math.nan)], 0))

@@ -6,7 +6,7 @@ import math
 import time
 
 from phaseward_client import Client
-from support import sample
+from support import open_phase_csv, sample
 
 CSV = "time_s,vin_v,i0_a,i1_a\n" + "\n".join(
     f"{k},12,{25 if 3 <= k <= 6 else 10},10" for k in range(10)
@@ -45,3 +45,17 @@ def test_follow_the_event_stream(client: Client, rail_id: str) -> None:
     # 120 degC is past the test rail's 115 degC warning level on all four phases.
     assert [e.kind for e in events] == ["rail.condition", "thermal.warning"]
     assert all(e.rail_id == rail_id for e in events)
+
+
+def test_upload_a_capture_for_an_isolation(client: Client, rail_id: str) -> None:
+    client.post_samples(rail_id, [sample(k, [20.0] * 4) for k in range(5)])
+    client.post_samples(rail_id, [sample(k, [80 / 3, 0.0, 80 / 3, 80 / 3], tripped=1)
+                                  for k in range(5, 8)])  # fmt: skip
+    (event,) = client.list_events(rail_id, kind=["phase.isolated"]).items
+    assert event.details["signature"]["kind"] == "undetermined"
+    answer = client.upload_capture(rail_id, event.id, open_phase_csv())
+    assert answer["signature"]["kind"] == "open_phase"
+    assert answer["signature"]["source"] == "capture"
+    assert "monitoring aid" in answer["caution"]
+    (again,) = client.list_events(rail_id, kind=["phase.isolated"]).items
+    assert again.details["signature"] == answer["signature"]

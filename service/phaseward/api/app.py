@@ -21,6 +21,7 @@ from phaseward.api.deps import Clock
 from phaseward.api.group_commit import GroupCommit
 from phaseward.api.routes import (
     analyses,
+    captures,
     events,
     rails,
     rehearsals,
@@ -97,6 +98,7 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     app.include_router(samples.router)
     app.include_router(stream.router)
     app.include_router(events.router)
+    app.include_router(captures.router)
     app.include_router(analyses.router)
     app.include_router(analyses.tools)
     app.include_router(traces.router)

@@ -107,6 +107,8 @@ class Gate:
             "text/csv"
         ):  # a CSV trace is streamed to disk and parsed row by row; JSON is parsed whole
             limit = self.settings.max_trace_bytes
+        elif scope["path"].endswith("/capture"):  # fault captures are spooled to disk
+            limit = self.settings.max_capture_bytes
         declared = headers.get("content-length")
         if declared is not None and declared.isdigit() and int(declared) > limit:
             raise PayloadTooLarge(
@@ -194,6 +196,24 @@ def rail_role(needed: str) -> Callable[[str, Principal], Principal]:
     return check
 
 
+def rail_either(first: str, second: str) -> Callable[[str, Principal], Principal]:
+    """A key whose role grants ``first`` or ``second``, limited to the path's rail."""
+
+    def check(
+        rail_id: Annotated[str, Path()],
+        who: Annotated[Principal, Depends(principal)],
+    ) -> Principal:
+        if not (who.grants(first) or who.grants(second)):
+            raise Forbidden(
+                f"a '{who.role}' key may not {first} or {second}", field="authorization"
+            )
+        if not who.may_use(rail_id):
+            raise Forbidden(f"this key may not use rail '{rail_id}'", field="rail_id")
+        return who
+
+    return check
+
+
 Reader = Annotated[Principal, Depends(role("read"))]
 Operator = Annotated[Principal, Depends(role("operate"))]
 Admin = Annotated[Principal, Depends(role("admin"))]
@@ -201,3 +221,5 @@ RailReader = Annotated[Principal, Depends(rail_role("read"))]
 RailIngester = Annotated[Principal, Depends(rail_role("ingest"))]
 RailOperator = Annotated[Principal, Depends(rail_role("operate"))]
 RailAdmin = Annotated[Principal, Depends(rail_role("admin"))]
+# Captures come from the rack that posts samples or from an operator at the bench.
+RailUploader = Annotated[Principal, Depends(rail_either("ingest", "operate"))]

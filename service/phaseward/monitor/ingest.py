@@ -192,8 +192,7 @@ def _ingest(
             for f in findings
             if f.kind == "phase.isolated" and f.phase is not None
         ]
-        pending = fault_class.waiting(previous.get("pending_isolations", []), isolations)
-        new_state["pending_isolations"] = fault_class.settle(session, model, pending)
+        fault_class.settle(session, model, isolations)
         state.put(
             session, rail_id=rail_id, version=rail.version, last_seq=int(live_batch.seq[-1]),
             last_t_s=float(live_batch.t_s[-1]), state=new_state, now_s=now_s,
@@ -202,7 +201,9 @@ def _ingest(
     return _Outcome(fresh=fresh, newer=newer, condition=condition, version=rail.version)
 
 
-_CONTENT = ("t_s", "vin_v", "vout_v", "iout_a", "ambient_c", "current_a", "temp_c", "flags")
+_CONTENT = (
+    "t_s", "vin_v", "vout_v", "iout_a", "iin_a", "ambient_c", "current_a", "temp_c", "flags",
+)  # fmt: skip
 
 
 def _check_unique_seq(seqs: npt.NDArray[np.int64]) -> None:
@@ -228,6 +229,7 @@ def _rows(rail_id: str, version: int, batch: SampleBatch) -> list[dict[str, Any]
             "vin_v": float(batch.vin_v[k]),
             "vout_v": float(batch.vout_v[k]),
             "iout_a": opt(batch.iout_a[k]),
+            "iin_a": opt(batch.iin_a[k]),
             "ambient_c": opt(batch.ambient_c[k]),
             "current_a": samples.pack(batch.current_a[k], "<f8"),
             "temp_c": samples.pack(batch.temp_c[k], "<f8"),

@@ -13,6 +13,7 @@ import numpy.typing as npt
 
 from phaseward.physics.losses import PhaseLossParams, loss_coefficients
 from phaseward.physics.plausibility import PlausibleRanges
+from phaseward.physics.signatures import EvidenceRules
 from phaseward.physics.thermal import (
     FosterStages,
     ThermalNetwork,
@@ -78,6 +79,8 @@ class RailModel:
     rules: MonitorRules
     reliability: Reliability | None
     plausible: PlausibleRanges
+    evidence: EvidenceRules  # thresholds captures are judged by (definition: fault_evidence)
+    vout_mode: int | None  # PMBus VOUT_MODE byte for READ_VOUT words (None: not given)
 
     @property
     def n_phases(self) -> int:
@@ -156,6 +159,28 @@ def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
         rules=MonitorRules(**spec["monitor"]),
         reliability=Reliability(**spec["reliability"]) if spec.get("reliability") else None,
         plausible=_plausible(spec, losses, network, rated, trip, junction_limit),
+        evidence=_evidence_rules(spec.get("fault_evidence") or {}),
+        vout_mode=spec.get("vout_mode"),
+    )
+
+
+def _evidence_rules(section: Mapping[str, Any]) -> EvidenceRules:
+    """The definition's optional ``fault_evidence`` section over the documented defaults."""
+    base = EvidenceRules()
+
+    def given(key: str) -> float:
+        value = section.get(key)
+        return float(getattr(base, key) if value is None else value)
+
+    limits = {
+        k: (float(q), float(e), float(c)) for k, (q, e, c) in section.get("limits", {}).items()
+    }
+    return EvidenceRules(
+        limits={**base.limits, **limits},
+        min_samples_per_period=given("min_samples_per_period"),
+        min_baseline_periods=given("min_baseline_periods"),
+        min_phase_share=given("min_phase_share"),
+        min_confidence=given("min_confidence"),
     )
 
 

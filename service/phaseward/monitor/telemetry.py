@@ -3,7 +3,7 @@ into (n_samples, n_phases) arrays and turns every current reading into amps."""
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -12,7 +12,7 @@ import numpy.typing as npt
 from phaseward.errors import InvalidInput
 from phaseward.monitor.rail_model import RailModel
 from phaseward.physics.constants import ALPHA_CU_20, T_REF_CU_C
-from phaseward.physics.pmbus import linear11_decode
+from phaseward.physics.pmbus import linear11_decode, linear16_decode
 from phaseward.physics.sensing import dcr_sense_to_current_a
 
 F64 = npt.NDArray[np.float64]
@@ -37,9 +37,10 @@ NO_WORD = -1
 class IncomingSamples:
     """Samples as the API validated them, in long form.
 
-    Per sample (n,): seq, t_s, vin_v, vout_v, iout_a (NaN if absent), ambient_c (NaN).
-    Per reading (m,): item (which sample), slot (position in its phase list), phase index,
-    current_a, sense_v (NaN if absent), iout_word (NO_WORD if absent), temp_c (NaN), flags.
+    Per sample (n,): seq, t_s, vin_v, vout_v (NaN: from the phases' words), iout_a, iin_a,
+    ambient_c (NaN if absent). Per reading (m,): item (which sample), slot (position in its
+    phase list), phase index, current_a, sense_v (NaN if absent), the raw PMBus words
+    iout_word, vin_word, iin_word, vout_word, temp_word (NO_WORD if absent), temp_c (NaN), flags.
     Exactly one of current_a, sense_v and iout_word is given per reading (the schema checks).
     """
 
@@ -48,6 +49,7 @@ class IncomingSamples:
     vin_v: F64
     vout_v: F64
     iout_a: F64
+    iin_a: F64
     ambient_c: F64
     item: I64
     slot: I64
@@ -55,6 +57,10 @@ class IncomingSamples:
     current_a: F64
     sense_v: F64
     iout_word: I64
+    vin_word: I64
+    iin_word: I64
+    vout_word: I64
+    temp_word: I64
     temp_c: F64
     flags: npt.NDArray[np.uint8]
 
@@ -87,6 +93,7 @@ class SampleBatch:
     vin_v: F64
     vout_v: F64
     iout_a: F64
+    iin_a: F64
     ambient_c: F64
     present: npt.NDArray[np.bool_]
     current_a: F64
@@ -141,10 +148,7 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
         np.where(np.isfinite(incoming.sense_v), temp_for_dcr, T_REF_CU_C),  # only these convert
         ref_temp_c=model.dcr_ref_c[incoming.phase],
     )
-    has_word = incoming.iout_word != NO_WORD
-    from_word = np.where(
-        has_word, linear11_decode(np.where(has_word, incoming.iout_word, 0)), np.nan
-    )
+    from_word = _decoded(incoming.iout_word, linear11_decode)
     read = np.where(
         np.isfinite(incoming.current_a),
         incoming.current_a,
@@ -156,17 +160,37 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
     temp = np.full((n, p), np.nan)
     flags = np.zeros((n, p), dtype=np.uint8)
     current[incoming.item, incoming.phase] = amps
-    temp[incoming.item, incoming.phase] = incoming.temp_c
+    temp[incoming.item, incoming.phase] = np.where(
+        np.isfinite(incoming.temp_c), incoming.temp_c, _decoded(incoming.temp_word, linear11_decode)
+    )
     flags[incoming.item, incoming.phase] = incoming.flags
     seen[incoming.item, incoming.phase] = True
     sensed = np.zeros((n, p), dtype=bool)
     sensed[incoming.item, incoming.phase] = np.isfinite(incoming.sense_v)
+    vin_words = _decoded(incoming.vin_word, linear11_decode)
+    iin_words = _decoded(incoming.iin_word, linear11_decode)
+    for word, values in (("read_vin", vin_words), ("read_iin", iin_words)):
+        if (values < 0.0).any():  # LINEAR11 is signed; an input voltage or current is not
+            k = int(np.argmax(values < 0.0))
+            raise InvalidInput(
+                f"{word} decodes to {float(values[k]):g}, below zero",
+                field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].{word}",
+            )
+    vin = _or_phases(incoming.vin_v, incoming, vin_words)
+    vout = _or_phases(incoming.vout_v, incoming, _vout(incoming, model))
+    for name, values, word in (("vin_v", vin, "read_vin"), ("vout_v", vout, "read_vout")):
+        if np.isnan(values).any():
+            raise InvalidInput(
+                f"give {name} or {word} on every phase",
+                field=f"[{int(np.argmax(np.isnan(values)))}].{name}",
+            )
     return SampleBatch(
         seq=incoming.seq,
         t_s=incoming.t_s,
-        vin_v=incoming.vin_v,
-        vout_v=incoming.vout_v,
+        vin_v=vin,
+        vout_v=vout,
         iout_a=incoming.iout_a,
+        iin_a=_or_phases(incoming.iin_a, incoming, iin_words, sum_of=True),
         ambient_c=incoming.ambient_c,
         present=seen,
         current_a=current,
@@ -174,6 +198,42 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
         flags=flags,
         sensed=sensed,
     )
+
+
+def _decoded(words: I64, decode: Callable[[I64], F64]) -> F64:
+    """Decoded PMBus words, NaN where none was given."""
+    given = words != NO_WORD
+    return np.where(given, decode(np.where(given, words, 0)), np.nan)
+
+
+def _vout(incoming: IncomingSamples, model: RailModel) -> F64:
+    """READ_VOUT words as volts: LINEAR16 with the exponent of the rail's VOUT_MODE."""
+    given = incoming.vout_word != NO_WORD
+    if not given.any():
+        return np.full(given.shape, np.nan)
+    if model.vout_mode is None:
+        k = int(np.argmax(given))
+        raise InvalidInput(
+            f"rail '{model.rail_id}' has no vout_mode to decode READ_VOUT (LINEAR16) with",
+            field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].read_vout",
+        )
+    mode = model.vout_mode
+    return _decoded(incoming.vout_word, lambda w: linear16_decode(w, mode))
+
+
+def _or_phases(
+    given: F64, incoming: IncomingSamples, per_reading: F64, *, sum_of: bool = False
+) -> F64:
+    """A per-sample value as given, else the mean (or, with ``sum_of``, the sum) of its
+    readings' decoded words, taken only where every reading of the sample has one."""
+    n = incoming.n
+    have = np.isfinite(per_reading)
+    count = np.bincount(incoming.item, minlength=n)
+    found = np.bincount(incoming.item, weights=have, minlength=n)
+    total = np.bincount(incoming.item, weights=np.where(have, per_reading, 0.0), minlength=n)
+    complete = (found == count) & (count > 0)
+    from_words = np.where(complete, total / np.where(sum_of, 1.0, np.maximum(count, 1)), np.nan)
+    return np.where(np.isfinite(given), given, from_words)
 
 
 def _check_dcr_temperature(incoming: IncomingSamples, temp_c: F64) -> None:

@@ -73,6 +73,20 @@ STATUS_TEMPERATURE_BITS: Final[Mapping[str, int]] = MappingProxyType(
     {"UT_FAULT": 4, "UT_WARNING": 5, "OT_WARNING": 6, "OT_FAULT": 7}
 )
 
+# STATUS_INPUT: PMBus Part II, STATUS_INPUT command section (17.5 in revision 1.2; from memory).
+STATUS_INPUT_BITS: Final[Mapping[str, int]] = MappingProxyType(
+    {
+        "PIN_OP_WARNING": 0,
+        "IIN_OC_WARNING": 1,
+        "IIN_OC_FAULT": 2,
+        "UNIT_OFF_LOW_VIN": 3,
+        "VIN_UV_FAULT": 4,
+        "VIN_UV_WARNING": 5,
+        "VIN_OV_WARNING": 6,
+        "VIN_OV_FAULT": 7,
+    }
+)
+
 
 def _unsigned(raw: npt.ArrayLike, name: str, bits: int) -> IntArray:
     """Validate integer field(s) in 0 .. 2**bits - 1 and return them as int64."""
@@ -244,3 +258,31 @@ def status_word_flags(words: npt.ArrayLike) -> dict[str, BoolArray]:
     ([False, True, False], [False, False, True])
     """
     return _flags(_unsigned(words, "words", 16), STATUS_WORD_BITS)
+
+
+def status_iout_flags(bytes_: npt.ArrayLike) -> dict[str, BoolArray]:
+    """One boolean array (shape of ``bytes_``) per STATUS_IOUT bit name.
+
+    >>> status_iout_flags([0x00, 0x80, 0x20])["IOUT_OC_FAULT"].tolist()
+    [False, True, False]
+    """
+    return _flags(_unsigned(bytes_, "bytes", 8), STATUS_IOUT_BITS)
+
+
+def status_temperature_flags(bytes_: npt.ArrayLike) -> dict[str, BoolArray]:
+    """One boolean array (shape of ``bytes_``) per STATUS_TEMPERATURE bit name.
+
+    >>> status_temperature_flags([0x40, 0x80])["OT_WARNING"].tolist()
+    [True, False]
+    """
+    return _flags(_unsigned(bytes_, "bytes", 8), STATUS_TEMPERATURE_BITS)
+
+
+def status_input_flags(bytes_: npt.ArrayLike) -> dict[str, BoolArray]:
+    """One boolean array (shape of ``bytes_``) per STATUS_INPUT bit name.
+
+    >>> flags = status_input_flags([0x04, 0x08])
+    >>> flags["IIN_OC_FAULT"].tolist(), flags["UNIT_OFF_LOW_VIN"].tolist()
+    ([True, False], [False, True])
+    """
+    return _flags(_unsigned(bytes_, "bytes", 8), STATUS_INPUT_BITS)

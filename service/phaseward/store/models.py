@@ -93,6 +93,7 @@ class Sample(Base):
     vout_v: Mapped[float] = mapped_column(Float)
     iout_a: Mapped[float | None] = mapped_column(Float)
     ambient_c: Mapped[float | None] = mapped_column(Float)
+    iin_a: Mapped[float | None] = mapped_column(Float)  # input current, A
     current_a: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE, NaN = not reported
     temp_c: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE, NaN = not reported
     flags: Mapped[bytes] = mapped_column(LargeBinary)  # uint8 bit set per phase, see monitor
@@ -218,3 +219,27 @@ class SampleSummary(Base):
     vout_v: Mapped[bytes] = mapped_column(LargeBinary)
     current_a: Mapped[bytes] = mapped_column(LargeBinary)
     temp_c: Mapped[bytes] = mapped_column(LargeBinary)
+
+
+class FaultCapture(Base):
+    """A waveform recorded around a trip, attached to its ``phase.isolated`` event (one per
+    event); channels packed like traces, float64 LE, (n,) or (n, n_phases)."""
+
+    __tablename__ = "fault_captures"
+
+    id: Mapped[int] = mapped_column(
+        BigInteger().with_variant(Integer, "sqlite"), primary_key=True, autoincrement=True
+    )
+    rail_id: Mapped[str] = mapped_column(ForeignKey("rails.id", ondelete="CASCADE"))
+    event_id: Mapped[int] = mapped_column(ForeignKey("events.id", ondelete="CASCADE"), unique=True)
+    created_s: Mapped[float] = mapped_column(Float)
+    source_format: Mapped[str] = mapped_column(String(8))  # csv, npy, npz
+    n_samples: Mapped[int] = mapped_column(Integer)
+    n_phases: Mapped[int] = mapped_column(Integer)
+    t_s: Mapped[bytes] = mapped_column(LargeBinary)  # seconds from the trigger
+    vin_v: Mapped[bytes] = mapped_column(LargeBinary)
+    vout_v: Mapped[bytes] = mapped_column(LargeBinary)
+    iin_a: Mapped[bytes | None] = mapped_column(LargeBinary)
+    current_a: Mapped[bytes] = mapped_column(LargeBinary)  # (n, n_phases)
+    switch_v: Mapped[bytes | None] = mapped_column(LargeBinary)  # (n, n_phases)
+    gate_v: Mapped[bytes | None] = mapped_column(LargeBinary)  # (n, n_phases)

@@ -32,6 +32,7 @@ class SampleRows:
     vout_v: F64
     iout_a: F64
     ambient_c: F64
+    iin_a: F64
     current_a: F64
     temp_c: F64
     flags: npt.NDArray[np.uint8]
@@ -87,7 +88,7 @@ def window(
     """Samples with start_s <= t < end_s, oldest first, at most ``limit``."""
     cols = (
         Sample.seq, Sample.t_s, Sample.version, Sample.vin_v, Sample.vout_v, Sample.iout_a,
-        Sample.ambient_c, Sample.current_a, Sample.temp_c, Sample.flags,
+        Sample.ambient_c, Sample.current_a, Sample.temp_c, Sample.flags, Sample.iin_a,
     )  # fmt: skip
     stmt = (
         select(*cols)
@@ -128,4 +129,5 @@ def window(
         current_a=blobs(7, "<f8", np.nan).astype(np.float64),
         temp_c=blobs(8, "<f8", np.nan).astype(np.float64),
         flags=blobs(9, "u1", 0).astype(np.uint8),
+        iin_a=column(10),
     )

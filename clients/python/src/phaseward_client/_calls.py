@@ -282,6 +282,15 @@ def upload_trace(content: bytes, content_type: str, name: str) -> Call[dict[str,
                 content_type=content_type)  # fmt: skip
 
 
+def upload_capture(
+    rail_id: str, event_id: int, content: bytes, content_type: str
+) -> Call[dict[str, Any]]:
+    """The waveform recorded around a trip, for a ``phase.isolated`` event: ``text/csv``,
+    ``application/x-npy`` or ``application/x-npz``; answers the capture and its fault class."""
+    return Call("POST", rail_path(rail_id, f"/events/{int(event_id)}/capture"), raw_dict,
+                body=content, content_type=content_type)  # fmt: skip
+
+
 def start_rehearsal(request: Mapping[str, Any]) -> Call[dict[str, Any]]:
     return Call("POST", "/v1/rehearsals", raw_dict, body=encode(dict(request)))
 

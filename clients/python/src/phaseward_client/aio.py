@@ -227,6 +227,14 @@ class AsyncClient:
         """Upload a recording for rehearsals; answers its id, sample and phase counts."""
         return await self._run(_calls.upload_trace(content, content_type, name))
 
+    async def upload_capture(
+        self, rail_id: str, event_id: int, content: bytes, *, content_type: str = "text/csv"
+    ) -> dict[str, Any]:
+        """Attach the waveform recorded around a trip to its ``phase.isolated`` event (CSV,
+        ``application/x-npy`` or ``application/x-npz``); answers the capture and the fault
+        class the service found in it."""
+        return await self._run(_calls.upload_capture(rail_id, event_id, content, content_type))
+
     async def start_rehearsal(self, request: Mapping[str, Any]) -> dict[str, Any]:
         """Queue a rehearsal (trace, settings with lists to sweep, labels); answers the job."""
         return await self._run(_calls.start_rehearsal(request))

@@ -40,7 +40,9 @@ def timestamp(value: float | datetime | str, name: str = "time") -> float | str:
 @dataclass(frozen=True)
 class PhaseReading:
     """One phase in one sample. Give the current as exactly one of ``current_a`` (amperes),
-    ``sense_v`` (volts across the inductor DCR) or ``read_iout`` (a raw LINEAR11 word)."""
+    ``sense_v`` (volts across the inductor DCR) or ``read_iout`` (a raw LINEAR11 word). Raw
+    PMBus words and status bytes (``read_vin`` .. ``status_temperature``) are decoded by the
+    service."""
 
     index: int
     current_a: float | None = None
@@ -52,6 +54,13 @@ class PhaseReading:
     overcurrent: bool = False
     overtemperature: bool = False
     status_word: int | None = None
+    read_vin: int | None = None
+    read_iin: int | None = None
+    read_vout: int | None = None
+    read_temperature_1: int | None = None
+    status_iout: int | None = None
+    status_temperature: int | None = None
+    status_input: int | None = None
 
     def to_json(self) -> JsonObject:
         given = [v is not None for v in (self.current_a, self.sense_v, self.read_iout)]
@@ -71,24 +80,31 @@ class PhaseReading:
         for flag in ("breaker_tripped", "driver_disabled", "overcurrent", "overtemperature"):
             if getattr(self, flag):
                 out[flag] = True
-        if self.status_word is not None:
-            out["status_word"] = int(self.status_word)
+        for word in _WORDS:
+            if (value := getattr(self, word)) is not None:
+                out[word] = int(value)
         return out
+
+
+_WORDS = ("status_word", "read_vin", "read_iin", "read_vout", "read_temperature_1",
+          "status_iout", "status_temperature", "status_input")  # fmt: skip
 
 
 @dataclass(frozen=True)
 class Sample:
     """One telemetry sample of a rail. ``time``: epoch seconds, an aware ``datetime`` or an
     RFC 3339 string; ``seq``: the sample's sequence number (a batching sender assigns one when
-    it is None)."""
+    it is None). ``vin_v`` / ``vout_v`` may be None when every phase gives ``read_vin`` /
+    ``read_vout``; ``iin_a`` is the input current."""
 
     time: float | datetime | str
-    vin_v: float
-    vout_v: float
+    vin_v: float | None
+    vout_v: float | None
     phases: Sequence[PhaseReading]
     seq: int | None = None
     iout_a: float | None = None
     ambient_c: float | None = None
+    iin_a: float | None = None
 
     def to_json(self) -> JsonObject:
         if self.seq is None:
@@ -96,14 +112,11 @@ class Sample:
         out: JsonObject = {
             "time": timestamp(self.time),
             "seq": int(self.seq),
-            "vin_v": finite(self.vin_v, "vin_v"),
-            "vout_v": finite(self.vout_v, "vout_v"),
             "phases": [p.to_json() for p in self.phases],
         }
-        if self.iout_a is not None:
-            out["iout_a"] = finite(self.iout_a, "iout_a")
-        if self.ambient_c is not None:
-            out["ambient_c"] = finite(self.ambient_c, "ambient_c")
+        for name in ("vin_v", "vout_v", "iout_a", "ambient_c", "iin_a"):
+            if (value := getattr(self, name)) is not None:
+                out[name] = finite(value, name)
         return out
 
 

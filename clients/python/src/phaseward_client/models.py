@@ -150,6 +150,7 @@ class SampleWindow(Model):
     current_a: list[list[float | None]]
     temp_c: list[list[float | None]]
     flags: list[list[int]]
+    iin_a: list[float | None] = dataclasses.field(default_factory=list)  # input current
 
 
 # --- status ------------------------------------------------------------------------------

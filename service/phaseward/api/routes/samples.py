@@ -195,7 +195,8 @@ def get_samples(
         seq=rows.seq[:n].tolist(), time_s=rows.t_s[:n].tolist(), version=rows.version[:n].tolist(),
         phase_count=rows.phase_count[:n].tolist(),
         vin_v=rows.vin_v[:n].tolist(), vout_v=rows.vout_v[:n].tolist(),
-        iout_a=_nullable(rows.iout_a[:n]), ambient_c=_nullable(rows.ambient_c[:n]),
+        iout_a=_nullable(rows.iout_a[:n]), iin_a=_nullable(rows.iin_a[:n]),
+        ambient_c=_nullable(rows.ambient_c[:n]),
         current_a=_nullable(rows.current_a[:n]), temp_c=_nullable(rows.temp_c[:n]),
         flags=rows.flags[:n].astype(int).tolist(),
     )  # fmt: skip

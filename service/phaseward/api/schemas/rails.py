@@ -2,12 +2,21 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any, Self
+from typing import Annotated, Any, Literal, Self
 
 from pydantic import Field, ValidationInfo, field_validator, model_validator
 
 from phaseward.api.schemas.common import Contract, KelvinPerWatt, Seconds
 
+FeatureName = Literal[
+    "input_surge_ratio",
+    "vin_dip_pct",
+    "phase_rise_ratio",
+    "phase_reversal_ratio",
+    "phase_remaining_ratio",
+    "phase_drop_ratio",
+    "drive_activity",
+]  # fmt: skip; the features of physics.signatures (a test keeps them equal)
 Slug = Annotated[str, Field(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)]
 
 # Physical ranges of definition fields. Each is far wider than any real part (so no real
@@ -203,6 +212,31 @@ class OutputSpec(Contract):
     esr_ohm: Annotated[float, Field(ge=0, le=10)] = 0.0
 
 
+Limits = Annotated[list[Annotated[float, Field(ge=0, le=1e6)]], Field(min_length=3, max_length=3)]
+
+
+class FaultEvidenceSpec(Contract):
+    """How captures around a trip are judged; every field is optional, the defaults and their
+    basis are in ``physics/signatures.py`` (DEFAULT_LIMITS, EvidenceRules)."""
+
+    limits: dict[FeatureName, Limits] = Field(
+        default_factory=dict,
+        description="per feature [quiet, edge, clear], quiet < edge < clear",
+    )
+    min_samples_per_period: Annotated[float, Field(ge=2, le=10_000)] | None = None
+    min_baseline_periods: Annotated[float, Field(ge=1, le=10_000)] | None = None
+    min_phase_share: Annotated[float, Field(ge=0, lt=1)] | None = None
+    min_confidence: Annotated[float, Field(gt=0, le=1)] | None = None
+
+    @field_validator("limits")
+    @classmethod
+    def _ordered(cls, limits: dict[str, list[float]]) -> dict[str, list[float]]:
+        for name, (quiet, edge, clear) in limits.items():
+            if not quiet < edge < clear:
+                raise ValueError(f"limits of {name} must rise: quiet < edge < clear")
+        return limits
+
+
 class RailBody(Contract):
     """A rail definition as PUT takes it (the id comes from the path)."""
 
@@ -220,6 +254,10 @@ class RailBody(Contract):
     plausibility: PlausibilitySpec | None = None
     reliability: ReliabilitySpec | None = None
     output: OutputSpec | None = None
+    fault_evidence: FaultEvidenceSpec | None = None
+    vout_mode: Annotated[int, Field(ge=0, le=0x1F)] | None = Field(
+        default=None, description="PMBus VOUT_MODE (linear mode) for READ_VOUT words"
+    )
 
     @field_validator("vout_v")
     @classmethod

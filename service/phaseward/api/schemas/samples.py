@@ -12,7 +12,12 @@ from pydantic import BeforeValidator, Field, TypeAdapter, WithJsonSchema, model_
 
 from phaseward.api.schemas.common import Celsius, Contract
 from phaseward.monitor.telemetry import FLAG_NAMES, NO_WORD, IncomingSamples
-from phaseward.physics.pmbus import status_word_flags
+from phaseward.physics.pmbus import (
+    status_input_flags,
+    status_iout_flags,
+    status_temperature_flags,
+    status_word_flags,
+)
 
 EPOCH_MAX_S = 1.0e11  # far beyond any real clock; catches milliseconds sent as seconds
 Word = Annotated[int, Field(ge=0, le=0xFFFF)]
@@ -23,6 +28,7 @@ Word = Annotated[int, Field(ge=0, le=0xFFFF)]
 Amps = Annotated[float, Field(ge=-1e9, le=1e9)]
 SenseVolts = Annotated[float, Field(ge=-1e3, le=1e3)]  # DCR sense voltages are millivolts
 Volts = Annotated[float, Field(ge=0, le=1e6)]
+Byte = Annotated[int, Field(ge=0, le=0xFF)]
 
 
 class PhaseReading(Contract):
@@ -44,12 +50,29 @@ class PhaseReading(Contract):
         description="PMBus STATUS_WORD: OFF sets driver_disabled, IOUT_OC_FAULT overcurrent, "
         "TEMPERATURE overtemperature.",
     )
+    # Raw PMBus words, decoded on ingest: LINEAR11 except READ_VOUT (LINEAR16 with the rail's
+    # vout_mode). A sample without vin_v / vout_v takes the mean of its phases' READ_VIN /
+    # READ_VOUT, without iin_a the sum of their READ_IIN (when every phase gives one).
+    read_vin: Word | None = None
+    read_iin: Word | None = None
+    read_vout: Word | None = None
+    read_temperature_1: Word | None = Field(default=None, description="instead of temp_c")
+    status_iout: Byte | None = Field(default=None, description="IOUT_OC_FAULT sets overcurrent")
+    status_temperature: Byte | None = Field(
+        default=None, description="OT_FAULT or OT_WARNING sets overtemperature"
+    )
+    status_input: Byte | None = Field(
+        default=None,
+        description="IIN_OC_FAULT sets overcurrent; UNIT_OFF_LOW_VIN sets driver_disabled",
+    )
 
     @model_validator(mode="after")
     def _one_current(self) -> Self:
         given = [v is not None for v in (self.current_a, self.sense_v, self.read_iout)]
         if sum(given) != 1:
             raise ValueError("give exactly one of current_a, sense_v or read_iout")
+        if self.temp_c is not None and self.read_temperature_1 is not None:
+            raise ValueError("give temp_c or read_temperature_1, not both")
         return self
 
 
@@ -88,9 +111,12 @@ Timestamp = Annotated[
 class SampleIn(Contract):
     time: Timestamp
     seq: Annotated[int, Field(ge=0, le=2**62)]
-    vin_v: Volts
-    vout_v: Volts
+    vin_v: Volts | None = Field(default=None, description="else every phase's read_vin")
+    vout_v: Volts | None = Field(default=None, description="else every phase's read_vout")
     iout_a: Amps | None = None
+    iin_a: Annotated[float, Field(ge=0, le=1e9)] | None = Field(
+        default=None, description="input current, A"
+    )
     ambient_c: Celsius | None = None
     phases: list[PhaseReading] = Field(min_length=1, max_length=64)
 
@@ -128,22 +154,42 @@ def to_incoming(items: list[SampleIn]) -> IncomingSamples:
     flags |= np.where(has_word & decoded["TEMPERATURE"], FLAG_NAMES["overtemperature"], 0).astype(
         np.uint8
     )
+    iout = np.array([r.status_iout or 0 for _, _, r in readings], dtype=np.int64)
+    temperature = np.array([r.status_temperature or 0 for _, _, r in readings], dtype=np.int64)
+    hot = status_temperature_flags(temperature)
+    inputs = status_input_flags([r.status_input or 0 for _, _, r in readings])
+    over = status_iout_flags(iout)["IOUT_OC_FAULT"] | inputs["IIN_OC_FAULT"]
+    flags |= np.where(over, FLAG_NAMES["overcurrent"], 0).astype(np.uint8)
+    off = inputs["UNIT_OFF_LOW_VIN"]  # the stage stopped switching: the hardware has acted
+    flags |= np.where(off, FLAG_NAMES["driver_disabled"], 0).astype(np.uint8)
+    flags |= np.where(hot["OT_FAULT"] | hot["OT_WARNING"], FLAG_NAMES["overtemperature"], 0).astype(
+        np.uint8
+    )
+
+    def raw(name: str) -> npt.NDArray[np.int64]:
+        return np.array(
+            [NO_WORD if (w := getattr(r, name)) is None else w for _, _, r in readings],
+            dtype=np.int64,
+        )
+
     return IncomingSamples(
         seq=np.array([s.seq for s in items], dtype=np.int64),
         t_s=per_sample(lambda s: s.time),
-        vin_v=per_sample(lambda s: s.vin_v),
-        vout_v=per_sample(lambda s: s.vout_v),
+        vin_v=per_sample(lambda s: nan(s.vin_v)),
+        vout_v=per_sample(lambda s: nan(s.vout_v)),
         iout_a=per_sample(lambda s: nan(s.iout_a)),
+        iin_a=per_sample(lambda s: nan(s.iin_a)),
         ambient_c=per_sample(lambda s: nan(s.ambient_c)),
         item=np.array([k for k, _, _ in readings], dtype=np.int64),
         slot=np.array([j for _, j, _ in readings], dtype=np.int64),
         phase=np.array([r.index for _, _, r in readings], dtype=np.int64),
         current_a=np.array([nan(r.current_a) for _, _, r in readings], dtype=np.float64),
         sense_v=np.array([nan(r.sense_v) for _, _, r in readings], dtype=np.float64),
-        iout_word=np.array(
-            [NO_WORD if r.read_iout is None else r.read_iout for _, _, r in readings],
-            dtype=np.int64,
-        ),
+        iout_word=raw("read_iout"),
+        vin_word=raw("read_vin"),
+        iin_word=raw("read_iin"),
+        vout_word=raw("read_vout"),
+        temp_word=raw("read_temperature_1"),
         temp_c=np.array([nan(r.temp_c) for _, _, r in readings], dtype=np.float64),
         flags=flags,
     )
@@ -176,6 +222,7 @@ class SampleWindow(Contract):
     vin_v: list[float]
     vout_v: list[float]
     iout_a: list[float | None]
+    iin_a: list[float | None]
     ambient_c: list[float | None]
     current_a: list[list[float | None]]
     temp_c: list[list[float | None]]

@@ -112,13 +112,17 @@ def parse_samples(items: list[Any], *, name: str) -> TraceArrays:
                 )
             current[k, r.index] = amps
             temp[k, r.index] = np.nan if r.temp_c is None else r.temp_c
+    missing = [k for k, s in enumerate(samples) if s.vin_v is None]
+    if missing:
+        raise InvalidInput("a trace takes vin_v on every sample", field=f"[{missing[0]}].vin_v")
     if np.isnan(current).any():
         k, i = np.argwhere(np.isnan(current))[0]
         raise InvalidInput(f"sample {k} has no reading for phase {i}", field=f"[{k}].phases")
     return _checked(
         TraceArrays(
             name=name, t_s=np.array([s.time for s in samples]),
-            vin_v=np.array([s.vin_v for s in samples]), current_a=current, temp_c=temp,
+            vin_v=np.array([s.vin_v for s in samples], dtype=np.float64), current_a=current,
+            temp_c=temp,
         )
     )  # fmt: skip
 

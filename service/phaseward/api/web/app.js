@@ -659,7 +659,12 @@ function signature(e) {
   const sig = e.details && e.details.signature;
   if (!sig || !sig.kind) return null;
   const conf = typeof sig.confidence === 'number' ? `, confidence ${fmt.num(sig.confidence, 2)}` : '';
-  return h('span', { class: 'signature' }, `Fault class: ${String(sig.kind).replace(/_/g, ' ')}${conf}${sig.reason ? ` \u2014 ${sig.reason}` : ''}`);
+  const source = sig.source === 'capture' ? ` (from capture ${sig.capture_id})` : '';
+  const used = (sig.used || []).filter((k) => sig.evidence && sig.evidence[k] != null);
+  const evidence = used.length
+    ? h('span', { class: 'sub evidence' }, `Evidence: ${used.map((k) => `${k.replace(/_/g, ' ')} ${fmt.num(sig.evidence[k], 3)}`).join('; ')}`)
+    : null;
+  return h('span', { class: 'signature' }, `Fault class: ${String(sig.kind).replace(/_/g, ' ')}${conf}${source}${sig.reason ? ` \u2014 ${sig.reason}` : ''}`, evidence);
 }
 
 function ackCell(e) {

@@ -157,6 +157,13 @@ def screening(args: argparse.Namespace) -> int:
     return 0
 
 
+_CAUSES = {
+    "requested": "dropped as asked",
+    "trip_current": "trips on current",
+    "junction_limit": "shuts down at its junction limit",
+}
+
+
 def forecast(args: argparse.Namespace) -> int:
     from phaseward_client import Load, PhaseDrop
 
@@ -169,17 +176,30 @@ def forecast(args: argparse.Namespace) -> int:
     if args.json:
         _dump(f)
         return 0
-    reach = (
-        "not within the horizon"
-        if f.time_to_limit_s is None
-        else f"in {f.time_to_limit_s:.0f} s (phase {f.limit_phase})"
+
+    def reach(at: float | None, phase: int | None) -> str:
+        return "not within the horizon" if at is None else f"in {at:.0f} s (phase {phase})"
+
+    verdict = f.verdict.upper() if f.verdict != "holds" else f.verdict
+    when = "" if f.verdict_at_s is None else f" at {f.verdict_at_s:.0f} s: {f.verdict_cause}"
+    out.print(f"[bold]{f.rail_id}[/bold]: [bold]{verdict}[/bold]{when}")
+    summary = (
+        f"warning line {reach(f.time_to_warning_s, f.warning_phase)}; "
+        f"limit {reach(f.time_to_limit_s, f.limit_phase)}; "
     )
-    peak = f.peak
-    summary = f"[bold]{f.rail_id}[/bold]: limit reached {reach}; "
-    if peak is not None:
-        summary += f"peak {peak.temp_c:.1f} degC on phase {peak.phase} at {peak.time_s:.0f} s; "
-    summary += f"margin {_n(f.margin_k)} K" + ("; THERMAL RUNAWAY" if f.runaway else "")
+    if f.peak is not None:
+        summary += (
+            f"peak {f.peak.temp_c:.1f} degC on phase {f.peak.phase} at {f.peak.time_s:.0f} s; "
+        )
+    summary += (
+        f"margin to warning {_n(f.margin_to_warning_k)} K, to limit {_n(f.margin_to_limit_k)} K"
+        + ("; THERMAL RUNAWAY" if f.runaway else "")
+    )
     out.print(summary)
+    for c in f.cascade:
+        why = _CAUSES.get(c.cause, c.cause)
+        amps = "" if c.current_a is None else f" ({c.current_a:.1f} A)"
+        out.print(f"  {c.at_s:.0f} s: phase {c.phase} {why}{amps}")
     table = Table("t s", "load A", "hottest junction degC", "board degC")
     step = max(1, len(f.time_s) // 12)
     for k in range(0, len(f.time_s), step):

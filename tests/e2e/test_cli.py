@@ -53,7 +53,9 @@ def test_status_screening_forecast_events(base: str) -> None:
     screening = run("screening", "bench-a", "--depth", "2", "--url", base)
     assert len(screening["cases"]) == 6
     ahead = run("forecast", "bench-a", "--load", "100", "--drop", "1", "--drop", "2", "--url", base)
-    assert ahead["time_to_limit_s"] is not None  # 50 A on each of two 30 A phases
+    # 50 A on each of two phases, past their 40 A trip current: both trip, the rail is down.
+    assert ahead["verdict"] == "down"
+    assert [c["cause"] for c in ahead["cascade"]] == ["requested"] * 2 + ["trip_current"] * 2
     events = run("events", "--rail", "bench-a", "--url", base)
     assert [e["kind"] for e in events] == ["rail.condition"]
 

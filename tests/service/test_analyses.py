@@ -90,18 +90,52 @@ async def test_forecast_keeps_the_peak_when_decimating(
 async def test_forecast_drop_and_limit(client: httpx.AsyncClient, rail: str) -> None:
     await feed(client, rail, 20.0)
     calm = (await client.post(f"{rail}/forecast", json={"horizon_s": 1800})).json()
-    assert calm["time_to_limit_s"] is None
+    assert calm["time_to_warning_s"] is None
+    assert calm["verdict"] == "holds"
     assert calm["runaway"] is False
-    assert calm["margin_k"] > 0
+    assert 0 < calm["margin_to_warning_k"] < calm["margin_to_limit_k"]
     # Lose two phases at t = 60 s with 80 A held: 40 A per survivor, past its rating and hot.
     hot = (await client.post(f"{rail}/forecast", json={
         "horizon_s": 1800, "drop": [{"phase": 1, "at_s": 60}, {"phase": 2, "at_s": 60}],
         "ambient_c": 70.0,
     })).json()  # fmt: skip
-    assert hot["time_to_limit_s"] is not None
-    assert hot["time_to_limit_s"] > 60
-    assert hot["limit_phase"] in (0, 3)
-    assert hot["margin_k"] < 0
+    assert hot["time_to_warning_s"] is not None
+    assert hot["time_to_warning_s"] > 60
+    assert hot["warning_phase"] in (0, 3)
+    assert hot["margin_to_warning_k"] < 0
+    assert [s["above_rating"] for s in hot["stretches"][:2]] == [[], [0, 3]]
+    # A survivor reaches its junction limit and shuts down; the last one then carries 80 A,
+    # past its 40 A trip current: the rail is down when the first junction reaches its limit.
+    causes = [(c["phase"], c["cause"]) for c in hot["cascade"]]
+    assert causes[:2] == [(1, "requested"), (2, "requested")]
+    assert sorted(causes[2:], key=lambda c: c[1]) in (
+        [(0, "junction_limit"), (3, "trip_current")], [(3, "junction_limit"), (0, "trip_current")],
+    )  # fmt: skip
+    assert hot["time_to_limit_s"] == hot["cascade"][2]["at_s"] > hot["time_to_warning_s"]
+    assert hot["verdict"] == "down"
+    assert hot["verdict_at_s"] == hot["time_to_limit_s"]
+
+
+async def test_forecast_trip_cascade_to_down(client: httpx.AsyncClient, rail: str) -> None:
+    """Regression: 190 A on 4 phases after a loss was "limit not reached"; a profile dropping
+    every phase answered with junctions at ambient and no verdict."""
+    await feed(client, rail, 20.0)
+    # 150 A: one loss leaves 50 A per survivor, above the 40 A trip: all trip at 30 s.
+    tripping = (await client.post(f"{rail}/forecast", json={
+        "horizon_s": 600, "load": {"constant_a": 150}, "drop": [{"phase": 0, "at_s": 30}],
+    })).json()  # fmt: skip
+    assert tripping["verdict"] == "down"
+    assert tripping["verdict_at_s"] == 30.0
+    steps = tripping["cascade"]
+    assert steps[0] == {"at_s": 30.0, "phase": 0, "cause": "requested", "current_a": None}
+    assert {s["phase"] for s in steps[1:]} == {1, 2, 3}
+    assert all(s["cause"] == "trip_current" and s["at_s"] == 30.0 for s in steps[1:])
+    assert all(s["current_a"] > 40.0 for s in steps[1:])
+    every = [{"phase": k, "at_s": 10.0} for k in range(4)]
+    gone = (await client.post(f"{rail}/forecast", json={"horizon_s": 60, "drop": every})).json()
+    assert gone["verdict"] == "down"
+    assert gone["verdict_at_s"] == 10.0
+    assert gone["verdict_cause"] == "no phase left to carry the load"
 
 
 @pytest.mark.parametrize(

@@ -249,7 +249,6 @@ def forecast(
     horizon_s: float | None,
     points: int | None,
     ambient_c: float | None,
-    step_s: float | None,
 ) -> Call[Forecast]:
     body: dict[str, Any] = {"drop": [d.to_json() for d in drop]}
     if load is not None:
@@ -260,8 +259,6 @@ def forecast(
         body["points"] = int(points)
     if ambient_c is not None:
         body["ambient_c"] = finite(ambient_c, "ambient_c")
-    if step_s is not None:
-        body["step_s"] = finite(step_s, "step_s")
     return Call("POST", rail_path(rail_id, "/forecast"), model(Forecast), body=encode(body))
 
 

@@ -204,14 +204,13 @@ class AsyncClient:
         horizon_s: float | None = None,
         points: int | None = None,
         ambient_c: float | None = None,
-        step_s: float | None = None,
     ) -> Forecast:
         """Junction temperatures from the present state under a load profile and phase drops
         (``None`` leaves a setting to the service's default)."""
         return await self._run(
             _calls.forecast(
                 rail_id, load=load, drop=drop, horizon_s=horizon_s, points=points,
-                ambient_c=ambient_c, step_s=step_s,
+                ambient_c=ambient_c,
             )
         )  # fmt: skip
 

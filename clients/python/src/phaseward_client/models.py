@@ -285,21 +285,56 @@ class Peak(Model):
 
 
 @dataclass(frozen=True)
+class CascadeStep(Model):
+    """A phase leaving the rail in a forecast: ``cause`` is ``requested``, ``trip_current`` or
+    ``junction_limit``."""
+
+    at_s: float
+    phase: int
+    cause: str
+    current_a: float | None
+
+
+@dataclass(frozen=True)
+class Stretch(Model):
+    """A stretch of a forecast with constant load and constant set of carrying phases."""
+
+    from_s: float
+    to_s: float
+    load_a: float
+    active_phases: list[int]
+    current_a: list[float]
+    above_rating: list[int]
+    above_trip: list[int]
+    peak_c: float | None
+    peak_phase: int
+
+
+@dataclass(frozen=True)
 class Forecast(Model):
+    """``verdict``: ``holds``, ``overloaded`` or ``down`` (from ``verdict_at_s``)."""
+
     rail_id: str
     version: int
     start_s: float | None
-    dt_s: float
+    verdict: str
+    verdict_at_s: float | None
+    verdict_cause: str | None
     time_s: list[float]
     junction_c: list[list[float]]
     board_c: list[float]
     load_a: list[float]
     peak: Peak | None
+    time_to_warning_s: float | None
+    warning_phase: int | None
     time_to_limit_s: float | None
     limit_phase: int | None
     steady_junction_c: list[float] | None
-    margin_k: float | None
+    margin_to_warning_k: float | None
+    margin_to_limit_k: float | None
     runaway: bool
+    cascade: list[CascadeStep]
+    stretches: list[Stretch]
     caution: str
 
 

@@ -25,7 +25,7 @@ from phaseward.api.schemas.analyses import (
 )
 from phaseward.errors import Forbidden, InvalidInput
 from phaseward.monitor import breaker_check, calibrations
-from phaseward.monitor.forecast import Drop, forecast
+from phaseward.monitor.forecast import Drop, Profile, forecast
 from phaseward.monitor.live import live_rail
 from phaseward.monitor.reliability import mission
 from phaseward.monitor.screening import screen
@@ -60,21 +60,22 @@ def get_screening(
     )
 
 
-def _profile(load: LoadProfile | None, present_a: float) -> tuple[F64, F64, bool]:
-    """(times, currents, stepwise) of the profile."""
+def _profile(load: LoadProfile | None, present_a: float) -> Profile:
     if load is None or load.constant_a is not None:
         value = present_a if load is None or load.constant_a is None else load.constant_a
-        return np.zeros(1), np.array([value]), True
+        return Profile(np.zeros(1), np.array([value]), stepwise=True)
     rows = load.steps if load.steps is not None else load.points
     assert rows is not None  # the schema guarantees one shape
     times = np.array([r.at_s for r in rows])
-    return times, np.array([r.current_a for r in rows]), load.steps is not None
+    return Profile(times, np.array([r.current_a for r in rows]), stepwise=load.steps is not None)
 
 
 @router.post("/{rail_id}/forecast")
 def post_forecast(
     rail_id: RailId, body: ForecastIn, session: ReadSessionDep, _: RailOperator
 ) -> ForecastOut:
+    """Junction and board temperatures under a load profile from the present estimated
+    state, exact per stretch of constant load and phase set, with the cascade of trips."""
     live = live_rail(session, rail_id)
     for k, d in enumerate(body.drop):
         if d.phase >= live.model.n_phases:
@@ -82,18 +83,11 @@ def post_forecast(
                 f"phase {d.phase} is out of range for {live.model.n_phases} phases",
                 field=f"drop[{k}].phase",
             )
-    times, values, stepwise = _profile(body.load, live.load_a)
-
-    def load_at(t: F64) -> F64:
-        if stepwise:
-            at = np.searchsorted(times, t, side="right") - 1
-            return values[np.clip(at, 0, None)]
-        return np.interp(t, times, values)
-
     result = forecast(
-        live, load_at=load_at, drops=[Drop(d.phase, d.at_s) for d in body.drop],
-        horizon_s=body.horizon_s, points=body.points, ambient_c=body.ambient_c,
-        step_s=body.step_s,
+        live.model, active=live.active, weights=live.weights, nodes_c=live.nodes_c,
+        ambient_c=live.ambient_c if body.ambient_c is None else body.ambient_c,
+        profile=_profile(body.load, live.load_a), drops=[Drop(d.phase, d.at_s) for d in body.drop],
+        horizon_s=body.horizon_s, points=body.points,
     )  # fmt: skip
     return ForecastOut.model_validate(
         {"rail_id": rail_id, "version": live.model.version, "start_s": live.t_s, **result}

@@ -71,12 +71,12 @@ class ForecastIn(Contract):
     load: LoadProfile | None = Field(default=None, description="default: the present load")
     drop: list[PhaseDrop] = Field(default_factory=list, max_length=64)
     horizon_s: Annotated[float, Field(gt=0, le=MAX_HORIZON_S)] = 3600.0
-    points: Annotated[int, Field(ge=10, le=20_000)] = 500
-    ambient_c: Celsius | None = None
-    step_s: Annotated[float, Field(gt=0)] | None = Field(
-        default=None,
-        description="propagation step; default horizon / 5000, never below horizon / 200000",
+    points: Annotated[int, Field(ge=10, le=20_000)] = Field(
+        default=500,
+        description="trajectory rows (about): evenly spaced, plus the peak, crossings and "
+        "stretch edges; the computation itself is exact and does not depend on it",
     )
+    ambient_c: Celsius | None = None
 
 
 class Peak(BaseModel):
@@ -85,21 +85,62 @@ class Peak(BaseModel):
     temp_c: float
 
 
+class CascadeStep(BaseModel):
+    at_s: float
+    phase: int
+    cause: Literal["requested", "trip_current", "junction_limit"] = Field(
+        description="requested drop; its current above its trip current; its junction at its "
+        "limit (over-temperature shutdown)"
+    )
+    current_a: float | None = Field(description="the phase's current when it tripped")
+
+
+class Stretch(BaseModel):
+    from_s: float
+    to_s: float
+    load_a: float = Field(description="held over the stretch (a ramp: its higher end)")
+    active_phases: list[int]
+    current_a: list[float] = Field(description="per phase")
+    above_rating: list[int] = Field(description="phases above their current rating")
+    above_trip: list[int] = Field(description="phases that tripped on current at its start")
+    peak_c: float | None
+    peak_phase: int
+
+
 class ForecastOut(BaseModel):
     rail_id: str
     version: int
     start_s: float | None = Field(description="time of the state the forecast starts from")
-    dt_s: float
+    verdict: Literal["holds", "overloaded", "down"] = Field(
+        description="down: no phase left to carry the load; overloaded: a phase above its "
+        "rating, a trip, or a junction at its warning line"
+    )
+    verdict_at_s: float | None
+    verdict_cause: str | None
     time_s: list[float]
     junction_c: list[list[float]] = Field(description="per row, one value per phase")
     board_c: list[float]
     load_a: list[float]
     peak: Peak | None
-    time_to_limit_s: float | None = Field(description="first time any junction reaches its limit")
+    time_to_warning_s: float | None = Field(
+        description="first time a carrying phase's junction reaches its warning line (limit "
+        "minus margin)"
+    )
+    warning_phase: int | None
+    time_to_limit_s: float | None = Field(
+        description="first time a carrying phase's junction reaches its limit (it then drops)"
+    )
     limit_phase: int | None
     steady_junction_c: list[float] | None
-    margin_k: float | None = Field(description="smallest distance to a limit over the horizon")
+    margin_to_warning_k: float | None = Field(
+        description="smallest distance below a warning line over the horizon (negative: past)"
+    )
+    margin_to_limit_k: float | None = Field(
+        description="smallest distance below a junction limit over the horizon"
+    )
     runaway: bool
+    cascade: list[CascadeStep]
+    stretches: list[Stretch]
     caution: str = CAUTION
 
 

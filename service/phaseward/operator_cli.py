@@ -1,5 +1,5 @@
 """Operator and firmware-developer commands of ``phaseward``, talking to a service through
-the Python client (``clients/python``): status, events, screening, forecast, rehearse,
+the Python client (``clients/python``): status, events, screening, forecast, ratings, rehearse,
 calibrate. Tables by default, ``--json`` for scripts."""
 
 from __future__ import annotations
@@ -154,6 +154,37 @@ def screening(args: argparse.Namespace) -> int:
         )  # fmt: skip
     out.print(table)
     out.print(f"[dim]{s.caution}[/dim]")
+    return 0
+
+
+def ratings(args: argparse.Namespace) -> int:
+    durations = [m * 60.0 for m in args.minutes or ()]
+    with connected(args.url, embedded=False) as client, err.status("rating ..."):
+        r = client.ratings(args.rail, durations_s=durations, pairs=args.pairs)
+    if args.json:
+        _dump(r)
+        return 0
+    out.print(
+        f"[bold]{r.rail_id}[/bold] at {_n(r.load_a)} A: the highest constant load in A for "
+        "each duration, and what binds it"
+    )
+    heads = ["lose"] + [
+        "indefinitely" if d is None else (f"{d / 60:g} min" if d < 3600 else f"{d / 3600:g} h")
+        for d in r.durations_s
+    ]
+    table = Table(*heads)
+    short = {"rating": "rating", "trip_current": "trip", "warning_line": "warning", "none": "-"}
+    for c in r.cases:
+        table.add_row(
+            ",".join(map(str, c.lose_phases)) or "none",
+            *(f"{x.rating_a:.1f} ({short.get(x.binding, x.binding)})" for x in c.ratings),
+        )
+    out.print(table)
+    out.print(
+        "[dim]binds: rating = a phase's current rating, trip = its trip current, warning = a "
+        "junction's warning line (limit minus margin)[/dim]"
+    )
+    out.print(f"[dim]{r.caution}[/dim]")
     return 0
 
 
@@ -337,6 +368,13 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     p.add_argument("--at", type=float, default=0.0, help="when the phases drop, s")
     p.add_argument("--hours", type=float, default=1.0)
     p.add_argument("--points", type=int, default=200)
+    p = command("ratings", ratings, "how much load, for how long: time-limited ratings")
+    p.add_argument("rail")
+    p.add_argument(
+        "--minutes", type=float, action="append",
+        help="a duration in minutes (repeatable; default 1, 10, 60; indefinitely always shown)",
+    )  # fmt: skip
+    p.add_argument("--pairs", action="store_true", help="also every pair of further losses")
     p = command("rehearse", rehearse, "replay a trace against protection settings")
     p.add_argument("trace", help="CSV (.csv) or NDJSON samples")
     p.add_argument("--settings", required=True, help="JSON: setting -> value or list to sweep")

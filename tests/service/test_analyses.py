@@ -154,3 +154,39 @@ async def test_forecast_bad_input(
     answer = await client.post(f"{rail}/forecast", json=body)
     assert answer.status_code == 422, answer.text
     assert answer.json()["field"] == field
+
+
+async def test_ratings_table(client: httpx.AsyncClient, rail: str) -> None:
+    await feed(client, rail, 20.0)
+    table = (await client.get(f"{rail}/ratings")).json()
+    assert table["durations_s"] == [60.0, 600.0, 3600.0, None]
+    assert [c["lose_phases"] for c in table["cases"]] == [[], [0], [1], [2], [3]]
+    assert "monitoring aid" in table["caution"]
+    whole, single = table["cases"][0]["ratings"], table["cases"][1]["ratings"]
+    # A short while the current rating binds (4 x 30 A, 3 x 30 A); given time, the heat does.
+    assert whole[0]["rating_a"] == pytest.approx(120.0, rel=1e-9)
+    assert whole[0]["binding"] == "rating"
+    assert single[0]["rating_a"] == pytest.approx(90.0, rel=1e-9)
+    for row in (whole, single):
+        amps = [r["rating_a"] for r in row]
+        assert amps == sorted(amps, reverse=True)  # longer never allows more
+    assert single[0]["headroom_a"] == pytest.approx(90.0 - table["load_a"])
+    status = (await client.get(f"{rail}/status")).json()
+    assert whole[-1]["rating_a"] <= status["capacity"]["capacity_a"] * (1 + 1e-5)
+    pairs = (await client.get(f"{rail}/ratings", params={"pairs": True, "duration_s": [30, 5]}))
+    body = pairs.json()
+    assert body["durations_s"] == [5.0, 30.0, None]
+    assert len(body["cases"]) == 1 + 4 + 6
+
+
+@pytest.mark.parametrize(
+    ("params", "field"),
+    [({"duration_s": -1}, "duration_s[0]"), ({"duration_s": "x"}, "duration_s[0]"),
+     ({"pairs": "maybe"}, "pairs")],
+)  # fmt: skip
+async def test_ratings_bad_input(
+    client: httpx.AsyncClient, rail: str, params: dict[str, Any], field: str
+) -> None:
+    answer = await client.get(f"{rail}/ratings", params=params)
+    assert answer.status_code == 422, answer.text
+    assert answer.json()["field"] == field

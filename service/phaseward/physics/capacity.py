@@ -25,7 +25,7 @@ import numpy as np
 import numpy.typing as npt
 
 from phaseward.physics.losses import PhaseLossParams, loss_coefficients
-from phaseward.physics.thermal import ThermalNetwork, bracketed_root, steady_state_c
+from phaseward.physics.thermal import ThermalNetwork, bracketed_root, peak_batch, steady_state_c
 
 FloatArray = npt.NDArray[np.float64]
 BoolArray = npt.NDArray[np.bool_]
@@ -137,6 +137,120 @@ def remaining_capacity(
         binding_phase=phase.astype(np.intp),
         binding_kind=kind,
         junction_c_at_capacity=temps,
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class RatingTable:
+    """Per case and duration (n_cases, n_durations): the highest constant rail current in A,
+    what binds it ("rating", "trip_current", "warning_line", or "none" with no active phase)
+    and the binding phase (-1 if none)."""
+
+    rating_a: FloatArray
+    binding_kind: StrArray
+    binding_phase: IntArray
+
+
+def time_limited_ratings(
+    net: ThermalNetwork,
+    params: PhaseLossParams,
+    *,
+    active: npt.ArrayLike,
+    weights: npt.ArrayLike,
+    rated_current_a: npt.ArrayLike,
+    trip_current_a: npt.ArrayLike,
+    warning_c: npt.ArrayLike,
+    initial_c: npt.ArrayLike,
+    ambient_c: float,
+    duration_s: npt.ArrayLike,
+    rtol: float = 1e-4,
+) -> RatingTable:
+    """Highest constant rail current each case carries for each duration from ``initial_c``.
+
+    The current shares as in :func:`remaining_capacity`. A load I is allowed for a duration D
+    if no active phase's current passes its rating or its trip current and no active
+    junction passes its warning line at any time in [0, D] (D = np.inf: ever, steady state
+    included), with the transient solved exactly (:func:`thermal.peak_batch`). Temperatures
+    grow with I, so the thermal bound is a root in I, found for the whole case x duration
+    grid at once by :func:`thermal.bracketed_root` (relative tolerance ``rtol``, the lower
+    and safe end reported). A case already past a warning line at no load gets 0.
+
+    active: (n_cases, n_phases) bool; weights: (n_phases,) or (n_cases, n_phases);
+    rated_current_a, trip_current_a, warning_c: (n_phases,); initial_c: (n_nodes,) node
+    temperatures now; duration_s: (n_durations,) > 0, np.inf allowed.
+
+    >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
+    >>> chain = CauerStages(np.array([4.0, 6.0]), np.array([0.2, 2.0]))
+    >>> net = build_coupled_network([chain] * 4, board_to_ambient_k_per_w=0.5,
+    ...                             board_c_j_per_k=200.0)
+    >>> params = PhaseLossParams.build(4, vin_v=12.0, vout_v=1.0, fsw_hz=500e3,
+    ...     inductance_h=150e-9, dcr_ohm=0.2e-3, rds_high_ohm=4e-3, rds_low_ohm=1e-3,
+    ...     rds_tc_per_k=0.004)
+    >>> table = time_limited_ratings(net, params, active=np.ones((1, 4), dtype=bool),
+    ...     weights=np.ones(4), rated_current_a=np.full(4, 60.0),
+    ...     trip_current_a=np.full(4, 70.0), warning_c=np.full(4, 56.0),
+    ...     initial_c=np.full(9, 25.0), ambient_c=25.0, duration_s=[1.0, 10.0, np.inf])
+    >>> np.round(table.rating_a, 1)  # from cold, 1 s: the current rating binds
+    array([[240. , 212. , 158.5]])
+    >>> table.binding_kind.tolist()
+    [['rating', 'warning_line', 'warning_line']]
+    """
+    n = net.n_phases
+    act = np.asarray(active)
+    if act.dtype != np.bool_ or act.ndim != 2 or act.shape[1] != n:
+        raise ValueError(f"active must be a boolean array of shape (n_cases, {n})")
+    share = np.array(np.broadcast_to(_per_phase("weights", weights, n, ndim=(1, 2)), act.shape))
+    share *= act
+    total = share.sum(axis=1)
+    share /= np.where(total > 0.0, total, 1.0)[:, None]
+    rated = _per_phase("rated_current_a", rated_current_a, n)
+    trip = _per_phase("trip_current_a", trip_current_a, n)
+    warning = _per_phase("warning_c", warning_c, n)
+    duration = np.asarray(duration_s, dtype=np.float64)
+    if duration.ndim != 1 or np.any(np.isnan(duration)) or not np.all(duration > 0.0):
+        raise ValueError("duration_s must have shape (n_durations,) and be > 0")
+    n_cases, n_dur = act.shape[0], duration.size
+    case = np.repeat(np.arange(n_cases), n_dur)  # the grid, flattened case-major
+    span = np.tile(duration, n_cases)
+    offset = np.where(act, warning, np.inf)
+
+    def excess(rows: IntArray, current_a: FloatArray) -> FloatArray:
+        c = case[rows]
+        p0, slope = loss_coefficients(params, share[c] * current_a[:, None])
+        on = act[c]
+        return peak_batch(
+            net, initial_c, p0 * on, slope * on, ambient_c, offset[c], duration_s=span[rows]
+        ).value
+
+    bound = np.minimum(rated, trip)
+    with np.errstate(divide="ignore"):
+        per_phase = np.where(share > 0.0, bound / share, np.inf)
+    some = act.any(axis=1) & (total > 0.0)
+    current_limit = np.where(some, per_phase.min(axis=1), 0.0)[case]
+    current_phase = np.argmin(per_phase, axis=1)[case]
+    current_kind = np.where(rated <= trip, "rating", "trip_current")[current_phase]
+    every = np.arange(case.size)
+    cold = excess(every, np.zeros(case.size)) > 0.0
+    fits = excess(every, current_limit) <= 0.0
+    kind = np.where(~some[case], "none", np.where(fits & ~cold, current_kind, "warning_line"))
+    rating = np.where(fits & ~cold, current_limit, 0.0)
+    rows = np.flatnonzero(some[case] & ~fits & ~cold)
+    if rows.size:  # in I^2, where the loss, and so the excess, is nearly linear
+        low, _ = bracketed_root(
+            lambda x: excess(rows, np.sqrt(x)), np.zeros(rows.size), current_limit[rows] ** 2,
+            rtol=2.0 * rtol,
+        )  # fmt: skip
+        rating[rows] = np.sqrt(low)
+    c = case
+    p0, slope = loss_coefficients(params, share[c] * rating[:, None])
+    hot = peak_batch(
+        net, initial_c, p0 * act[c], slope * act[c], ambient_c, offset[c], duration_s=span
+    ).phase
+    phase = np.where(kind == "warning_line", hot, np.where(kind == "none", -1, current_phase))
+    return RatingTable(
+        rating_a=rating.reshape(n_cases, n_dur),
+        binding_kind=kind.reshape(n_cases, n_dur),
+        binding_phase=phase.astype(np.intp).reshape(n_cases, n_dur),
     )
 
 

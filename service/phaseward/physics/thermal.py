@@ -49,6 +49,8 @@ IntArray = npt.NDArray[np.intp]
 _SETTLED = 40.0  # time constants after which exp(-t/tau) < 5e-18: the state has settled
 _GROWTH = 700.0  # largest exponent of a growing mode that float64 still holds (e^709 max)
 _GRID_PER_DECADE = 64  # log-grid density used to bracket the first limit crossing
+_PEAK_PER_DECADE = 8  # log-grid density that locates a peak before golden-section refinement
+_PEAK_STEPS = 24  # golden-section steps: the bracket shrinks to 0.618^24 = 1e-5 of its width
 _GRID_MAX = 2048  # grid points at most (only a near-singular system spans > 32 decades)
 _WINDOW_STEPS = 8192  # transient steps per Picard window (working set stays in cache)
 _ONE = np.ones(1)  # numerator of the per-mode filter (the input gain is folded in before)
@@ -689,25 +691,36 @@ class _Cases:
         """Junction (or, with ``nodes``, all node) temperatures (len(rows), n_t, k) in degC
         at times t (len(rows), n_t) >= 0; a growing mode past float range gives inf."""
         x = -self.lam[rows, None, :] * t[..., None]
-        with np.errstate(over="ignore", invalid="ignore"):
-            coef = np.exp(x) * self.z0[rows, None, :] + (
-                t[..., None] * special.exprel(x) * self.u[rows, None, :]
-            )
-            phi = self.phi[rows] if nodes else self.phi[rows][:, self.junction, :]
-            out = np.einsum("bgm,bpm->bgp", coef, phi)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            e = np.exp(x)
+            # t exprel(x) from the same exponential; its series where (e - 1) / x would cancel.
+            rel = np.where(np.abs(x) > 1e-4, (e - 1.0) / x, 1.0 + x * (0.5 + x / 6.0))
+            coef = e * self.z0[rows, None, :] + t[..., None] * rel * self.u[rows, None, :]
+            phi = self.phi[rows] if nodes else self.phi_j[rows]
+            out = np.matmul(coef, np.swapaxes(phi, -1, -2))
         return np.asarray(np.where(np.isnan(out), np.inf, out))
 
-    def grid(self, horizon: FloatArray) -> FloatArray:
-        """Times (b, n_grid) from 0 over a log grid spanning each case's time constants (64
-        points per decade, from a thousandth of the fastest to 40 of the slowest, or to where
+    @property
+    def phi_j(self) -> FloatArray:
+        """Junction rows of the mode shapes (b, n_phases, n), computed once."""
+        cached: FloatArray | None = self.__dict__.get("_phi_j")
+        if cached is None:
+            cached = np.ascontiguousarray(self.phi[:, self.junction, :])
+            object.__setattr__(self, "_phi_j", cached)
+        return cached
+
+    def grid(self, horizon: FloatArray, per_decade: int = _GRID_PER_DECADE) -> FloatArray:
+        """Times (b, n_grid) from 0 over a log grid spanning each case's time constants
+        (``per_decade`` points per decade, from a thousandth of the fastest (a tenth for the
+        coarser peak grid, whose first interval is refined) to 40 of the slowest, or to where
         a growing mode has risen by e^700), cut at ``horizon`` (b,) which is the last point."""
         rate = np.maximum(np.abs(self.lam), 1e-300)
         runaway = self.lam[:, 0] <= 0.0
-        t_first = 1e-3 / rate.max(axis=1)
+        t_first = (1e-3 if per_decade >= _GRID_PER_DECADE else 1e-1) / rate.max(axis=1)
         t_end = np.where(runaway, _GROWTH / rate[:, 0], _SETTLED / rate.min(axis=1))
         t_end = np.maximum(np.minimum(t_end, horizon), t_first)
         decades = float(np.log10(t_end / t_first).max(initial=0.0))
-        n_grid = min(int(np.ceil(_GRID_PER_DECADE * decades)), _GRID_MAX) + 2
+        n_grid = min(int(np.ceil(per_decade * decades)), _GRID_MAX) + 2
         frac = np.linspace(0.0, 1.0, n_grid)
         inner = t_first[:, None] * (t_end / t_first)[:, None] ** frac
         last = np.where(np.isfinite(horizon), np.maximum(horizon, t_end), t_end)
@@ -848,7 +861,7 @@ def peak_batch(
     Exact solution on the log grid of :meth:`_Cases.grid` (which ends at the duration, or
     where the state has settled when the duration is longer or infinite, where the steady
     state is the limit), the grid's largest point refined by golden-section search between
-    its neighbours (60 steps, to 1e-12 of the interval); the larger of the grid and refined
+    its neighbours (24 steps, to 1e-5 of the interval); the larger of the grid and refined
     values is kept, so the result never understates the grid. offset_c: (n_phases,) or
     (n_cases, n_phases), np.inf for a phase to ignore (0 for plain temperatures);
     duration_s: float or (n_cases,), np.inf allowed. Other shapes as in
@@ -874,27 +887,51 @@ def peak_batch(
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
         return np.asarray(np.max(cases.at_c(rows, t) - offset[rows, None, :], axis=-1))
 
-    grid = cases.grid(np.where(duration > 0.0, duration, 1e-300))
-    grid = np.where(duration[:, None] > 0.0, grid, 0.0)
-    values = excess(every, grid)
-    best = np.argmax(values, axis=1)
-    value = values[every, best]
-    time = grid[every, best]
-    # A runaway case with an unbounded window grows past every bound.
-    unbounded = (cases.lam[:, 0] <= 0.0) & ~np.isfinite(duration)
-    value = np.where(unbounded, np.inf, value)
-    time = np.where(unbounded, np.inf, time)
-    rows = np.flatnonzero(~unbounded & (best > 0) & (best < grid.shape[1] - 1))
+    # Every node warming at t = 0, dT/dt = Phi (u - lam z0) >= 0, keeps warming: dT/dt obeys
+    # the same linear system, whose propagator exp(-C^-1 A t) is non-negative because A has
+    # no positive off-diagonal entry (Berman and Plemmons, ch. 6). Such a case peaks at the
+    # end of its window (or at its steady state), so only the others need the grid.
+    warming = np.einsum("bnm,bm->bn", cases.phi, cases.u - cases.lam * cases.z0)
+    rising = np.all(warming >= 0.0, axis=1)
+    unbounded = (cases.lam[:, 0] <= 0.0) & ~np.isfinite(duration)  # grows past every bound
+    settled = _SETTLED / np.maximum(cases.lam[:, 0], 1e-300)
+    end = np.where(np.isfinite(duration), duration, np.where(unbounded, 0.0, settled))
+    value = np.where(unbounded, np.inf, -np.inf)
+    time = np.where(unbounded, np.inf, 0.0)
+    up = np.flatnonzero(rising & ~unbounded)
+    if up.size:
+        ends = np.stack([np.zeros(up.size), end[up]], axis=1)
+        values = excess(up, ends)
+        pick = np.argmax(values, axis=1)
+        value[up], time[up] = values[np.arange(up.size), pick], ends[np.arange(up.size), pick]
+    rows = np.flatnonzero(~rising & ~unbounded)
+    grid = np.zeros((n_cases, 1))
     if rows.size:
-        lo, hi = grid[rows, best[rows] - 1], grid[rows, best[rows] + 1]
-        for _ in range(60):
-            a = hi - _GOLDEN * (hi - lo)
-            b = lo + _GOLDEN * (hi - lo)
-            left = excess(rows, a[:, None])[:, 0] >= excess(rows, b[:, None])[:, 0]
-            hi = np.where(left, b, hi)
-            lo = np.where(left, lo, a)
-        t_mid = 0.5 * (lo + hi)
-        v_mid = excess(rows, t_mid[:, None])[:, 0]
+        grid = cases.grid(np.where(end > 0.0, end, 1e-300), _PEAK_PER_DECADE)
+        grid = np.where(end[:, None] > 0.0, grid, 0.0)
+        values = excess(rows, grid[rows])
+        best = np.argmax(values, axis=1)
+        value[rows] = values[np.arange(rows.size), best]
+        time[rows] = grid[rows, best]
+        inner = (best > 0) & (best < grid.shape[1] - 1)
+        rows, best = rows[inner], best[inner]
+    if rows.size:
+        lo, hi = grid[rows, best - 1], grid[rows, best + 1]
+        a, b = hi - _GOLDEN * (hi - lo), lo + _GOLDEN * (hi - lo)
+        f_a, f_b = (excess(rows, x[:, None])[:, 0] for x in (a, b))
+        for _ in range(_PEAK_STEPS):  # one new point per step: the other is reused
+            left = f_a >= f_b
+            lo, hi = np.where(left, lo, a), np.where(left, b, hi)
+            new = np.where(left, hi - _GOLDEN * (hi - lo), lo + _GOLDEN * (hi - lo))
+            f_new = excess(rows, new[:, None])[:, 0]
+            a, f_a, b, f_b = (
+                np.where(left, new, b),
+                np.where(left, f_new, f_b),
+                np.where(left, a, new),
+                np.where(left, f_a, f_new),
+            )
+        pick = f_a >= f_b
+        t_mid, v_mid = np.where(pick, a, b), np.where(pick, f_a, f_b)
         better = v_mid > value[rows]
         value[rows] = np.where(better, v_mid, value[rows])
         time[rows] = np.where(better, t_mid, time[rows])

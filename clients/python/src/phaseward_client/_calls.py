@@ -34,6 +34,7 @@ from phaseward_client.models import (
     Model,
     Rail,
     RailStatus,
+    Ratings,
     Reliability,
     SampleWindow,
     Screening,
@@ -239,6 +240,13 @@ def ack_event(event_id: int, by: str, note: str | None) -> Call[Event]:
 def screening(rail_id: str, depth: int) -> Call[Screening]:
     params: Params = [("depth", str(depth))]
     return Call("GET", rail_path(rail_id, "/screening"), model(Screening), params=params)
+
+
+def ratings(rail_id: str, durations_s: Sequence[float], pairs: bool) -> Call[Ratings]:
+    params: Params = [("duration_s", str(finite(d, "durations_s"))) for d in durations_s]
+    if pairs:
+        params.append(("pairs", "true"))
+    return Call("GET", rail_path(rail_id, "/ratings"), model(Ratings), params=params)
 
 
 def forecast(

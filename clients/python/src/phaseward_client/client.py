@@ -20,6 +20,7 @@ from phaseward_client.models import (
     IngestResult,
     Rail,
     RailStatus,
+    Ratings,
     Reliability,
     SampleWindow,
     Screening,
@@ -189,6 +190,14 @@ class Client:
     def screening(self, rail_id: str, *, depth: int = 1) -> Screening:
         """Every single (depth 1) or pair (depth 2) of further phase losses, weakest first."""
         return self._run(_calls.screening(rail_id, depth))
+
+    def ratings(
+        self, rail_id: str, *, durations_s: Sequence[float] = (), pairs: bool = False
+    ) -> Ratings:
+        """Time-limited ratings from the present state: the highest constant load for each
+        duration (default 1 min, 10 min, 1 h; indefinitely always last) for the rail as it
+        is and after every further loss (and pair, with ``pairs``)."""
+        return self._run(_calls.ratings(rail_id, durations_s, pairs))
 
     def forecast(
         self,

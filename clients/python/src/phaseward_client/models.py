@@ -339,6 +339,37 @@ class Forecast(Model):
 
 
 @dataclass(frozen=True)
+class Rating(Model):
+    """The highest constant load for ``duration_s`` (None: indefinitely); ``binding`` is
+    ``rating``, ``trip_current``, ``warning_line`` or ``none``."""
+
+    duration_s: float | None
+    rating_a: float
+    headroom_a: float
+    binding: str
+    binding_phase: int | None
+
+
+@dataclass(frozen=True)
+class RatingCase(Model):
+    lose_phases: list[int]
+    ratings: list[Rating]
+
+
+@dataclass(frozen=True)
+class Ratings(Model):
+    """Time-limited ratings: the rail as it is (``cases[0]``) and after each further loss."""
+
+    rail_id: str
+    version: int
+    start_s: float | None
+    load_a: float
+    durations_s: list[float | None]
+    cases: list[RatingCase]
+    caution: str
+
+
+@dataclass(frozen=True)
 class MissionCase(Model):
     phases_needed: int
     survival_probability: float

@@ -7,12 +7,14 @@ from typing import Annotated
 import numpy as np
 import numpy.typing as npt
 from fastapi import APIRouter, Query
+from pydantic import Field
 
 from phaseward.api.auth import Operator, RailOperator
 from phaseward.api.deps import ReadSessionDep, SessionsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RailId
 from phaseward.api.schemas.analyses import (
+    MAX_HORIZON_S,
     BreakerIn,
     BreakerOut,
     CalibrationIn,
@@ -20,6 +22,7 @@ from phaseward.api.schemas.analyses import (
     ForecastIn,
     ForecastOut,
     LoadProfile,
+    RatingsOut,
     ReliabilityOut,
     ScreeningOut,
 )
@@ -27,6 +30,7 @@ from phaseward.errors import Forbidden, InvalidInput
 from phaseward.monitor import breaker_check, calibrations
 from phaseward.monitor.forecast import Drop, Profile, forecast
 from phaseward.monitor.live import live_rail
+from phaseward.monitor.ratings import DEFAULT_DURATIONS_S, ratings
 from phaseward.monitor.reliability import mission
 from phaseward.monitor.screening import screen
 
@@ -90,6 +94,30 @@ def post_forecast(
         horizon_s=body.horizon_s, points=body.points,
     )  # fmt: skip
     return ForecastOut.model_validate(
+        {"rail_id": rail_id, "version": live.model.version, "start_s": live.t_s, **result}
+    )
+
+
+@router.get("/{rail_id}/ratings")
+def get_ratings(
+    rail_id: RailId,
+    session: ReadSessionDep,
+    _: RailOperator,
+    duration_s: Annotated[
+        list[Annotated[float, Field(gt=0, le=MAX_HORIZON_S * 30)]] | None,
+        Query(
+            max_length=12,
+            description="durations in s (repeat the parameter); default 60, 600 and 3600; "
+            "indefinitely is always added",
+        ),
+    ] = None,
+    pairs: Annotated[bool, Query(description="also every pair of further losses")] = False,
+) -> RatingsOut:
+    """Time-limited ratings from the present estimated state: for the rail as it is and for
+    every further loss, the highest constant load it carries for each duration."""
+    live = live_rail(session, rail_id)
+    result = ratings(live, durations_s=duration_s or DEFAULT_DURATIONS_S, pairs=pairs)
+    return RatingsOut.model_validate(
         {"rail_id": rail_id, "version": live.model.version, "start_s": live.t_s, **result}
     )
 

@@ -37,6 +37,35 @@ class ScreeningOut(BaseModel):
     caution: str = CAUTION
 
 
+class Rating(BaseModel):
+    duration_s: float | None = Field(description="None: indefinitely (steady state included)")
+    rating_a: float = Field(
+        description="highest constant rail current for the duration with no junction past its "
+        "warning line and no phase past its current rating or trip current"
+    )
+    headroom_a: float = Field(description="rating minus the present load")
+    binding: Literal["rating", "trip_current", "warning_line", "none"] = Field(
+        description="what binds: a phase's current rating or trip current, or a junction's "
+        "warning line (limit minus margin); none: no phase left"
+    )
+    binding_phase: int | None
+
+
+class RatingCase(BaseModel):
+    lose_phases: list[int] = Field(description="further losses now; empty: the rail as it is")
+    ratings: list[Rating] = Field(description="one per duration, in the order of durations_s")
+
+
+class RatingsOut(BaseModel):
+    rail_id: str
+    version: int
+    start_s: float | None = Field(description="time of the state the ratings start from")
+    load_a: float = Field(description="the present load")
+    durations_s: list[float | None] = Field(description="ascending; None: indefinitely")
+    cases: list[RatingCase] = Field(description="the rail as it is first, then each loss")
+    caution: str = CAUTION
+
+
 class LoadPoint(Contract):
     at_s: NonNegative
     current_a: NonNegative

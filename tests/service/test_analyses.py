@@ -173,7 +173,7 @@ async def test_ratings_table(client: httpx.AsyncClient, rail: str) -> None:
     assert single[0]["headroom_a"] == pytest.approx(90.0 - table["load_a"])
     status = (await client.get(f"{rail}/status")).json()
     assert whole[-1]["rating_a"] <= status["capacity"]["capacity_a"] * (1 + 1e-5)
-    pairs = (await client.get(f"{rail}/ratings", params={"pairs": True, "duration_s": [30, 5]}))
+    pairs = await client.get(f"{rail}/ratings", params={"pairs": True, "duration_s": [30, 5]})
     body = pairs.json()
     assert body["durations_s"] == [5.0, 30.0, None]
     assert len(body["cases"]) == 1 + 4 + 6

@@ -814,13 +814,16 @@ def time_to_limit_batch_s(
     time = np.where(touched[:, 0], 0.0, first_touch)
     rows = np.flatnonzero(~touched[:, 0] & above.any(axis=1))
     past = time.copy()  # a time at which the crossing phase is at or past its line
+    # Evaluated alone a grid point may round to the other side of the line: such a crossing is
+    # taken at the bracket's early end (lo) or, past it only by rounding, at its late end.
+    lo, hi = grid[rows, first[rows] - 1], grid[rows, first[rows]]
+    f_lo, f_hi = excess(rows, lo[:, None])[:, 0], excess(rows, hi[:, None])[:, 0]
+    time[rows] = np.where(f_lo > 0.0, lo, np.where(f_hi <= 0.0, hi, time[rows]))
+    past[rows] = np.where(f_lo > 0.0, lo, hi)
+    clean = (f_lo <= 0.0) & (f_hi > 0.0)
+    rows, lo, hi = rows[clean], lo[clean], hi[clean]
     if rows.size:
-        root, late = bracketed_root(
-            lambda t: excess(rows, t[:, None])[:, 0],
-            grid[rows, first[rows] - 1],
-            grid[rows, first[rows]],
-            rtol=1e-12,
-        )
+        root, late = bracketed_root(lambda t: excess(rows, t[:, None])[:, 0], lo, hi, rtol=1e-12)
         early = root < time[rows]
         past[rows] = np.where(early, late, time[rows])
         time[rows] = np.where(early, root, time[rows])

@@ -100,7 +100,8 @@ def status(args: argparse.Namespace) -> int:
         out.print(
             f"load {_n(s.load_a)} A, capacity {_n(cap.capacity_a)} A ({cap.binding}), "
             f"headroom {_n(cap.headroom_a)} A; hottest junction {_n(th.hottest_temp_c)} degC, "
-            f"margin {_n(th.margin_k)} K"
+            f"margin to its limit {_n(th.margin_to_limit_k)} K, "
+            f"to its warning line {_n(th.margin_to_warning_k)} K"
         )
     table = Table("phase", "condition", "current A", "sensor degC", "junction degC", "share")
     junctions = th.estimated_junction_c if th is not None else []
@@ -145,12 +146,12 @@ def screening(args: argparse.Namespace) -> int:
     verdict = "secure" if s.secure else "NOT secure"
     out.print(f"[bold]{s.rail_id}[/bold] at {_n(s.load_a)} A: N-{s.depth} {verdict}")
     table = Table(
-        "lose", "capacity A", "headroom A", "binding", "steady hottest degC", "limit in s"
+        "lose", "capacity A", "headroom A", "bound by", "steady hottest degC", "warning in s"
     )
     for c in s.cases:
         table.add_row(
             ",".join(map(str, c.lose_phases)), _n(c.capacity_a), _n(c.headroom_a), c.binding,
-            _n(c.steady_hottest_c), _n(c.time_to_limit_s, 0),
+            _n(c.steady_hottest_c), _n(c.time_to_warning_s, 0),
         )  # fmt: skip
     out.print(table)
     out.print(f"[dim]{s.caution}[/dim]")

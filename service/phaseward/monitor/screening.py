@@ -27,8 +27,8 @@ class Screening:
     binding: npt.NDArray[np.str_]
     steady_hottest_c: F64  # NaN: no steady state (thermal runaway)
     runaway: npt.NDArray[np.bool_]
-    time_to_limit_s: F64  # inf: not within the horizon
-    limit_phase: npt.NDArray[np.intp]
+    time_to_warning_s: F64  # inf: not within the horizon
+    warning_phase: npt.NDArray[np.intp]
 
     @property
     def headroom_a(self) -> F64:
@@ -37,7 +37,7 @@ class Screening:
     @property
     def secure(self) -> bool:
         """No case overloads: capacity covers the load and no limit is forecast."""
-        failing = (self.headroom_a < 0) | self.runaway | np.isfinite(self.time_to_limit_s)
+        failing = (self.headroom_a < 0) | self.runaway | np.isfinite(self.time_to_warning_s)
         return bool(self.lost.shape[0] > 0 and not failing.any())
 
     def rows(self) -> list[dict[str, Any]]:
@@ -51,12 +51,12 @@ class Screening:
                 "binding": str(self.binding[j]),
                 "steady_hottest_c": _finite_or_none(self.steady_hottest_c[j]),
                 "runaway": bool(self.runaway[j]),
-                "time_to_limit_s": _finite_or_none(self.time_to_limit_s[j]),
-                "limit_phase": int(self.limit_phase[j]) if self.limit_phase[j] >= 0 else None,
+                "time_to_warning_s": _finite_or_none(self.time_to_warning_s[j]),
+                "warning_phase": int(self.warning_phase[j]) if self.warning_phase[j] >= 0 else None,
                 "overloads": bool(
                     self.headroom_a[j] < 0
                     or self.runaway[j]
-                    or np.isfinite(self.time_to_limit_s[j])
+                    or np.isfinite(self.time_to_warning_s[j])
                 ),
             }
             for j in order
@@ -89,12 +89,13 @@ def screen(
         return Screening(
             depth=depth, load_a=float(load_a), lost=lost, capacity_a=none,
             binding_phase=none.astype(np.intp), binding=none.astype(np.str_),
-            steady_hottest_c=none, runaway=none.astype(bool), time_to_limit_s=none,
-            limit_phase=none.astype(np.intp),
+            steady_hottest_c=none, runaway=none.astype(bool), time_to_warning_s=none,
+            warning_phase=none.astype(np.intp),
         )  # fmt: skip
     cap = remaining_capacity(
         model.network, model.losses, active=masks, weights=weights,
-        rated_current_a=model.rated_current_a, temp_limit_c=model.temp_limit_c,
+        rated_current_a=model.rated_current_a, trip_current_a=model.overcurrent_limit_a,
+        temp_limit_c=model.temp_limit_c,
         ambient_c=ambient_c,
     )  # fmt: skip
     share = np.where(masks, weights, 0.0)
@@ -119,6 +120,6 @@ def screen(
         binding=cap.binding_kind,
         steady_hottest_c=np.where(np.isfinite(hottest), hottest, np.nan),
         runaway=runaway | crossing.runaway,
-        time_to_limit_s=crossing.time_s,
-        limit_phase=crossing.phase,
+        time_to_warning_s=crossing.time_s,
+        warning_phase=crossing.phase,
     )

@@ -37,9 +37,11 @@ StrArray = npt.NDArray[np.str_]
 class CapacityResult:
     """Per case (n_cases,): capacity in A, the binding phase (-1 if none) and what binds.
 
-    binding_kind: "current" (a phase reaches its rating), "thermal" (a junction reaches its
-    limit), or "none" (no active phase: capacity 0). junction_c_at_capacity: (n_cases,
-    n_phases) steady-state junction temperatures in degC at the capacity, NaN for lost phases.
+    binding_kind: "rating" (a phase reaches its current rating), "trip_current" (its trip
+    current, where that is below the rating), "warning_line" (a junction reaches the line the
+    caller passes, the warning line), or "none" (no active phase: capacity 0).
+    junction_c_at_capacity: (n_cases, n_phases) steady-state junction temperatures in degC at
+    the capacity, NaN for lost phases.
     """
 
     capacity_a: FloatArray
@@ -57,12 +59,14 @@ def remaining_capacity(
     rated_current_a: npt.ArrayLike,
     temp_limit_c: npt.ArrayLike,
     ambient_c: float,
+    trip_current_a: npt.ArrayLike | None = None,
     rtol: float = 1e-6,
 ) -> CapacityResult:
     """Remaining capacity of every case (an active-phase mask) in one call.
 
     active: (n_cases, n_phases) bool; weights: (n_cases, n_phases) or (n_phases,) >= 0 (only
     their ratios over the active phases matter); rated_current_a: (n_phases,) > 0 in A;
+    trip_current_a: (n_phases,) > 0 in A, default: no trip below the rating;
     temp_limit_c: (n_phases,) junction limit minus margin in degC; ambient_c in degC.
 
     >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
@@ -76,7 +80,7 @@ def remaining_capacity(
     >>> res = remaining_capacity(net, params, active=active, weights=np.ones(4),
     ...     rated_current_a=np.full(4, 40.0), temp_limit_c=np.full(4, 56.0), ambient_c=25.0)
     >>> np.round(res.capacity_a, 2), res.binding_kind.tolist()  # identical phases: any binds
-    (array([158.45, 120.  ]), ['thermal', 'current'])
+    (array([158.45, 120.  ]), ['warning_line', 'rating'])
     >>> np.round(res.junction_c_at_capacity[1], 2)  # the board runs cooler with one phase out
     array([ nan, 55.2, 55.2, 55.2])
     """
@@ -92,6 +96,9 @@ def remaining_capacity(
     rated = _per_phase("rated_current_a", rated_current_a, n)
     if not np.all(rated > 0.0):
         raise ValueError("rated_current_a must be > 0")
+    trip = rated if trip_current_a is None else _per_phase("trip_current_a", trip_current_a, n)
+    if not np.all(trip > 0.0):
+        raise ValueError("trip_current_a must be > 0")
     limit = _per_phase("temp_limit_c", temp_limit_c, n)
     ambient = float(_per_phase("ambient_c", ambient_c, n, ndim=(0,)))
     if not 0.0 < rtol < 1.0:
@@ -117,21 +124,23 @@ def remaining_capacity(
     every = np.arange(n_cases)
     some = act.any(axis=1)
     with np.errstate(divide="ignore"):
-        per_phase_limit = np.where(share > 0.0, rated / share, np.inf)
+        per_phase_limit = np.where(share > 0.0, np.minimum(rated, trip) / share, np.inf)
     current_limit = np.where(some, per_phase_limit.min(axis=1), 0.0)
     current_phase = np.argmin(per_phase_limit, axis=1)
+    current_kind = np.where(rated <= trip, "rating", "trip_current")[current_phase]
     cold = excess(every, np.zeros(n_cases)) > 0.0
     at_rating = excess(every, current_limit) <= 0.0
-    kind = np.where(~some, "none", np.where(at_rating & ~cold, "current", "thermal"))
-    capacity = np.where(kind == "current", current_limit, 0.0)
-    rows = np.flatnonzero((kind == "thermal") & ~cold)
+    kind = np.where(~some, "none", np.where(at_rating & ~cold, current_kind, "warning_line"))
+    by_current = (kind == "rating") | (kind == "trip_current")
+    capacity = np.where(by_current, current_limit, 0.0)
+    rows = np.flatnonzero((kind == "warning_line") & ~cold)
     if rows.size:
         capacity[rows], _ = bracketed_root(
             lambda i: excess(rows, i), np.zeros(rows.size), current_limit[rows], rtol=rtol
         )
     temps = np.where(act, junction_c(every, capacity), np.nan)
     hottest = np.argmax(np.where(act, temps - limit, -np.inf), axis=1)
-    phase = np.where(kind == "current", current_phase, np.where(kind == "thermal", hottest, -1))
+    phase = np.where(by_current, current_phase, np.where(kind == "warning_line", hottest, -1))
     return CapacityResult(
         capacity_a=capacity,
         binding_phase=phase.astype(np.intp),
@@ -190,8 +199,8 @@ def time_limited_ratings(
     ...     weights=np.ones(4), rated_current_a=np.full(4, 60.0),
     ...     trip_current_a=np.full(4, 70.0), warning_c=np.full(4, 56.0),
     ...     initial_c=np.full(9, 25.0), ambient_c=25.0, duration_s=[1.0, 10.0, np.inf])
-    >>> np.round(table.rating_a, 1)  # from cold, 1 s: the current rating binds
-    array([[240. , 212. , 158.5]])
+    >>> np.round(table.rating_a)  # from cold, 1 s: the current rating binds
+    array([[240., 212., 158.]])
     >>> table.binding_kind.tolist()
     [['rating', 'warning_line', 'warning_line']]
     """
@@ -235,6 +244,13 @@ def time_limited_ratings(
     kind = np.where(~some[case], "none", np.where(fits & ~cold, current_kind, "warning_line"))
     rating = np.where(fits & ~cold, current_limit, 0.0)
     rows = np.flatnonzero(some[case] & ~fits & ~cold)
+    # Re-evaluated on the subset, an end may round to the other side: then it is the answer
+    # (no load when the cold end is past the line, which is the safe side).
+    cold_again = excess(rows, np.zeros(rows.size)) > 0.0
+    fits_again = excess(rows, current_limit[rows]) <= 0.0
+    rating[rows] = np.where(fits_again & ~cold_again, current_limit[rows], 0.0)
+    kind[rows] = np.where(fits_again & ~cold_again, current_kind[rows], kind[rows])
+    rows = rows[~cold_again & ~fits_again]
     if rows.size:  # in I^2, where the loss, and so the excess, is nearly linear
         low, _ = bracketed_root(
             lambda x: excess(rows, np.sqrt(x)), np.zeros(rows.size), current_limit[rows] ** 2,

@@ -168,6 +168,8 @@ class LastSample(Model):
 
 @dataclass(frozen=True)
 class CapacityStatus(Model):
+    """``binding``: ``rating``, ``trip_current``, ``warning_line`` or ``none``."""
+
     capacity_a: float
     binding_phase: int | None
     binding: str
@@ -179,11 +181,11 @@ class CapacityStatus(Model):
 class ThermalStatus(Model):
     hottest_phase: int | None
     hottest_temp_c: float | None
-    margin_k: float | None
+    margin_to_limit_k: float | None
     margin_to_warning_k: float | None
     steady_junction_c: list[float | None]
-    time_to_limit_s: float | None
-    limit_phase: int | None
+    time_to_warning_s: float | None
+    warning_phase: int | None
     runaway: bool
     estimated_junction_c: list[float]
     junction_std_k: list[float]
@@ -199,8 +201,8 @@ class ScreeningCase(Model):
     binding: str
     steady_hottest_c: float | None
     runaway: bool
-    time_to_limit_s: float | None
-    limit_phase: int | None
+    time_to_warning_s: float | None
+    warning_phase: int | None
     overloads: bool
 
 

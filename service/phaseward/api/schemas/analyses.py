@@ -18,11 +18,14 @@ class ScreeningCase(BaseModel):
     capacity_a: float
     headroom_a: float = Field(description="capacity minus the present load")
     binding_phase: int | None
-    binding: str
+    binding: str = Field(description="rating, trip_current, warning_line or none")
     steady_hottest_c: float | None = Field(description="None: no steady state (runaway)")
     runaway: bool
-    time_to_limit_s: float | None = Field(description="None: not within the forecast horizon")
-    limit_phase: int | None
+    time_to_warning_s: float | None = Field(
+        description="first time a junction reaches its warning line; None: not within the "
+        "forecast horizon"
+    )
+    warning_phase: int | None
     overloads: bool
 
 

@@ -421,9 +421,9 @@ function renderCapacity(st) {
     replaceKeepingFocus(body, h('p', { class: 'empty' }, `No telemetry yet. The rail must deliver ${fmt.amps(st.rated_load_a)}.`));
     return;
   }
-  const by = cap.binding === 'current'
-    ? `phase ${cap.binding_phase}'s current rating`
-    : cap.binding === 'thermal' ? `phase ${cap.binding_phase}'s junction temperature` : 'nothing (no active phase)';
+  const by = cap.binding === 'rating' ? `phase ${cap.binding_phase}'s current rating`
+    : cap.binding === 'trip_current' ? `phase ${cap.binding_phase}'s trip current`
+      : cap.binding === 'warning_line' ? `phase ${cap.binding_phase}'s junction warning line` : 'nothing (no active phase)';
   const short = cap.headroom_a < 0;
   replaceKeepingFocus(body,
     h('div', { class: 'chart-box' }, capacityChart({ capacity: cap.capacity_a, load: st.load_a, rated: st.rated_load_a })),
@@ -450,10 +450,10 @@ function renderThermal(st, spec) {
   replaceKeepingFocus(body,
     h('dl', { class: 'facts' },
       fact('Hottest junction', hot == null ? fmt.dash : h('span', { class: `lvl-text lvl-${lvl}` }, `${fmt.celsius(th.hottest_temp_c)}, phase ${hot}`)),
-      fact('Margin to its limit', fmt.kelvin(th.margin_k)),
+      fact('Margin to its limit', fmt.kelvin(th.margin_to_limit_k)),
       fact('Margin to warning line', h('span', { class: th.margin_to_warning_k != null && th.margin_to_warning_k < 0 ? 'neg' : '' }, fmt.kelvin(th.margin_to_warning_k))),
       fact('Reaches warning line', th.runaway ? 'thermal runaway: no steady state'
-        : th.time_to_limit_s == null ? 'not within the watch horizon' : `in ${fmt.duration(th.time_to_limit_s)} (phase ${th.limit_phase})`),
+        : th.time_to_warning_s == null ? 'not within the watch horizon' : `in ${fmt.duration(th.time_to_warning_s)} (phase ${th.warning_phase})`),
       fact('Board', fmt.celsius(th.board_c))));
 }
 
@@ -583,9 +583,9 @@ function renderScreening() {
     h('th', { scope: 'row' }, `phase${c.lose_phases.length > 1 ? 's' : ''} ${c.lose_phases.join(' + ')}`),
     h('td', { class: 'num' }, fmt.amps(c.capacity_a)),
     h('td', { class: `num${c.headroom_a < 0 ? ' neg' : ''}` }, fmt.amps(c.headroom_a)),
-    h('td', { class: 'nowrap' }, c.binding === 'current' ? `phase ${c.binding_phase} current` : c.binding === 'thermal' ? `phase ${c.binding_phase} junction` : fmt.dash),
+    h('td', { class: 'nowrap' }, c.binding === 'none' ? fmt.dash : `phase ${c.binding_phase} ${BINDS[c.binding] ?? c.binding}`),
     h('td', { class: 'num' }, c.runaway ? 'runaway' : fmt.celsius(c.steady_hottest_c)),
-    h('td', { class: 'num' }, c.time_to_limit_s == null ? 'not within horizon' : `${fmt.duration(c.time_to_limit_s)} (phase ${c.limit_phase})`),
+    h('td', { class: 'num' }, c.time_to_warning_s == null ? 'not within horizon' : `${fmt.duration(c.time_to_warning_s)} (phase ${c.warning_phase})`),
     h('td', {}, c.overloads ? tag('overloads', 'overloads') : tag('carries', 'carries the load'))));
   replaceKeepingFocus(body, controls, verdict,
     tableBox('Screening cases', h('table', { class: 'screening' },

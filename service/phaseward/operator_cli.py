@@ -146,12 +146,18 @@ def screening(args: argparse.Namespace) -> int:
     verdict = "secure" if s.secure else "NOT secure"
     out.print(f"[bold]{s.rail_id}[/bold] at {_n(s.load_a)} A: N-{s.depth} {verdict}")
     table = Table(
-        "lose", "capacity A", "headroom A", "bound by", "steady hottest degC", "warning in s"
+        "lose",
+        "capacity A",
+        "headroom A",
+        "bound by",
+        "steady hottest degC",
+        "warning in s",
+        "then",
     )
     for c in s.cases:
         table.add_row(
             ",".join(map(str, c.lose_phases)), _n(c.capacity_a), _n(c.headroom_a), c.binding,
-            _n(c.steady_hottest_c), _n(c.time_to_warning_s, 0),
+            _n(c.steady_hottest_c), _n(c.time_to_warning_s, 0), _then(c.cascade, c.down_at_s),
         )  # fmt: skip
     out.print(table)
     out.print(f"[dim]{s.caution}[/dim]")
@@ -194,6 +200,17 @@ _CAUSES = {
     "trip_current": "trips on current",
     "junction_limit": "shuts down at its junction limit",
 }
+
+
+def _then(steps: list[Any], down_at_s: float | None) -> str:
+    """A loss case's cascade in words: "trips 2 at 0 s, 3 at 41 s; down at 41 s"."""
+    words = [
+        f"{'trips' if s.cause == 'trip_current' else 'overheats'} {s.phase} at {s.at_s:.0f} s"
+        for s in steps
+    ]
+    if down_at_s is not None:
+        words.append(f"down at {down_at_s:.0f} s")
+    return "; ".join(words) or "holds"
 
 
 def forecast(args: argparse.Namespace) -> int:

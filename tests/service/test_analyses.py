@@ -190,3 +190,30 @@ async def test_ratings_bad_input(
     answer = await client.get(f"{rail}/ratings", params=params)
     assert answer.status_code == 422, answer.text
     assert answer.json()["field"] == field
+
+
+async def test_screening_shows_each_loss_cascade(client: httpx.AsyncClient, rail: str) -> None:
+    # 36 A per phase: one loss leaves 48 A per survivor, past the 40 A trip: all trip at once.
+    await feed(client, rail, 36.0)
+    heavy = (await client.get(f"{rail}/screening")).json()
+    for case in heavy["cases"]:
+        assert case["down_at_s"] == 0.0
+        assert [s["cause"] for s in case["cascade"]] == ["trip_current"] * 3
+        assert sorted(s["phase"] for s in case["cascade"]) == sorted(
+            set(range(4)) - set(case["lose_phases"])
+        )
+        assert case["overloads"] is True
+    assert heavy["secure"] is False
+
+
+async def test_screening_cascade_after_a_while(client: httpx.AsyncClient, rail: str) -> None:
+    # 28 A per phase at 85 degC ambient: a loss leaves 37.3 A per survivor (below the trip);
+    # a junction reaches its limit after a while, and then the rest go on current.
+    hot = [sample(k, [28.0] * 4, temps=110.0, ambient_c=85.0) for k in range(3)]
+    assert (await client.post(f"{rail}/samples", json=hot)).status_code == 200
+    cases = (await client.get(f"{rail}/screening")).json()["cases"]
+    first = cases[0]["cascade"]
+    assert first[0]["cause"] == "junction_limit"
+    assert first[0]["at_s"] > 0.0
+    assert all(s["cause"] == "trip_current" for s in first[1:])
+    assert cases[0]["down_at_s"] == pytest.approx(first[-1]["at_s"])

@@ -8,9 +8,10 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from phaseward.monitor.forecast import share_a, shed
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.physics.capacity import loss_cases, remaining_capacity
-from phaseward.physics.thermal import steady_state_c, time_to_limit_batch_s
+from phaseward.physics.thermal import propagate_c, steady_state_c, time_to_limit_batch_s
 
 F64 = npt.NDArray[np.float64]
 
@@ -123,3 +124,74 @@ def screen(
         time_to_warning_s=crossing.time_s,
         warning_phase=crossing.phase,
     )
+
+
+def cascades(
+    model: RailModel,
+    *,
+    lost: npt.NDArray[np.intp],
+    active: npt.NDArray[np.bool_],
+    weights: F64,
+    load_a: float,
+    nodes_c: F64,
+    ambient_c: float,
+) -> list[dict[str, Any]]:
+    """What each loss case sets off at the present load within the forecast horizon: the
+    current-trip cascade at once (:func:`~phaseward.monitor.forecast.shed`), then a phase
+    whose junction reaches its limit drops at that moment and the rest re-share, round by
+    round for all cases together. Per case: the steps (time, phase, cause) and when the
+    rail is down (None: it holds)."""
+    n_cases = lost.shape[0]
+    alive = np.repeat(active[None, :], n_cases, axis=0)
+    alive[np.arange(n_cases)[:, None], lost] = False
+    horizon = model.rules.forecast_horizon_s
+    state = np.repeat(np.asarray(nodes_c, dtype=np.float64)[None, :], n_cases, axis=0)
+    at = np.zeros(n_cases)
+    going = np.ones(n_cases, dtype=bool)
+    steps: list[list[dict[str, Any]]] = [[] for _ in range(n_cases)]
+    load = np.full(n_cases, float(load_a))
+    for _ in range(model.n_phases + 1):
+        before = alive
+        alive, rounds = shed(load, alive, weights, model.overcurrent_limit_a)
+        for over in rounds:
+            amps = share_a(load, before, weights)
+            for c, p in np.argwhere(over & going[:, None]):
+                steps[c].append(
+                    {"at_s": float(at[c]), "phase": int(p), "cause": "trip_current",
+                     "current_a": float(amps[c, p])}
+                )  # fmt: skip
+            before = before & ~over
+        going &= alive.any(axis=1)
+        if not going.any():
+            break
+        rows = np.flatnonzero(going)
+        p0, slope = phase_power(model, share_a(load[rows], alive[rows], weights), alive[rows])
+        hit = time_to_limit_batch_s(
+            model.network, state[rows], p0, slope, ambient_c,
+            np.where(alive[rows], model.junction_limit_c, np.inf),
+            horizon_s=np.maximum(horizon - at[rows], 1e-9),
+        )  # fmt: skip
+        more = np.isfinite(hit.time_s)
+        going[rows[~more]] = False
+        if not more.any():
+            break
+        rows, p0, slope, dt = rows[more], p0[more], slope[more], hit.time_s[more]
+        state[rows] = propagate_c(model.network, state[rows], p0, slope, ambient_c, dt[:, None])[
+            :, 0
+        ]
+        at[rows] += dt
+        for c, p in zip(rows.tolist(), hit.phase[more].tolist(), strict=True):
+            alive[c, p] = False
+            steps[c].append(
+                {
+                    "at_s": float(at[c]),
+                    "phase": int(p),
+                    "cause": "junction_limit",
+                    "current_a": None,
+                }
+            )
+    down = np.asarray(~alive.any(axis=1), dtype=bool)
+    return [
+        {"cascade": steps[c], "down_at_s": float(at[c]) if down[c] else None}
+        for c in range(n_cases)
+    ]

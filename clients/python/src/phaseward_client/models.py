@@ -204,6 +204,8 @@ class ScreeningCase(Model):
     time_to_warning_s: float | None
     warning_phase: int | None
     overloads: bool
+    cascade: list[CascadeStep] = field(default_factory=list)  # screening only
+    down_at_s: float | None = None
 
 
 @dataclass(frozen=True)

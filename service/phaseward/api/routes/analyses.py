@@ -32,7 +32,7 @@ from phaseward.monitor.forecast import Drop, Profile, forecast
 from phaseward.monitor.live import live_rail
 from phaseward.monitor.ratings import DEFAULT_DURATIONS_S, ratings
 from phaseward.monitor.reliability import mission
-from phaseward.monitor.screening import screen
+from phaseward.monitor.screening import cascades, screen
 
 router = APIRouter(prefix="/v1/rails", tags=["analyses"], responses=ERROR_RESPONSES)
 F64 = npt.NDArray[np.float64]
@@ -50,7 +50,12 @@ def get_screening(
         live.model, active=live.active, weights=live.weights, load_a=live.load_a,
         nodes_c=live.nodes_c, ambient_c=live.ambient_c, depth=depth,
     )  # fmt: skip
-    rows = result.rows()
+    views = cascades(
+        live.model, lost=result.lost, active=live.active, weights=live.weights,
+        load_a=live.load_a, nodes_c=live.nodes_c, ambient_c=live.ambient_c,
+    )  # fmt: skip
+    by_loss = {tuple(result.lost[j].tolist()): v for j, v in enumerate(views)}
+    rows = [r | by_loss[tuple(r["lose_phases"])] for r in result.rows()]
     return ScreeningOut.model_validate(
         {
             "rail_id": rail_id,

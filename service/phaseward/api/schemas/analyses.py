@@ -13,6 +13,16 @@ from phaseward.api.schemas.rails import FosterStage as FosterStageIn
 MAX_HORIZON_S = 24 * 3600.0
 
 
+class CascadeStep(BaseModel):
+    at_s: float
+    phase: int
+    cause: Literal["requested", "trip_current", "junction_limit"] = Field(
+        description="requested drop; its current above its trip current; its junction at its "
+        "limit (over-temperature shutdown)"
+    )
+    current_a: float | None = Field(description="the phase's current when it tripped")
+
+
 class ScreeningCase(BaseModel):
     lose_phases: list[int]
     capacity_a: float
@@ -27,6 +37,14 @@ class ScreeningCase(BaseModel):
     )
     warning_phase: int | None
     overloads: bool
+    cascade: list[CascadeStep] = Field(
+        default_factory=list,
+        description="what the loss sets off at the present load within the forecast horizon: "
+        "trips on current at once, shutdowns at the junction limit later (screening only)",
+    )
+    down_at_s: float | None = Field(
+        default=None, description="when the cascade leaves no phase (None: the rail holds)"
+    )
 
 
 class ScreeningOut(BaseModel):
@@ -115,16 +133,6 @@ class Peak(BaseModel):
     time_s: float
     phase: int
     temp_c: float
-
-
-class CascadeStep(BaseModel):
-    at_s: float
-    phase: int
-    cause: Literal["requested", "trip_current", "junction_limit"] = Field(
-        description="requested drop; its current above its trip current; its junction at its "
-        "limit (over-temperature shutdown)"
-    )
-    current_a: float | None = Field(description="the phase's current when it tripped")
 
 
 class Stretch(BaseModel):

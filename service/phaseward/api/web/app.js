@@ -558,6 +558,12 @@ function renderForecast() {
   }));
 }
 
+function cascadeText(c) {
+  const steps = (c.cascade || []).map((x) => `phase ${x.phase} ${x.cause === 'trip_current' ? 'trips' : 'overheats'} after ${fmt.duration(x.at_s)}`);
+  if (c.down_at_s != null) steps.push(`the rail is down after ${fmt.duration(c.down_at_s)}`);
+  return steps.length ? steps.join(', then ') : 'holds';
+}
+
 function renderScreening() {
   const d = state.detail;
   const body = $('sec-screening-body');
@@ -586,12 +592,13 @@ function renderScreening() {
     h('td', { class: 'nowrap' }, c.binding === 'none' ? fmt.dash : `phase ${c.binding_phase} ${BINDS[c.binding] ?? c.binding}`),
     h('td', { class: 'num' }, c.runaway ? 'runaway' : fmt.celsius(c.steady_hottest_c)),
     h('td', { class: 'num' }, c.time_to_warning_s == null ? 'not within horizon' : `${fmt.duration(c.time_to_warning_s)} (phase ${c.warning_phase})`),
+    h('td', {}, cascadeText(c)),
     h('td', {}, c.overloads ? tag('overloads', 'overloads') : tag('carries', 'carries the load'))));
   replaceKeepingFocus(body, controls, verdict,
     tableBox('Screening cases', h('table', { class: 'screening' },
       h('caption', { class: 'visually-hidden' }, 'N-1 screening cases, weakest first'),
       h('thead', {}, h('tr', {},
-        ...['Further loss', 'Capacity', 'Headroom', 'Limited by', 'Steady hottest junction', 'Reaches warning line', 'Verdict']
+        ...['Further loss', 'Capacity', 'Headroom', 'Limited by', 'Steady hottest junction', 'Reaches warning line', 'Then', 'Verdict']
           .map((x) => h('th', { scope: 'col' }, x)))),
       h('tbody', {}, rows))));
 }

@@ -206,3 +206,35 @@ def test_time_to_warning_does_not_depend_on_horizon() -> None:
     assert 1.0 < ref < 60.0
     assert max(answers) - min(answers) < 1e-9 * ref
     assert abs(answers[0] - ref) < 1e-6 * ref
+
+
+def test_a_ramp_errs_hot_and_stays_close() -> None:
+    """A linear ramp is held at the higher end of each of its pieces: against solve_ivp with the
+    load interpolated continuously, the forecast is never cooler and stays within 1 K."""
+    model = _model(rail_spec())
+    net = model.network
+    active = np.ones(4, dtype=bool)
+    weights = np.array([1.1, 0.9, 1.0, 1.0])
+    p0, s = phase_power(model, share_a(np.array(40.0), active, weights), active)
+    start = steady_state_c(net, p0, s, 45.0)
+    times, amps = np.array([0.0, 300.0, 400.0]), np.array([40.0, 110.0, 60.0])
+    ours = forecast(
+        model, active=active, weights=weights, nodes_c=start, ambient_c=45.0,
+        profile=Profile(times, amps, stepwise=False), drops=[], horizon_s=600.0, points=300,
+    )  # fmt: skip
+    a = net.conductance_w_per_k + np.diag(net.ambient_conductance_w_per_k)
+    j = net.junction_node
+
+    def rhs(t: float, x: np.ndarray) -> np.ndarray:
+        load = np.interp(t, times, amps)
+        q0, qs = phase_power(model, share_a(np.array(load), active, weights), active)
+        heat = net.ambient_conductance_w_per_k * 45.0 - a @ x
+        heat[j] += q0 + qs * x[j]
+        return heat / net.capacitance_j_per_k
+
+    t_rows = np.asarray(ours["time_s"])
+    ref = solve_ivp(rhs, (0.0, 600.0), start, method="Radau", rtol=1e-9, atol=1e-9,
+                    t_eval=t_rows, max_step=1.0).y.T[:, j]  # fmt: skip
+    diff = np.asarray(ours["junction_c"]) - ref
+    assert diff.min() > -1e-6  # never cooler
+    assert diff.max() < 1.0

@@ -35,7 +35,7 @@ from phaseward.physics.thermal import (
 
 F64 = npt.NDArray[np.float64]
 B = npt.NDArray[np.bool_]
-RAMP_PIECES = 32  # stretches per linear ramp of the profile (held at the higher end: hot)
+RAMP_PIECES = 256  # stretches per linear ramp of the profile (held at the higher end: hot)
 MAX_STRETCHES = 20_000  # ramps are cut more coarsely when a profile would exceed this
 VERDICTS = ("holds", "overloaded", "down")
 

@@ -727,6 +727,12 @@ class _Cases:
         return np.concatenate([np.zeros((self.lam.shape[0], 1)), inner, last[:, None]], axis=1)
 
 
+def _above(temps_c: FloatArray, line_c: FloatArray) -> FloatArray:
+    """temps - line, -inf for an ignored phase (line +inf) even where a runaway gave inf."""
+    with np.errstate(invalid="ignore"):
+        return np.asarray(np.where(np.isposinf(line_c), -np.inf, temps_c - line_c))
+
+
 def _cases(
     net: ThermalNetwork,
     initial_c: npt.ArrayLike,
@@ -802,7 +808,7 @@ def time_to_limit_batch_s(
     every = np.arange(n_cases)
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
-        return np.asarray(np.max(cases.at_c(rows, t) - limit[rows, None, :], axis=-1))
+        return np.asarray(np.max(_above(cases.at_c(rows, t), limit[rows, None, :]), axis=-1))
 
     grid = cases.grid(horizon)
     values = excess(every, grid)
@@ -831,7 +837,7 @@ def time_to_limit_batch_s(
     hit = np.isfinite(time)
     # The phase that is past its line at the late end of the bracket (the early end, which is
     # reported, may still be just short of it).
-    margin = cases.at_c(every, np.where(hit, past, 0.0)[:, None])[:, 0] - limit
+    margin = _above(cases.at_c(every, np.where(hit, past, 0.0)[:, None])[:, 0], limit)
     phase = np.where(hit, np.argmax(margin, axis=1), -1).astype(np.intp)
     return LimitCrossings(time_s=time, phase=phase, runaway=cases.lam[:, 0] <= 0.0)
 
@@ -888,7 +894,7 @@ def peak_batch(
     every = np.arange(n_cases)
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
-        return np.asarray(np.max(cases.at_c(rows, t) - offset[rows, None, :], axis=-1))
+        return np.asarray(np.max(_above(cases.at_c(rows, t), offset[rows, None, :]), axis=-1))
 
     # Every node warming at t = 0, dT/dt = Phi (u - lam z0) >= 0, keeps warming: dT/dt obeys
     # the same linear system, whose propagator exp(-C^-1 A t) is non-negative because A has
@@ -938,7 +944,7 @@ def peak_batch(
         better = v_mid > value[rows]
         value[rows] = np.where(better, v_mid, value[rows])
         time[rows] = np.where(better, t_mid, time[rows])
-    temps = cases.at_c(every, np.where(np.isfinite(time), time, 0.0)[:, None])[:, 0] - offset
+    temps = _above(cases.at_c(every, np.where(np.isfinite(time), time, 0.0)[:, None])[:, 0], offset)
     phase = np.where(np.isfinite(offset).any(axis=1), np.argmax(temps, axis=1), -1)
     return Peaks(value=value, time_s=time, phase=phase.astype(np.intp))
 

@@ -194,7 +194,10 @@ def capacity() -> Row:
     spread = np.max(np.abs(np.array(loop()) - batch.capacity_a))
     t_batch = median_time(lambda: run(active))
     t_loop = median_time(loop)
-    kinds = {k: int(np.sum(batch.binding_kind == k)) for k in ("current", "thermal", "none")}
+    kinds = {
+        k: int(np.sum(batch.binding_kind == k))
+        for k in ("rating", "trip_current", "warning_line", "none")
+    }
     print(f"capacity: {active.shape[0]} loss cases (12 single, 66 double), binding {kinds}")
     print(f"capacity: largest difference batch vs loop {spread:.2e} A")
     return Row(

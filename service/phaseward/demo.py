@@ -126,8 +126,8 @@ def run_scenario(base_url: str, *, pace_s: float, chunk: int = 5) -> bool:
         client.delete(f"/v1/rails/{RAIL_ID}")
         client.post("/v1/rails", json=DEMO_RAIL).raise_for_status()
         print(f"rail {RAIL_ID}: {DEMO_RAIL['name']}")
-        print(f"{'t':>5}  {'condition':<10} {'load A':>7} {'capacity A':>10} {'binding':<8} "
-              f"{'hottest C':>9} {'margin K':>8}")  # fmt: skip
+        print(f"{'t':>5}  {'condition':<10} {'load A':>7} {'capacity A':>10} {'bound by':<12} "
+              f"{'hottest C':>9} {'to limit K':>10}")  # fmt: skip
         seen_event = 0
         capacities: list[float] = []
         isolated = False
@@ -149,8 +149,8 @@ def run_scenario(base_url: str, *, pace_s: float, chunk: int = 5) -> bool:
             if line != last_line or fresh or k % 60 == 0:
                 print(
                     f"{k + chunk:>5}  {status['condition']:<10} {status['load_a']:>7.1f} "
-                    f"{cap['capacity_a']:>10.1f} {cap['binding']:<8} "
-                    f"{_shown(th['hottest_temp_c']):>9} {_shown(th['margin_k']):>8}"
+                    f"{cap['capacity_a']:>10.1f} {cap['binding']:<12} "
+                    f"{_shown(th['hottest_temp_c']):>9} {_shown(th['margin_to_limit_k']):>10}"
                 )
                 last_line = line
             if k <= T_FAULT + 10 < k + chunk:
@@ -176,14 +176,15 @@ def _show_analyses(client: httpx.Client) -> None:
     print(f"      N-1 screening at {screening['load_a']:.0f} A: {verdict}; weakest losses:")
     for case in screening["cases"][:2]:
         print(f"        lose phase {case['lose_phases'][0]}: capacity {case['capacity_a']:.1f} A, "
-              f"headroom {case['headroom_a']:.1f} A, binding {case['binding']}")  # fmt: skip
+              f"headroom {case['headroom_a']:.1f} A, bound by {case['binding']}")  # fmt: skip
     rated = DEMO_RAIL["load_a"]
     body = {"load": {"constant_a": rated}, "horizon_s": 3600, "points": 60}
     ahead = client.post(f"/v1/rails/{RAIL_ID}/forecast", json=body).json()
-    reach = ahead["time_to_limit_s"]
-    print(f"      forecast at the rated {rated:.0f} A for 1 h: peak {ahead['peak']['temp_c']:.1f} "
-          f"degC on phase {ahead['peak']['phase']}, margin {_shown(ahead['margin_k'])} K, "
-          f"limit {'not reached' if reach is None else f'reached in {reach:.0f} s'}")  # fmt: skip
+    reach = ahead["time_to_warning_s"]
+    print(f"      forecast at the rated {rated:.0f} A for 1 h: {ahead['verdict']}; peak "
+          f"{ahead['peak']['temp_c']:.1f} degC on phase {ahead['peak']['phase']}, margin to the "
+          f"warning line {_shown(ahead['margin_to_warning_k'])} K, warning line "
+          f"{'not reached' if reach is None else f'reached in {reach:.0f} s'}")  # fmt: skip
 
 
 def _shown(value: float | None) -> str:

@@ -1,5 +1,5 @@
 """Operator and firmware-developer commands of ``phaseward``, talking to a service through
-the Python client (``clients/python``): status, events, screening, forecast, rehearse,
+the Python client (``clients/python``): status, events, screening, forecast, ratings, rehearse,
 calibrate. Tables by default, ``--json`` for scripts."""
 
 from __future__ import annotations
@@ -133,7 +133,8 @@ def status(args: argparse.Namespace) -> int:
         out.print(
             f"load {_n(s.load_a)} A, capacity {_n(cap.capacity_a)} A ({cap.binding}), "
             f"headroom {_n(cap.headroom_a)} A; hottest junction {_n(th.hottest_temp_c)} degC, "
-            f"margin {_n(th.margin_k)} K"
+            f"margin to its limit {_n(th.margin_to_limit_k)} K, "
+            f"to its warning line {_n(th.margin_to_warning_k)} K"
         )
     if s.load_assumed_a is not None:
         out.print(f"the load assumes {_n(s.load_assumed_a)} A for phases without a reading")
@@ -244,16 +245,71 @@ def screening(args: argparse.Namespace) -> int:
     verdict = "secure" if s.secure else "NOT secure"
     out.print(f"[bold]{s.rail_id}[/bold] at {_n(s.load_a)} A: N-{s.depth} {verdict}")
     table = Table(
-        "lose", "capacity A", "headroom A", "binding", "steady hottest degC", "limit in s"
+        "lose",
+        "capacity A",
+        "headroom A",
+        "bound by",
+        "steady hottest degC",
+        "warning in s",
+        "then",
     )
     for c in s.cases:
         table.add_row(
             ",".join(map(str, c.lose_phases)), _n(c.capacity_a), _n(c.headroom_a), c.binding,
-            _n(c.steady_hottest_c), _n(c.time_to_limit_s, 0),
+            _n(c.steady_hottest_c), _n(c.time_to_warning_s, 0), _then(c.cascade, c.down_at_s),
         )  # fmt: skip
     out.print(table)
     out.print(f"[dim]{s.caution}[/dim]")
     return 0
+
+
+def ratings(args: argparse.Namespace) -> int:
+    durations = [m * 60.0 for m in args.minutes or ()]
+    with connected(args.url, embedded=False) as client, err.status("rating ..."):
+        r = client.ratings(args.rail, durations_s=durations, pairs=args.pairs)
+    if args.json:
+        _dump(r)
+        return 0
+    out.print(
+        f"[bold]{r.rail_id}[/bold] at {_n(r.load_a)} A: the highest constant load in A for "
+        "each duration, and what binds it"
+    )
+    heads = ["lose"] + [
+        "indefinitely" if d is None else (f"{d / 60:g} min" if d < 3600 else f"{d / 3600:g} h")
+        for d in r.durations_s
+    ]
+    table = Table(*heads)
+    short = {"rating": "rating", "trip_current": "trip", "warning_line": "warning", "none": "-"}
+    for c in r.cases:
+        table.add_row(
+            ",".join(map(str, c.lose_phases)) or "none",
+            *(f"{x.rating_a:.1f} ({short.get(x.binding, x.binding)})" for x in c.ratings),
+        )
+    out.print(table)
+    out.print(
+        "[dim]binds: rating = a phase's current rating, trip = its trip current, warning = a "
+        "junction's warning line (limit minus margin)[/dim]"
+    )
+    out.print(f"[dim]{r.caution}[/dim]")
+    return 0
+
+
+_CAUSES = {
+    "requested": "dropped as asked",
+    "trip_current": "trips on current",
+    "junction_limit": "shuts down at its junction limit",
+}
+
+
+def _then(steps: list[Any], down_at_s: float | None) -> str:
+    """A loss case's cascade in words: "trips 2 at 0 s, 3 at 41 s; down at 41 s"."""
+    words = [
+        f"{'trips' if s.cause == 'trip_current' else 'overheats'} {s.phase} at {s.at_s:.0f} s"
+        for s in steps
+    ]
+    if down_at_s is not None:
+        words.append(f"down at {down_at_s:.0f} s")
+    return "; ".join(words) or "holds"
 
 
 def forecast(args: argparse.Namespace) -> int:
@@ -268,17 +324,30 @@ def forecast(args: argparse.Namespace) -> int:
     if args.json:
         _dump(f)
         return 0
-    reach = (
-        "not within the horizon"
-        if f.time_to_limit_s is None
-        else f"in {f.time_to_limit_s:.0f} s (phase {f.limit_phase})"
+
+    def reach(at: float | None, phase: int | None) -> str:
+        return "not within the horizon" if at is None else f"in {at:.0f} s (phase {phase})"
+
+    verdict = f.verdict.upper() if f.verdict != "holds" else f.verdict
+    when = "" if f.verdict_at_s is None else f" at {f.verdict_at_s:.0f} s: {f.verdict_cause}"
+    out.print(f"[bold]{f.rail_id}[/bold]: [bold]{verdict}[/bold]{when}")
+    summary = (
+        f"warning line {reach(f.time_to_warning_s, f.warning_phase)}; "
+        f"limit {reach(f.time_to_limit_s, f.limit_phase)}; "
     )
-    peak = f.peak
-    summary = f"[bold]{f.rail_id}[/bold]: limit reached {reach}; "
-    if peak is not None:
-        summary += f"peak {peak.temp_c:.1f} degC on phase {peak.phase} at {peak.time_s:.0f} s; "
-    summary += f"margin {_n(f.margin_k)} K" + ("; THERMAL RUNAWAY" if f.runaway else "")
+    if f.peak is not None:
+        summary += (
+            f"peak {f.peak.temp_c:.1f} degC on phase {f.peak.phase} at {f.peak.time_s:.0f} s; "
+        )
+    summary += (
+        f"margin to warning {_n(f.margin_to_warning_k)} K, to limit {_n(f.margin_to_limit_k)} K"
+        + ("; THERMAL RUNAWAY" if f.runaway else "")
+    )
     out.print(summary)
+    for c in f.cascade:
+        why = _CAUSES.get(c.cause, c.cause)
+        amps = "" if c.current_a is None else f" ({c.current_a:.1f} A)"
+        out.print(f"  {c.at_s:.0f} s: phase {c.phase} {why}{amps}")
     table = Table("t s", "load A", "hottest junction degC", "board degC")
     step = max(1, len(f.time_s) // 12)
     for k in range(0, len(f.time_s), step):
@@ -416,6 +485,13 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     p.add_argument("--at", type=float, default=0.0, help="when the phases drop, s")
     p.add_argument("--hours", type=float, default=1.0)
     p.add_argument("--points", type=int, default=200)
+    p = command("ratings", ratings, "how much load, for how long: time-limited ratings")
+    p.add_argument("rail")
+    p.add_argument(
+        "--minutes", type=float, action="append",
+        help="a duration in minutes (repeatable; default 1, 10, 60; indefinitely always shown)",
+    )  # fmt: skip
+    p.add_argument("--pairs", action="store_true", help="also every pair of further losses")
     p = command("rehearse", rehearse, "replay a trace against protection settings")
     p.add_argument("trace", help="CSV (.csv) or NDJSON samples")
     p.add_argument("--settings", required=True, help="JSON: setting -> value or list to sweep")

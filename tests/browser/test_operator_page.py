@@ -78,6 +78,11 @@ def test_page_renders_follows_a_phase_loss_live_and_acknowledges_by_keyboard(
     expect(chart.locator(".fc-limit")).to_have_count(1)
     expect(page.locator("#sec-forecast")).to_contain_text("stays at 80.0 A")
     expect(page.locator("#sec-screening tbody tr")).to_have_count(4)
+    ratings = page.locator("#sec-ratings tbody tr")
+    expect(ratings).to_have_count(5)  # as it is, then each single loss
+    expect(ratings.first).to_contain_text("120.0 A")  # four 30 A phases for a minute
+    expect(ratings.first).to_contain_text("current rating")
+    expect(page.locator("#sec-ratings thead")).to_contain_text("Indefinitely")
     expect(page.locator("#sec-events tbody tr")).to_have_count(1)  # rail new -> nominal
     expect(page.locator("#live")).to_have_attribute("data-state", "live")
     assert any("/v1/events/stream" in u for u in watched.requests)

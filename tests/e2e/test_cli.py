@@ -54,7 +54,19 @@ def test_status_screening_forecast_events(base: str) -> None:
     screening = run("screening", "bench-a", "--depth", "2", "--url", base)
     assert len(screening["cases"]) == 6
     ahead = run("forecast", "bench-a", "--load", "100", "--drop", "1", "--drop", "2", "--url", base)
-    assert ahead["time_to_limit_s"] is not None  # 50 A on each of two 30 A phases
+    # 50 A on each of two phases, past their 40 A trip current: both trip, the rail is down.
+    assert ahead["verdict"] == "down"
+    assert [c["cause"] for c in ahead["cascade"]] == ["requested"] * 2 + ["trip_current"] * 2
+    rated = run("ratings", "bench-a", "--minutes", "1", "--minutes", "30", "--url", base)
+    assert rated["durations_s"] == [60.0, 1800.0, None]
+    assert rated["cases"][0]["ratings"][0]["rating_a"] == pytest.approx(120.0)  # 4 x 30 A
+    assert [c["lose_phases"] for c in rated["cases"]] == [[], [0], [1], [2], [3]]
+    table = subprocess.run(
+        [sys.executable, "-m", "phaseward.cli", "ratings", "bench-a", "--url", base],
+        capture_output=True, text=True, timeout=120, check=True,
+    ).stdout  # fmt: skip
+    assert "indefinitely" in table
+    assert "warning line" in table
     events = run("events", "--rail", "bench-a", "--url", base)
     assert [e["kind"] for e in events] == ["rail.condition"]
 

@@ -74,7 +74,7 @@ def test_equal_phases_lose_one_rating_per_lost_phase(n: int) -> None:
         [[n], np.full(len(singles), n - 1), np.full(len(pairs), n - 2)]
     )
     np.testing.assert_allclose(res.capacity_a, expected, rtol=1e-12)
-    assert set(res.binding_kind[: 1 + n].tolist()) == {"current"}
+    assert set(res.binding_kind[: 1 + n].tolist()) == {"rating"}
 
 
 def brute_force_capacity(
@@ -112,6 +112,6 @@ def test_thermal_capacity_agrees_with_a_brute_force_scan(seed: int) -> None:
     for k, active in enumerate(singles):
         share = weights * active / np.sum(weights * active)
         expected = brute_force_capacity(net, params, active, share, limit, grid)
-        assert res.binding_kind[k] == "thermal"
+        assert res.binding_kind[k] == "warning_line"
         assert expected < 60.0 / share.max()  # the current rating is not what binds
         assert res.capacity_a[k] == pytest.approx(expected, abs=0.01)

@@ -50,6 +50,7 @@ ACCESS: dict[tuple[str, str], tuple[str, str | None]] = {
     ("GET", "/v1/rails/{rail_id}/events"): ("read", "path"),
     ("POST", "/v1/events/{event_id}/ack"): ("operate", "event"),
     ("GET", "/v1/rails/{rail_id}/screening"): ("operate", "path"),
+    ("GET", "/v1/rails/{rail_id}/ratings"): ("operate", "path"),
     ("POST", "/v1/rails/{rail_id}/forecast"): ("operate", "path"),
     ("GET", "/v1/rails/{rail_id}/reliability"): ("operate", "path"),
     ("POST", "/v1/rails/{rail_id}/calibrations"): ("operate", "path"),

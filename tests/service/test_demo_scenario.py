@@ -30,7 +30,7 @@ async def test_demo_scenario(client: httpx.AsyncClient) -> None:
     # The shares are learned from telemetry with 0.15 A of noise on ~25 A: within 1 %.
     healthy = await run(0, T_FAULT - 1)  # up to the sample before the short shows
     assert healthy["condition"] == "nominal"
-    assert healthy["capacity"]["binding"] == "current"
+    assert healthy["capacity"]["binding"] == "rating"
     assert healthy["capacity"]["capacity_a"] == pytest.approx(
         RATED * sum(SKEW) / max(SKEW), rel=1e-2
     )
@@ -48,7 +48,7 @@ async def test_demo_scenario(client: httpx.AsyncClient) -> None:
 
     end = await run(T_STEP, len(samples))
     assert end["condition"] == "overloaded"
-    assert end["capacity"]["binding"] == "thermal"
+    assert end["capacity"]["binding"] == "warning_line"
     assert end["capacity"]["capacity_a"] < end["load_a"]
 
     page = (await client.get(f"{rail}/events", params={"limit": 200})).json()

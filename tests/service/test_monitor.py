@@ -38,7 +38,7 @@ async def test_breaker_flag_isolates_at_once_and_capacity_drops_by_one_rating(
     assert before["condition"] == "nominal"
     # Four 30 A phases, thermal limit not binding at this ambient: 4 x 30 A (common practice).
     assert before["capacity"]["capacity_a"] == pytest.approx(120.0, rel=1e-5)
-    assert before["capacity"]["binding"] == "current"
+    assert before["capacity"]["binding"] == "rating"
     assert before["screening"]["n1_secure"] is True
 
     answer = await client.post(f"{rail}/samples", json=tripped(3, phase=1))
@@ -180,7 +180,7 @@ async def test_status_shows_estimated_junctions_with_uncertainty(
     # Readings shrink the uncertainty and pull the estimate towards them.
     assert all(b < a for a, b in zip(first["junction_std_k"], later["junction_std_k"], strict=True))
     assert all(abs(t - 55.0) < 3.0 for t in later["estimated_junction_c"])
-    assert later["margin_k"] == pytest.approx(125.0 - max(later["estimated_junction_c"]))
+    assert later["margin_to_limit_k"] == pytest.approx(125.0 - max(later["estimated_junction_c"]))
 
 
 async def test_new_definition_waits_for_a_sample(client: httpx.AsyncClient, rail: str) -> None:

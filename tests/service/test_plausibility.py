@@ -96,7 +96,7 @@ async def test_one_999_degc_reading_is_left_out_of_the_estimator(client: httpx.A
     glitched = (await client.get("/v1/rails/with-glitch/status")).json()
     clean = (await client.get("/v1/rails/without/status")).json()
     assert glitched["condition"] != "overloaded"
-    assert glitched["thermal"]["time_to_limit_s"] is None
+    assert glitched["thermal"]["time_to_warning_s"] is None
     np.testing.assert_allclose(
         glitched["thermal"]["estimated_junction_c"], clean["thermal"]["estimated_junction_c"],
         rtol=1e-12,
@@ -165,7 +165,7 @@ async def test_an_impossible_rail_current_or_ambient_is_flagged_and_judged_by_no
     assert answer.json()["condition"] == "nominal"
     status = (await client.get(f"{rail}/status")).json()
     assert status["load_a"] == pytest.approx(80.0)  # the phases' sum stands in for 1e9 A
-    assert status["thermal"]["time_to_limit_s"] is None
+    assert status["thermal"]["time_to_warning_s"] is None
     flagged = [e for e in await events(client) if e["kind"] == "telemetry.implausible"]
     assert sorted((e["details"]["reading"], e["details"]["rule"]) for e in flagged) == [
         ("ambient_c", "ambient_out_of_range"), ("iout_a", "iout_out_of_range"),

@@ -233,6 +233,13 @@ def test_screening_forecast(client: Client, rail_id: str) -> None:
     assert out_of_range.value.field == "drop[0].phase"
     constant = client.forecast(rail_id, load=Load.constant(40.0), horizon_s=600, points=10)
     assert constant.load_a == [40.0] * 10
+    assert constant.verdict == "holds"
+    rated = client.ratings(rail_id, durations_s=[30.0], pairs=True)
+    assert rated.durations_s == [30.0, None]
+    assert len(rated.cases) == 1 + 4 + 6
+    assert rated.cases[0].lose_phases == []
+    assert rated.cases[0].ratings[0].binding in ("rating", "warning_line")
+    assert rated.cases[0].ratings[1].rating_a <= rated.cases[0].ratings[0].rating_a
 
 
 def test_reliability_needs_its_section(client: Client, rail_id: str) -> None:

@@ -97,7 +97,12 @@ class Metrics:
         for name, unit, field, help_text in (
             ("capacity", "amperes", "capacity_a", "What the active phases can deliver."),
             ("load", "amperes", "load_a", "The present total output current."),
-            ("thermal_margin", "kelvin", "margin_k", "Junction limit minus the hottest estimate."),
+            (
+                "thermal_margin",
+                "kelvin",
+                "margin_to_limit_k",
+                "Junction limit minus the hottest estimate.",
+            ),
         ):
             metric = f"phaseward_rail_{name}_{unit}"
             out += [
@@ -122,13 +127,13 @@ def _rails(sessions: sessionmaker[Session]) -> list[dict[str, Any]]:
         out = []
         for row in rows:
             verdict = row.state.get("rail", {})
-            margin = verdict.get("margin_k")
+            margin = verdict.get("margin_to_limit_k")
             out.append({
                 "rail": row.rail_id,
                 "condition": verdict.get("condition"),
                 "capacity_a": verdict.get("capacity_a"),
                 "load_a": verdict.get("load_a"),
-                "margin_k": margin,
+                "margin_to_limit_k": margin,
             })  # fmt: skip
         return out
 

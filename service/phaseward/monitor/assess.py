@@ -34,8 +34,8 @@ class Assessment:
     n1_cases: int
     steady_junction_c: list[float | None]
     runaway: bool
-    time_to_limit_s: float | None
-    limit_phase: int | None
+    time_to_warning_s: float | None
+    warning_phase: int | None
 
     def as_dict(self) -> dict[str, Any]:
         return dict(self.__dict__)
@@ -60,7 +60,7 @@ def assess(
     cap = remaining_capacity(
         model.network, model.losses,
         active=active[None, :], weights=weights, rated_current_a=model.rated_current_a,
-        temp_limit_c=limit, ambient_c=ambient_c,
+        trip_current_a=model.overcurrent_limit_a, temp_limit_c=limit, ambient_c=ambient_c,
     )  # fmt: skip
     capacity = float(cap.capacity_a[0])
     kind = str(cap.binding_kind[0])
@@ -110,8 +110,8 @@ def assess(
         n1_cases=int(n1.lost.shape[0]),
         steady_junction_c=steady_j,
         runaway=runaway,
-        time_to_limit_s=ttl_value,
-        limit_phase=crossing.phase if ttl_value is not None else None,
+        time_to_warning_s=ttl_value,
+        warning_phase=crossing.phase if ttl_value is not None else None,
     )
 
 

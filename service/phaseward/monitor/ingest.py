@@ -278,7 +278,7 @@ def advance(
     active_now = judgement.codes[last] == ACTIVE
     new_state = {
         "watch": judgement.watch.__dict__,
-        "rail": prior | {"margin_k": hottest_margin(model, nodes[-1], active_now)[1]},
+        "rail": prior | {"margin_to_limit_k": hottest_margin(model, nodes[-1], active_now)[1]},
         "assessed": assessed | {"signature": reference.tolist()},
         "nodes_c": nodes[-1].tolist(),
         "junction_std_k": junction_std[-1].tolist(),
@@ -524,29 +524,30 @@ def _rail_findings(k: int, verdict: Assessment, prior: dict[str, Any]) -> list[F
             Finding(
                 k, "capacity.short", "critical" if short else "info", verdict.binding_phase,
                 f"load {verdict.load_a:.1f} A exceeds remaining capacity "
-                f"{verdict.capacity_a:.1f} A" if short else "load back within remaining capacity",
+                f"{verdict.capacity_a:.1f} A (bound by {verdict.binding.replace('_', ' ')})"
+                if short else "load back within remaining capacity",
                 {"load_a": round(verdict.load_a, 3), "capacity_a": round(verdict.capacity_a, 3),
                  "cleared": not short},
             )
         )  # fmt: skip
     out += _security_findings(k, verdict, prior)
-    forecast = verdict.time_to_limit_s is not None or verdict.runaway
-    was_forecast = prior.get("time_to_limit_s") is not None or bool(prior.get("runaway"))
+    forecast = verdict.time_to_warning_s is not None or verdict.runaway
+    was_forecast = prior.get("time_to_warning_s") is not None or bool(prior.get("runaway"))
     if forecast != was_forecast:
         if verdict.runaway:
             message = "thermal runaway: no steady state at the present load"
         elif forecast:
             message = (
-                f"phase {verdict.limit_phase} forecast to reach its limit in "
-                f"{verdict.time_to_limit_s:.0f} s"
+                f"phase {verdict.warning_phase} forecast to reach its warning line in "
+                f"{verdict.time_to_warning_s:.0f} s"
             )
         else:
-            message = "no thermal limit forecast within the horizon"
+            message = "no warning line forecast within the horizon"
         out.append(
             Finding(
-                k, "thermal.forecast", "critical" if forecast else "info", verdict.limit_phase,
+                k, "thermal.forecast", "critical" if forecast else "info", verdict.warning_phase,
                 message,
-                {"time_to_limit_s": verdict.time_to_limit_s, "runaway": verdict.runaway,
+                {"time_to_warning_s": verdict.time_to_warning_s, "runaway": verdict.runaway,
                  "cleared": not forecast},
             )
         )  # fmt: skip

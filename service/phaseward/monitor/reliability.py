@@ -45,8 +45,8 @@ def phases_needed(
             break
         cap = remaining_capacity(
             model.network, model.losses, active=masks, weights=weights,
-            rated_current_a=model.rated_current_a, temp_limit_c=model.temp_limit_c,
-            ambient_c=ambient_c,
+            rated_current_a=model.rated_current_a, trip_current_a=model.overcurrent_limit_a,
+            temp_limit_c=model.temp_limit_c, ambient_c=ambient_c,
         )  # fmt: skip
         if (cap.capacity_a < model.load_a).any():
             break

@@ -175,7 +175,7 @@ def _warnings(model: RailModel, phases: list[dict[str, Any]], origin: _Origins) 
         ambient_c=model.ambient_c,
     )  # fmt: skip
     capacity, kind = float(cap.capacity_a[0]), str(cap.binding_kind[0])
-    if model.load_a > capacity and kind == "thermal":
+    if model.load_a > capacity and kind == "warning_line":
         out.append(
             Notice(
                 "load_a", "load_above_capacity",

@@ -75,13 +75,13 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
         thermal={
             "hottest_phase": hottest,
             "hottest_temp_c": None if hottest is None else float(junction[hottest]),
-            "margin_k": margin,
+            "margin_to_limit_k": margin,
             "margin_to_warning_k": None
             if hottest is None
             else float(limit[hottest] - junction[hottest]),
             "steady_junction_c": verdict["steady_junction_c"],
-            "time_to_limit_s": verdict["time_to_limit_s"],
-            "limit_phase": verdict["limit_phase"],
+            "time_to_warning_s": verdict["time_to_warning_s"],
+            "warning_phase": verdict["warning_phase"],
             "runaway": verdict["runaway"],
             "estimated_junction_c": [s["nodes_c"][j] for j in model.network.junction_node.tolist()],
             "junction_std_k": s["junction_std_k"],

@@ -25,7 +25,7 @@ import numpy as np
 import numpy.typing as npt
 
 from phaseward.physics.losses import PhaseLossParams, loss_coefficients
-from phaseward.physics.thermal import ThermalNetwork, bracketed_root, steady_state_c
+from phaseward.physics.thermal import ThermalNetwork, bracketed_root, peak_batch, steady_state_c
 
 FloatArray = npt.NDArray[np.float64]
 BoolArray = npt.NDArray[np.bool_]
@@ -37,9 +37,11 @@ StrArray = npt.NDArray[np.str_]
 class CapacityResult:
     """Per case (n_cases,): capacity in A, the binding phase (-1 if none) and what binds.
 
-    binding_kind: "current" (a phase reaches its rating), "thermal" (a junction reaches its
-    limit), or "none" (no active phase: capacity 0). junction_c_at_capacity: (n_cases,
-    n_phases) steady-state junction temperatures in degC at the capacity, NaN for lost phases.
+    binding_kind: "rating" (a phase reaches its current rating), "trip_current" (its trip
+    current, where that is below the rating), "warning_line" (a junction reaches the line the
+    caller passes, the warning line), or "none" (no active phase: capacity 0).
+    junction_c_at_capacity: (n_cases, n_phases) steady-state junction temperatures in degC at
+    the capacity, NaN for lost phases.
     """
 
     capacity_a: FloatArray
@@ -57,12 +59,14 @@ def remaining_capacity(
     rated_current_a: npt.ArrayLike,
     temp_limit_c: npt.ArrayLike,
     ambient_c: float,
+    trip_current_a: npt.ArrayLike | None = None,
     rtol: float = 1e-6,
 ) -> CapacityResult:
     """Remaining capacity of every case (an active-phase mask) in one call.
 
     active: (n_cases, n_phases) bool; weights: (n_cases, n_phases) or (n_phases,) >= 0 (only
     their ratios over the active phases matter); rated_current_a: (n_phases,) > 0 in A;
+    trip_current_a: (n_phases,) > 0 in A, default: no trip below the rating;
     temp_limit_c: (n_phases,) junction limit minus margin in degC; ambient_c in degC.
 
     >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
@@ -76,7 +80,7 @@ def remaining_capacity(
     >>> res = remaining_capacity(net, params, active=active, weights=np.ones(4),
     ...     rated_current_a=np.full(4, 40.0), temp_limit_c=np.full(4, 56.0), ambient_c=25.0)
     >>> np.round(res.capacity_a, 2), res.binding_kind.tolist()  # identical phases: any binds
-    (array([158.45, 120.  ]), ['thermal', 'current'])
+    (array([158.45, 120.  ]), ['warning_line', 'rating'])
     >>> np.round(res.junction_c_at_capacity[1], 2)  # the board runs cooler with one phase out
     array([ nan, 55.2, 55.2, 55.2])
     """
@@ -92,6 +96,9 @@ def remaining_capacity(
     rated = _per_phase("rated_current_a", rated_current_a, n)
     if not np.all(rated > 0.0):
         raise ValueError("rated_current_a must be > 0")
+    trip = rated if trip_current_a is None else _per_phase("trip_current_a", trip_current_a, n)
+    if not np.all(trip > 0.0):
+        raise ValueError("trip_current_a must be > 0")
     limit = _per_phase("temp_limit_c", temp_limit_c, n)
     ambient = float(_per_phase("ambient_c", ambient_c, n, ndim=(0,)))
     if not 0.0 < rtol < 1.0:
@@ -117,26 +124,149 @@ def remaining_capacity(
     every = np.arange(n_cases)
     some = act.any(axis=1)
     with np.errstate(divide="ignore"):
-        per_phase_limit = np.where(share > 0.0, rated / share, np.inf)
+        per_phase_limit = np.where(share > 0.0, np.minimum(rated, trip) / share, np.inf)
     current_limit = np.where(some, per_phase_limit.min(axis=1), 0.0)
     current_phase = np.argmin(per_phase_limit, axis=1)
+    current_kind = np.where(rated <= trip, "rating", "trip_current")[current_phase]
     cold = excess(every, np.zeros(n_cases)) > 0.0
     at_rating = excess(every, current_limit) <= 0.0
-    kind = np.where(~some, "none", np.where(at_rating & ~cold, "current", "thermal"))
-    capacity = np.where(kind == "current", current_limit, 0.0)
-    rows = np.flatnonzero((kind == "thermal") & ~cold)
+    kind = np.where(~some, "none", np.where(at_rating & ~cold, current_kind, "warning_line"))
+    by_current = (kind == "rating") | (kind == "trip_current")
+    capacity = np.where(by_current, current_limit, 0.0)
+    rows = np.flatnonzero((kind == "warning_line") & ~cold)
     if rows.size:
         capacity[rows], _ = bracketed_root(
             lambda i: excess(rows, i), np.zeros(rows.size), current_limit[rows], rtol=rtol
         )
     temps = np.where(act, junction_c(every, capacity), np.nan)
     hottest = np.argmax(np.where(act, temps - limit, -np.inf), axis=1)
-    phase = np.where(kind == "current", current_phase, np.where(kind == "thermal", hottest, -1))
+    phase = np.where(by_current, current_phase, np.where(kind == "warning_line", hottest, -1))
     return CapacityResult(
         capacity_a=capacity,
         binding_phase=phase.astype(np.intp),
         binding_kind=kind,
         junction_c_at_capacity=temps,
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class RatingTable:
+    """Per case and duration (n_cases, n_durations): the highest constant rail current in A,
+    what binds it ("rating", "trip_current", "warning_line", or "none" with no active phase)
+    and the binding phase (-1 if none)."""
+
+    rating_a: FloatArray
+    binding_kind: StrArray
+    binding_phase: IntArray
+
+
+def time_limited_ratings(
+    net: ThermalNetwork,
+    params: PhaseLossParams,
+    *,
+    active: npt.ArrayLike,
+    weights: npt.ArrayLike,
+    rated_current_a: npt.ArrayLike,
+    trip_current_a: npt.ArrayLike,
+    warning_c: npt.ArrayLike,
+    initial_c: npt.ArrayLike,
+    ambient_c: float,
+    duration_s: npt.ArrayLike,
+    rtol: float = 1e-4,
+) -> RatingTable:
+    """Highest constant rail current each case carries for each duration from ``initial_c``.
+
+    The current shares as in :func:`remaining_capacity`. A load I is allowed for a duration D
+    if no active phase's current passes its rating or its trip current and no active
+    junction passes its warning line at any time in [0, D] (D = np.inf: ever, steady state
+    included), with the transient solved exactly (:func:`thermal.peak_batch`). Temperatures
+    grow with I, so the thermal bound is a root in I, found for the whole case x duration
+    grid at once by :func:`thermal.bracketed_root` (relative tolerance ``rtol``, the lower
+    and safe end reported). A case already past a warning line at no load gets 0.
+
+    active: (n_cases, n_phases) bool; weights: (n_phases,) or (n_cases, n_phases);
+    rated_current_a, trip_current_a, warning_c: (n_phases,); initial_c: (n_nodes,) node
+    temperatures now; duration_s: (n_durations,) > 0, np.inf allowed.
+
+    >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
+    >>> chain = CauerStages(np.array([4.0, 6.0]), np.array([0.2, 2.0]))
+    >>> net = build_coupled_network([chain] * 4, board_to_ambient_k_per_w=0.5,
+    ...                             board_c_j_per_k=200.0)
+    >>> params = PhaseLossParams.build(4, vin_v=12.0, vout_v=1.0, fsw_hz=500e3,
+    ...     inductance_h=150e-9, dcr_ohm=0.2e-3, rds_high_ohm=4e-3, rds_low_ohm=1e-3,
+    ...     rds_tc_per_k=0.004)
+    >>> table = time_limited_ratings(net, params, active=np.ones((1, 4), dtype=bool),
+    ...     weights=np.ones(4), rated_current_a=np.full(4, 60.0),
+    ...     trip_current_a=np.full(4, 70.0), warning_c=np.full(4, 56.0),
+    ...     initial_c=np.full(9, 25.0), ambient_c=25.0, duration_s=[1.0, 10.0, np.inf])
+    >>> np.round(table.rating_a)  # from cold, 1 s: the current rating binds
+    array([[240., 212., 158.]])
+    >>> table.binding_kind.tolist()
+    [['rating', 'warning_line', 'warning_line']]
+    """
+    n = net.n_phases
+    act = np.asarray(active)
+    if act.dtype != np.bool_ or act.ndim != 2 or act.shape[1] != n:
+        raise ValueError(f"active must be a boolean array of shape (n_cases, {n})")
+    share = np.array(np.broadcast_to(_per_phase("weights", weights, n, ndim=(1, 2)), act.shape))
+    share *= act
+    total = share.sum(axis=1)
+    share /= np.where(total > 0.0, total, 1.0)[:, None]
+    rated = _per_phase("rated_current_a", rated_current_a, n)
+    trip = _per_phase("trip_current_a", trip_current_a, n)
+    warning = _per_phase("warning_c", warning_c, n)
+    duration = np.asarray(duration_s, dtype=np.float64)
+    if duration.ndim != 1 or np.any(np.isnan(duration)) or not np.all(duration > 0.0):
+        raise ValueError("duration_s must have shape (n_durations,) and be > 0")
+    n_cases, n_dur = act.shape[0], duration.size
+    case = np.repeat(np.arange(n_cases), n_dur)  # the grid, flattened case-major
+    span = np.tile(duration, n_cases)
+    offset = np.where(act, warning, np.inf)
+
+    def excess(rows: IntArray, current_a: FloatArray) -> FloatArray:
+        c = case[rows]
+        p0, slope = loss_coefficients(params, share[c] * current_a[:, None])
+        on = act[c]
+        return peak_batch(
+            net, initial_c, p0 * on, slope * on, ambient_c, offset[c], duration_s=span[rows]
+        ).value
+
+    bound = np.minimum(rated, trip)
+    with np.errstate(divide="ignore"):
+        per_phase = np.where(share > 0.0, bound / share, np.inf)
+    some = act.any(axis=1) & (total > 0.0)
+    current_limit = np.where(some, per_phase.min(axis=1), 0.0)[case]
+    current_phase = np.argmin(per_phase, axis=1)[case]
+    current_kind = np.where(rated <= trip, "rating", "trip_current")[current_phase]
+    every = np.arange(case.size)
+    cold = excess(every, np.zeros(case.size)) > 0.0
+    fits = excess(every, current_limit) <= 0.0
+    kind = np.where(~some[case], "none", np.where(fits & ~cold, current_kind, "warning_line"))
+    rating = np.where(fits & ~cold, current_limit, 0.0)
+    rows = np.flatnonzero(some[case] & ~fits & ~cold)
+    # Re-evaluated on the subset, an end may round to the other side: then it is the answer
+    # (no load when the cold end is past the line, which is the safe side).
+    cold_again = excess(rows, np.zeros(rows.size)) > 0.0
+    fits_again = excess(rows, current_limit[rows]) <= 0.0
+    rating[rows] = np.where(fits_again & ~cold_again, current_limit[rows], 0.0)
+    kind[rows] = np.where(fits_again & ~cold_again, current_kind[rows], kind[rows])
+    rows = rows[~cold_again & ~fits_again]
+    if rows.size:  # in I^2, where the loss, and so the excess, is nearly linear
+        low, _ = bracketed_root(
+            lambda x: excess(rows, np.sqrt(x)), np.zeros(rows.size), current_limit[rows] ** 2,
+            rtol=2.0 * rtol,
+        )  # fmt: skip
+        rating[rows] = np.sqrt(low)
+    c = case
+    p0, slope = loss_coefficients(params, share[c] * rating[:, None])
+    hot = peak_batch(
+        net, initial_c, p0 * act[c], slope * act[c], ambient_c, offset[c], duration_s=span
+    ).phase
+    phase = np.where(kind == "warning_line", hot, np.where(kind == "none", -1, current_phase))
+    return RatingTable(
+        rating_a=rating.reshape(n_cases, n_dur),
+        binding_kind=kind.reshape(n_cases, n_dur),
+        binding_phase=phase.astype(np.intp).reshape(n_cases, n_dur),
     )
 
 

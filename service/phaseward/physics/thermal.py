@@ -49,6 +49,8 @@ IntArray = npt.NDArray[np.intp]
 _SETTLED = 40.0  # time constants after which exp(-t/tau) < 5e-18: the state has settled
 _GROWTH = 700.0  # largest exponent of a growing mode that float64 still holds (e^709 max)
 _GRID_PER_DECADE = 64  # log-grid density used to bracket the first limit crossing
+_PEAK_PER_DECADE = 8  # log-grid density that locates a peak before golden-section refinement
+_PEAK_STEPS = 24  # golden-section steps: the bracket shrinks to 0.618^24 = 1e-5 of its width
 _GRID_MAX = 2048  # grid points at most (only a near-singular system spans > 32 decades)
 _WINDOW_STEPS = 8192  # transient steps per Picard window (working set stays in cache)
 _ONE = np.ones(1)  # numerator of the per-mode filter (the input gain is folded in before)
@@ -671,6 +673,107 @@ class LimitCrossings:
     runaway: BoolArray
 
 
+@dataclass(frozen=True, eq=False)
+class _Cases:
+    """The exact solution of n_cases systems with constant inputs (see the module docstring).
+
+    lam (b, n) decay rates, phi (b, n, n) mode shapes, z0 and u (b, n) the modal initial
+    state and injection; ``junction`` indexes the junction rows of phi.
+    """
+
+    lam: FloatArray
+    phi: FloatArray
+    z0: FloatArray
+    u: FloatArray
+    junction: IntArray
+
+    def at_c(self, rows: IntArray, t: FloatArray, *, nodes: bool = False) -> FloatArray:
+        """Junction (or, with ``nodes``, all node) temperatures (len(rows), n_t, k) in degC
+        at times t (len(rows), n_t) >= 0; a growing mode past float range gives inf."""
+        x = -self.lam[rows, None, :] * t[..., None]
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            e = np.exp(x)
+            # t exprel(x) from the same exponential; its series where (e - 1) / x would cancel.
+            rel = np.where(np.abs(x) > 1e-4, (e - 1.0) / x, 1.0 + x * (0.5 + x / 6.0))
+            coef = e * self.z0[rows, None, :] + t[..., None] * rel * self.u[rows, None, :]
+            phi = self.phi[rows] if nodes else self.phi_j[rows]
+            out = np.matmul(coef, np.swapaxes(phi, -1, -2))
+        return np.asarray(np.where(np.isnan(out), np.inf, out))
+
+    @property
+    def phi_j(self) -> FloatArray:
+        """Junction rows of the mode shapes (b, n_phases, n), computed once."""
+        cached: FloatArray | None = self.__dict__.get("_phi_j")
+        if cached is None:
+            cached = np.ascontiguousarray(self.phi[:, self.junction, :])
+            object.__setattr__(self, "_phi_j", cached)
+        return cached
+
+    def grid(self, horizon: FloatArray, per_decade: int = _GRID_PER_DECADE) -> FloatArray:
+        """Times (b, n_grid) from 0 over a log grid spanning each case's time constants
+        (``per_decade`` points per decade, from a thousandth of the fastest (a tenth for the
+        coarser peak grid, whose first interval is refined) to 40 of the slowest, or to where
+        a growing mode has risen by e^700), cut at ``horizon`` (b,) which is the last point."""
+        rate = np.maximum(np.abs(self.lam), 1e-300)
+        runaway = self.lam[:, 0] <= 0.0
+        t_first = (1e-3 if per_decade >= _GRID_PER_DECADE else 1e-1) / rate.max(axis=1)
+        t_end = np.where(runaway, _GROWTH / rate[:, 0], _SETTLED / rate.min(axis=1))
+        t_end = np.maximum(np.minimum(t_end, horizon), t_first)
+        decades = float(np.log10(t_end / t_first).max(initial=0.0))
+        n_grid = min(int(np.ceil(per_decade * decades)), _GRID_MAX) + 2
+        frac = np.linspace(0.0, 1.0, n_grid)
+        inner = t_first[:, None] * (t_end / t_first)[:, None] ** frac
+        last = np.where(np.isfinite(horizon), np.maximum(horizon, t_end), t_end)
+        return np.concatenate([np.zeros((self.lam.shape[0], 1)), inner, last[:, None]], axis=1)
+
+
+def _above(temps_c: FloatArray, line_c: FloatArray) -> FloatArray:
+    """temps - line, -inf for an ignored phase (line +inf) even where a runaway gave inf, and
+    +inf where a runaway passed float range (NaN from inf - inf): the hot side."""
+    with np.errstate(invalid="ignore"):
+        over = np.where(np.isnan(temps_c - line_c), np.inf, temps_c - line_c)
+    return np.asarray(np.where(np.isposinf(line_c), -np.inf, over))
+
+
+def _cases(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    offset_c: npt.ArrayLike,
+) -> tuple[_Cases, FloatArray]:
+    """Modal solution of every case and the per-phase offsets, both broadcast to n_cases."""
+    p0 = _phase_values(net, "p0_w", p0_w)
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    offset = np.array(offset_c, dtype=np.float64)
+    if np.any(np.isnan(offset)) or offset.ndim == 0 or offset.shape[-1] != net.n_phases:
+        raise ValueError("limit_c must have shape (..., n_phases) and no NaN")
+    temp0 = _finite("initial_c", initial_c)
+    if temp0.ndim == 0 or temp0.shape[-1] != net.n_nodes:
+        raise ValueError("initial_c must have shape (..., n_nodes)")
+    shapes = (p0.shape[:-1], slope.shape[:-1], offset.shape[:-1], temp0.shape[:-1])
+    batch = np.broadcast_shapes(*shapes)
+    if len(batch) > 1:
+        raise ValueError("thermal crossings and peaks take at most one batch axis (n_cases)")
+    n_cases = batch[0] if batch else 1
+    p0, slope, offset = (np.broadcast_to(x, (n_cases, net.n_phases)) for x in (p0, slope, offset))
+    temp0 = np.broadcast_to(temp0, (n_cases, net.n_nodes))
+    lam, phi = _modes(_system_matrix(net, slope), net.capacitance_j_per_k)
+    z0 = np.einsum("bnm,bn->bm", phi, net.capacitance_j_per_k * temp0)
+    u = np.einsum("bnm,bn->bm", phi, _injection(net, p0, _finite("ambient_c", ambient_c)))
+    return _Cases(lam, phi, z0, u, net.junction_node), offset
+
+
+def _horizon(value: npt.ArrayLike | None, n_cases: int) -> FloatArray:
+    if value is None:
+        return np.full(n_cases, np.inf)
+    horizon = np.array(value, dtype=np.float64)
+    if np.any(np.isnan(horizon)) or not np.all(horizon > 0.0):
+        raise ValueError("horizon_s must be > 0")
+    return np.array(np.broadcast_to(horizon, (n_cases,)))
+
+
 def time_to_limit_batch_s(
     net: ThermalNetwork,
     initial_c: npt.ArrayLike,
@@ -679,20 +782,19 @@ def time_to_limit_batch_s(
     ambient_c: float,
     limit_c: npt.ArrayLike,
     *,
-    horizon_s: float | None = None,
+    horizon_s: npt.ArrayLike | None = None,
 ) -> LimitCrossings:
-    """First crossing of any junction limit with losses P = p0 + s T_j held, per case.
+    """First crossing of any junction line with losses P = p0 + s T_j held, per case.
 
     The linear system including -E diag(s) E^T is solved exactly (sums of exponentials);
-    the first crossing is bracketed on a log-spaced time grid spanning the case's time
-    constants (64 points per decade, from a thousandth of the fastest to 40 of the slowest,
-    or to where a growing mode has risen by e^700) and refined by :func:`bracketed_root` to
-    1e-12 relative. A junction that crosses and drops back within one grid interval would be
+    the first crossing is bracketed on the log-spaced time grid of :meth:`_Cases.grid` and
+    refined by :func:`bracketed_root` to 1e-12 relative, reporting the early end of the
+    bracket. A junction that crosses and drops back within one grid interval would be
     missed; with 64 points per decade that needs a pathological network.
 
     initial_c: (n_nodes,) or (n_cases, n_nodes); p0_w, slope_w_per_k: (n_cases, n_phases) or
     (n_phases,); limit_c: (n_phases,) or (n_cases, n_phases), np.inf for a phase to ignore;
-    horizon_s: crossings later than this count as never (np.inf).
+    horizon_s: float or (n_cases,): crossings later than this count as never (np.inf).
 
     >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
     >>> net = build_coupled_network([chain] * 2, board_to_ambient_k_per_w=1.0,
@@ -702,73 +804,225 @@ def time_to_limit_batch_s(
     >>> np.round(hits.time_s, 3), hits.phase.tolist()  # phase 0 lost: the board runs cooler
     (array([7.933,   inf]), [1, -1])
     """
-    p0 = _phase_values(net, "p0_w", p0_w)
-    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
-    limit = np.array(limit_c, dtype=np.float64)
-    if np.any(np.isnan(limit)) or limit.ndim == 0 or limit.shape[-1] != net.n_phases:
-        raise ValueError("limit_c must have shape (..., n_phases) and no NaN")
-    temp0 = _finite("initial_c", initial_c)
-    if temp0.ndim == 0 or temp0.shape[-1] != net.n_nodes:
-        raise ValueError("initial_c must have shape (..., n_nodes)")
-    horizon = np.inf if horizon_s is None else float(_finite("horizon_s", horizon_s, positive=True))
-    shapes = (p0.shape[:-1], slope.shape[:-1], limit.shape[:-1], temp0.shape[:-1])
-    batch = np.broadcast_shapes(*shapes)
-    if len(batch) > 1:
-        raise ValueError("time_to_limit_batch_s takes at most one batch axis (n_cases)")
-    n_cases = batch[0] if batch else 1
-    p0, slope, limit = (np.broadcast_to(x, (n_cases, net.n_phases)) for x in (p0, slope, limit))
-    temp0 = np.broadcast_to(temp0, (n_cases, net.n_nodes))
-    lam, phi = _modes(_system_matrix(net, slope), net.capacitance_j_per_k)
-    z0 = np.einsum("bnm,bn->bm", phi, net.capacitance_j_per_k * temp0)
-    u = np.einsum("bnm,bn->bm", phi, _injection(net, p0, _finite("ambient_c", ambient_c)))
-    phi_j = phi[:, net.junction_node, :]
-
-    def junction_c(rows: IntArray, t: FloatArray) -> FloatArray:
-        """Junction temperatures (len(rows), n_t, n_phases) at times t (len(rows), n_t)."""
-        x = -lam[rows, None, :] * t[..., None]
-        # A growing mode may pass float range (inf, or NaN where infinities cancel): the
-        # junction is then beyond any limit, which the caller sees as such.
-        with np.errstate(over="ignore", invalid="ignore"):
-            coef = (
-                np.exp(x) * z0[rows, None, :] + t[..., None] * special.exprel(x) * u[rows, None, :]
-            )
-            return np.asarray(np.einsum("bgm,bpm->bgp", coef, phi_j[rows]))
+    cases, limit = _cases(net, initial_c, p0_w, slope_w_per_k, ambient_c, limit_c)
+    n_cases = limit.shape[0]
+    horizon = _horizon(horizon_s, n_cases)
+    every = np.arange(n_cases)
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
-        held = np.isfinite(limit[rows, None, :])
-        with np.errstate(invalid="ignore"):
-            over = junction_c(rows, t) - limit[rows, None, :]
-        # Past float range: over a limit the phase is held to (hot side), not one it ignores.
-        over = np.where(np.isnan(over), np.where(held, np.inf, -np.inf), over)
-        return np.asarray(np.max(over, axis=-1))
+        return np.asarray(np.max(_above(cases.at_c(rows, t), limit[rows, None, :]), axis=-1))
 
-    rate = np.maximum(np.abs(lam), 1e-300)
-    runaway = lam[:, 0] <= 0.0
-    t_first = 1e-3 / rate.max(axis=1)
-    t_end = np.where(runaway, _GROWTH / rate[:, 0], _SETTLED / rate.min(axis=1))
-    t_end = np.maximum(np.minimum(t_end, horizon), t_first)
-    decades = float(np.log10(t_end / t_first).max())
-    n_grid = min(int(np.ceil(_GRID_PER_DECADE * decades)), _GRID_MAX) + 2
-    frac = np.linspace(0.0, 1.0, n_grid)
-    grid = t_first[:, None] * (t_end / t_first)[:, None] ** frac
-    grid = np.concatenate([np.zeros((n_cases, 1)), grid], axis=1)
-    reached = excess(np.arange(n_cases), grid) >= 0.0
-    found = reached.any(axis=1)
-    first = np.argmax(reached, axis=1)
-    time = np.where(found & (first == 0), 0.0, np.inf)
-    rows = np.flatnonzero(found & (first > 0))
+    grid = cases.grid(horizon)
+    values = excess(every, grid)
+    # Touching the line counts as reaching it; a sign change past it is refined.
+    touched = values >= 0.0
+    first_touch = np.where(touched.any(axis=1), grid[every, np.argmax(touched, axis=1)], np.inf)
+    above = values > 0.0
+    first = np.argmax(above, axis=1)
+    time = np.where(touched[:, 0], 0.0, first_touch)
+    rows = np.flatnonzero(~touched[:, 0] & above.any(axis=1))
+    past = time.copy()  # a time at which the crossing phase is at or past its line
+    # Evaluated alone a grid point may round to the other side of the line: such a crossing is
+    # taken at the bracket's early end (lo) or, past it only by rounding, at its late end.
+    lo, hi = grid[rows, first[rows] - 1], grid[rows, first[rows]]
+    f_lo, f_hi = excess(rows, lo[:, None])[:, 0], excess(rows, hi[:, None])[:, 0]
+    time[rows] = np.where(f_lo > 0.0, lo, np.where(f_hi <= 0.0, hi, time[rows]))
+    past[rows] = np.where(f_lo > 0.0, lo, hi)
+    clean = (f_lo <= 0.0) & (f_hi > 0.0)
+    rows, lo, hi = rows[clean], lo[clean], hi[clean]
     if rows.size:
-        _, time[rows] = bracketed_root(
-            lambda t: excess(rows, t[:, None])[:, 0],
-            grid[rows, first[rows] - 1],
-            grid[rows, first[rows]],
-            rtol=1e-12,
-        )
+        root, late = bracketed_root(lambda t: excess(rows, t[:, None])[:, 0], lo, hi, rtol=1e-12)
+        early = root < time[rows]
+        past[rows] = np.where(early, late, time[rows])
+        time[rows] = np.where(early, root, time[rows])
     time = np.where(time <= horizon, time, np.inf)
     hit = np.isfinite(time)
-    margin = junction_c(np.arange(n_cases), np.where(hit, time, 0.0)[:, None])[:, 0] - limit
+    # The phase that is past its line at the late end of the bracket (the early end, which is
+    # reported, may still be just short of it).
+    margin = _above(cases.at_c(every, np.where(hit, past, 0.0)[:, None])[:, 0], limit)
     phase = np.where(hit, np.argmax(margin, axis=1), -1).astype(np.intp)
-    return LimitCrossings(time_s=time, phase=phase, runaway=runaway)
+    return LimitCrossings(time_s=time, phase=phase, runaway=cases.lam[:, 0] <= 0.0)
+
+
+@dataclass(frozen=True, eq=False)
+class Peaks:
+    """Per case (n_cases,): the largest excess of a junction over its offset, when, and which
+    phase (-1 if none); ``value`` is +inf where a runaway grows without bound in the window."""
+
+    value: FloatArray
+    time_s: FloatArray
+    phase: IntArray
+
+
+_GOLDEN = 0.5 * (np.sqrt(5.0) - 1.0)
+
+
+def peak_batch(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    offset_c: npt.ArrayLike,
+    *,
+    duration_s: npt.ArrayLike,
+) -> Peaks:
+    """Largest max_j (T_j(t) - offset_j) over 0 <= t <= duration with losses P = p0 + s T_j.
+
+    Exact solution on the log grid of :meth:`_Cases.grid` (which ends at the duration, or
+    where the state has settled when the duration is longer or infinite, where the steady
+    state is the limit), the grid's largest point refined by golden-section search between
+    its neighbours (24 steps, to 1e-5 of the interval); the larger of the grid and refined
+    values is kept, so the result never understates the grid. offset_c: (n_phases,) or
+    (n_cases, n_phases), np.inf for a phase to ignore (0 for plain temperatures);
+    duration_s: float or (n_cases,), np.inf allowed. Other shapes as in
+    :func:`time_to_limit_batch_s`.
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    >>> net = build_coupled_network([chain], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> hot = steady_state_c(net, [4.0], [0.0], 25.0)  # 37 and 29 degC, then the loss halves:
+    >>> peak = peak_batch(net, hot, [2.0], [0.0], 25.0, [0.0], duration_s=np.inf)
+    >>> print(f"{peak.value[0]:.3f} degC at {peak.time_s[0]:.1f} s")  # the start is the peak
+    37.000 degC at 0.0 s
+    >>> cold = np.array([[25.0, 25.0]])
+    >>> print(f"{peak_batch(net, cold, [2.0], [0.0], 25.0, [0.0], duration_s=1e9).value[0]:.3f}")
+    31.000
+    """
+    cases, offset = _cases(net, initial_c, p0_w, slope_w_per_k, ambient_c, offset_c)
+    n_cases = offset.shape[0]
+    duration = np.array(np.broadcast_to(np.asarray(duration_s, dtype=np.float64), (n_cases,)))
+    if np.any(np.isnan(duration)) or np.any(duration < 0.0):
+        raise ValueError("duration_s must be >= 0")
+    every = np.arange(n_cases)
+
+    def excess(rows: IntArray, t: FloatArray) -> FloatArray:
+        return np.asarray(np.max(_above(cases.at_c(rows, t), offset[rows, None, :]), axis=-1))
+
+    # Every node warming at t = 0, dT/dt = Phi (u - lam z0) >= 0, keeps warming: dT/dt obeys
+    # the same linear system, whose propagator exp(-C^-1 A t) is non-negative because A has
+    # no positive off-diagonal entry (Berman and Plemmons, ch. 6). Such a case peaks at the
+    # end of its window (or at its steady state), so only the others need the grid.
+    warming = np.einsum("bnm,bm->bn", cases.phi, cases.u - cases.lam * cases.z0)
+    rising = np.all(warming >= 0.0, axis=1)
+    unbounded = (cases.lam[:, 0] <= 0.0) & ~np.isfinite(duration)  # grows past every bound
+    settled = _SETTLED / np.maximum(cases.lam[:, 0], 1e-300)
+    end = np.where(np.isfinite(duration), duration, np.where(unbounded, 0.0, settled))
+    value = np.where(unbounded, np.inf, -np.inf)
+    time = np.where(unbounded, np.inf, 0.0)
+    up = np.flatnonzero(rising & ~unbounded)
+    if up.size:
+        ends = np.stack([np.zeros(up.size), end[up]], axis=1)
+        values = excess(up, ends)
+        pick = np.argmax(values, axis=1)
+        value[up], time[up] = values[np.arange(up.size), pick], ends[np.arange(up.size), pick]
+    rows = np.flatnonzero(~rising & ~unbounded)
+    grid = np.zeros((n_cases, 1))
+    if rows.size:
+        grid = cases.grid(np.where(end > 0.0, end, 1e-300), _PEAK_PER_DECADE)
+        grid = np.where(end[:, None] > 0.0, grid, 0.0)
+        values = excess(rows, grid[rows])
+        best = np.argmax(values, axis=1)
+        value[rows] = values[np.arange(rows.size), best]
+        time[rows] = grid[rows, best]
+        inner = (best > 0) & (best < grid.shape[1] - 1)
+        rows, best = rows[inner], best[inner]
+    if rows.size:
+        lo, hi = grid[rows, best - 1], grid[rows, best + 1]
+        a, b = hi - _GOLDEN * (hi - lo), lo + _GOLDEN * (hi - lo)
+        f_a, f_b = (excess(rows, x[:, None])[:, 0] for x in (a, b))
+        for _ in range(_PEAK_STEPS):  # one new point per step: the other is reused
+            left = f_a >= f_b
+            lo, hi = np.where(left, lo, a), np.where(left, b, hi)
+            new = np.where(left, hi - _GOLDEN * (hi - lo), lo + _GOLDEN * (hi - lo))
+            f_new = excess(rows, new[:, None])[:, 0]
+            a, f_a, b, f_b = (
+                np.where(left, new, b),
+                np.where(left, f_new, f_b),
+                np.where(left, a, new),
+                np.where(left, f_a, f_new),
+            )
+        pick = f_a >= f_b
+        t_mid, v_mid = np.where(pick, a, b), np.where(pick, f_a, f_b)
+        better = v_mid > value[rows]
+        value[rows] = np.where(better, v_mid, value[rows])
+        time[rows] = np.where(better, t_mid, time[rows])
+    temps = _above(cases.at_c(every, np.where(np.isfinite(time), time, 0.0)[:, None])[:, 0], offset)
+    phase = np.where(np.isfinite(offset).any(axis=1), np.argmax(temps, axis=1), -1)
+    return Peaks(value=value, time_s=time, phase=phase.astype(np.intp))
+
+
+def propagate_c(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    t_s: npt.ArrayLike,
+) -> FloatArray:
+    """Exact node temperatures (n_cases, n_t, n_nodes) at times t_s (n_cases, n_t) >= 0 from
+    ``initial_c`` with losses P = p0 + s T_j held; shapes as in :func:`time_to_limit_batch_s`.
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    >>> net = build_coupled_network([chain], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> np.round(propagate_c(net, [25.0, 25.0], [2.0], [0.0], 25.0, [[0.0, 1e4]]), 3).tolist()
+    [[[25.0, 25.0], [31.0, 27.0]]]
+    """
+    cases, _ = _cases(net, initial_c, p0_w, slope_w_per_k, ambient_c, np.zeros(net.n_phases))
+    n_cases = cases.lam.shape[0]
+    t = _finite("t_s", t_s, nonnegative=True)
+    if t.ndim != 2 or t.shape[0] not in (1, n_cases):
+        raise ValueError("t_s must have shape (n_cases, n_t)")
+    return cases.at_c(np.arange(n_cases), np.broadcast_to(t, (n_cases, t.shape[1])), nodes=True)
+
+
+def piecewise_c(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    duration_s: npt.ArrayLike,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+) -> FloatArray:
+    """Node temperatures (n_stretches + 1, n_nodes) at the ends of consecutive stretches.
+
+    Stretch k lasts duration_s[k] with losses P = p0_k + s_k T_j held as functions of the
+    temperature (not of time), so each stretch is solved exactly: no step, no hold error.
+    The eigen-decompositions are batched (256 stretches at a time); the chaining of one
+    stretch's end state into the next is the one sequential part, a few small products per
+    stretch. Row 0 is ``initial_c``. A runaway stretch long enough to leave float range
+    gives inf from there on.
+
+    duration_s: (n_stretches,) >= 0; p0_w, slope_w_per_k: (n_stretches, n_phases).
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    >>> net = build_coupled_network([chain], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> ends = piecewise_c(net, [25.0, 25.0], [1e4, 1e4], [[2.0], [0.0]], [[0.0], [0.0]], 25.0)
+    >>> np.round(ends, 3).tolist()  # settles at 25 + 2 W x (2 + 1) K/W, then cools again
+    [[25.0, 25.0], [31.0, 27.0], [25.0, 25.0]]
+    """
+    duration = _finite("duration_s", duration_s, nonnegative=True)
+    p0 = _phase_values(net, "p0_w", p0_w)
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    if duration.ndim != 1 or p0.shape != (duration.size, net.n_phases) or slope.shape != p0.shape:
+        raise ValueError("duration_s (n,) and p0_w, slope_w_per_k (n, n_phases) must agree")
+    temp = np.array(_finite("initial_c", initial_c), dtype=np.float64)
+    if temp.shape != (net.n_nodes,):
+        raise ValueError(f"initial_c must have shape (n_nodes,) = ({net.n_nodes},)")
+    out = np.empty((duration.size + 1, net.n_nodes))
+    out[0] = temp
+    cap = net.capacitance_j_per_k
+    ambient = _finite("ambient_c", ambient_c)
+    for lo in range(0, duration.size, 256):
+        part = slice(lo, min(duration.size, lo + 256))
+        lam, phi = _modes(_system_matrix(net, slope[part]), cap)
+        u = np.einsum("bnm,bn->bm", phi, _injection(net, p0[part], ambient))
+        x = -lam * duration[part, None]
+        with np.errstate(over="ignore", invalid="ignore"):
+            decay, gain = np.exp(x), duration[part, None] * special.exprel(x) * u
+            for k in range(lam.shape[0]):
+                temp = phi[k] @ (decay[k] * (phi[k].T @ (cap * temp)) + gain[k])
+                out[lo + k + 1] = temp
+    return np.where(np.isnan(out), np.inf, out)
 
 
 def time_to_limit_s(

@@ -90,9 +90,19 @@ def test_current_bound_equal_phases() -> None:
     masks, _ = loss_cases(N, 1)
     res = capacity(active=np.vstack([np.ones(N, dtype=bool), masks]))
     np.testing.assert_allclose(res.capacity_a, [4 * 40.0] + [3 * 40.0] * N)
-    assert res.binding_kind.tolist() == ["current"] * (N + 1)
+    assert res.binding_kind.tolist() == ["rating"] * (N + 1)
     assert np.all(np.isnan(res.junction_c_at_capacity[1:][~masks]))
     assert np.all(res.junction_c_at_capacity[1:][masks] < 150.0)
+
+
+def test_a_trip_current_below_the_rating_binds_and_says_so() -> None:
+    trip = np.array([40.0, 35.0, 40.0, 40.0])
+    res = capacity(active=np.ones((1, N), dtype=bool), trip_current_a=trip)
+    np.testing.assert_allclose(res.capacity_a, [4 * 35.0])
+    assert res.binding_kind.tolist() == ["trip_current"]
+    assert res.binding_phase.tolist() == [1]
+    with pytest.raises(ValueError, match="trip_current_a"):
+        capacity(trip_current_a=np.zeros(N))
 
 
 def test_weights_are_renormalised_over_active_phases() -> None:
@@ -109,7 +119,7 @@ def test_thermal_bound_lands_on_the_limit() -> None:
     limit = np.array([48.0, 50.0, 51.0, 52.0])  # at full rating: 54.2 (all), 52.6 (three)
     active = np.array([[True] * 4, [False, True, True, True]])
     res = capacity(active=active, temp_limit_c=limit)
-    assert res.binding_kind.tolist() == ["thermal", "thermal"]
+    assert res.binding_kind.tolist() == ["warning_line", "warning_line"]
     assert res.binding_phase.tolist() == [0, 1]
     for k in range(2):
         share = active[k] / active[k].sum()
@@ -131,7 +141,7 @@ def test_no_active_phase_gives_nothing() -> None:
 def test_limit_below_idle_temperature_gives_zero_thermal() -> None:
     res = capacity(temp_limit_c=np.full(N, 24.0))
     assert res.capacity_a[0] == 0.0
-    assert res.binding_kind[0] == "thermal"
+    assert res.binding_kind[0] == "warning_line"
 
 
 def test_runaway_below_the_current_limit() -> None:
@@ -148,7 +158,7 @@ def test_runaway_below_the_current_limit() -> None:
         temp_limit_c=np.full(N, 1.0e9),
         ambient_c=25.0,
     )
-    assert res.binding_kind[0] == "thermal"
+    assert res.binding_kind[0] == "warning_line"
     cap = res.capacity_a[0]
     assert 0.0 < cap < 4 * 200.0
     p0, slope = loss_coefficients(hot, np.full(N, cap * 1.001 / N))

@@ -385,3 +385,20 @@ def test_bracketed_root_handles_kinks_and_infinities() -> None:
     assert np.all(f(hi) > 0.0)
     with pytest.raises(ValueError, match="bracket"):
         bracketed_root(f, np.array([2.0]), np.array([3.0]), rtol=1e-6)
+
+
+def test_a_runaway_past_float_range_beside_an_ignored_phase_is_not_a_nan() -> None:
+    """Regression (found by the ingest property test): a runaway overflowing to inf minus the
+    +inf line of an ignored phase gave NaN and a RuntimeWarning instead of "crossed"."""
+    from phaseward.physics.thermal import peak_batch
+
+    chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    net = build_coupled_network([chain] * 2, board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    slope = np.array([5.0, 5.0])  # far past the conductance to ambient: no steady state
+    peak = peak_batch(net, np.full(3, 25.0), [1.0, 1.0], slope, 25.0, [np.inf, 0.0],
+                      duration_s=1e9)  # fmt: skip
+    assert peak.value[0] == np.inf
+    assert peak.phase[0] == 1
+    hit = time_to_limit_batch_s(net, np.full(3, 25.0), [1.0, 1.0], slope, 25.0, [np.inf, 1e300])
+    assert np.isfinite(hit.time_s[0])
+    assert hit.phase[0] == 1

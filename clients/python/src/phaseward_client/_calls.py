@@ -34,6 +34,7 @@ from phaseward_client.models import (
     Model,
     Rail,
     RailStatus,
+    Ratings,
     Reliability,
     SampleWindow,
     Screening,
@@ -241,6 +242,13 @@ def screening(rail_id: str, depth: int) -> Call[Screening]:
     return Call("GET", rail_path(rail_id, "/screening"), model(Screening), params=params)
 
 
+def ratings(rail_id: str, durations_s: Sequence[float], pairs: bool) -> Call[Ratings]:
+    params: Params = [("duration_s", str(finite(d, "durations_s"))) for d in durations_s]
+    if pairs:
+        params.append(("pairs", "true"))
+    return Call("GET", rail_path(rail_id, "/ratings"), model(Ratings), params=params)
+
+
 def forecast(
     rail_id: str,
     *,
@@ -249,7 +257,6 @@ def forecast(
     horizon_s: float | None,
     points: int | None,
     ambient_c: float | None,
-    step_s: float | None,
 ) -> Call[Forecast]:
     body: dict[str, Any] = {"drop": [d.to_json() for d in drop]}
     if load is not None:
@@ -260,8 +267,6 @@ def forecast(
         body["points"] = int(points)
     if ambient_c is not None:
         body["ambient_c"] = finite(ambient_c, "ambient_c")
-    if step_s is not None:
-        body["step_s"] = finite(step_s, "step_s")
     return Call("POST", rail_path(rail_id, "/forecast"), model(Forecast), body=encode(body))
 
 

@@ -21,6 +21,7 @@ from phaseward_client.models import (
     IngestResult,
     Rail,
     RailStatus,
+    Ratings,
     Reliability,
     SampleWindow,
     Screening,
@@ -195,6 +196,14 @@ class AsyncClient:
         """Every single (depth 1) or pair (depth 2) of further phase losses, weakest first."""
         return await self._run(_calls.screening(rail_id, depth))
 
+    async def ratings(
+        self, rail_id: str, *, durations_s: Sequence[float] = (), pairs: bool = False
+    ) -> Ratings:
+        """Time-limited ratings from the present state: the highest constant load for each
+        duration (default 1 min, 10 min, 1 h; indefinitely always last) for the rail as it
+        is and after every further loss (and pair, with ``pairs``)."""
+        return await self._run(_calls.ratings(rail_id, durations_s, pairs))
+
     async def forecast(
         self,
         rail_id: str,
@@ -204,14 +213,13 @@ class AsyncClient:
         horizon_s: float | None = None,
         points: int | None = None,
         ambient_c: float | None = None,
-        step_s: float | None = None,
     ) -> Forecast:
         """Junction temperatures from the present state under a load profile and phase drops
         (``None`` leaves a setting to the service's default)."""
         return await self._run(
             _calls.forecast(
                 rail_id, load=load, drop=drop, horizon_s=horizon_s, points=points,
-                ambient_c=ambient_c, step_s=step_s,
+                ambient_c=ambient_c,
             )
         )  # fmt: skip
 

@@ -197,6 +197,8 @@ class LastSample(Model):
 
 @dataclass(frozen=True)
 class CapacityStatus(Model):
+    """``binding``: ``rating``, ``trip_current``, ``warning_line`` or ``none``."""
+
     capacity_a: float
     binding_phase: int | None
     binding: str
@@ -209,11 +211,11 @@ class CapacityStatus(Model):
 class ThermalStatus(Model):
     hottest_phase: int | None
     hottest_temp_c: float | None
-    margin_k: float | None
+    margin_to_limit_k: float | None
     margin_to_warning_k: float | None
     steady_junction_c: list[float | None]
-    time_to_limit_s: float | None
-    limit_phase: int | None
+    time_to_warning_s: float | None
+    warning_phase: int | None
     runaway: bool
     estimated_junction_c: list[float]
     junction_std_k: list[float]
@@ -229,9 +231,11 @@ class ScreeningCase(Model):
     binding: str
     steady_hottest_c: float | None
     runaway: bool
-    time_to_limit_s: float | None
-    limit_phase: int | None
+    time_to_warning_s: float | None
+    warning_phase: int | None
     overloads: bool
+    cascade: list[CascadeStep] = field(default_factory=list)  # screening only
+    down_at_s: float | None = None
 
 
 @dataclass(frozen=True)
@@ -320,21 +324,87 @@ class Peak(Model):
 
 
 @dataclass(frozen=True)
+class CascadeStep(Model):
+    """A phase leaving the rail in a forecast: ``cause`` is ``requested``, ``trip_current`` or
+    ``junction_limit``."""
+
+    at_s: float
+    phase: int
+    cause: str
+    current_a: float | None
+
+
+@dataclass(frozen=True)
+class Stretch(Model):
+    """A stretch of a forecast with constant load and constant set of carrying phases."""
+
+    from_s: float
+    to_s: float
+    load_a: float
+    active_phases: list[int]
+    current_a: list[float]
+    above_rating: list[int]
+    above_trip: list[int]
+    peak_c: float | None
+    peak_phase: int
+
+
+@dataclass(frozen=True)
 class Forecast(Model):
+    """``verdict``: ``holds``, ``overloaded`` or ``down`` (from ``verdict_at_s``)."""
+
     rail_id: str
     version: int
     start_s: float | None
-    dt_s: float
+    verdict: str
+    verdict_at_s: float | None
+    verdict_cause: str | None
     time_s: list[float]
     junction_c: list[list[float]]
     board_c: list[float]
     load_a: list[float]
     peak: Peak | None
+    time_to_warning_s: float | None
+    warning_phase: int | None
     time_to_limit_s: float | None
     limit_phase: int | None
     steady_junction_c: list[float] | None
-    margin_k: float | None
+    margin_to_warning_k: float | None
+    margin_to_limit_k: float | None
     runaway: bool
+    cascade: list[CascadeStep]
+    stretches: list[Stretch]
+    caution: str
+
+
+@dataclass(frozen=True)
+class Rating(Model):
+    """The highest constant load for ``duration_s`` (None: indefinitely); ``binding`` is
+    ``rating``, ``trip_current``, ``warning_line`` or ``none``."""
+
+    duration_s: float | None
+    rating_a: float
+    headroom_a: float
+    binding: str
+    binding_phase: int | None
+
+
+@dataclass(frozen=True)
+class RatingCase(Model):
+    lose_phases: list[int]
+    ratings: list[Rating]
+
+
+@dataclass(frozen=True)
+class Ratings(Model):
+    """Time-limited ratings: the rail as it is (``cases[0]``) and after each further loss."""
+
+    rail_id: str
+    version: int
+    start_s: float | None
+    load_a: float
+    durations_s: list[float | None]
+    cases: list[RatingCase]
     caution: str
 
 

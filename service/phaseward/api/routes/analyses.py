@@ -7,12 +7,14 @@ from typing import Annotated
 import numpy as np
 import numpy.typing as npt
 from fastapi import APIRouter, Query
+from pydantic import Field
 
 from phaseward.api.auth import Operator, RailOperator
 from phaseward.api.deps import ReadSessionDep, SessionsDep
 from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RailId
 from phaseward.api.schemas.analyses import (
+    MAX_HORIZON_S,
     BreakerIn,
     BreakerOut,
     CalibrationIn,
@@ -20,15 +22,17 @@ from phaseward.api.schemas.analyses import (
     ForecastIn,
     ForecastOut,
     LoadProfile,
+    RatingsOut,
     ReliabilityOut,
     ScreeningOut,
 )
 from phaseward.errors import Forbidden, InvalidInput
 from phaseward.monitor import breaker_check, calibrations
-from phaseward.monitor.forecast import Drop, forecast
+from phaseward.monitor.forecast import Drop, Profile, forecast
 from phaseward.monitor.live import live_rail
+from phaseward.monitor.ratings import DEFAULT_DURATIONS_S, ratings
 from phaseward.monitor.reliability import mission
-from phaseward.monitor.screening import screen
+from phaseward.monitor.screening import cascades, screen
 
 router = APIRouter(prefix="/v1/rails", tags=["analyses"], responses=ERROR_RESPONSES)
 F64 = npt.NDArray[np.float64]
@@ -46,7 +50,12 @@ def get_screening(
         live.model, active=live.active, weights=live.weights, load_a=live.load_a,
         nodes_c=live.nodes_c, ambient_c=live.ambient_c, depth=depth,
     )  # fmt: skip
-    rows = result.rows()
+    views = cascades(
+        live.model, lost=result.lost, active=live.active, weights=live.weights,
+        load_a=live.load_a, nodes_c=live.nodes_c, ambient_c=live.ambient_c,
+    )  # fmt: skip
+    by_loss = {tuple(result.lost[j].tolist()): v for j, v in enumerate(views)}
+    rows = [r | by_loss[tuple(r["lose_phases"])] for r in result.rows()]
     return ScreeningOut.model_validate(
         {
             "rail_id": rail_id,
@@ -60,21 +69,22 @@ def get_screening(
     )
 
 
-def _profile(load: LoadProfile | None, present_a: float) -> tuple[F64, F64, bool]:
-    """(times, currents, stepwise) of the profile."""
+def _profile(load: LoadProfile | None, present_a: float) -> Profile:
     if load is None or load.constant_a is not None:
         value = present_a if load is None or load.constant_a is None else load.constant_a
-        return np.zeros(1), np.array([value]), True
+        return Profile(np.zeros(1), np.array([value]), stepwise=True)
     rows = load.steps if load.steps is not None else load.points
     assert rows is not None  # the schema guarantees one shape
     times = np.array([r.at_s for r in rows])
-    return times, np.array([r.current_a for r in rows]), load.steps is not None
+    return Profile(times, np.array([r.current_a for r in rows]), stepwise=load.steps is not None)
 
 
 @router.post("/{rail_id}/forecast")
 def post_forecast(
     rail_id: RailId, body: ForecastIn, session: ReadSessionDep, _: RailOperator
 ) -> ForecastOut:
+    """Junction and board temperatures under a load profile from the present estimated
+    state, exact per stretch of constant load and phase set, with the cascade of trips."""
     live = live_rail(session, rail_id)
     for k, d in enumerate(body.drop):
         if d.phase >= live.model.n_phases:
@@ -82,20 +92,37 @@ def post_forecast(
                 f"phase {d.phase} is out of range for {live.model.n_phases} phases",
                 field=f"drop[{k}].phase",
             )
-    times, values, stepwise = _profile(body.load, live.load_a)
-
-    def load_at(t: F64) -> F64:
-        if stepwise:
-            at = np.searchsorted(times, t, side="right") - 1
-            return values[np.clip(at, 0, None)]
-        return np.interp(t, times, values)
-
     result = forecast(
-        live, load_at=load_at, drops=[Drop(d.phase, d.at_s) for d in body.drop],
-        horizon_s=body.horizon_s, points=body.points, ambient_c=body.ambient_c,
-        step_s=body.step_s,
+        live.model, active=live.active, weights=live.weights, nodes_c=live.nodes_c,
+        ambient_c=live.ambient_c if body.ambient_c is None else body.ambient_c,
+        profile=_profile(body.load, live.load_a), drops=[Drop(d.phase, d.at_s) for d in body.drop],
+        horizon_s=body.horizon_s, points=body.points,
     )  # fmt: skip
     return ForecastOut.model_validate(
+        {"rail_id": rail_id, "version": live.model.version, "start_s": live.t_s, **result}
+    )
+
+
+@router.get("/{rail_id}/ratings")
+def get_ratings(
+    rail_id: RailId,
+    session: ReadSessionDep,
+    _: RailOperator,
+    duration_s: Annotated[
+        list[Annotated[float, Field(gt=0, le=MAX_HORIZON_S * 30)]] | None,
+        Query(
+            max_length=12,
+            description="durations in s (repeat the parameter); default 60, 600 and 3600; "
+            "indefinitely is always added",
+        ),
+    ] = None,
+    pairs: Annotated[bool, Query(description="also every pair of further losses")] = False,
+) -> RatingsOut:
+    """Time-limited ratings from the present estimated state: for the rail as it is and for
+    every further loss, the highest constant load it carries for each duration."""
+    live = live_rail(session, rail_id)
+    result = ratings(live, durations_s=duration_s or DEFAULT_DURATIONS_S, pairs=pairs)
+    return RatingsOut.model_validate(
         {"rail_id": rail_id, "version": live.model.version, "start_s": live.t_s, **result}
     )
 

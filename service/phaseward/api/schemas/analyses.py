@@ -13,17 +13,38 @@ from phaseward.api.schemas.rails import FosterStage as FosterStageIn
 MAX_HORIZON_S = 24 * 3600.0
 
 
+class CascadeStep(BaseModel):
+    at_s: float
+    phase: int
+    cause: Literal["requested", "trip_current", "junction_limit"] = Field(
+        description="requested drop; its current above its trip current; its junction at its "
+        "limit (over-temperature shutdown)"
+    )
+    current_a: float | None = Field(description="the phase's current when it tripped")
+
+
 class ScreeningCase(BaseModel):
     lose_phases: list[int]
     capacity_a: float
     headroom_a: float = Field(description="capacity minus the present load")
     binding_phase: int | None
-    binding: str
+    binding: str = Field(description="rating, trip_current, warning_line or none")
     steady_hottest_c: float | None = Field(description="None: no steady state (runaway)")
     runaway: bool
-    time_to_limit_s: float | None = Field(description="None: not within the forecast horizon")
-    limit_phase: int | None
+    time_to_warning_s: float | None = Field(
+        description="first time a junction reaches its warning line; None: not within the "
+        "forecast horizon"
+    )
+    warning_phase: int | None
     overloads: bool
+    cascade: list[CascadeStep] = Field(
+        default_factory=list,
+        description="what the loss sets off at the present load within the forecast horizon: "
+        "trips on current at once, shutdowns at the junction limit later (screening only)",
+    )
+    down_at_s: float | None = Field(
+        default=None, description="when the cascade leaves no phase (None: the rail holds)"
+    )
 
 
 class ScreeningOut(BaseModel):
@@ -34,6 +55,35 @@ class ScreeningOut(BaseModel):
     secure: bool = Field(description="no case overloads the rail")
     overloading: list[list[int]] = Field(description="the losses that would overload the rail")
     cases: list[ScreeningCase] = Field(description="weakest first")
+    caution: str = CAUTION
+
+
+class Rating(BaseModel):
+    duration_s: float | None = Field(description="None: indefinitely (steady state included)")
+    rating_a: float = Field(
+        description="highest constant rail current for the duration with no junction past its "
+        "warning line and no phase past its current rating or trip current"
+    )
+    headroom_a: float = Field(description="rating minus the present load")
+    binding: Literal["rating", "trip_current", "warning_line", "none"] = Field(
+        description="what binds: a phase's current rating or trip current, or a junction's "
+        "warning line (limit minus margin); none: no phase left"
+    )
+    binding_phase: int | None
+
+
+class RatingCase(BaseModel):
+    lose_phases: list[int] = Field(description="further losses now; empty: the rail as it is")
+    ratings: list[Rating] = Field(description="one per duration, in the order of durations_s")
+
+
+class RatingsOut(BaseModel):
+    rail_id: str
+    version: int
+    start_s: float | None = Field(description="time of the state the ratings start from")
+    load_a: float = Field(description="the present load")
+    durations_s: list[float | None] = Field(description="ascending; None: indefinitely")
+    cases: list[RatingCase] = Field(description="the rail as it is first, then each loss")
     caution: str = CAUTION
 
 
@@ -71,12 +121,12 @@ class ForecastIn(Contract):
     load: LoadProfile | None = Field(default=None, description="default: the present load")
     drop: list[PhaseDrop] = Field(default_factory=list, max_length=64)
     horizon_s: Annotated[float, Field(gt=0, le=MAX_HORIZON_S)] = 3600.0
-    points: Annotated[int, Field(ge=10, le=20_000)] = 500
-    ambient_c: Celsius | None = None
-    step_s: Annotated[float, Field(gt=0)] | None = Field(
-        default=None,
-        description="propagation step; default horizon / 5000, never below horizon / 200000",
+    points: Annotated[int, Field(ge=10, le=20_000)] = Field(
+        default=500,
+        description="trajectory rows (about): evenly spaced, plus the peak, crossings and "
+        "stretch edges; the computation itself is exact and does not depend on it",
     )
+    ambient_c: Celsius | None = None
 
 
 class Peak(BaseModel):
@@ -85,21 +135,52 @@ class Peak(BaseModel):
     temp_c: float
 
 
+class Stretch(BaseModel):
+    from_s: float
+    to_s: float
+    load_a: float = Field(description="held over the stretch (a ramp: its higher end)")
+    active_phases: list[int]
+    current_a: list[float] = Field(description="per phase")
+    above_rating: list[int] = Field(description="phases above their current rating")
+    above_trip: list[int] = Field(description="phases that tripped on current at its start")
+    peak_c: float | None
+    peak_phase: int
+
+
 class ForecastOut(BaseModel):
     rail_id: str
     version: int
     start_s: float | None = Field(description="time of the state the forecast starts from")
-    dt_s: float
+    verdict: Literal["holds", "overloaded", "down"] = Field(
+        description="down: no phase left to carry the load; overloaded: a phase above its "
+        "rating, a trip, or a junction at its warning line"
+    )
+    verdict_at_s: float | None
+    verdict_cause: str | None
     time_s: list[float]
     junction_c: list[list[float]] = Field(description="per row, one value per phase")
     board_c: list[float]
     load_a: list[float]
     peak: Peak | None
-    time_to_limit_s: float | None = Field(description="first time any junction reaches its limit")
+    time_to_warning_s: float | None = Field(
+        description="first time a carrying phase's junction reaches its warning line (limit "
+        "minus margin)"
+    )
+    warning_phase: int | None
+    time_to_limit_s: float | None = Field(
+        description="first time a carrying phase's junction reaches its limit (it then drops)"
+    )
     limit_phase: int | None
     steady_junction_c: list[float] | None
-    margin_k: float | None = Field(description="smallest distance to a limit over the horizon")
+    margin_to_warning_k: float | None = Field(
+        description="smallest distance below a warning line over the horizon (negative: past)"
+    )
+    margin_to_limit_k: float | None = Field(
+        description="smallest distance below a junction limit over the horizon"
+    )
     runaway: bool
+    cascade: list[CascadeStep]
+    stretches: list[Stretch]
     caution: str = CAUTION
 
 

@@ -65,7 +65,8 @@ class CapacityStatus(BaseModel):
     )
     binding_phase: int | None
     binding: str = Field(
-        description="current (a phase's rating), thermal (its junction limit), none"
+        description="what binds the capacity: rating (a phase's current rating), trip_current "
+        "(its trip current), warning_line (its junction's warning line in steady state), none"
     )
     headroom_a: float = Field(description="capacity minus the present load")
     headroom_rated_a: float = Field(description="capacity minus the load the rail must deliver")
@@ -78,13 +79,18 @@ class CapacityStatus(BaseModel):
 class ThermalStatus(BaseModel):
     hottest_phase: int | None
     hottest_temp_c: float | None
-    margin_k: float | None = Field(
+    margin_to_limit_k: float | None = Field(
         description="junction limit minus the hottest estimated junction temperature"
     )
-    margin_to_warning_k: float | None
+    margin_to_warning_k: float | None = Field(
+        description="that phase's warning line (limit minus margin) minus its estimate"
+    )
     steady_junction_c: list[float | None] = Field(description="steady state at the present load")
-    time_to_limit_s: float | None = Field(description="None: not reached within the horizon")
-    limit_phase: int | None
+    time_to_warning_s: float | None = Field(
+        description="first time a junction reaches its warning line at the present load; None: "
+        "not within the horizon"
+    )
+    warning_phase: int | None
     runaway: bool
     estimated_junction_c: list[float] = Field(
         description="junction temperatures estimated from the model and the sensors (Kalman)"

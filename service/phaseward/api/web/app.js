@@ -135,11 +135,12 @@ async function loadAnalyses(d) {
   d.analysedFor = status ? judged(status) : null;
   const present = status && status.load_a != null ? status.load_a : null;
   const loadA = present ?? (status ? status.rated_load_a : null);
-  const [screening, forecast] = await Promise.allSettled([
+  const [screening, forecast, ratings] = await Promise.allSettled([
     api.screening(d.id, d.depth),
     loadA == null
       ? Promise.reject(new Error('the rail has no load to forecast from'))
       : api.forecast(d.id, { load: { constant_a: loadA }, horizon_s: HORIZON_S, points: 120 }),
+    api.ratings(d.id),
   ]);
   if (state.detail !== d || seq !== d.analysesSeq) return; // left, or a newer run is on its way
   d.screening = screening.status === 'fulfilled' ? screening.value : null;
@@ -147,8 +148,11 @@ async function loadAnalyses(d) {
   d.forecast = forecast.status === 'fulfilled' ? forecast.value : null;
   d.forecastError = forecast.status === 'rejected' ? forecast.reason : null;
   d.forecastLoad = { loadA, note: present == null ? 'no telemetry yet: the rated load' : '' };
+  d.ratings = ratings.status === 'fulfilled' ? ratings.value : null;
+  d.ratingsError = ratings.status === 'rejected' ? ratings.reason : null;
   renderScreening();
   renderForecast();
+  renderRatings();
 }
 
 function scheduleAnalyses() {
@@ -333,6 +337,7 @@ function newDetail(id) {
   return {
     id, spec: null, statusError: null, events: [], nextCursor: undefined, eventsError: null,
     screening: null, screeningError: null, forecast: null, forecastError: null, forecastLoad: null,
+    ratings: null, ratingsError: null,
     depth: 1, onlyOpen: false, forecastTableOpen: false, analysesSeq: 0, analysedFor: null,
   };
 }
@@ -360,6 +365,7 @@ function mountRail(d) {
       section('phases', 'Phases'),
       section('forecast', 'Thermal forecast, next hour', 'At the present load; from the state of the latest sample.'),
       section('screening', 'N\u22121 screening', 'What one more loss would leave, weakest first.'),
+      section('ratings', 'How much load, for how long', 'The highest constant load from the present state, as the rail is and after one more loss, with no junction past its warning line and no phase past its current rating or trip current.'),
       section('events', 'Events', 'Newest first, live.')));
 }
 
@@ -415,9 +421,9 @@ function renderCapacity(st) {
     replaceKeepingFocus(body, h('p', { class: 'empty' }, `No telemetry yet. The rail must deliver ${fmt.amps(st.rated_load_a)}.`));
     return;
   }
-  const by = cap.binding === 'current'
-    ? `phase ${cap.binding_phase}'s current rating`
-    : cap.binding === 'thermal' ? `phase ${cap.binding_phase}'s junction temperature` : 'nothing (no active phase)';
+  const by = cap.binding === 'rating' ? `phase ${cap.binding_phase}'s current rating`
+    : cap.binding === 'trip_current' ? `phase ${cap.binding_phase}'s trip current`
+      : cap.binding === 'warning_line' ? `phase ${cap.binding_phase}'s junction warning line` : 'nothing (no active phase)';
   const short = cap.headroom_a < 0;
   replaceKeepingFocus(body,
     h('div', { class: 'chart-box' }, capacityChart({ capacity: cap.capacity_a, load: st.load_a, rated: st.rated_load_a })),
@@ -445,10 +451,10 @@ function renderThermal(st, spec) {
   replaceKeepingFocus(body,
     h('dl', { class: 'facts' },
       fact('Hottest junction', hot == null ? fmt.dash : h('span', { class: `lvl-text lvl-${lvl}` }, `${fmt.celsius(th.hottest_temp_c)}, phase ${hot}`)),
-      fact('Margin to its limit', fmt.kelvin(th.margin_k)),
+      fact('Margin to its limit', fmt.kelvin(th.margin_to_limit_k)),
       fact('Margin to warning line', h('span', { class: th.margin_to_warning_k != null && th.margin_to_warning_k < 0 ? 'neg' : '' }, fmt.kelvin(th.margin_to_warning_k))),
       fact('Reaches warning line', th.runaway ? 'thermal runaway: no steady state'
-        : th.time_to_limit_s == null ? 'not within the watch horizon' : `in ${fmt.duration(th.time_to_limit_s)} (phase ${th.limit_phase})`),
+        : th.time_to_warning_s == null ? 'not within the watch horizon' : `in ${fmt.duration(th.time_to_warning_s)} (phase ${th.warning_phase})`),
       fact('Board', fmt.celsius(th.board_c))));
 }
 
@@ -568,6 +574,12 @@ function renderForecast() {
   }));
 }
 
+function cascadeText(c) {
+  const steps = (c.cascade || []).map((x) => `phase ${x.phase} ${x.cause === 'trip_current' ? 'trips' : 'overheats'} after ${fmt.duration(x.at_s)}`);
+  if (c.down_at_s != null) steps.push(`the rail is down after ${fmt.duration(c.down_at_s)}`);
+  return steps.length ? steps.join(', then ') : 'holds';
+}
+
 function renderScreening() {
   const d = state.detail;
   const body = $('sec-screening-body');
@@ -593,16 +605,42 @@ function renderScreening() {
     h('th', { scope: 'row' }, `phase${c.lose_phases.length > 1 ? 's' : ''} ${c.lose_phases.join(' + ')}`),
     h('td', { class: 'num' }, fmt.amps(c.capacity_a)),
     h('td', { class: `num${c.headroom_a < 0 ? ' neg' : ''}` }, fmt.amps(c.headroom_a)),
-    h('td', { class: 'nowrap' }, c.binding === 'current' ? `phase ${c.binding_phase} current` : c.binding === 'thermal' ? `phase ${c.binding_phase} junction` : fmt.dash),
+    h('td', { class: 'nowrap' }, c.binding === 'none' ? fmt.dash : `phase ${c.binding_phase} ${BINDS[c.binding] ?? c.binding}`),
     h('td', { class: 'num' }, c.runaway ? 'runaway' : fmt.celsius(c.steady_hottest_c)),
-    h('td', { class: 'num' }, c.time_to_limit_s == null ? 'not within horizon' : `${fmt.duration(c.time_to_limit_s)} (phase ${c.limit_phase})`),
+    h('td', { class: 'num' }, c.time_to_warning_s == null ? 'not within horizon' : `${fmt.duration(c.time_to_warning_s)} (phase ${c.warning_phase})`),
+    h('td', {}, cascadeText(c)),
     h('td', {}, c.overloads ? tag('overloads', 'overloads') : tag('carries', 'carries the load'))));
   replaceKeepingFocus(body, controls, verdict,
     tableBox('Screening cases', h('table', { class: 'screening' },
       h('caption', { class: 'visually-hidden' }, 'N-1 screening cases, weakest first'),
       h('thead', {}, h('tr', {},
-        ...['Further loss', 'Capacity', 'Headroom', 'Limited by', 'Steady hottest junction', 'Reaches warning line', 'Verdict']
+        ...['Further loss', 'Capacity', 'Headroom', 'Limited by', 'Steady hottest junction', 'Reaches warning line', 'Then', 'Verdict']
           .map((x) => h('th', { scope: 'col' }, x)))),
+      h('tbody', {}, rows))));
+}
+
+const BINDS = { rating: 'current rating', trip_current: 'trip current', warning_line: 'warning line', none: 'no phase left' };
+
+function renderRatings() {
+  const d = state.detail;
+  const body = $('sec-ratings-body');
+  if (!d || !body) return;
+  if (d.ratingsError) {
+    replaceKeepingFocus(body, errorNotice('the ratings', d.ratingsError));
+    return;
+  }
+  const r = d.ratings;
+  if (!r) return;
+  const heads = r.durations_s.map((s) => (s == null ? 'Indefinitely' : fmt.duration(s)));
+  const rows = r.cases.map((c) => h('tr', {},
+    h('th', { scope: 'row' }, c.lose_phases.length ? `lose phase${c.lose_phases.length > 1 ? 's' : ''} ${c.lose_phases.join(' + ')}` : 'as it is'),
+    ...c.ratings.map((x) => h('td', { class: `num${x.headroom_a < 0 ? ' neg' : ''}`, title: `limited by ${BINDS[x.binding] ?? x.binding}${x.binding_phase == null ? '' : ` of phase ${x.binding_phase}`}` },
+      fmt.amps(x.rating_a), h('span', { class: 'sub' }, ` ${BINDS[x.binding] ?? x.binding}`)))));
+  replaceKeepingFocus(body,
+    h('p', {}, `Present load ${fmt.amps(r.load_a)}. Each cell: the highest constant load for that long, and what limits it.`),
+    tableBox('Time-limited ratings', h('table', { class: 'ratings' },
+      h('caption', { class: 'visually-hidden' }, 'Time-limited ratings per further loss and duration'),
+      h('thead', {}, h('tr', {}, h('th', { scope: 'col' }, 'Case'), ...heads.map((x) => h('th', { scope: 'col' }, x)))),
       h('tbody', {}, rows))));
 }
 

@@ -92,7 +92,7 @@ export function forecastChart({ forecast, phases, limitC, holdC, loadA, loadNote
     loadNote ? ` (${loadNote})` : '', '.');
   if (forecast.runaway || !t.length) {
     figure.append(h('p', { class: 'notice lvl-over' }, 'The losses run away thermally: the junctions have no steady state at this load.',
-      forecast.time_to_limit_s != null ? ` The warning line is reached after ${fmt.duration(forecast.time_to_limit_s)}.` : ''), caption);
+      forecast.time_to_warning_s != null ? ` The warning line is reached after ${fmt.duration(forecast.time_to_warning_s)}.` : ''), caption);
     return figure;
   }
   const W = 720;
@@ -157,19 +157,21 @@ export function forecastChart({ forecast, phases, limitC, holdC, loadA, loadNote
   }
 
   // When the warning line is reached.
-  if (forecast.time_to_limit_s != null && forecast.time_to_limit_s <= horizon) {
-    const xx = X(forecast.time_to_limit_s);
+  if (forecast.time_to_warning_s != null && forecast.time_to_warning_s <= horizon) {
+    const xx = X(forecast.time_to_warning_s);
     parts.push(s('line', { class: 'fc-reach', x1: xx, x2: xx, y1: m.t, y2: H - m.b }));
     parts.push(s('text', { class: 'fc-reach-label', x: xx + (xx > W / 2 ? -6 : 6), y: H - m.b - 8, 'text-anchor': xx > W / 2 ? 'end' : 'start' },
-      `phase ${forecast.limit_phase} reaches the warning line at ${fmt.duration(forecast.time_to_limit_s)}`));
+      `phase ${forecast.warning_phase} reaches the warning line at ${fmt.duration(forecast.time_to_warning_s)}`));
   }
 
   const peak = forecast.peak;
   const summary = [
     hottest ? `Hottest: phase ${hottest.phase}, from ${fmt.celsius(hottest.values[0])} to ${fmt.celsius(hottest.values[hottest.values.length - 1])}` : '',
     peak ? `peak ${fmt.celsius(peak.temp_c)} at ${fmt.duration(peak.time_s)}` : '',
-    forecast.time_to_limit_s == null ? 'warning line not reached within the horizon' : `warning line reached by phase ${forecast.limit_phase} after ${fmt.duration(forecast.time_to_limit_s)}`,
-    forecast.margin_k == null ? '' : `smallest margin to the warning line ${fmt.kelvin(forecast.margin_k)}`,
+    forecast.verdict === 'holds' ? '' : `${forecast.verdict} after ${fmt.duration(forecast.verdict_at_s)}: ${forecast.verdict_cause}`,
+    forecast.time_to_warning_s == null ? 'warning line not reached within the horizon' : `warning line reached by phase ${forecast.warning_phase} after ${fmt.duration(forecast.time_to_warning_s)}`,
+    forecast.margin_to_warning_k == null ? '' : `smallest margin to the warning line ${fmt.kelvin(forecast.margin_to_warning_k)}`,
+    ...forecast.cascade.filter((c) => c.cause !== 'requested').map((c) => `phase ${c.phase} ${c.cause === 'trip_current' ? 'trips on current' : 'shuts down at its junction limit'} after ${fmt.duration(c.at_s)}`),
   ].filter(Boolean).join('; ');
   const titleId = `fc-title-${Math.random().toString(36).slice(2, 8)}`;
   const svg = s('svg', { class: 'forecast-chart', viewBox: `0 0 ${W} ${H}`, role: 'img', 'aria-labelledby': titleId },

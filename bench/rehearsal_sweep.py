@@ -78,7 +78,7 @@ def candidate_grid() -> ProtectionGrid:
             "imbalance_debounce_s": 20e-3,
             "imbalance_min_load_a": 100.0,
             "dead_floor_a": [1.0, 3.0],
-            "dead_time_s": [2e-3, 10e-3],
+            "dead_debounce_s": [2e-3, 10e-3],
             "dead_others_min_a": 5.0,
             "ot_level_c": 100.0,
             "ot_debounce_s": 50e-3,

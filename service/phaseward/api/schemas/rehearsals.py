@@ -33,7 +33,7 @@ class ProtectionSettingsIn(Contract):
     imbalance_debounce_s: Setting = None
     imbalance_min_load_a: Setting = None
     dead_floor_a: Setting = None
-    dead_time_s: Setting = None
+    dead_debounce_s: Setting = None
     dead_others_min_a: Setting = None
     uv_level_v: Setting = None
     uv_debounce_s: Setting = None

@@ -96,42 +96,46 @@ async def test_rehearsal_on_a_stored_rail_window(client: httpx.AsyncClient) -> N
     assert [(t["time_s"] - 1.8e9, t["phase"]) for t in done["result"]["trips"]] == [(2.0, 3)]
 
 
+LABEL = {"start_s": 1.0, "end_s": 2.0, "phase": 0, "kind": "any"}
+
+
 @pytest.mark.parametrize(
-    ("body", "code", "field"),
+    ("body", "field", "cause"),
     [
-        ({"trace": {"trace_id": 999}, "settings": {"oc_level_a": 1.0}}, None, None),
-        (
-            {
-                "trace": {"trace_id": 1},
-                "settings": {"oc_level_a": [1.0] * 101, "dead_floor_a": [1.0] * 100},
-            },
-            422,
-            "settings",
-        ),
-        ({"trace": {"trace_id": 1}, "settings": {"oc_limit": 1.0}}, 422, "settings.oc_limit"),
-        (
-            {
-                "trace": {"trace_id": 1},
-                "settings": {},
-                "labels": [{"start_s": 2, "end_s": 1, "phase": 0, "kind": "x"}],
-            },
-            422,
-            "labels[0]",
-        ),
+        ({"trace": {"trace_id": 999}, "settings": {"oc_level_a": 1.0}}, "trace.trace_id",
+         "no trace 999"),
+        ({"settings": {"oc_level_a": [1.0] * 101, "dead_floor_a": [1.0] * 100}}, "settings",
+         "oc_level_a (101) x dead_floor_a (100) = 10100 combinations"),
+        ({"settings": {"oc_limit": 1.0}}, "settings.oc_limit", "Extra inputs"),
+        ({"settings": {"oc_level_a": [10, "x"]}}, "settings.oc_level_a", "'x' is not a number"),
+        ({"settings": {"oc_level_a": []}}, "settings.oc_level_a", "list of 1 to"),
+        ({"settings": {"oc_debounce_s": -0.001}}, "settings.oc_debounce_s", "must be >= 0"),
+        ({"settings": {"blanking_s": [0.0, -1.0]}}, "settings.blanking_s", "must be >= 0"),
+        ({"settings": {"step_a": -2.0}}, "settings.step_a", "must be >= 0"),
+        ({"settings": {"dead_time_s": 1.0}}, "settings.dead_time_s", "Extra inputs"),
+        ({"settings": {}, "labels": [{**LABEL, "end_s": 0.5}]}, "labels[0]", "end_s"),
+        ({"settings": {"oc_level_a": 1.0}, "labels": [{**LABEL, "phase": 2}]},
+         "labels[0].phase", "beyond the trace's 2 phases"),
+        ({"settings": {"oc_level_a": 1.0}, "labels": [{**LABEL, "kind": "overcurrent"}]},
+         "labels[0].kind", "'overcurrent' is not 'any'"),
+        ({"settings": {"uv_level_v": 1.0}, "labels": [{**LABEL, "kind": "under_voltage"}]},
+         "labels[0].kind", "never trips on phase 0"),
+        ({"settings": {"oc_level_a": 1.0}, "labels": [{**LABEL, "kind": "over_temperature"}]},
+         "labels[0].kind", "set ot_level_c"),
+        ({"settings": {"uv_level_v": 1.0}, "labels": [LABEL]}, "labels[0].kind",
+         "set oc_level_a or ot_level_c or imbalance_pct or dead_floor_a"),
+        ({"settings": {}, "missing": {"policy": "hold", "hold_s": -1}}, "missing.hold_s", ""),
     ],
-)
-async def test_bad_rehearsals(
-    client: httpx.AsyncClient, body: dict[str, Any], code: int | None, field: str | None
+)  # fmt: skip
+async def test_bad_rehearsals_are_refused_before_a_job_exists(
+    client: httpx.AsyncClient, body: dict[str, Any], field: str, cause: str
 ) -> None:
-    answer = await client.post("/v1/rehearsals", json=body)
-    if code is None:  # accepted, then failed as a job: the trace does not exist
-        done = await finished(client, answer.json())
-        assert done["status"] == "failed"
-        assert "no trace 999" in done["error"]
-        assert (await client.get(f"/v1/rehearsals/{done['id']}/table.csv")).status_code == 409
-        return
-    assert answer.status_code == code, answer.text
+    trace_id = await upload(client)
+    answer = await client.post("/v1/rehearsals", json={"trace": {"trace_id": trace_id}, **body})
+    assert answer.status_code == 422, answer.text
     assert answer.json()["field"] == field
+    assert cause in answer.json()["detail"]
+    assert (await client.get("/v1/rehearsals/1")).status_code == 404  # no job was made
 
 
 async def test_unknown_rehearsal(client: httpx.AsyncClient) -> None:

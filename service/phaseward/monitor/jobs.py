@@ -3,6 +3,9 @@ and result in the database, so a client can poll, and fetch the result again lat
 
 A job left queued or running by a stopped process is run again at the next start: handlers
 are pure functions of the stored request, so a rerun gives the same result.
+
+Short jobs do not queue behind long ones: a job whose stated cost (for a rehearsal, its number
+of combinations) is at most ``SHORT_COST`` runs in a lane of its own.
 """
 
 from __future__ import annotations
@@ -23,6 +26,7 @@ from phaseward.store.models import Job
 Progress = Callable[[float], None]
 Handler = Callable[[sessionmaker[Session], dict[str, Any], Progress], dict[str, Any]]
 PROGRESS_EVERY_S = 0.5  # progress is written at most this often
+SHORT_COST = 100  # jobs up to this cost take the short lane (our choice)
 
 log = logging.getLogger(__name__)
 
@@ -34,11 +38,12 @@ class JobRunner:
         self._sessions = sessions
         self._handlers = dict(handlers)
         self._pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="phaseward-job")
+        self._short = ThreadPoolExecutor(max_workers=1, thread_name_prefix="phaseward-short-job")
 
-    def submit(self, kind: str, request: dict[str, Any]) -> Job:
+    def submit(self, kind: str, request: dict[str, Any], *, cost: int = SHORT_COST + 1) -> Job:
         with transaction(self._sessions) as session:
             job = jobs.add(session, kind=kind, request=request, now_s=time.time())
-        self._pool.submit(self._run, job.id)
+        (self._short if cost <= SHORT_COST else self._pool).submit(self._run, job.id)
         return job
 
     def resume(self) -> None:
@@ -49,6 +54,7 @@ class JobRunner:
 
     def shutdown(self) -> None:
         self._pool.shutdown(wait=False, cancel_futures=True)
+        self._short.shutdown(wait=False, cancel_futures=True)
 
     def _run(self, job_id: int) -> None:
         with transaction(self._sessions) as session:

@@ -415,10 +415,17 @@ def fit_foster(
     best = min(converged, key=lambda f: f.bic)
     warnings: list[str] = []
     offset, offset_ci = float("nan"), (float("nan"), float("nan"))
-    if not fitted_ref and enough(best.order, free_ref=True):
-        free = _fit_order(replace(prob, reference_temp_c=None), best.order, None, t_lo, t_hi)
-        if free.converged and free.ci_valid:
-            given = float(reference_temp_c)  # type: ignore[arg-type]
+    if not fitted_ref:
+        # the same order selection with T_ref free: its T_ref estimates the offset
+        free_prob = replace(prob, reference_temp_c=None)
+        free_fits: list[OrderFit] = []
+        for order in sorted(k for k in tried if enough(k, free_ref=True)):
+            prior = free_fits[-1].stages.tau_s if free_fits else None
+            free_fits.append(_fit_order(free_prob, order, prior, t_lo, t_hi))
+        usable = [f for f in free_fits if f.converged and f.ci_valid]
+        if usable:
+            free = min(usable, key=lambda f: f.bic)
+            given = float(prob.reference_temp_c or 0.0)
             offset = free.reference_temp_c - given
             lo, hi = (float(x) - given for x in free.reference_temp_ci_c)
             offset_ci = (lo, hi)

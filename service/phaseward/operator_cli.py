@@ -205,14 +205,6 @@ def _json_file(path: str, what: str) -> Any:
         raise SystemExit(f"{path} is not JSON ({what}): {problem}") from None
 
 
-def trace_media_type(content: bytes) -> str:
-    """CSV or samples as JSON / NDJSON, told apart by content, not by the file's extension."""
-    head = content.decode("utf-8", "replace").lstrip("\ufeff \t\r\n")[:1]
-    if head == "[":
-        return "application/json"
-    return "application/x-ndjson" if head == "{" else "text/csv"
-
-
 def rehearse(args: argparse.Namespace) -> int:
     trace_path = Path(args.trace)
     content = _read(args.trace)
@@ -220,9 +212,8 @@ def rehearse(args: argparse.Namespace) -> int:
     labels = _json_file(args.labels, "labels") if args.labels else []
     missing = {"policy": args.missing, **({"hold_s": args.hold} if args.hold is not None else {})}
     with connected(args.url, embedded=True) as client:
-        trace = client.upload_trace(
-            content, content_type=trace_media_type(content), name=trace_path.name
-        )
+        # text/plain: the service tells CSV from JSON by content, whatever the extension
+        trace = client.upload_trace(content, content_type="text/plain", name=trace_path.name)
         job = client.start_rehearsal(
             {"trace": {"trace_id": trace["id"]}, "settings": settings, "labels": labels,
              "missing": missing}

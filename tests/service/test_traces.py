@@ -91,3 +91,16 @@ async def test_csv_refusals_say_why(
     assert answer.status_code == 422, answer.text
     assert answer.json()["field"] == field
     assert cause in answer.json()["detail"]
+
+
+async def test_text_plain_is_told_apart_by_content(client: httpx.AsyncClient) -> None:
+    as_csv = await client.post("/v1/traces", content=CSV, headers={"content-type": "text/plain"})
+    assert as_csv.status_code == 201, as_csv.text
+    lines = "\n".join(json.dumps(sample(k, [20.0, 21.0])) for k in range(3))
+    as_nd = await client.post("/v1/traces", content=lines, headers={"content-type": "text/plain"})
+    assert (as_nd.status_code, as_nd.json()["n_phases"]) == (201, 2)
+    latin = await client.post(
+        "/v1/traces", content=CSV.replace("vin_v", "vin_\xb5").encode("latin-1"),
+        headers={"content-type": "text/csv"},
+    )  # fmt: skip
+    assert (latin.status_code, latin.json()["field"]) == (422, "body")

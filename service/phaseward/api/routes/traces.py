@@ -13,7 +13,7 @@ from phaseward.api.errors import ERROR_RESPONSES
 from phaseward.api.routes.rails import RowId
 from phaseward.api.routes.samples import NDJSON, parse_items, read_limited
 from phaseward.api.schemas.traces import TraceOut, parse_csv, parse_samples
-from phaseward.errors import UnsupportedMediaType
+from phaseward.errors import InvalidInput, UnsupportedMediaType
 from phaseward.monitor import traces
 from phaseward.store.traces import TraceArrays
 
@@ -36,19 +36,31 @@ async def upload_trace(
     _: Operator,
     name: Annotated[str, Query(min_length=1, max_length=200)] = "trace",
 ) -> TraceOut:
-    """Upload a recording as CSV (``text/csv``), NDJSON or a JSON array of samples."""
+    """Upload a recording as CSV (``text/csv``), NDJSON or a JSON array of samples
+    (``text/plain`` is told apart by content).
+
+    CSV: a header naming ``time_s`` (s), ``i0_a`` .. ``i{N-1}_a`` (A) and optionally ``vin_v``
+    (V), ``t{k}_c`` (degC) and ``iso{k}`` (1 = phase isolated), then one row per sample; an
+    empty or ``nan`` cell is no reading (``vin_v`` and temperatures only). Samples: the ingest
+    format, ``breaker_tripped`` / ``driver_disabled`` mark a phase isolated. README: "Rehearsal
+    and calibration formats"."""
     body = await read_limited(request, settings.max_trace_bytes)
     media = request.headers.get("content-type", "").split(";")[0].strip().lower()
+    if media == "text/plain":
+        head = body.decode("utf-8", "replace").lstrip("\ufeff \t\r\n")[:1]
+        media = "application/json" if head == "[" else NDJSON if head == "{" else "text/csv"
     if media == "text/csv":
-        trace = parse_csv(
-            body.decode("utf-8", "replace"), name=name, max_samples=settings.max_trace_samples
-        )
+        try:
+            text = body.decode("utf-8")
+        except UnicodeDecodeError as bad:
+            raise InvalidInput(f"the CSV is not UTF-8 (byte {bad.start})", field="body") from None
+        trace = parse_csv(text, name=name, max_samples=settings.max_trace_samples)
     elif media in (NDJSON, "application/json"):
         items = parse_items(body, media, max_items=settings.max_trace_samples)
         trace = parse_samples(items, name=name)
     else:
         raise UnsupportedMediaType(
-            f"send text/csv, {NDJSON} or application/json", field="content-type"
+            f"send text/csv, {NDJSON}, application/json or text/plain", field="content-type"
         )
     trace_id = await run_in_threadpool(traces.keep, sessions, trace)
     return _out(trace_id, trace)

@@ -260,7 +260,7 @@ def export(session: Session, rehearsal_id: int, index: int) -> dict[str, Any]:
         "exported": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         "trace": source,
         "labels": request.get("labels") or [],
-        "missing": result["missing"],
+        "missing": _missing(request),
         "settings": settings,
         "figures": {
             k: row[k]

@@ -63,7 +63,7 @@ def recorded_trace() -> tuple[RehearsalTrace, FaultLabels]:
         start_s=t[[12_000, 15_000, 17_000, 8_000]],
         end_s=t[[12_399, 15_059, 19_999, 8_099]],
         phase=np.array([4, 9, 2, -1]),
-        kind=("fault", "over_current", "over_temperature", "under_voltage"),
+        kind=("any", "over_current", "over_temperature", "under_voltage"),
     )
     return trace, labels
 

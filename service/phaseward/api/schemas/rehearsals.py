@@ -143,11 +143,11 @@ class ExportOut(BaseModel):
     """One row of a rehearsal as settings for firmware; post ``settings`` and ``missing`` with
     the same trace and labels to rehearse them again."""
 
-    rehearsal_id: int
-    row: int
+    rehearsal_id: int = Field(description="the rehearsal the row comes from")
+    row: int = Field(description="the row (combination) exported")
     exported: str = Field(description="UTC time of the export, RFC 3339")
     trace: dict[str, Any] = Field(description="trace_id and name, or rail_id, since, until")
-    labels: list[dict[str, Any]]
-    missing: dict[str, Any]
+    labels: list[dict[str, Any]] = Field(description="the fault labels it was scored against")
+    missing: dict[str, Any] = Field(description="the missing-reading policy rehearsed")
     settings: dict[str, float | None] = Field(description="every setting; null = off / none")
     figures: dict[str, Any] = Field(description="what the row scored in the rehearsal")

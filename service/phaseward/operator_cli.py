@@ -243,7 +243,8 @@ def rehearse(args: argparse.Namespace) -> int:
     table = Table("row", "tied", "settings", "trips", "false", "missed", "worst s")
     for group in result["pareto_groups"]:
         row = result["rows"][group["rows"][0]]
-        shown = " ".join(f"{a}={row['settings'][a]:g}" for a in result["axes"])
+        shown = " ".join(_tied_values(a, [result["rows"][i] for i in group["rows"]])
+                         for a in result["axes"])  # fmt: skip
         table.add_row(
             str(row["index"]), str(len(group["rows"])), shown, str(row["trips"]),
             str(row["false_trips"]), str(row["missed"]), _n(row["max_latency_s"], 3),
@@ -254,6 +255,12 @@ def rehearse(args: argparse.Namespace) -> int:
         where = f"phase {trip['phase']}" if trip["phase"] >= 0 else "the input"
         out.print(f"  trip at {trip['time_s']:.3f} s: {where}, {trip['rule']}, {trip['value']:.3g}")
     return 0
+
+
+def _tied_values(axis: str, rows: list[dict[str, Any]]) -> str:
+    """``axis=value``, or every value the tied rows take (``axis=90|100``)."""
+    values = sorted({r["settings"][axis] for r in rows})
+    return f"{axis}={'|'.join(f'{v:g}' for v in values)}"
 
 
 def export_settings(args: argparse.Namespace) -> int:

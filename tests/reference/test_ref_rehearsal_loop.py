@@ -254,16 +254,21 @@ def test_rehearse_lists_the_loops_trips(seed: int) -> None:
 def test_the_random_cases_exercise_every_rule_and_both_outcomes() -> None:
     """Guards the generator: the comparison above is only as good as the cases it sees."""
     per_rule = np.zeros(len(RULES))
-    detected = missed = 0
+    detected = missed = hysteresis_mattered = 0
     for seed in range(12):
         trace, grid, labels = random_case(seed)
         res = sweep(trace, grid, labels)
+        no_release = ProtectionGrid(
+            {k: np.nan if "release" in k else v for k, v in grid.columns.items()}
+        )
+        hysteresis_mattered += int(np.sum(sweep(trace, no_release).trips != res.trips))
         per_rule += res.trips_by_rule.sum(axis=0)
         detected += int(np.sum(~np.isnan(res.latency_s)))
         missed += int(res.missed.sum())
     assert np.all(per_rule > 0)
     assert detected > 0
     assert missed > 0
+    assert hysteresis_mattered > 0
 
 
 def reference_hold(trace: RehearsalTrace, hold_s: float) -> tuple[FloatArray, FloatArray]:

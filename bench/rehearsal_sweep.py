@@ -63,7 +63,7 @@ def recorded_trace() -> tuple[RehearsalTrace, FaultLabels]:
         start_s=t[[12_000, 15_000, 17_000, 8_000]],
         end_s=t[[12_399, 15_059, 19_999, 8_099]],
         phase=np.array([4, 9, 2, -1]),
-        kind=("fault", "over_current", "over_temperature", "under_voltage"),
+        kind=("any", "over_current", "over_temperature", "under_voltage"),
     )
     return trace, labels
 
@@ -78,7 +78,7 @@ def candidate_grid() -> ProtectionGrid:
             "imbalance_debounce_s": 20e-3,
             "imbalance_min_load_a": 100.0,
             "dead_floor_a": [1.0, 3.0],
-            "dead_time_s": [2e-3, 10e-3],
+            "dead_debounce_s": [2e-3, 10e-3],
             "dead_others_min_a": 5.0,
             "ot_level_c": 100.0,
             "ot_debounce_s": 50e-3,

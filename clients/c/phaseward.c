@@ -386,51 +386,37 @@ static struct curl_slist *append_header(struct curl_slist *list, const char *hea
     return longer;
 }
 
-int pw_post_json(pw_client *client, const char *rail_id, const char *json, size_t json_len,
-                 pw_response *response) {
-    static const char path_head[] = "/v1/rails/";
-    static const char path_tail[] = "/samples";
+/* One request to url (owned by the caller): a POST of json when json is not NULL, else a
+ * GET. PW_OK when an HTTP answer arrived. */
+static int perform(pw_client *client, const char *url, const char *json, size_t json_len,
+                   const char *accept, pw_response *response) {
     struct curl_slist *headers = NULL;
     int failed = 0;
     body_buf body = {NULL, 0, 0, 0};
-    char *url;
     CURLcode rc;
     long status = 0;
 
-    if (client == NULL || json == NULL || response == NULL) {
-        return PW_E_INVALID;
+    if (json != NULL) {
+        headers = append_header(headers, "Content-Type: application/json", &failed);
+        headers = append_header(headers, "Expect:", &failed); /* no 100-continue round trip */
     }
-    response->status = 0;
-    response->body = NULL;
-    response->body_len = 0;
-    if (!pw_valid_rail_id(rail_id)) {
-        return PW_E_RAIL_ID;
-    }
-    url = (char *)malloc(strlen(client->base_url) + sizeof path_head + strlen(rail_id) +
-                         sizeof path_tail);
-    if (url == NULL) {
-        return PW_E_NOMEM;
-    }
-    sprintf(url, "%s%s%s%s", client->base_url, path_head, rail_id, path_tail);
-
-    headers = append_header(headers, "Content-Type: application/json", &failed);
-    headers = append_header(headers, "Accept: application/json", &failed);
-    headers = append_header(headers, "Expect:", &failed); /* no 100-continue round trip */
+    headers = append_header(headers, accept, &failed);
     if (client->auth_header != NULL) {
         headers = append_header(headers, client->auth_header, &failed);
     }
     if (failed) {
         curl_slist_free_all(headers);
-        free(url);
         return PW_E_NOMEM;
     }
 
     client->error[0] = '\0';
     curl_easy_reset(client->curl);
     curl_easy_setopt(client->curl, CURLOPT_URL, url);
-    curl_easy_setopt(client->curl, CURLOPT_POST, 1L);
-    curl_easy_setopt(client->curl, CURLOPT_POSTFIELDS, json);
-    curl_easy_setopt(client->curl, CURLOPT_POSTFIELDSIZE_LARGE, (curl_off_t)json_len);
+    if (json != NULL) {
+        curl_easy_setopt(client->curl, CURLOPT_POST, 1L);
+        curl_easy_setopt(client->curl, CURLOPT_POSTFIELDS, json);
+        curl_easy_setopt(client->curl, CURLOPT_POSTFIELDSIZE_LARGE, (curl_off_t)json_len);
+    }
     curl_easy_setopt(client->curl, CURLOPT_HTTPHEADER, headers);
     curl_easy_setopt(client->curl, CURLOPT_WRITEFUNCTION, on_body);
     curl_easy_setopt(client->curl, CURLOPT_WRITEDATA, &body);
@@ -441,7 +427,6 @@ int pw_post_json(pw_client *client, const char *rail_id, const char *json, size_
     }
     rc = curl_easy_perform(client->curl);
     curl_slist_free_all(headers);
-    free(url);
     if (rc != CURLE_OK) {
         if (client->error[0] == '\0') {
             snprintf(client->error, sizeof client->error, "%s", curl_easy_strerror(rc));
@@ -460,6 +445,56 @@ int pw_post_json(pw_client *client, const char *rail_id, const char *json, size_
     response->body = body.data;
     response->body_len = body.len;
     return PW_OK;
+}
+
+int pw_post_json(pw_client *client, const char *rail_id, const char *json, size_t json_len,
+                 pw_response *response) {
+    static const char path_head[] = "/v1/rails/";
+    static const char path_tail[] = "/samples";
+    char *url;
+    int rc;
+
+    if (client == NULL || json == NULL || response == NULL) {
+        return PW_E_INVALID;
+    }
+    response->status = 0;
+    response->body = NULL;
+    response->body_len = 0;
+    if (!pw_valid_rail_id(rail_id)) {
+        return PW_E_RAIL_ID;
+    }
+    url = (char *)malloc(strlen(client->base_url) + sizeof path_head + strlen(rail_id) +
+                         sizeof path_tail);
+    if (url == NULL) {
+        return PW_E_NOMEM;
+    }
+    sprintf(url, "%s%s%s%s", client->base_url, path_head, rail_id, path_tail);
+    rc = perform(client, url, json, json_len, "Accept: application/json", response);
+    free(url);
+    return rc;
+}
+
+int pw_get_settings(pw_client *client, long rehearsal_id, long row, int as_header,
+                    pw_response *response) {
+    char *url;
+    int rc;
+
+    if (client == NULL || response == NULL || rehearsal_id < 1 || row < 0) {
+        return PW_E_INVALID;
+    }
+    response->status = 0;
+    response->body = NULL;
+    response->body_len = 0;
+    url = (char *)malloc(strlen(client->base_url) + 80);
+    if (url == NULL) {
+        return PW_E_NOMEM;
+    }
+    sprintf(url, "%s/v1/rehearsals/%ld/rows/%ld/settings.%s", client->base_url, rehearsal_id,
+            row, as_header ? "h" : "json");
+    rc = perform(client, url, NULL, 0, as_header ? "Accept: text/x-c" : "Accept: application/json",
+                 response);
+    free(url);
+    return rc;
 }
 
 static int post_formatted(pw_client *client, const char *rail_id, const pw_sample *samples,

@@ -115,6 +115,12 @@ int pw_post_samples(pw_client *client, const char *rail_id, const pw_sample *sam
 int pw_post_json(pw_client *client, const char *rail_id, const char *json, size_t json_len,
                  pw_response *response);
 
+/* Fetch row `row` of finished rehearsal `rehearsal_id` as firmware settings: a C header
+ * (as_header != 0) or JSON. PW_OK when an HTTP answer arrived (200: response->body holds
+ * the file); call pw_response_free. */
+int pw_get_settings(pw_client *client, long rehearsal_id, long row, int as_header,
+                    pw_response *response);
+
 /* A short English text for a pw_error. */
 const char *pw_strerror(int code);
 

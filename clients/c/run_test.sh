@@ -94,4 +94,22 @@ if [ "$count" != "8 [100, 101, 102]" ]; then
     echo "run_test.sh: after test_post the rail holds $count, expected 8 ending [100, 101, 102]" >&2
     exit 1
 fi
+# Export: rehearse a small trace, fetch row 0 as a C header with export_settings, compile it.
+trace_id="$(printf 'time_s,vin_v,i0_a,i1_a\n0,12,10,10\n1,12,25,10\n2,12,25,10\n3,12,10,10\n' |
+    curl -sf -X POST "$base/v1/traces" -H 'content-type: text/csv' --data-binary @- |
+    "$PYTHON" -c 'import json, sys; print(json.load(sys.stdin)["id"])')"
+job="$(curl -sf -X POST "$base/v1/rehearsals" -H 'content-type: application/json' \
+    -d "{\"trace\": {\"trace_id\": $trace_id}, \"settings\": {\"oc_level_a\": 20, \"oc_debounce_s\": 1}}" |
+    "$PYTHON" -c 'import json, sys; print(json.load(sys.stdin)["id"])')"
+for _ in $(seq 1 200); do
+    state="$(curl -sf "$base/v1/rehearsals/$job" | "$PYTHON" -c 'import json, sys; print(json.load(sys.stdin)["status"])')"
+    [ "$state" = done ] && break
+    sleep 0.1
+done
+./build/export_settings "$base" "$job" 0 "$data/protection.h"
+printf '#include "protection.h"\nint main(void) { return PW_OC_ENABLED == 1 && PW_OC_DEBOUNCE_NS == 1000000000LL ? 0 : 1; }\n' >"$data/use.c"
+${CC:-cc} -std=c99 -Wall -Werror -I"$data" -o "$data/use" "$data/use.c"
+"$data/use"
+echo "run_test.sh: the exported header compiles and holds the rehearsed settings"
+
 echo "run_test.sh: all checks passed"

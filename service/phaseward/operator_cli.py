@@ -359,18 +359,33 @@ def forecast(args: argparse.Namespace) -> int:
     return 0
 
 
+def _read(path: str) -> bytes:
+    try:
+        return Path(path).read_bytes()
+    except OSError as problem:
+        raise SystemExit(f"cannot read {path}: {problem.strerror}") from None
+
+
+def _json_file(path: str, what: str) -> Any:
+    try:
+        return json.loads(_read(path).decode("utf-8-sig"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as problem:
+        raise SystemExit(f"{path} is not JSON ({what}): {problem}") from None
+
+
 def rehearse(args: argparse.Namespace) -> int:
     trace_path = Path(args.trace)
-    settings = json.loads(Path(args.settings).read_text())
-    labels = json.loads(Path(args.labels).read_text()) if args.labels else []
-    kind = "text/csv" if trace_path.suffix.lower() == ".csv" else "application/x-ndjson"
+    content = _read(args.trace)
+    settings = _json_file(args.settings, "settings")
+    labels = _json_file(args.labels, "labels") if args.labels else []
+    missing = {"policy": args.missing, **({"hold_s": args.hold} if args.hold is not None else {})}
     with connected(args.url, embedded=True) as client:
-        trace = client.upload_trace(
-            trace_path.read_bytes(), content_type=kind, name=trace_path.name
-        )
+        # text/plain: the service tells CSV from JSON by content, whatever the extension
+        trace = client.upload_trace(content, content_type="text/plain", name=trace_path.name)
         job = client.start_rehearsal(
-            {"trace": {"trace_id": trace["id"]}, "settings": settings, "labels": labels}
-        )
+            {"trace": {"trace_id": trace["id"]}, "settings": settings, "labels": labels,
+             "missing": missing}
+        )  # fmt: skip
         columns = (TextColumn("rehearsal {task.fields[job]}"), BarColumn(), TaskProgressColumn())
         with Progress(*columns, console=err, transient=True) as bar:
             task = bar.add_task("rehearse", total=100.0, job=job["id"])
@@ -389,40 +404,108 @@ def rehearse(args: argparse.Namespace) -> int:
         _dump(result)
         return 0
     out.print(
-        f"{result['combinations']} combinations over {trace['n_samples']} samples; Pareto front:"
+        f"rehearsal {job['id']}: {result['combinations']} combinations over "
+        f"{trace['n_samples']} samples; the Pareto front of false trips against the worst "
+        "latency (a missed fault counts as infinitely late), tied rows grouped:"
     )
-    table = Table("#", *result["axes"], "trips", "false trips", "missed", "worst latency s")
-    for i in result["pareto"]:
-        row = result["rows"][i]
+    table = Table("row", "tied", "settings", "trips", "false", "missed", "worst s")
+    for group in result["pareto_groups"]:
+        row = result["rows"][group["rows"][0]]
+        shown = " ".join(_tied_values(a, [result["rows"][i] for i in group["rows"]])
+                         for a in result["axes"])  # fmt: skip
         table.add_row(
-            str(i), *(f"{row['settings'][a]:g}" for a in result["axes"]), str(row["trips"]),
+            str(row["index"]), str(len(group["rows"])), shown, str(row["trips"]),
             str(row["false_trips"]), str(row["missed"]), _n(row["max_latency_s"], 3),
         )  # fmt: skip
     out.print(table)
+    out.print(f"[dim]export a row: phaseward export-settings {job['id']} ROW --header out.h[/dim]")
     for trip in result["trips"] or []:
         where = f"phase {trip['phase']}" if trip["phase"] >= 0 else "the input"
         out.print(f"  trip at {trip['time_s']:.3f} s: {where}, {trip['rule']}, {trip['value']:.3g}")
     return 0
 
 
-def calibrate(args: argparse.Namespace) -> int:
-    with open(args.curve, newline="") as fh:
-        rows = list(csv.DictReader(fh))
+def _tied_values(axis: str, rows: list[dict[str, Any]]) -> str:
+    """``axis=value``, or every value the tied rows take (``axis=90|100``)."""
+    values = sorted({r["settings"][axis] for r in rows})
+    return f"{axis}={'|'.join(f'{v:g}' for v in values)}"
+
+
+def export_settings(args: argparse.Namespace) -> int:
+    with connected(args.url, embedded=False) as client:
+        exported = client.export_settings(args.rehearsal, args.row)
+        header = client.export_header(args.rehearsal, args.row) if args.header else None
+    if header is not None:
+        Path(args.header).write_text(header)
+        err.print(f"wrote {args.header}")
+    if args.json or header is None:
+        _dump(exported)
+    return 0
+
+
+def _curve(path: str) -> tuple[list[float], list[float]]:
+    """time_s and temp_c from a heating-curve CSV (README, "Rehearsal and calibration
+    formats"): a row whose temp_c is empty or nan is left out (no reading then)."""
+    text = _read(path).decode("utf-8-sig", "replace")
+    lines = [ln for ln in text.splitlines() if ln.strip()]
+    rows = list(csv.DictReader(lines))
     if not rows or not {"time_s", "temp_c"} <= set(rows[0]):
-        raise SystemExit("the curve must be CSV with time_s and temp_c columns")
+        raise SystemExit(f"{path}: the curve must be CSV with time_s and temp_c columns")
+    t_s, temp_c = [], []
+    for line, row in enumerate(rows, start=2):
+        cell = (row["temp_c"] or "").strip()
+        if cell == "" or cell.lower() == "nan":
+            continue
+        try:
+            t_s.append(float(row["time_s"]))
+            temp_c.append(float(cell))
+        except (TypeError, ValueError):
+            raise SystemExit(
+                f"{path}, line {line}: time_s '{row['time_s']}' or temp_c '{cell}' is not a number"
+            ) from None
+    return t_s, temp_c
+
+
+def _stage_counts(text: str) -> list[int]:
+    try:
+        return [int(k) for k in text.split(",")]
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"'{text}' is not a comma-separated list of counts"
+        ) from None
+
+
+def calibrate(args: argparse.Namespace) -> int:
+    if args.rail is None and args.power is None:
+        raise SystemExit("give --power (no rail needed), or --rail with --current")
+    if args.rail is None and args.apply != "no":
+        raise SystemExit("--apply stores the fit in a rail: give --rail")
+    t_s, temp_c = _curve(args.curve)
     body: dict[str, Any] = {
-        "t_s": [float(r["time_s"]) for r in rows],
-        "temp_c": [float(r["temp_c"]) for r in rows],
-        "phase": args.phase, "cooling": args.cooling, "location": args.location,
-        "apply": args.apply,
+        "t_s": t_s, "temp_c": temp_c, "cooling": args.cooling, "location": args.location,
+        "time_unit": args.time_unit,
     }  # fmt: skip
+    if args.orders:
+        body["orders"] = args.orders
+    if args.reference_temp is not None:
+        body["reference_temp_c"] = args.reference_temp
     body |= {"power_w": args.power} if args.power is not None else {"current_a": args.current}
     with connected(args.url, embedded=True) as client, err.status("fitting ..."):
-        fit = client.calibrate(args.rail, body)
+        if args.rail is None:
+            fit = client.fit_curve(body)
+        else:
+            fit = client.calibrate(args.rail, body | {"phase": args.phase, "apply": args.apply})
     if args.json:
         _dump(fit)
         return 0
+    chosen = fit["chosen"]
+    low, high = chosen["total_r_ci_k_per_w"]
     out.print(f"chosen order {fit['order']} by {fit['criterion'].upper()} ({fit['note']})")
+    out.print(
+        f"total thermal resistance {chosen['total_r_k_per_w']:.4g} K/W "
+        f"(95 % {_n(low, 4)} .. {_n(high, 4)}); "
+        + ("settled" if fit["settled"] else f"NOT settled ({fit['settled_rule']})")
+    )
     table = Table("order", "R K/W (95 % CI)", "tau s (95 % CI)", "rms K", "BIC")
     for f in fit["fits"]:
         rs = "; ".join(
@@ -435,6 +518,10 @@ def calibrate(args: argparse.Namespace) -> int:
         )
         table.add_row(str(f["order"]), rs, ts, f"{f['rms_k']:.3g}", f"{f['bic']:.1f}")
     out.print(table)
+    if fit["skipped_orders"]:
+        out.print(f"orders not tried (too few samples per parameter): {fit['skipped_orders']}")
+    for warning in fit["warnings"]:
+        err.print(f"[yellow]warning:[/yellow] {warning}")
     if fit["applied_version"] is not None:
         out.print(f"applied as version {fit['applied_version']} of {args.rail}")
     return 0
@@ -493,22 +580,58 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     )  # fmt: skip
     p.add_argument("--pairs", action="store_true", help="also every pair of further losses")
     p = command("rehearse", rehearse, "replay a trace against protection settings")
-    p.add_argument("trace", help="CSV (.csv) or NDJSON samples")
-    p.add_argument("--settings", required=True, help="JSON: setting -> value or list to sweep")
-    p.add_argument("--labels", help="JSON list of fault windows")
+    p.add_argument(
+        "trace",
+        help="a recorded trace: CSV (header time_s, i0_a.., optional vin_v, t0_c.., iso0..) or "
+        "samples as JSON / NDJSON, told apart by content; see the README section 'Rehearsal "
+        "and calibration formats'",
+    )
+    p.add_argument(
+        "--settings", required=True,
+        help="JSON object: setting name -> a number, or a list of numbers to sweep (e.g. "
+        '{"oc_level_a": [20, 25], "oc_debounce_s": 0.002})',
+    )  # fmt: skip
+    p.add_argument(
+        "--labels",
+        help="JSON list of fault windows: start_s, end_s, phase (-1: the rail), kind ('any' "
+        "or a rule name)",
+    )
+    p.add_argument(
+        "--missing", choices=("hold", "clear"), default="hold",
+        help="a missing temperature or vin reading: hold the last one (default) or clear",
+    )  # fmt: skip
+    p.add_argument("--hold", type=float, help="longest hold of a reading, s (default 1)")
     p.add_argument("--csv", help="write the result table here")
     p.add_argument("--svg", help="write the Pareto plot here")
     p = command("capture", capture, "attach a capture of a trip to its event and classify it")
     p.add_argument("rail")
     p.add_argument("event", type=int, help="id of the phase.isolated event")
     p.add_argument("file", help="CSV (.csv) or NumPy (.npy, .npz) waveform around the trip")
-    p = command("calibrate", calibrate, "fit a phase's thermal model to a heating curve")
-    p.add_argument("curve", help="CSV with time_s and temp_c")
-    p.add_argument("--rail", required=True)
+    p = command("export-settings", export_settings, "a rehearsal row as firmware settings")
+    p.add_argument("rehearsal", type=int, help="the rehearsal's id")
+    p.add_argument("row", type=int, help="the row (combination) to export")
+    p.add_argument("--header", help="write the settings as a C header to this file")
+    p = command("calibrate", calibrate, "fit a thermal model to a heating or cooling curve")
+    p.add_argument(
+        "curve",
+        help="CSV with columns time_s (since the power step) and temp_c (degC); rows with an "
+        "empty or nan temp_c are left out",
+    )
+    p.add_argument("--rail", help="the rail to calibrate (needed for --current and --apply)")
     step = p.add_mutually_exclusive_group(required=True)
     step.add_argument("--power", type=float, help="the power step, W")
     step.add_argument("--current", type=float, help="the phase current during the step, A")
-    p.add_argument("--phase", type=int, default=0)
-    p.add_argument("--cooling", action="store_true")
-    p.add_argument("--location", choices=("junction", "sensor"), default="junction")
-    p.add_argument("--apply", choices=("no", "phase", "all"), default="no")
+    p.add_argument("--phase", type=int, default=0, help="the phase the curve was taken on")
+    p.add_argument("--cooling", action="store_true", help="the curve follows power removal")
+    p.add_argument("--location", choices=("junction", "sensor"), default="junction",
+                   help="where the temperature was measured")  # fmt: skip
+    p.add_argument("--apply", choices=("no", "phase", "all"), default="no",
+                   help="store the fit as the rail's next version")  # fmt: skip
+    p.add_argument(
+        "--orders", type=_stage_counts,
+        help="Foster stage counts to try, comma-separated (default 1,2,3,4)",
+    )  # fmt: skip
+    p.add_argument("--reference-temp", type=float,
+                   help="temperature before the step, degC (default: fitted)")  # fmt: skip
+    p.add_argument("--time-unit", choices=("s", "ms", "us"), default="s",
+                   help="the unit of the time_s column")  # fmt: skip

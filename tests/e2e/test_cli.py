@@ -155,3 +155,74 @@ def test_capture_is_uploaded_and_classified(base: str, tmp_path: Path) -> None:
     assert "a capture is a .csv, .npy or .npz file" in run(
         "capture", "bench-a", str(event["id"]), str(wrong), "--url", base, ok=False
     )
+
+
+def plain(*args: str, env: dict[str, str] | None = None) -> subprocess.CompletedProcess[str]:
+    """A command as a person runs it: tables, an 80-column terminal."""
+    env = (env or dict(os.environ)) | {"COLUMNS": "80"}
+    return subprocess.run(
+        [sys.executable, "-m", "phaseward.cli", *args],
+        capture_output=True, text=True, timeout=120, env=env,
+    )  # fmt: skip
+
+
+def test_rehearse_a_csv_saved_as_txt_and_export_a_row(base: str, tmp_path: Path) -> None:
+    """Issue 18: the trace type comes from content; eight swept axes stay readable at 80
+    columns with tied rows grouped; a row exported as a C header and as JSON."""
+    trace = tmp_path / "bench run.txt"
+    trace.write_text("\ufefftime_s,vin_v,i0_a,i1_a\n" + "\n".join(
+        f"{k},12,{25 if 3 <= k <= 6 else 10},10" for k in range(10)) + "\n\n")  # fmt: skip
+    axes = {
+        "oc_level_a": [20, 30], "oc_debounce_s": [0, 1], "ot_level_c": [90, 100],
+        "ot_debounce_s": [0, 1], "imbalance_pct": [50, 80], "imbalance_debounce_s": [0, 2],
+        "dead_floor_a": [1, 2], "dead_debounce_s": [0, 1],
+    }  # fmt: skip
+    settings = tmp_path / "settings.json"
+    settings.write_text(json.dumps(axes))
+    shown = plain("rehearse", str(trace), "--settings", str(settings), "--url", base)
+    assert shown.returncode == 0, shown.stderr
+    lines = shown.stdout.splitlines()
+    assert max(len(line) for line in lines) <= 80
+    for name in axes:
+        assert name in shown.stdout  # whole, not truncated
+    assert "tied" in shown.stdout
+    result = run("rehearse", str(trace), "--settings", str(settings), "--url", base)
+    assert result["combinations"] == 256
+    front_rows = sum(len(g["rows"]) for g in result["pareto_groups"])
+    assert len(result["pareto_groups"]) < front_rows  # ties are grouped
+    header = tmp_path / "protection.h"
+    exported = run("export-settings", "2", "0", "--header", str(header), "--url", base)
+    assert exported["settings"]["oc_level_a"] == 20.0
+    assert "#define PW_OC_LEVEL_A (20.0)" in header.read_text()
+
+
+def test_calibrate_with_power_needs_no_rail_and_takes_orders(tmp_path: Path) -> None:
+    curve = tmp_path / "heating.csv"
+    rows = [f"{0.5 * k},{25 + 16 * (1 - math.exp(-0.05 * k))}" for k in range(200)]
+    rows[7] = f"{0.5 * 7},nan"  # no reading: left out
+    curve.write_text("\ufefftime_s,temp_c\n" + "\n".join(rows) + "\n\n")
+    env = os.environ | {
+        "PHASEWARD_URL": f"http://127.0.0.1:{free_port()}",  # nothing answers there
+        "PHASEWARD_DATA_DIR": str(tmp_path / "fresh"),
+    }
+    env.pop("PHASEWARD_DATABASE_URL", None)
+    fit = run("calibrate", str(curve), "--power", "2", "--orders", "1,2",
+              "--reference-temp", "25", env=env)  # fmt: skip
+    assert [f["order"] for f in fit["fits"]] == [1, 2]
+    assert fit["chosen"]["total_r_k_per_w"] == pytest.approx(8.0, rel=1e-3)
+    assert fit["settled"] is True
+    shown = plain("calibrate", str(curve), "--power", "2", "--orders", "1", env=env)
+    assert shown.returncode == 0, shown.stderr
+    assert "total thermal resistance 8" in shown.stdout
+    assert max(len(line) for line in shown.stdout.splitlines()) <= 80
+    rows[9] = "4.5,warm"
+    curve.write_text("time_s,temp_c\n" + "\n".join(rows))
+    bad = plain("calibrate", str(curve), "--power", "2", env=env)
+    assert bad.returncode != 0
+    assert "Traceback" not in bad.stderr
+    assert bad.stderr.strip().splitlines() == [
+        f"{curve}, line 11: time_s '4.5' or temp_c 'warm' is not a number"
+    ]
+    nothing = plain("calibrate", str(curve), "--current", "20", env=env)
+    assert nothing.returncode != 0
+    assert "--rail" in nothing.stderr

@@ -146,9 +146,15 @@ def test_intervals_match_curve_fit_covariance() -> None:
     np.testing.assert_allclose(popt, start, rtol=1e-5)  # the same optimum
     se = np.sqrt(np.diag(pcov))
     z = 1.959963984540054  # standard normal 97.5 % quantile
-    half_r = (fit.r_ci_k_per_w[:, 1] - fit.r_ci_k_per_w[:, 0]) / 2.0
-    half_tau = (fit.tau_ci_s[:, 1] - fit.tau_ci_s[:, 0]) / 2.0
+    # log-space Wald intervals: ln(high / low) / 2 = z SE(ln x) = z SE(x) / x (delta method)
+    half_ln_r = np.log(fit.r_ci_k_per_w[:, 1] / fit.r_ci_k_per_w[:, 0]) / 2.0
+    half_ln_tau = np.log(fit.tau_ci_s[:, 1] / fit.tau_ci_s[:, 0]) / 2.0
     half_ref = (fit.reference_temp_ci_c[1] - fit.reference_temp_ci_c[0]) / 2.0
-    np.testing.assert_allclose(half_r, z * se[[1, 3]], rtol=1e-3)
-    np.testing.assert_allclose(half_tau, z * se[[2, 4]], rtol=1e-3)
+    np.testing.assert_allclose(half_ln_r, z * se[[1, 3]] / popt[[1, 3]], rtol=1e-3)
+    np.testing.assert_allclose(half_ln_tau, z * se[[2, 4]] / popt[[2, 4]], rtol=1e-3)
     assert half_ref == pytest.approx(z * se[0], rel=1e-3)
+    # the total R_th = R_1 + R_2: its variance from curve_fit's covariance (delta method)
+    grad = np.array([0.0, 1.0, 0.0, 1.0, 0.0])
+    se_total = float(np.sqrt(grad @ pcov @ grad))
+    half_ln_total = np.log(fit.total_r_ci_k_per_w[1] / fit.total_r_ci_k_per_w[0]) / 2.0
+    assert half_ln_total == pytest.approx(z * se_total / fit.total_r_k_per_w, rel=1e-3)

@@ -7,7 +7,9 @@ The sweep (sparse tables, sweep-line counts, binary lifting) and ``rehearse`` mu
 it exactly on random traces and random grids: same trips (sample, phase, rule, value), same
 counts, same latencies. Sample times are drawn on a quarter-second lattice (exact in binary)
 so that runs lasting exactly the debounce time and blanking windows ending exactly on a
-sample occur often. ``bench/rehearsal_sweep.py`` times this loop as its baseline.
+sample occur often; the loop itself counts time in the trace's integer nanosecond ticks.
+Release levels (hysteresis) and the missing-reading policy are walked sample by sample too.
+``bench/rehearsal_sweep.py`` times this loop as its baseline.
 """
 
 import math
@@ -15,6 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import numpy.typing as npt
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -24,8 +27,10 @@ from phaseward.physics.rehearsal import (
     ProtectionGrid,
     ProtectionSettings,
     RehearsalTrace,
+    hold_readings,
     rehearse,
     sweep,
+    to_ticks,
 )
 
 FloatArray = npt.NDArray[np.float64]
@@ -34,7 +39,8 @@ TripTuple = tuple[int, float, int, str, float]  # sample, time_s, phase, rule, v
 
 def reference_trips(trace: RehearsalTrace, s: ProtectionSettings) -> list[TripTuple]:
     """Trips of one settings set, one sample at a time."""
-    t = trace.t_s.tolist()
+    t = trace.t_ns.tolist()
+    ns = 1_000_000_000
     cur = trace.current_a.tolist()
     temp = trace.temp_c.tolist()
     vin = trace.vin_v.tolist()
@@ -58,55 +64,62 @@ def reference_trips(trace: RehearsalTrace, s: ProtectionSettings) -> list[TripTu
         if k > 0 and abs(rail - prev_rail) > s.step_a:
             last_step = t[k]
         prev_rail = rail
-        blanked.append(last_step is not None and t[k] - last_step < s.blanking_s)
+        blanked.append(last_step is not None and t[k] - last_step < round(s.blanking_s * ns))
         count.append(m)
         total.append(present_a)
 
-    def condition(rule: str, k: int, p: int) -> tuple[bool, float]:
-        """(rule condition at sample k on phase p, measured value)."""
+    def reading(rule: str, k: int, p: int) -> float:
+        """The rule's measured value at sample k on phase p; NaN where it is undefined."""
         i = cur[k][p] if p >= 0 else 0.0
         m = count[k]
         if rule == "over_current":
-            return (not blanked[k]) and i > s.oc_level_a, i
+            return math.nan if blanked[k] else i
         if rule == "over_temperature":
-            return (not math.isnan(temp[k][p])) and temp[k][p] > s.ot_level_c, temp[k][p]
+            return temp[k][p]
         if rule == "imbalance":
             if blanked[k] or not present[k][p] or not total[k] > s.imbalance_min_load_a:
-                return False, math.nan
+                return math.nan
             mean = total[k] / m
-            deviation = 100.0 * abs(i - mean) / mean
-            return deviation > s.imbalance_pct, deviation
+            return 100.0 * abs(i - mean) / mean
         if rule == "dead_phase":
             if blanked[k] or not present[k][p] or m < 2:
-                return False, i
+                return math.nan
             others = (total[k] - i) / (m - 1)
-            return others > s.dead_others_min_a and i < s.dead_floor_a, i
-        return (not math.isnan(vin[k])) and vin[k] < s.uv_level_v, vin[k]
+            return i if others > s.dead_others_min_a else math.nan
+        return vin[k]
 
-    levels = {
-        "over_current": (s.oc_level_a, s.oc_debounce_s),
-        "over_temperature": (s.ot_level_c, s.ot_debounce_s),
-        "imbalance": (s.imbalance_pct, s.imbalance_debounce_s),
-        "dead_phase": (s.dead_floor_a, s.dead_time_s),
-        "under_voltage": (s.uv_level_v, s.uv_debounce_s),
+    levels = {  # level, debounce, release, +1 for a rising quantity / -1 for a falling one
+        "over_current": (s.oc_level_a, s.oc_debounce_s, s.oc_release_a, 1),
+        "over_temperature": (s.ot_level_c, s.ot_debounce_s, s.ot_release_c, 1),
+        "imbalance": (s.imbalance_pct, s.imbalance_debounce_s, s.imbalance_release_pct, 1),
+        "dead_phase": (s.dead_floor_a, s.dead_debounce_s, s.dead_release_a, -1),
+        "under_voltage": (s.uv_level_v, s.uv_debounce_s, s.uv_release_v, -1),
     }
     trips: list[TripTuple] = []
     for rule in RULES:
-        level, debounce = levels[rule]
+        level, debounce, release, sign = levels[rule]
         if not math.isfinite(level):
             continue
+        hysteresis = math.isfinite(release) and sign * release < sign * level
         for p in [-1] if rule == "under_voltage" else range(n_phases):
             run_start = None
             tripped = False
             for k in range(n):
-                true, value = condition(rule, k, p)
+                value = reading(rule, k, p)
+                true = not math.isnan(value) and sign * value > sign * level
+                if hysteresis:
+                    released = math.isnan(value) or sign * value <= sign * release
+                else:
+                    released = not true
+                if released:
+                    tripped = False
                 if not true:
                     run_start = None
                     continue
                 if run_start is None:
-                    run_start, tripped = t[k], False
-                if not tripped and run_start <= t[k] - debounce:
-                    trips.append((k, t[k], p, rule, value))
+                    run_start = t[k]
+                if not tripped and run_start <= t[k] - round(debounce * ns):
+                    trips.append((k, t[k] / ns, p, rule, value))
                     tripped = True
     order: dict[str, int] = {rule: i for i, rule in enumerate(RULES)}
     return sorted(trips, key=lambda trip: (trip[0], trip[2], order[trip[3]]))
@@ -122,32 +135,30 @@ class Scores:
 def reference_scores(trace: RehearsalTrace, grid: ProtectionGrid, labels: FaultLabels) -> Scores:
     """Per combination: trips per rule, false trips and label latencies, by plain loops."""
     out = Scores([], [], [])
+    ns = 1_000_000_000
+    start = to_ticks(labels.start_s, trace.quantum_ns).tolist()
+    end = to_ticks(labels.end_s, trace.quantum_ns).tolist()
     for c in range(grid.size):
         trips = reference_trips(trace, grid.settings(c))
         out.trips_by_rule.append([sum(1 for x in trips if x[3] == rule) for rule in RULES])
         false = 0
-        for _, time, phase, _, _ in trips:
+        for k, _, phase, _, _ in trips:
+            time = int(trace.t_ns[k])
             covered = False
             for j in range(labels.size):
-                if (phase == -1 or labels.phase[j] == phase) and (
-                    labels.start_s[j] <= time <= labels.end_s[j]
-                ):
+                if (phase == -1 or labels.phase[j] == phase) and (start[j] <= time <= end[j]):
                     covered = True
             false += not covered
         out.false_trips.append(false)
         latencies = []
         for j in range(labels.size):
-            best = math.nan
-            for _, time, phase, rule, _ in trips:
-                counts = labels.kind[j] == rule or labels.kind[j] not in RULES
-                if (
-                    phase == labels.phase[j]
-                    and counts
-                    and labels.start_s[j] <= time <= labels.end_s[j]
-                    and not best <= time - labels.start_s[j]
-                ):
-                    best = time - labels.start_s[j]
-            latencies.append(best)
+            best = math.inf
+            for k, _, phase, rule, _ in trips:
+                time = int(trace.t_ns[k])
+                counts = labels.kind[j] in (rule, "any")
+                if phase == labels.phase[j] and counts and start[j] <= time <= end[j]:
+                    best = min(best, time - start[j])
+            latencies.append(best / ns if math.isfinite(best) else math.nan)
         out.latency_s.append(latencies)
     return out
 
@@ -177,13 +188,18 @@ def random_case(
         {
             "oc_level_a": pick([12.0, 15.0, 20.0, np.nan]),
             "oc_debounce_s": pick([0.0, 0.25, 0.5, 1.0]),
+            "oc_release_a": pick([np.nan, 8.0, 11.0, 30.0]),
+            "ot_release_c": pick([np.nan, 60.0, 75.0]),
+            "imbalance_release_pct": pick([np.nan, 5.0, 20.0]),
+            "dead_release_a": pick([np.nan, 2.0, 7.0]),
+            "uv_release_v": pick([np.nan, 11.8, 12.3]),
             "ot_level_c": pick([70.0, 80.0, np.inf]),
             "ot_debounce_s": pick([0.0, 0.5]),
             "imbalance_pct": pick([15.0, 30.0, 60.0, np.nan]),
             "imbalance_debounce_s": pick([0.0, 0.75]),
             "imbalance_min_load_a": pick([0.0, 25.0]),
             "dead_floor_a": pick([1.0, 5.0, np.nan]),
-            "dead_time_s": pick([0.0, 0.5, 1.25]),
+            "dead_debounce_s": pick([0.0, 0.5, 1.25]),
             "dead_others_min_a": pick([0.0, 8.0]),
             "uv_level_v": pick([11.5, 12.0, np.nan]),
             "uv_debounce_s": pick([0.0, 0.25]),
@@ -193,12 +209,12 @@ def random_case(
     )
     m = int(rng.integers(0, 6))
     start = rng.choice(t, size=m) + rng.choice([-0.25, 0.0, 0.1], size=m)
-    labels = FaultLabels(
-        start,
-        start + rng.choice([0.0, 0.5, 2.0, 6.0], size=m),
-        rng.integers(-1, n_phases, size=m),
-        tuple(rng.choice(["fault", *RULES], size=m).tolist()),
-    )
+    phase = rng.integers(-1, n_phases, size=m)
+    kinds = [
+        str(rng.choice(["any", "under_voltage"] if p == -1 else ["any", *RULES[:4]]))
+        for p in phase.tolist()
+    ]
+    labels = FaultLabels(start, start + rng.choice([0.0, 0.5, 2.0, 6.0], size=m), phase, kinds)
     return trace, grid, labels
 
 
@@ -238,13 +254,74 @@ def test_rehearse_lists_the_loops_trips(seed: int) -> None:
 def test_the_random_cases_exercise_every_rule_and_both_outcomes() -> None:
     """Guards the generator: the comparison above is only as good as the cases it sees."""
     per_rule = np.zeros(len(RULES))
-    detected = missed = 0
+    detected = missed = hysteresis_mattered = 0
     for seed in range(12):
         trace, grid, labels = random_case(seed)
         res = sweep(trace, grid, labels)
+        no_release = ProtectionGrid(
+            {k: np.nan if "release" in k else v for k, v in grid.columns.items()}
+        )
+        hysteresis_mattered += int(np.sum(sweep(trace, no_release).trips != res.trips))
         per_rule += res.trips_by_rule.sum(axis=0)
         detected += int(np.sum(~np.isnan(res.latency_s)))
         missed += int(res.missed.sum())
     assert np.all(per_rule > 0)
     assert detected > 0
     assert missed > 0
+    assert hysteresis_mattered > 0
+
+
+def reference_hold(trace: RehearsalTrace, hold_s: float) -> tuple[FloatArray, FloatArray]:
+    """Temperatures and input voltages with each gap filled by the last reading of at most
+    hold_s before, one sample at a time."""
+    ns = 1_000_000_000
+    t = trace.t_ns.tolist()
+    columns = [trace.temp_c[:, p].tolist() for p in range(trace.n_phases)]
+    columns.append(trace.vin_v.tolist())
+    filled = []
+    for col in columns:
+        out, last_value, last_time = [], math.nan, None
+        for k, x in enumerate(col):
+            if not math.isnan(x):
+                last_value, last_time = x, t[k]
+                out.append(x)
+            elif last_time is not None and t[k] - last_time <= round(hold_s * ns):
+                out.append(last_value)
+            else:
+                out.append(math.nan)
+        filled.append(out)
+    return np.array(filled[:-1]).T, np.array(filled[-1])
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    seed=st.integers(min_value=0, max_value=2**32 - 1),
+    hold_s=st.sampled_from([0.0, 0.25, 0.5, 1.0, 3.0]),
+)
+def test_the_hold_policy_equals_the_per_sample_loop(seed: int, hold_s: float) -> None:
+    trace, grid, labels = random_case(seed)
+    held = hold_readings(trace, hold_s)
+    temp, vin = reference_hold(trace, hold_s)
+    np.testing.assert_array_equal(held.temp_c, temp)
+    np.testing.assert_array_equal(held.vin_v, vin)
+    got = sweep(held, grid, labels)
+    want = reference_scores(held, grid, labels)
+    np.testing.assert_array_equal(got.trips_by_rule, want.trips_by_rule)
+
+
+@pytest.mark.parametrize("t0_s", [0.0, 1_764_700_000.0])
+def test_ten_identical_bursts_trip_ten_times_from_epoch_and_from_zero(t0_s: float) -> None:
+    """Regression (issue 18, item 2): ten identical bursts of three samples (2 ms) at 1 kHz
+    with a 2 ms debounce. The exact answer is 10 trips: every burst lasts exactly the
+    debounce. Float seconds lost some of them to binary rounding (6 of 10 from epoch times,
+    7 of 10 from t = 0)."""
+    n = 400
+    t = t0_s + np.arange(n) * 1e-3
+    current = np.full((n, 1), 10.0)
+    for b in range(10):
+        current[20 + 37 * b : 23 + 37 * b, 0] = 30.0
+    tr = RehearsalTrace(t, current, np.full((n, 1), 50.0), np.full(n, 12.0))
+    grid = ProtectionGrid({"oc_level_a": 20.0, "oc_debounce_s": 0.002})
+    assert sweep(tr, grid).trips.tolist() == [10]
+    assert len(rehearse(tr, grid.settings(0))) == 10
+    assert len(reference_trips(tr, grid.settings(0))) == 10

@@ -61,6 +61,9 @@ ACCESS: dict[tuple[str, str], tuple[str, str | None]] = {
     ("GET", "/v1/rehearsals/{rehearsal_id}"): ("operate", "rehearsal"),
     ("GET", "/v1/rehearsals/{rehearsal_id}/table.csv"): ("operate", "rehearsal"),
     ("GET", "/v1/rehearsals/{rehearsal_id}/pareto.svg"): ("operate", "rehearsal"),
+    ("GET", "/v1/rehearsals/{rehearsal_id}/rows/{row}/settings.json"): ("operate", "rehearsal"),
+    ("GET", "/v1/rehearsals/{rehearsal_id}/rows/{row}/settings.h"): ("operate", "rehearsal"),
+    ("POST", "/v1/tools/calibrations"): ("operate", None),
     ("POST", "/v1/rails/{rail_id}/events/{event_id}/capture"): ("ingest|operate", "path"),
     ("GET", "/v1/rails/{rail_id}/events/{event_id}/capture"): ("read", "path"),
 }
@@ -147,7 +150,7 @@ class World:
         values = {
             "rail_id": (NEW if own else THEIRS) if method == "DELETE" else rail,
             "event_id": self.events[rail], "rehearsal_id": self.rehearsals[rail],
-            "trace_id": self.trace_id,
+            "trace_id": self.trace_id, "row": 0,
         }  # fmt: skip
         url = path.format(**values)
         out: dict[str, Any] = {"method": method, "url": url}
@@ -158,6 +161,9 @@ class World:
             "/v1/rails/{rail_id}/samples": sample(self.seq, [20.0] * 4),
             "/v1/events/{event_id}/ack": {"by": "matrix"},
             "/v1/rails/{rail_id}/forecast": {"horizon_s": 600},
+            "/v1/tools/calibrations": {
+                "t_s": [float(k) for k in range(40)],
+                "temp_c": [25.0 + 8.0 * (1 - 0.9**k) for k in range(40)], "power_w": 1.0},
             "/v1/rails/{rail_id}/calibrations": {
                 "t_s": [float(k) for k in range(40)],
                 "temp_c": [25.0 + 8.0 * (1 - 0.9**k) for k in range(40)], "power_w": 1.0},

@@ -84,3 +84,63 @@ async def test_bad_calibrations(
     assert answer.status_code == 422, answer.text
     assert answer.json()["field"] == field
     assert (await client.get(rail)).json()["version"] == 1
+
+
+# --- issue 18 -------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("change", "field", "cause"),
+    [
+        ({"cooling": True}, "temp_c", "looks like a heating curve"),
+        ({"t_s": list(range(8)), "temp_c": [25.0 + k for k in range(8)]}, "t_s",
+         "fit no order"),  # 8 samples, T_ref fitted: order 1 needs 12
+        ({"t_s": [0.0] * 600}, "t_s", "strictly increasing"),
+    ],
+)  # fmt: skip
+async def test_calibration_refusals_name_the_field(
+    client: httpx.AsyncClient, rail: str, change: dict[str, Any], field: str, cause: str
+) -> None:
+    body = curve(3.0) | {"power_w": 3.0, "orders": [1, 2]} | change
+    answer = await client.post(f"{rail}/calibrations", json=body)
+    assert answer.status_code == 422, answer.text
+    assert answer.json()["field"] == field  # no stray colon ("t_s:")
+    assert cause in answer.json()["detail"]
+
+
+async def test_an_unsettled_curve_is_flagged_and_not_applied(
+    client: httpx.AsyncClient, rail: str
+) -> None:
+    """Cut at 10 s the 20 s stage is far from its end."""
+    full = curve(3.0)
+    short = {k: v[:40] for k, v in full.items()}  # 0 .. 9.8 s
+    body = short | {"power_w": 3.0, "orders": [1, 2]}
+    fit = (await client.post(f"{rail}/calibrations", json=body)).json()
+    assert fit["settled"] is False
+    assert "3 times the slowest" in fit["settled_rule"]
+    assert any(w.startswith("not settled") for w in fit["warnings"])
+    refused = await client.post(f"{rail}/calibrations", json=body | {"apply": "phase"})
+    assert (refused.status_code, refused.json()["field"]) == (422, "apply")
+    assert (await client.get(rail)).json()["version"] == 1
+    settled = (await client.post(f"{rail}/calibrations", json=full | {"power_w": 3.0})).json()
+    assert settled["settled"] is True
+    low, high = settled["chosen"]["total_r_ci_k_per_w"]
+    assert 0.0 < low < R.sum() < high
+
+
+async def test_a_curve_fit_needs_no_rail(client: httpx.AsyncClient) -> None:
+    body = curve(3.0) | {"power_w": 3.0, "orders": [1, 2, 3]}
+    answer = await client.post("/v1/tools/calibrations", json=body)
+    assert answer.status_code == 200, answer.text
+    assert answer.json()["order"] == 2
+    in_ms = body | {"t_s": [t * 1000 for t in body["t_s"]], "time_unit": "ms"}
+    same = (await client.post("/v1/tools/calibrations", json=in_ms)).json()
+    assert same["chosen"]["total_r_k_per_w"] == pytest.approx(
+        answer.json()["chosen"]["total_r_k_per_w"], rel=1e-6
+    )
+    unflagged = await client.post("/v1/tools/calibrations", json=in_ms | {"time_unit": "s"})
+    assert any("milliseconds" in w for w in unflagged.json()["warnings"])
+    wrong_ref = (await client.post("/v1/tools/calibrations",
+                                   json=body | {"reference_temp_c": 24.0})).json()  # fmt: skip
+    assert wrong_ref["reference_offset_k"] == pytest.approx(1.0, abs=0.05)
+    assert any("reference temperature" in w for w in wrong_ref["warnings"])

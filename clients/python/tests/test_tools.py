@@ -27,6 +27,11 @@ def test_upload_rehearse_and_fetch_the_table(client: Client) -> None:
     assert [row["trips"] for row in state["result"]["rows"]] == [1, 0]  # 25 A vs 20 and 30 A
     table = client.rehearsal_file(job["id"], "table.csv")
     assert table.splitlines()[0].startswith("index,oc_level_a,trips")
+    exported = client.export_settings(job["id"], 0)
+    assert exported["settings"]["oc_level_a"] == 20.0
+    assert exported["figures"]["trips"] == 1
+    header = client.export_header(job["id"], 0)
+    assert "#define PW_OC_LEVEL_A (20.0)" in header
 
 
 def test_calibrate_a_one_stage_curve(client: Client, rail_id: str) -> None:
@@ -36,6 +41,9 @@ def test_calibrate_a_one_stage_curve(client: Client, rail_id: str) -> None:
     (stage,) = fit["chosen"]["stages"]
     assert abs(stage["r_k_per_w"] - 8.0) < 1e-3
     assert abs(stage["tau_s"] - 10.0) < 1e-2
+    same = client.fit_curve({"t_s": t, "temp_c": temp, "power_w": 2.0, "orders": [1]})
+    assert abs(same["chosen"]["total_r_k_per_w"] - 8.0) < 1e-3
+    assert same["settled"] is True  # 100 s against 3 x 10 s
 
 
 def test_follow_the_event_stream(client: Client, rail_id: str) -> None:

@@ -1,9 +1,11 @@
 """Calibration: fit the thermal model of a rail's phase from a recorded heating or cooling
-curve, and on request store the fit as the rail's next version."""
+curve, and on request store the fit as the rail's next version; or fit a curve with a known
+power step and no rail at all (:func:`fit_curve`)."""
 
 from __future__ import annotations
 
 import copy
+import re
 from collections.abc import Sequence
 from typing import Any, Literal
 
@@ -13,10 +15,62 @@ from sqlalchemy.orm import Session, sessionmaker
 from phaseward.errors import InvalidInput
 from phaseward.monitor import rail_model
 from phaseward.monitor import rails as rail_service
-from phaseward.physics.calibration import CalibrationFailed, CalibrationResult, OrderFit, fit_foster
+from phaseward.physics.calibration import (
+    SETTLED_TAUS,
+    CalibrationFailed,
+    CalibrationResult,
+    OrderFit,
+    fit_foster,
+)
 from phaseward.physics.losses import phase_losses
 
 Apply = Literal["no", "phase", "all"]
+TimeUnit = Literal["s", "ms", "us"]
+SECONDS = {"s": 1.0, "ms": 1e-3, "us": 1e-6}
+SETTLED_RULE = (
+    f"settled when the curve lasts at least {SETTLED_TAUS:g} times the slowest fitted time "
+    "constant (that stage within 5 % of its end)"
+)
+
+
+def fit_curve(
+    *,
+    t_s: Sequence[float],
+    temp_c: Sequence[float],
+    power_w: float,
+    cooling: bool,
+    orders: Sequence[int],
+    reference_temp_c: float | None,
+    location: Literal["junction", "sensor"],
+    time_unit: TimeUnit = "s",
+) -> dict[str, Any]:
+    """Fit a curve whose power step is known; no rail needed, nothing stored."""
+    return _describe(
+        _fit(t_s, temp_c, power_w, cooling, orders, reference_temp_c, location, time_unit)
+    )
+
+
+def _fit(
+    t: Sequence[float],
+    temp_c: Sequence[float],
+    power_w: float,
+    cooling: bool,
+    orders: Sequence[int],
+    reference_temp_c: float | None,
+    location: Literal["junction", "sensor"],
+    time_unit: TimeUnit,
+) -> CalibrationResult:
+    try:
+        return fit_foster(
+            np.asarray(t, dtype=np.float64) * SECONDS[time_unit], temp_c, power_w,
+            orders=orders, cooling=cooling, reference_temp_c=reference_temp_c,
+            location=location,
+        )  # fmt: skip
+    except CalibrationFailed as err:
+        raise InvalidInput(f"no model order converged: {err}", field="temp_c") from err
+    except ValueError as err:  # the message starts with the argument's name
+        name = re.match(r"\w+", str(err))
+        raise InvalidInput(str(err), field=name.group(0) if name else "body") from err
 
 
 def power_of(model: rail_model.RailModel, phase: int, current_a: float, temp_c: float) -> float:
@@ -39,6 +93,7 @@ def calibrate(
     reference_temp_c: float | None,
     location: Literal["junction", "sensor"],
     apply: Apply,
+    time_unit: TimeUnit = "s",
 ) -> dict[str, Any]:
     with sessions() as session, session.begin():
         rail, spec = rail_service.get(session, rail_id)
@@ -58,17 +113,14 @@ def calibrate(
         # loss grows with temperature, so a constant-power fit is an approximation here.
         assert current_a is not None  # the schema asks for one of the two
         power_w = power_of(model, phase, current_a, float(np.mean(temp_c)))
-    try:
-        result = fit_foster(
-            t_s, temp_c, power_w, orders=orders, cooling=cooling,
-            reference_temp_c=reference_temp_c, location=location,
-        )  # fmt: skip
-    except CalibrationFailed as err:
-        raise InvalidInput(f"no model order converged: {err}", field="temp_c") from err
-    except ValueError as err:
-        raise InvalidInput(str(err), field=str(err).split()[0]) from err
+    result = _fit(t_s, temp_c, power_w, cooling, orders, reference_temp_c, location, time_unit)
     out = _describe(result)
-    out["applied_version"] = None
+    if apply != "no" and not result.chosen.settled:
+        raise InvalidInput(
+            f"the curve is not settled ({SETTLED_RULE}): its total thermal resistance is an "
+            "extrapolation, too uncertain to store; record a longer curve",
+            field="apply",
+        )
     if apply != "no":
         stages = [
             {"r_k_per_w": float(r), "tau_s": float(t)}
@@ -99,9 +151,8 @@ def with_thermal(
     return new
 
 
-def _fit(f: OrderFit) -> dict[str, Any]:
-    def finite(x: float) -> float | None:
-        return float(x) if np.isfinite(x) else None
+def _order(f: OrderFit) -> dict[str, Any]:
+    finite = _finite
 
     return {
         "order": f.order,
@@ -117,6 +168,9 @@ def _fit(f: OrderFit) -> dict[str, Any]:
             )
         ],
         "reference_temp_c": f.reference_temp_c,
+        "total_r_k_per_w": f.total_r_k_per_w,
+        "total_r_ci_k_per_w": [finite(x) for x in f.total_r_ci_k_per_w],
+        "settled": f.settled,
         "rms_k": f.rms_k,
         "bic": f.bic,
         "ci_valid": f.ci_valid,
@@ -138,6 +192,17 @@ def _describe(result: CalibrationResult) -> dict[str, Any]:
         "location": result.location,
         "cooling": result.cooling,
         "note": note,
-        "chosen": _fit(result.chosen),
-        "fits": [_fit(f) for f in result.fits],
+        "chosen": _order(result.chosen),
+        "fits": [_order(f) for f in result.fits],
+        "skipped_orders": list(result.skipped_orders),
+        "settled": result.chosen.settled,
+        "settled_rule": SETTLED_RULE,
+        "warnings": list(result.warnings),
+        "reference_offset_k": _finite(result.reference_offset_k),
+        "reference_offset_ci_k": [_finite(x) for x in result.reference_offset_ci_k],
+        "applied_version": None,
     }
+
+
+def _finite(x: float) -> float | None:
+    return float(x) if np.isfinite(x) else None

@@ -8,6 +8,9 @@ has expired (its server stopped or died) is taken over by whichever live server 
 handlers are pure functions of the stored request, so a rerun gives the same result. Progress
 and results are written only while the lease is held, so a server that lost a job to another
 writes nothing. Leases compare the servers' wall clocks: keep them in sync (NTP).
+
+Short jobs do not queue behind long ones: a job whose stated cost (for a rehearsal, its number
+of combinations) is at most ``SHORT_COST`` runs in a lane of its own.
 """
 
 from __future__ import annotations
@@ -30,6 +33,7 @@ from phaseward.store.models import Job
 Progress = Callable[[float], None]
 Handler = Callable[[sessionmaker[Session], dict[str, Any], Progress], dict[str, Any]]
 PROGRESS_EVERY_S = 0.5  # progress is written at most this often
+SHORT_COST = 100  # jobs up to this cost take the short lane (our choice)
 
 log = logging.getLogger(__name__)
 
@@ -42,17 +46,18 @@ class JobRunner:
         self._sessions = sessions
         self._handlers = dict(handlers)
         self._pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="phaseward-job")
+        self._short = ThreadPoolExecutor(max_workers=1, thread_name_prefix="phaseward-short-job")
         self.owner = uuid.uuid4().hex  # this runner, as lease holder
         self.lease_s = lease_s
         self._stop = threading.Event()
         self._keeper = threading.Thread(target=self._keep, name="phaseward-leases", daemon=True)
 
-    def submit(self, kind: str, request: dict[str, Any]) -> Job:
+    def submit(self, kind: str, request: dict[str, Any], *, cost: int = SHORT_COST + 1) -> Job:
         now = time.time()
         with transaction(self._sessions) as session:
             job = jobs.add(session, kind=kind, request=request, now_s=now, owner=self.owner,
                            lease_until_s=now + self.lease_s)  # fmt: skip
-        self._pool.submit(self._run, job.id)
+        (self._short if cost <= SHORT_COST else self._pool).submit(self._run, job.id)
         return job
 
     def resume(self) -> None:
@@ -75,6 +80,7 @@ class JobRunner:
         if self._keeper.is_alive():  # let a renewal under way return its connection
             self._keeper.join(timeout=self.lease_s)
         self._pool.shutdown(wait=False, cancel_futures=True)
+        self._short.shutdown(wait=False, cancel_futures=True)
 
     def _keep(self) -> None:
         while not self._stop.wait(self.lease_s / 3):

@@ -24,16 +24,36 @@ start wins.
 
 Order selection: the Bayesian information criterion, BIC = n ln(RSS / n) + k ln n, with k
 the number of fitted parameters (2 per stage, plus T_ref when fitted), lowest wins among the
-converged fits. BIC rather than AIC because a recorded curve holds hundreds to thousands of
-samples, and AIC's fixed 2k penalty then lets extra stages through on noise; BIC's ln n
-penalty is consistent (selects the true order as n grows). RSS is floored at rounding level
-(n (eps max|T|)^2) so a noise-free curve does not give -inf.
+converged fits. An order is tried only when the curve holds at least ``MIN_POINTS_PER_PARAM``
+(4, our choice) samples per fitted parameter; the others are listed in ``skipped_orders`` (with
+few points BIC lets a many-stage fit chase the noise). BIC rather than AIC because a recorded
+curve holds hundreds to thousands of samples, and AIC's fixed 2k penalty then lets extra
+stages through on noise; BIC's ln n penalty is consistent (selects the true order as n
+grows). RSS is floored at rounding level (n (eps max|T|)^2) so a noise-free curve does not
+give -inf.
 
-Confidence intervals: 95 %, asymptotic (local linearisation, Gaussian residuals): the
-covariance of the transformed parameters is s^2 (J^T J)^-1 with s^2 = RSS / (n - k), and the
-delta method carries it to R_i = exp(u_i) and tau_i (standard error of R_i is R_i times that
-of ln R_i), giving value +- 1.96 SE. When J is numerically rank deficient (a stage the data
-cannot pin down) the intervals are NaN and ``ci_valid`` is False.
+Confidence intervals: 95 %, asymptotic Wald intervals in log space (local linearisation,
+Gaussian residuals): the covariance of the transformed parameters is s^2 (J^T J)^-1 with
+s^2 = RSS / (n - k); the delta method carries it to ln R_i, ln tau_i and ln R_th (R_th = sum
+R_i, the total thermal resistance), and each interval is exp(ln x +- 1.96 SE(ln x)): never
+below zero, wider above the value than below. T_ref's interval is linear (+- 1.96 SE). When J
+is numerically rank deficient (a stage the data cannot pin down) the intervals are NaN and
+``ci_valid`` is False.
+
+Settled (our rule): the curve has seen its slow stage when it lasts at least
+``SETTLED_TAUS`` (3) times the slowest fitted time constant, i.e. that stage has risen (or
+decayed) to within exp(-3) = 5 % of its end. A shorter curve cannot pin down the total
+thermal resistance (its slowest stage is extrapolated); ``settled`` is then False.
+
+Direction: a heating curve must rise and a cooling curve fall (the mean of the last quarter of
+the samples against the first quarter's, by more than the noise of the two means); a curve
+that goes the other way is refused (:class:`WrongDirection`) instead of fitted to R ~ 0.
+
+Warnings (``warnings`` of the result): a fitted stage faster than the first sample after the
+step, which usually means the reference temperature is off by that stage's rise; with a given
+reference temperature, the offset a fit with T_ref free finds when its interval excludes 0;
+and a record longer than ``LONG_RECORD_S`` (2 h), which suggests milliseconds sent as
+seconds.
 
 Sensor not at the junction (``location="sensor"``): the same fit then describes the transfer
 impedance from the heat source to the sensor's location, i.e. the sensor's rise per watt;
@@ -42,13 +62,13 @@ be used as a junction Zth. A remote sensor's early response lags (its exact tran
 impedance can have negative Foster terms, which this positive fit cannot express), so expect
 a larger residual at short times. ``location`` is passed through to the result.
 
-Failure policy: invalid arguments raise ValueError naming the argument; an order whose fit
-does not converge is reported in ``fits`` with ``converged=False``; if no order converges,
-:class:`CalibrationFailed` carries the attempts.
+Failure policy: invalid arguments raise ValueError whose message starts with the argument's
+name; an order whose fit does not converge is reported in ``fits`` with ``converged=False``;
+if no order converges, :class:`CalibrationFailed` carries the attempts.
 """
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal
 
 import numpy as np
@@ -68,6 +88,13 @@ _CONFIDENCE = 0.95
 _LN_R_BOUND = 40.0  # |ln R| <= 40 (R within e^+-40 K/W keeps every exponential finite)
 _LN_TAU_MARGIN = 20.0  # tau_1 within e^+-20 of the record's time span
 _GAP_BOUND = 30.0  # |a_i| <= 30: ratios from rho to rho + e^30
+MIN_POINTS_PER_PARAM = 4  # samples per fitted parameter for an order to be tried (our choice)
+SETTLED_TAUS = 3.0  # settled: the curve lasts this many slowest time constants (our rule)
+LONG_RECORD_S = 7200.0  # a longer record is flagged: milliseconds sent as seconds? (our choice)
+
+
+class WrongDirection(ValueError):
+    """A heating curve that falls, or a cooling curve that rises."""
 
 
 class CalibrationFailed(ArithmeticError):
@@ -83,10 +110,12 @@ class OrderFit:
     """The fit of one model order.
 
     stages: the fitted Foster stages (tau ascending); reference_temp_c: T_ref, degC;
-    r_ci_k_per_w, tau_ci_s: (order, 2) 95 % intervals (low, high); reference_temp_ci_c: (2,)
-    (NaN when T_ref was given); ci_valid: False when the intervals are NaN (rank-deficient
-    Jacobian); rms_k: residual RMS, K; bic: the criterion; n_params: fitted parameters;
-    converged / message: from ``least_squares`` for the best start.
+    r_ci_k_per_w, tau_ci_s: (order, 2) 95 % intervals (low, high), log space;
+    total_r_k_per_w: sum of R_i, K/W, and total_r_ci_k_per_w: (2,) its interval (log space);
+    settled: the curve lasts ``SETTLED_TAUS`` slowest time constants; reference_temp_ci_c:
+    (2,) (NaN when T_ref was given); ci_valid: False when the intervals are NaN
+    (rank-deficient Jacobian); rms_k: residual RMS, K; bic: the criterion; n_params: fitted
+    parameters; converged / message: from ``least_squares`` for the best start.
     """
 
     order: int
@@ -94,6 +123,9 @@ class OrderFit:
     reference_temp_c: float
     r_ci_k_per_w: FloatArray
     tau_ci_s: FloatArray
+    total_r_k_per_w: float
+    total_r_ci_k_per_w: FloatArray
+    settled: bool
     reference_temp_ci_c: FloatArray
     ci_valid: bool
     rms_k: float
@@ -109,7 +141,10 @@ class CalibrationResult:
 
     stages: the chosen :class:`FosterStages` (from the power source to ``location``);
     order: its number of stages; reference_temp_c: its T_ref, degC; fits: one
-    :class:`OrderFit` per order tried, in the order given; criterion: "bic".
+    :class:`OrderFit` per order tried, in the order given; skipped_orders: orders not tried
+    (too few samples per parameter); warnings: plain-text doubts (module docstring);
+    reference_offset_k / reference_offset_ci_k: with T_ref given, T_ref fitted minus given and
+    its interval (NaN otherwise); criterion: "bic".
     """
 
     stages: FosterStages
@@ -119,6 +154,10 @@ class CalibrationResult:
     location: Location
     cooling: bool
     power_w: float
+    skipped_orders: tuple[int, ...] = ()
+    warnings: tuple[str, ...] = ()
+    reference_offset_k: float = float("nan")
+    reference_offset_ci_k: tuple[float, float] = (float("nan"), float("nan"))
     criterion: Literal["bic"] = "bic"
 
     @property
@@ -254,21 +293,32 @@ def _fit_order(
     _, sing, vt = np.linalg.svd(jac, full_matrices=False)
     ci_valid = bool(sing[-1] > _RCOND * sing[0])
     z = float(special.ndtri(0.5 + _CONFIDENCE / 2.0))  # standard normal quantile
+    total = float(r.sum())
     if ci_valid:
         cov = rss / (n - n_params) * (vt.T / sing**2) @ vt
-        se_r = r * np.sqrt(np.diag(cov)[:order])
+        cov_ln_r = cov[:order, :order]
+        se_ln_r = np.sqrt(np.diag(cov_ln_r))
         cov_a = cov[order : 2 * order, order : 2 * order]
-        se_tau = tau * np.sqrt(np.diag(dtau @ cov_a @ dtau.T))
+        se_ln_tau = np.sqrt(np.diag(dtau @ cov_a @ dtau.T))
+        se_ln_total = float(np.sqrt(r @ cov_ln_r @ r)) / total  # d ln(sum R) / d ln R_i = R_i/sum
         se_ref = float(np.sqrt(cov[-1, -1])) if fitted_ref else np.nan
     else:
-        se_r = se_tau = np.full(order, np.nan)
-        se_ref = np.nan
+        se_ln_r = se_ln_tau = np.full(order, np.nan)
+        se_ln_total = se_ref = np.nan
+    spread = np.array([-z, z])
+    with np.errstate(over="ignore"):  # an interval too wide for a float reaches inf
+        r_ci = r[:, None] * np.exp(se_ln_r[:, None] * spread)
+        tau_ci = tau[:, None] * np.exp(se_ln_tau[:, None] * spread)
+        total_ci = total * np.exp(se_ln_total * spread)
     return OrderFit(
         order=order,
         stages=FosterStages(r, tau),
         reference_temp_c=float(ref[0]),
-        r_ci_k_per_w=np.column_stack([r - z * se_r, r + z * se_r]),
-        tau_ci_s=np.column_stack([tau - z * se_tau, tau + z * se_tau]),
+        r_ci_k_per_w=r_ci,
+        tau_ci_s=tau_ci,
+        total_r_k_per_w=total,
+        total_r_ci_k_per_w=total_ci,
+        settled=bool(prob.t_s[-1] >= SETTLED_TAUS * tau[-1]),
         reference_temp_ci_c=float(ref[0]) + z * se_ref * np.array([-1.0, 1.0]),
         ci_valid=ci_valid,
         rms_k=float(np.sqrt(rss / n)),
@@ -293,10 +343,12 @@ def fit_foster(
 
     t_s: (n,) strictly increasing times since the power step, s, >= 0; temp_c: (n,) recorded
     temperature, degC; power_w > 0: the power step, W; orders: distinct stage counts >= 1
-    with n > 2 max(orders) + 1; cooling: the curve follows the removal of ``power_w`` from
-    equilibrium; reference_temp_c: T_ref if known (the temperature before a heating step or
+    (an order needs ``MIN_POINTS_PER_PARAM`` samples per fitted parameter or is skipped);
+    cooling: the curve follows the removal of ``power_w`` from equilibrium;
+    reference_temp_c: T_ref if known (the temperature before a heating step or
     after a cooling one), else fitted; location: "junction" or "sensor" (module docstring).
-    ValueError names a bad argument; :class:`CalibrationFailed` if no order converges.
+    ValueError names a bad argument (:class:`WrongDirection` for a curve going the wrong way);
+    :class:`CalibrationFailed` if no order converges.
 
     >>> truth = FosterStages(np.array([0.4, 1.2]), np.array([0.05, 2.0]))
     >>> t = np.logspace(-3, 1.5, 200)
@@ -321,17 +373,26 @@ def fit_foster(
     order_list = [int(k) for k in orders]
     if not order_list or min(order_list) < 1 or len(set(order_list)) != len(order_list):
         raise ValueError("orders must be distinct stage counts >= 1")
-    if t.size <= 2 * max(order_list) + 1:
-        raise ValueError(
-            f"t_s: orders up to {max(order_list)} need more than {2 * max(order_list) + 1} samples"
-        )
     if reference_temp_c is not None and not np.isfinite(reference_temp_c):
         raise ValueError("reference_temp_c must be finite (or None to fit it)")
     if location not in ("junction", "sensor"):
         raise ValueError("location must be 'junction' or 'sensor'")
+    fitted_ref = reference_temp_c is None
+
+    def enough(order: int, *, free_ref: bool = fitted_ref) -> bool:
+        return t.size >= MIN_POINTS_PER_PARAM * (2 * order + int(free_ref))
+
+    tried = [k for k in order_list if enough(k)]
+    if not tried:
+        need = MIN_POINTS_PER_PARAM * (2 * min(order_list) + int(fitted_ref))
+        raise ValueError(
+            f"t_s: {t.size} samples fit no order: order {min(order_list)} needs {need} "
+            f"({MIN_POINTS_PER_PARAM} per fitted parameter)"
+        )
     positive = t[t > 0.0]
     if positive.size == 0 or positive[0] == t[-1]:
         raise ValueError("t_s must span an interval of positive times")
+    _check_direction(temp, cooling=bool(cooling))
     prob = _Problem(
         t,
         temp,
@@ -339,18 +400,58 @@ def fit_foster(
         bool(cooling),
         None if reference_temp_c is None else float(reference_temp_c),
     )
+    t_lo, t_hi = float(positive[0]), float(t[-1])
     fits: list[OrderFit] = []
     previous: dict[int, FloatArray] = {}
-    for order in sorted(order_list):
-        fit = _fit_order(prob, order, previous.get(order - 1), float(positive[0]), float(t[-1]))
+    for order in sorted(tried):
+        fit = _fit_order(prob, order, previous.get(order - 1), t_lo, t_hi)
         previous[order] = fit.stages.tau_s
         fits.append(fit)
     by_order = {f.order: f for f in fits}
-    reported = tuple(by_order[k] for k in order_list)
+    reported = tuple(by_order[k] for k in order_list if k in by_order)
     converged = [f for f in reported if f.converged]
     if not converged:
         raise CalibrationFailed("no model order converged; see .fits", reported)
     best = min(converged, key=lambda f: f.bic)
+    warnings: list[str] = []
+    offset, offset_ci = float("nan"), (float("nan"), float("nan"))
+    if not fitted_ref:
+        # the same order selection with T_ref free: its T_ref estimates the offset
+        free_prob = replace(prob, reference_temp_c=None)
+        free_fits: list[OrderFit] = []
+        for order in sorted(k for k in tried if enough(k, free_ref=True)):
+            prior = free_fits[-1].stages.tau_s if free_fits else None
+            free_fits.append(_fit_order(free_prob, order, prior, t_lo, t_hi))
+        usable = [f for f in free_fits if f.converged and f.ci_valid]
+        if usable:
+            free = min(usable, key=lambda f: f.bic)
+            given = float(prob.reference_temp_c or 0.0)
+            offset = free.reference_temp_c - given
+            lo, hi = (float(x) - given for x in free.reference_temp_ci_c)
+            offset_ci = (lo, hi)
+            if not lo <= 0.0 <= hi:
+                warnings.append(
+                    f"the curve suggests a reference temperature of {free.reference_temp_c:.2f} "
+                    f"degC, {offset:+.2f} K from the {given:g} degC given (95 % interval "
+                    f"{lo:+.2f} .. {hi:+.2f} K): check it, or leave it out to fit it"
+                )
+    if best.stages.tau_s[0] < t_lo:
+        warnings.append(
+            f"the fastest stage (tau {best.stages.tau_s[0]:.3g} s) is faster than the first "
+            f"sample after the step ({t_lo:.3g} s): usually a reference temperature off by "
+            f"{power_w * best.stages.r_k_per_w[0]:.2f} K, not a real stage"
+        )
+    if t_hi > LONG_RECORD_S:
+        warnings.append(
+            f"the record lasts {t_hi:.4g} s (over {LONG_RECORD_S / 3600:g} h): were the times "
+            "sent in milliseconds? t_s is in seconds"
+        )
+    if not best.settled:
+        warnings.append(
+            f"not settled: the curve ends at {t_hi:.4g} s, before {SETTLED_TAUS:g} x the slowest "
+            f"time constant ({best.stages.tau_s[-1]:.4g} s); the total thermal resistance is "
+            "an extrapolation"
+        )
     return CalibrationResult(
         stages=best.stages,
         order=best.order,
@@ -359,4 +460,25 @@ def fit_foster(
         location=location,
         cooling=bool(cooling),
         power_w=float(power_w),
+        skipped_orders=tuple(k for k in order_list if k not in by_order),
+        warnings=tuple(warnings),
+        reference_offset_k=offset,
+        reference_offset_ci_k=offset_ci,
+    )
+
+
+def _check_direction(temp: FloatArray, *, cooling: bool) -> None:
+    """Refuse a curve that does not go the stated way (module docstring, direction)."""
+    q = max(2, temp.size // 4)
+    change = float(np.mean(temp[-q:]) - np.mean(temp[:q]))
+    noise = 1.4826 * float(np.median(np.abs(np.diff(temp)))) / np.sqrt(2.0)  # MAD estimate
+    if (-change if cooling else change) > 2.0 * noise * np.sqrt(2.0 / q):
+        return
+    way, other = ("fall", "heating") if cooling else ("rise", "cooling")
+    hint = (
+        f"; it looks like a {other} curve" if abs(change) > 2.0 * noise * np.sqrt(2.0 / q) else ""
+    )
+    raise WrongDirection(
+        f"temp_c: a {'cooling' if cooling else 'heating'} curve must {way} (its last quarter "
+        f"against its first moved {change:+.3g} K){hint}: check cooling and the curve"
     )

@@ -158,6 +158,7 @@ class Trace(Base):
     vin_v: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE (n,)
     current_a: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE (n, phases)
     temp_c: Mapped[bytes] = mapped_column(LargeBinary)  # float64 LE (n, phases), NaN = none
+    isolated: Mapped[bytes | None] = mapped_column(LargeBinary)  # uint8 (n, phases), 1 = isolated
     created_s: Mapped[float] = mapped_column(Float)
 
 

@@ -121,3 +121,81 @@ def test_stages_stay_positive_sorted_and_convertible(seed: int, noise_k: float) 
         assert np.all(tau[1:] >= 1.2 * tau[:-1] * (1.0 - 1e-12))
     cauer = foster_to_cauer(cal.stages)
     assert cauer.r_k_per_w.sum() == pytest.approx(cal.stages.r_k_per_w.sum(), rel=1e-9)
+
+
+# --- issue 18: honest fits ------------------------------------------------------------------
+
+SLOW = FosterStages(np.array([0.3, 0.6, 0.9]), np.array([0.01, 0.2, 3.0]))  # R_th 1.8 K/W
+
+
+def slow_curve(t_end_s: float, n: int = 200, noise_k: float = 0.01) -> tuple[np.ndarray, ...]:
+    t = np.logspace(-3.0, np.log10(t_end_s), n)
+    noise = np.random.default_rng(3).normal(0.0, noise_k, n)
+    return t, 25.0 + P_W * SLOW.zth_k_per_w(t) + noise
+
+
+def test_a_curve_in_the_wrong_direction_is_refused() -> None:
+    temp = curve()
+    with pytest.raises(calibration.WrongDirection, match="looks like a heating curve"):
+        fit_foster(T_S, temp, P_W, cooling=True)
+    with pytest.raises(calibration.WrongDirection, match="looks like a cooling curve"):
+        fit_foster(T_S, temp[::-1].copy(), P_W)
+    flat = 30.0 + np.random.default_rng(0).normal(0.0, 0.02, T_S.size)
+    with pytest.raises(calibration.WrongDirection, match="must rise"):
+        fit_foster(T_S, flat, P_W)
+
+
+def test_a_curve_that_ends_early_is_not_settled() -> None:
+    """Cut at 0.5 s the slow 3 s stage is unseen; the full 30 s curve pins the total down."""
+    short = fit_foster(*slow_curve(0.5), P_W, orders=(1, 2, 3))
+    assert not short.chosen.settled
+    assert any(w.startswith("not settled") for w in short.warnings)
+    full = fit_foster(*slow_curve(30.0), P_W, orders=(1, 2, 3))
+    assert full.chosen.settled
+    assert not any(w.startswith("not settled") for w in full.warnings)
+    low, high = full.chosen.total_r_ci_k_per_w
+    assert low < 1.8 < high
+    assert full.chosen.total_r_k_per_w == pytest.approx(float(full.stages.r_k_per_w.sum()))
+
+
+@settings(max_examples=10, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1))
+def test_intervals_never_go_below_zero(seed: int) -> None:
+    """Noise of 0.5 K on a 25 K rise: wide intervals, all positive (log space)."""
+    noise = np.random.default_rng(seed).normal(0.0, 0.5, T_S.size)
+    cal = fit_foster(T_S, 30.0 + P_W * TRUTH.zth_k_per_w(T_S) + noise, P_W, orders=(1, 2, 3))
+    for fit in cal.fits:
+        if fit.ci_valid:
+            assert np.all(fit.r_ci_k_per_w[:, 0] > 0.0)
+            assert np.all(fit.tau_ci_s[:, 0] > 0.0)
+            assert fit.total_r_ci_k_per_w[0] > 0.0
+
+
+def test_few_points_cannot_choose_many_stages() -> None:
+    """Ten samples (issue 18): with T_ref fitted not even one stage has 4 points per
+    parameter; with T_ref given, one stage (8 points) is tried and the rest skipped."""
+    t = np.linspace(0.05, 10.0, 10)
+    temp = 25.0 + P_W * TRUTH.zth_k_per_w(t) + np.random.default_rng(2).normal(0.0, 0.05, 10)
+    with pytest.raises(ValueError, match=r"^t_s: 10 samples fit no order: order 1 needs 12"):
+        fit_foster(t, temp, P_W)
+    cal = fit_foster(t, temp, P_W, reference_temp_c=25.0)
+    assert cal.order == 1
+    assert cal.skipped_orders == (2, 3, 4)
+
+
+def test_a_wrong_reference_temperature_is_flagged() -> None:
+    """The curve starts from 25 degC; 24 degC is given (issue 18, item 5)."""
+    t, temp = slow_curve(30.0)
+    cal = fit_foster(t, temp, P_W, orders=(1, 2, 3), reference_temp_c=24.0)
+    assert cal.reference_offset_k == pytest.approx(1.0, abs=0.05)
+    assert cal.reference_offset_ci_k[0] > 0.0
+    assert any("reference temperature of 25.0" in w for w in cal.warnings)
+    right = fit_foster(t, temp, P_W, orders=(1, 2, 3), reference_temp_c=25.0)
+    assert not any("reference temperature" in w for w in right.warnings)
+
+
+def test_milliseconds_sent_as_seconds_are_flagged() -> None:
+    t, temp = slow_curve(30.0)
+    cal = fit_foster(t * 1000.0, temp, P_W, orders=(1, 2, 3))
+    assert any("milliseconds" in w for w in cal.warnings)
+    assert not any("milliseconds" in w for w in fit_foster(t, temp, P_W, orders=(1, 2)).warnings)

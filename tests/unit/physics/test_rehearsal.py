@@ -19,6 +19,7 @@ from phaseward.physics.rehearsal import (
     ProtectionSettings,
     RehearsalTrace,
     Trip,
+    hold_readings,
     pareto_front,
     rehearse,
     sweep,
@@ -116,7 +117,9 @@ def test_dead_phase_needs_the_others_to_carry_load() -> None:
     # others' mean 10 A > 5 A on samples 0..1 only; 3 A is not below the 1 A floor
     assert summary(got) == [(0, 2, "dead_phase")]
     assert got[0].value == 0.5
-    got = rehearse(tr, ProtectionSettings(dead_floor_a=1.0, dead_time_s=1.0, dead_others_min_a=3.0))
+    got = rehearse(
+        tr, ProtectionSettings(dead_floor_a=1.0, dead_debounce_s=1.0, dead_others_min_a=3.0)
+    )
     assert summary(got) == [(1, 2, "dead_phase")]  # held from 0 through 2, trips at t = 1
     absent = trace(rows, active=[[True, True, False]] * 4)  # an isolated phase is not dead
     assert rehearse(absent, ProtectionSettings(dead_floor_a=1.0)) == []
@@ -244,7 +247,7 @@ def test_longer_debounce_never_adds_trips(
         "oc_debounce_s",
         "ot_debounce_s",
         "imbalance_debounce_s",
-        "dead_time_s",
+        "dead_debounce_s",
         "uv_debounce_s",
     )
     base = {**LOOSE.__dict__, "blanking_s": blanking_s}
@@ -272,7 +275,7 @@ def test_a_stricter_setting_never_trips_earlier(
     see test_raising_a_level_can_add_trips)."""
     name, delta = change
     loose = ProtectionSettings(
-        **{**LOOSE.__dict__, "oc_debounce_s": debounce_s, "dead_time_s": debounce_s}
+        **{**LOOSE.__dict__, "oc_debounce_s": debounce_s, "dead_debounce_s": debounce_s}
     )
     strict = ProtectionSettings(**{**loose.__dict__, name: getattr(loose, name) + delta})
     tr = random_trace(seed)
@@ -301,7 +304,7 @@ def test_latency_false_trips_and_rail_labels() -> None:
         start_s=[4.5, 0.0, 6.0],
         end_s=[8.0, 2.0, 6.0],
         phase=[0, 1, -1],
-        kind=["fault", "fault", "under_voltage"],
+        kind=["any", "any", "under_voltage"],
     )
     tr = trace(
         [row[:2] for row in OC.current_a.tolist()], vin_v=[12.0] * 6 + [11.0, 11.0, 12.0, 11.0]
@@ -323,7 +326,7 @@ def test_latency_false_trips_and_rail_labels() -> None:
 
 def test_a_rule_held_when_the_window_opens_detects_nothing_new() -> None:
     # phase 0 over 20 A from sample 1 to 8: it tripped at 1, before the window [3, 6]
-    labels = FaultLabels([3.0], [6.0], [0], ["fault"])
+    labels = FaultLabels([3.0], [6.0], [0], ["any"])
     tr = trace([[0.0]] + [[25.0]] * 8 + [[0.0]])
     res = sweep(tr, ProtectionGrid({"oc_level_a": [20.0]}), labels)
     assert res.missed.tolist() == [1]
@@ -338,7 +341,7 @@ def test_a_kind_naming_a_rule_counts_only_that_rule() -> None:
     tr = trace([[25.0]] * 3, temp_c=[[50.0], [99.0], [99.0]])
     grid = ProtectionGrid({"oc_level_a": [20.0], "ot_level_c": [90.0]})
     for kind, latency in (
-        ("fault", 0.0),
+        ("any", 0.0),
         ("over_current", 0.0),
         ("over_temperature", 1.0),
         ("dead_phase", np.nan),
@@ -398,11 +401,11 @@ def test_validation_names_the_argument() -> None:
     with pytest.raises(ValueError, match="same length"):
         ProtectionGrid({"oc_level_a": [1.0, 2.0], "ot_level_c": [1.0, 2.0, 3.0]})
     with pytest.raises(ValueError, match="end_s"):
-        FaultLabels([2.0], [1.0], [0], ["fault"])
+        FaultLabels([2.0], [1.0], [0], ["any"])
     with pytest.raises(ValueError, match="kind"):
         FaultLabels([1.0], [2.0], [0], [])
     with pytest.raises(ValueError, match=r"labels\.phase"):
-        sweep(OC, ProtectionGrid({}), FaultLabels([1.0], [2.0], [2], ["fault"]))
+        sweep(OC, ProtectionGrid({}), FaultLabels([1.0], [2.0], [2], ["any"]))
     with pytest.raises(ValueError, match="latency_s"):
         pareto_front([1, 2], [0.1])
 
@@ -419,3 +422,70 @@ def test_grid_shapes() -> None:
     np.testing.assert_equal(
         asdict(ProtectionGrid.from_settings(settings_list).settings(1)), asdict(settings_list[1])
     )
+
+
+# --- hysteresis, missing readings, label kinds (issue 18) -----------------------------------
+
+
+def test_a_release_level_stops_a_noisy_crossing_from_tripping_again() -> None:
+    """A temperature hovering around 100 degC with 1 K of noise crosses the level six times;
+    with a release level of 95 degC the rule trips once and re-arms only after cooling."""
+    temps = [99.0, 101.0, 99.5, 100.5, 99.0, 101.0, 99.8, 100.2, 99.1, 100.9, 99.6, 100.4, 94.0,
+             101.0]  # fmt: skip
+    tr = trace([[10.0]] * len(temps), temp_c=[[x] for x in temps])
+    plain = rehearse(tr, ProtectionSettings(ot_level_c=100.0))
+    held = rehearse(tr, ProtectionSettings(ot_level_c=100.0, ot_release_c=95.0))
+    assert [x.sample for x in plain] == [1, 3, 5, 7, 9, 11, 13]
+    assert [x.sample for x in held] == [1, 13]  # released at sample 12 (94 degC)
+    grid = ProtectionGrid({"ot_level_c": 100.0, "ot_release_c": [np.nan, 95.0, 105.0]})
+    # a release level on the tripping side means no hysteresis
+    assert sweep(tr, grid).trips.tolist() == [7, 2, 7]
+
+
+def test_release_for_a_falling_quantity_is_above_the_level() -> None:
+    vin = [12.0, 10.9, 11.05, 10.95, 11.05, 11.6, 10.9]
+    tr = trace([[10.0]] * len(vin), vin_v=vin)
+    assert [x.sample for x in rehearse(tr, ProtectionSettings(uv_level_v=11.0))] == [1, 3, 6]
+    got = rehearse(tr, ProtectionSettings(uv_level_v=11.0, uv_release_v=11.5))
+    assert [x.sample for x in got] == [1, 6]
+
+
+def test_a_missing_reading_holds_for_a_bounded_time_or_clears() -> None:
+    """Temperature read every other sample, held 20 K above the level (issue 18, item 3):
+    clearing on every gap re-arms the rule and no run ever lasts the debounce; holding the
+    last reading keeps the condition true, as firmware would."""
+    n = 20
+    temps = [[120.0] if k % 2 == 0 else [np.nan] for k in range(n)]
+    tr = trace([[10.0]] * n, temp_c=temps, t_s=np.arange(n) * 1e-3)
+    settings_ = ProtectionSettings(ot_level_c=100.0, ot_debounce_s=0.01)
+    assert rehearse(tr, settings_) == []  # clear: every gap ends the run
+    assert [x.sample for x in rehearse(hold_readings(tr, 0.0015), settings_)] == [10]
+    # a hold shorter than the gap clears as before
+    assert rehearse(hold_readings(tr, 0.0005), settings_) == []
+
+
+def test_hold_readings_refuses_a_negative_hold() -> None:
+    with pytest.raises(ValueError, match="hold_s"):
+        hold_readings(OC, -1.0)
+
+
+@pytest.mark.parametrize(
+    ("kind", "phase", "match"),
+    [
+        ("overcurrent", 0, "not 'any'"),  # a typo no longer means "any rule"
+        ("fault", 0, "not 'any'"),
+        ("under_voltage", 1, "never trips on phase 1"),
+        ("over_current", -1, "never trips on phase -1"),
+    ],
+)
+def test_label_kinds_are_checked(kind: str, phase: int, match: str) -> None:
+    with pytest.raises(ValueError, match=match):
+        FaultLabels([1.0], [2.0], [phase], [kind])
+
+
+def test_times_run_on_integer_ticks() -> None:
+    tr = trace([[1.0]] * 3, t_s=[1_764_700_000.0, 1_764_700_000.001, 1_764_700_000.002])
+    assert tr.quantum_ns == 1000
+    assert np.diff(tr.t_ns).tolist() == [1_000_000, 1_000_000]
+    with pytest.raises(ValueError, match="strictly increasing"):
+        trace([[1.0]] * 2, t_s=[1_764_700_000.0, 1_764_700_000.0000001])

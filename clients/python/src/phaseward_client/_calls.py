@@ -313,3 +313,19 @@ def rehearsal_file(rehearsal_id: int, name: str) -> Call[str]:
 
 def calibrate(rail_id: str, request: Mapping[str, Any]) -> Call[dict[str, Any]]:
     return Call("POST", rail_path(rail_id, "/calibrations"), raw_dict, body=encode(dict(request)))
+
+
+def fit_curve(request: Mapping[str, Any]) -> Call[dict[str, Any]]:
+    """A heating or cooling curve with a known power step fitted without a rail."""
+    return Call("POST", "/v1/tools/calibrations", raw_dict, body=encode(dict(request)))
+
+
+def export_settings(rehearsal_id: int, row: int) -> Call[dict[str, Any]]:
+    """One row of a finished rehearsal as firmware settings (JSON)."""
+    return Call("GET", f"/v1/rehearsals/{int(rehearsal_id)}/rows/{int(row)}/settings.json",
+                raw_dict)  # fmt: skip
+
+
+def export_header(rehearsal_id: int, row: int) -> Call[str]:
+    """One row of a finished rehearsal as a C header."""
+    return Call("GET", f"/v1/rehearsals/{int(rehearsal_id)}/rows/{int(row)}/settings.h", text)

@@ -259,6 +259,19 @@ class AsyncClient:
         """Fit the rail's thermal model to a heating or cooling curve."""
         return await self._run(_calls.calibrate(rail_id, request))
 
+    async def fit_curve(self, request: Mapping[str, Any]) -> dict[str, Any]:
+        """Fit a heating or cooling curve with a known power step; no rail needed."""
+        return await self._run(_calls.fit_curve(request))
+
+    async def export_settings(self, rehearsal_id: int, row: int) -> dict[str, Any]:
+        """Row ``row`` of a finished rehearsal as firmware settings: post its ``settings``
+        and ``missing`` with the same trace and labels to rehearse them again."""
+        return await self._run(_calls.export_settings(rehearsal_id, row))
+
+    async def export_header(self, rehearsal_id: int, row: int) -> str:
+        """Row ``row`` of a finished rehearsal as a C header."""
+        return await self._run(_calls.export_header(rehearsal_id, row))
+
     async def follow_events(
         self,
         *,

@@ -254,6 +254,19 @@ class Client:
         """Fit the rail's thermal model to a heating or cooling curve."""
         return self._run(_calls.calibrate(rail_id, request))
 
+    def fit_curve(self, request: Mapping[str, Any]) -> dict[str, Any]:
+        """Fit a heating or cooling curve with a known power step; no rail needed."""
+        return self._run(_calls.fit_curve(request))
+
+    def export_settings(self, rehearsal_id: int, row: int) -> dict[str, Any]:
+        """Row ``row`` of a finished rehearsal as firmware settings: post its ``settings``
+        and ``missing`` with the same trace and labels to rehearse them again."""
+        return self._run(_calls.export_settings(rehearsal_id, row))
+
+    def export_header(self, rehearsal_id: int, row: int) -> str:
+        """Row ``row`` of a finished rehearsal as a C header."""
+        return self._run(_calls.export_header(rehearsal_id, row))
+
     def follow_events(
         self,
         *,

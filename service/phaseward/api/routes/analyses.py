@@ -19,6 +19,8 @@ from phaseward.api.schemas.analyses import (
     BreakerOut,
     CalibrationIn,
     CalibrationOut,
+    CurveFitOut,
+    CurveIn,
     ForecastIn,
     ForecastOut,
     LoadProfile,
@@ -168,5 +170,18 @@ def post_calibration(
         sessions, rail_id, t_s=body.t_s, temp_c=body.temp_c, power_w=body.power_w,
         current_a=body.current_a, phase=body.phase, cooling=body.cooling, orders=body.orders,
         reference_temp_c=body.reference_temp_c, location=body.location, apply=body.apply,
+        time_unit=body.time_unit,
     )  # fmt: skip
     return CalibrationOut.model_validate({"rail_id": rail_id, **result})
+
+
+@tools.post("/calibrations")
+def post_curve_fit(body: CurveIn, _: Operator) -> CurveFitOut:
+    """Fit Foster networks to a heating or cooling curve with a known power step, no rail
+    needed (nothing is stored); the same fit, verdict and warnings as a rail's calibration."""
+    result = calibrations.fit_curve(
+        t_s=body.t_s, temp_c=body.temp_c, power_w=body.power_w, cooling=body.cooling,
+        orders=body.orders, reference_temp_c=body.reference_temp_c, location=body.location,
+        time_unit=body.time_unit,
+    )  # fmt: skip
+    return CurveFitOut.model_validate(result)

@@ -4,17 +4,19 @@ from __future__ import annotations
 
 import csv
 import io
+from typing import Annotated
 
-from fastapi import APIRouter, Request, status
+from fastapi import APIRouter, Path, Request, status
 from fastapi.responses import Response
 
 from phaseward.api.auth import Operator
-from phaseward.api.deps import ReadSessionDep
+from phaseward.api.deps import ReadSessionDep, SessionsDep
 from phaseward.api.errors import ERROR_RESPONSES, links
+from phaseward.api.firmware_header import c_header
 from phaseward.api.plots import pareto_svg
 from phaseward.api.routes.rails import RowId
-from phaseward.api.schemas.rehearsals import RailWindow, RehearsalIn, RehearsalOut
-from phaseward.errors import Conflict, Forbidden, InvalidInput, NotFound
+from phaseward.api.schemas.rehearsals import ExportOut, RailWindow, RehearsalIn, RehearsalOut
+from phaseward.errors import Conflict, Forbidden, NotFound
 from phaseward.monitor import rehearsals
 from phaseward.monitor.access import Principal
 from phaseward.monitor.jobs import JobRunner
@@ -63,18 +65,17 @@ def _done(session: ReadSessionDep, job_id: int, who: Principal) -> Job:
                           "GET /v1/rehearsals/{rehearsal_id}/table.csv",
                           "GET /v1/rehearsals/{rehearsal_id}/pareto.svg")},
 )  # fmt: skip
-def start_rehearsal(body: RehearsalIn, request: Request, who: Operator) -> RehearsalOut:
-    """Queue a rehearsal; poll ``GET /v1/rehearsals/{id}`` for progress and the result."""
+def start_rehearsal(
+    body: RehearsalIn, request: Request, sessions: SessionsDep, who: Operator
+) -> RehearsalOut:
+    """Check and queue a rehearsal; poll ``GET /v1/rehearsals/{id}`` for progress and the
+    result. Everything the job would trip over (settings, trace id, label phases and kinds) is
+    refused here with 422 naming the field. Formats: README, "Rehearsal and calibration
+    formats"."""
     if isinstance(body.trace, RailWindow) and not who.may_use(body.trace.rail_id):
         raise Forbidden(f"this key may not use rail '{body.trace.rail_id}'", field="trace.rail_id")
-    settings = body.settings.model_dump(exclude_none=True)
-    size = rehearsals.grid_size(settings)
-    if size > rehearsals.MAX_COMBINATIONS:
-        raise InvalidInput(
-            f"{size} combinations exceed {rehearsals.MAX_COMBINATIONS}", field="settings"
-        )
     runner: JobRunner = request.app.state.jobs
-    return _out(runner.submit(rehearsals.KIND, body.model_dump(mode="json")))
+    return _out(rehearsals.submit(sessions, runner, body.model_dump(mode="json")))
 
 
 @router.get("/{rehearsal_id}")
@@ -116,11 +117,36 @@ def rehearsal_table(rehearsal_id: RowId, session: ReadSessionDep, who: Operator)
 def rehearsal_pareto(rehearsal_id: RowId, session: ReadSessionDep, who: Operator) -> Response:
     result = _done(session, rehearsal_id, who).result or {}
     points = [(float(r["false_trips"]), r["max_latency_s"]) for r in result["rows"]]
+    groups = [g["rows"] for g in result.get("pareto_groups", [[i] for i in result["pareto"]])]
     svg = pareto_svg(
-        points, result["pareto"],
+        points, groups,
         title=f"Rehearsal {rehearsal_id}: {result['combinations']} combinations",
     )  # fmt: skip
     return Response(svg, media_type="image/svg+xml")
+
+
+@router.get("/{rehearsal_id}/rows/{row}/settings.json")
+def export_settings(
+    rehearsal_id: RowId, row: Annotated[int, Path(ge=0)], session: ReadSessionDep, who: Operator
+) -> ExportOut:
+    """Row ``row`` of a finished rehearsal as firmware settings (JSON); rehearsing the
+    exported settings on the same trace and labels gives the same row."""
+    _job(session, rehearsal_id, who)  # the caller's rails
+    return ExportOut.model_validate(rehearsals.export(session, rehearsal_id, row))
+
+
+@router.get(
+    "/{rehearsal_id}/rows/{row}/settings.h",
+    response_class=Response,
+    responses={200: {"content": {"text/x-c": {"schema": {"type": "string"}}}}},
+)
+def export_header(
+    rehearsal_id: RowId, row: Annotated[int, Path(ge=0)], session: ReadSessionDep, who: Operator
+) -> Response:
+    """Row ``row`` of a finished rehearsal as a C header: one macro per setting, with the
+    rail, trace, date and the row's figures in a comment."""
+    _job(session, rehearsal_id, who)  # the caller's rails
+    return Response(c_header(rehearsals.export(session, rehearsal_id, row)), media_type="text/x-c")
 
 
 def _cell(x: float | None) -> str:

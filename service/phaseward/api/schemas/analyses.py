@@ -251,21 +251,65 @@ class BreakerOut(BaseModel):
     caution: str = CAUTION
 
 
+class CurveIn(Contract):
+    """A recorded heating curve (power stepped on at t = 0 from equilibrium) or cooling curve
+    (power stepped off) with its power step; format: README, "Rehearsal and calibration
+    formats"."""
+
+    t_s: list[float] = Field(
+        min_length=8, max_length=200_000,
+        description="time since the power step, in time_unit (seconds by default), >= 0, "
+        "strictly increasing",
+    )  # fmt: skip
+    temp_c: list[float] = Field(
+        min_length=8, max_length=200_000, description="temperature at each time, degC"
+    )
+    power_w: Annotated[float, Field(gt=0, description="the power step, W")]
+    cooling: bool = Field(default=False, description="true: the curve follows power removal")
+    orders: list[Annotated[int, Field(ge=1, le=4)]] = Field(
+        default=[1, 2, 3, 4], min_length=1,
+        description="Foster stage counts to try; each needs 4 samples per fitted parameter",
+    )  # fmt: skip
+    reference_temp_c: Celsius | None = Field(
+        default=None,
+        description="temperature before a heating step (after a cooling one), degC; left out: "
+        "fitted. When given it is checked against a free fit (reference_offset_k).",
+    )
+    location: Literal["junction", "sensor"] = Field(
+        default="junction", description="where the temperature was measured"
+    )
+    time_unit: Literal["s", "ms", "us"] = Field(default="s", description="the unit of t_s")
+
+    @model_validator(mode="after")
+    def _consistent(self) -> Self:
+        if len(self.t_s) != len(self.temp_c):
+            raise ValueError("t_s and temp_c must have the same length")
+        return self
+
+
 class CalibrationIn(Contract):
     """A recorded heating curve (power stepped on at t = 0 from equilibrium) or cooling curve
     (power stepped off), with the step given as power or as the phase current."""
 
-    t_s: list[float] = Field(min_length=8, max_length=200_000)
-    temp_c: list[float] = Field(min_length=8, max_length=200_000)
-    power_w: Annotated[float, Field(gt=0)] | None = None
-    current_a: Annotated[float, Field(gt=0)] | None = None
+    t_s: list[float] = Field(
+        min_length=8, max_length=200_000,
+        description="time since the power step, in time_unit (seconds by default)",
+    )  # fmt: skip
+    temp_c: list[float] = Field(min_length=8, max_length=200_000, description="degC")
+    power_w: Annotated[float, Field(gt=0)] | None = Field(default=None, description="W")
+    current_a: Annotated[float, Field(gt=0)] | None = Field(
+        default=None, description="phase current during the step, A (power from the loss model)"
+    )
     phase: Annotated[int, Field(ge=0, le=63)] = 0
     cooling: bool = False
     orders: list[Annotated[int, Field(ge=1, le=4)]] = Field(default=[1, 2, 3, 4], min_length=1)
     reference_temp_c: Celsius | None = None
     location: Literal["junction", "sensor"] = "junction"
+    time_unit: Literal["s", "ms", "us"] = Field(default="s", description="the unit of t_s")
     apply: Literal["no", "phase", "all"] = Field(
-        default="no", description="store the fit as a new rail version: for `phase`, or all"
+        default="no",
+        description="store the fit as a new rail version: for `phase`, or all (refused when "
+        "the curve is not settled)",
     )
 
     @model_validator(mode="after")
@@ -280,22 +324,26 @@ class CalibrationIn(Contract):
 class FittedStage(BaseModel):
     r_k_per_w: float
     tau_s: float
-    r_ci_k_per_w: list[float | None] = Field(description="95 % interval (asymptotic)")
-    tau_ci_s: list[float | None]
+    r_ci_k_per_w: list[float | None] = Field(
+        description="95 % interval, asymptotic Wald in log space (never below zero)"
+    )
+    tau_ci_s: list[float | None] = Field(description="95 % interval, Wald in log space")
 
 
 class OrderFitOut(BaseModel):
     order: int
     stages: list[FittedStage]
     reference_temp_c: float
+    total_r_k_per_w: float = Field(description="total thermal resistance, sum of R_i, K/W")
+    total_r_ci_k_per_w: list[float | None] = Field(description="95 % interval, log space")
+    settled: bool = Field(description="the curve lasts 3 slowest time constants")
     rms_k: float
     bic: float
     ci_valid: bool
     converged: bool
 
 
-class CalibrationOut(BaseModel):
-    rail_id: str
+class CurveFitOut(BaseModel):
     order: int = Field(description="the order the criterion chose")
     criterion: str
     power_w: float
@@ -304,4 +352,16 @@ class CalibrationOut(BaseModel):
     note: str
     chosen: OrderFitOut
     fits: list[OrderFitOut]
+    skipped_orders: list[int] = Field(description="orders with too few samples per parameter")
+    settled: bool = Field(description="the chosen fit's verdict; see settled_rule")
+    settled_rule: str
+    warnings: list[str] = Field(description="doubts about the curve or the fit, plain text")
+    reference_offset_k: float | None = Field(
+        description="with reference_temp_c given: a free fit's T_ref minus it, K"
+    )
+    reference_offset_ci_k: list[float | None]
     applied_version: int | None
+
+
+class CalibrationOut(CurveFitOut):
+    rail_id: str

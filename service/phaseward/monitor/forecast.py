@@ -109,6 +109,9 @@ def _base_edges(profile: Profile, horizon_s: float) -> tuple[F64, F64]:
     return np.maximum(lo[use], 0.0), held[use]
 
 
+PAST_ANY_LIMIT_C = 1e6  # degC: stands in for a temperature past float range (runaway)
+
+
 def forecast(
     model: RailModel,
     *,
@@ -151,6 +154,10 @@ def forecast(
             continue
         p0, slope = phase_power(model, current, alive)
         ends = piecewise_c(net, nodes_c, duration, p0, slope, ambient_c)
+        # A runaway may pass float range within a long stretch: every later start is then
+        # beyond any limit, which a huge finite temperature says on the hot side.
+        ends = np.nan_to_num(ends, nan=PAST_ANY_LIMIT_C, posinf=PAST_ANY_LIMIT_C,
+                             neginf=PAST_ANY_LIMIT_C)  # fmt: skip
         limit = np.where(alive, model.junction_limit_c, np.inf)
         hot = time_to_limit_batch_s(
             net, ends[:-1], p0, slope, ambient_c, limit, horizon_s=np.maximum(duration, 1e-300)

@@ -1,52 +1,63 @@
 """Operator and firmware-developer commands of ``phaseward``, talking to a service through
-the Python client (``clients/python``): status, events, screening, forecast, rehearse,
-calibrate. Tables by default, ``--json`` for scripts."""
+the Python client (``clients/python``, shipped inside the service's distribution too): status,
+events, screening, forecast, rehearse, calibrate. Tables by default (readable at 80 columns),
+``--json`` for scripts. Plain text: nothing the service says is read as markup."""
 
 from __future__ import annotations
 
 import argparse
 import csv
+import io
 import json
 import os
+import textwrap
 import threading
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
+import httpx
+from phaseward_client import Client, PhasewardError
+from rich import box
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TaskProgressColumn, TextColumn
 from rich.table import Table
 
-if TYPE_CHECKING:
-    from phaseward_client import Client
+from phaseward.cli_support import CommandError, read_input, read_json, usage
 
 DEFAULT_URL = "http://127.0.0.1:8470"
-out = Console()
-err = Console(stderr=True)
+out = Console(markup=False, highlight=False)
+err = Console(stderr=True, markup=False, highlight=False)
+
+
+def _table(*columns: str) -> Table:
+    """A table that fits 80 columns: light rules, no outer padding."""
+    return Table(*columns, box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False)
 
 
 @contextmanager
 def connected(url: str | None, *, embedded: bool) -> Iterator[Client]:
     """A client for ``url`` (or PHASEWARD_URL, or the default); with ``embedded`` and no
     service answering there, an in-process service on the embedded SQLite default."""
-    try:
-        from phaseward_client import Client
-    except ImportError:
-        raise SystemExit("this command needs the client: pip install -e clients/python") from None
     base = url or os.environ.get("PHASEWARD_URL") or DEFAULT_URL
+    if not base.startswith(("http://", "https://")):
+        raise usage(f"the service URL {base} is not an http:// or https:// address")
     with Client(base, timeout_s=120, api_key=os.environ.get("PHASEWARD_KEY")) as client:
         try:
             client.health()
-        except Exception:  # nothing answers there
+        except (httpx.TransportError, PhasewardError):  # nothing (or not phaseward) answers
             if not embedded or url:
-                raise SystemExit(f"no phaseward service answers at {base}") from None
+                raise CommandError(
+                    f"no phaseward service answers at {base}: start one (phaseward serve) or "
+                    "point --url or PHASEWARD_URL at one"
+                ) from None
         else:
             yield client
             return
     with _embedded() as local, Client(local, timeout_s=120) as client:
-        err.print(f"[dim]started an embedded service at {local}[/dim]")
+        err.print(f"started an embedded service at {local}")
         yield client
 
 
@@ -70,6 +81,8 @@ def _embedded() -> Iterator[str]:
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()
     while not server.started:
+        if not thread.is_alive():
+            raise CommandError("the embedded service did not start: see the messages above")
         time.sleep(0.05)
     try:
         yield f"http://127.0.0.1:{port}"
@@ -93,16 +106,14 @@ def status(args: argparse.Namespace) -> int:
         _dump(s)
         return 0
     cap, th = s.capacity, s.thermal
-    out.print(
-        f"[bold]{s.rail_id}[/bold] v{s.version}: [bold]{s.condition or 'no telemetry yet'}[/bold]"
-    )
+    out.print(f"{s.rail_id} v{s.version}: {s.condition or 'no telemetry yet'}")
     if cap is not None and th is not None:
         out.print(
             f"load {_n(s.load_a)} A, capacity {_n(cap.capacity_a)} A ({cap.binding}), "
             f"headroom {_n(cap.headroom_a)} A; hottest junction {_n(th.hottest_temp_c)} degC, "
             f"margin {_n(th.margin_k)} K"
         )
-    table = Table("phase", "condition", "current A", "sensor degC", "junction degC", "share")
+    table = _table("phase", "condition", "current A", "sensor degC", "junction degC", "share")
     junctions = th.estimated_junction_c if th is not None else []
     for p in s.phases:
         table.add_row(
@@ -110,7 +121,7 @@ def status(args: argparse.Namespace) -> int:
             _n(junctions[p.index] if junctions else None), f"{100 * p.share:.1f} %",
         )  # fmt: skip
     out.print(table)
-    out.print(f"[dim]{s.caution}[/dim]")
+    out.print(s.caution)
     return 0
 
 
@@ -122,18 +133,27 @@ def events(args: argparse.Namespace) -> int:
                 if args.json:
                     print(json.dumps(e.__dict__), flush=True)
                 else:
-                    out.print(f"{e.time}  {e.severity:<8} {e.rail_id}  {e.kind}  {e.message}")
+                    print(_event_lines(e), flush=True)
             return 0
         page = client.list_events(args.rail, kind=kinds, limit=args.limit)
     if args.json:
         _dump([e.__dict__ for e in page.items])
         return 0
-    table = Table("id", "time", "severity", "rail", "kind", "phase", "message")
     for e in page.items:
-        phase = "" if e.phase is None else str(e.phase)
-        table.add_row(str(e.id), e.time, e.severity, e.rail_id, e.kind, phase, e.message)
-    out.print(table)
+        print(_event_lines(e))
+    if not page.items:
+        print("no events")
     return 0
+
+
+def _event_lines(e: Any) -> str:
+    """One event in two lines that fit 80 columns: who, when, what; then the message."""
+    when = e.time[:19].replace("T", " ")
+    phase = "" if e.phase is None else f"  phase {e.phase}"
+    head = f"#{e.id:<5} {when}  {e.severity:<8} {e.rail_id}  {e.kind}{phase}"
+    body = textwrap.fill(e.message, width=80, initial_indent="       ",
+                         subsequent_indent="       ")  # fmt: skip
+    return f"{head}\n{body}"
 
 
 def screening(args: argparse.Namespace) -> int:
@@ -143,8 +163,8 @@ def screening(args: argparse.Namespace) -> int:
         _dump(s)
         return 0
     verdict = "secure" if s.secure else "NOT secure"
-    out.print(f"[bold]{s.rail_id}[/bold] at {_n(s.load_a)} A: N-{s.depth} {verdict}")
-    table = Table(
+    out.print(f"{s.rail_id} at {_n(s.load_a)} A: N-{s.depth} {verdict}")
+    table = _table(
         "lose", "capacity A", "headroom A", "binding", "steady hottest degC", "limit in s"
     )
     for c in s.cases:
@@ -153,7 +173,7 @@ def screening(args: argparse.Namespace) -> int:
             _n(c.steady_hottest_c), _n(c.time_to_limit_s, 0),
         )  # fmt: skip
     out.print(table)
-    out.print(f"[dim]{s.caution}[/dim]")
+    out.print(s.caution)
     return 0
 
 
@@ -175,31 +195,30 @@ def forecast(args: argparse.Namespace) -> int:
         else f"in {f.time_to_limit_s:.0f} s (phase {f.limit_phase})"
     )
     peak = f.peak
-    summary = f"[bold]{f.rail_id}[/bold]: limit reached {reach}; "
+    summary = f"{f.rail_id}: limit reached {reach}; "
     if peak is not None:
         summary += f"peak {peak.temp_c:.1f} degC on phase {peak.phase} at {peak.time_s:.0f} s; "
     summary += f"margin {_n(f.margin_k)} K" + ("; THERMAL RUNAWAY" if f.runaway else "")
     out.print(summary)
-    table = Table("t s", "load A", "hottest junction degC", "board degC")
+    table = _table("t s", "load A", "hottest junction degC", "board degC")
     step = max(1, len(f.time_s) // 12)
     for k in range(0, len(f.time_s), step):
         table.add_row(
             f"{f.time_s[k]:.0f}", _n(f.load_a[k]), _n(max(f.junction_c[k])), _n(f.board_c[k])
         )
     out.print(table)
-    out.print(f"[dim]{f.caution}[/dim]")
+    out.print(f.caution)
     return 0
 
 
 def rehearse(args: argparse.Namespace) -> int:
     trace_path = Path(args.trace)
-    settings = json.loads(Path(args.settings).read_text())
-    labels = json.loads(Path(args.labels).read_text()) if args.labels else []
+    recorded = read_input(args.trace, "the trace")
+    settings = read_json(args.settings, "the settings file")
+    labels = read_json(args.labels, "the labels file") if args.labels else []
     kind = "text/csv" if trace_path.suffix.lower() == ".csv" else "application/x-ndjson"
     with connected(args.url, embedded=True) as client:
-        trace = client.upload_trace(
-            trace_path.read_bytes(), content_type=kind, name=trace_path.name
-        )
+        trace = client.upload_trace(recorded, content_type=kind, name=trace_path.name)
         job = client.start_rehearsal(
             {"trace": {"trace_id": trace["id"]}, "settings": settings, "labels": labels}
         )
@@ -210,8 +229,7 @@ def rehearse(args: argparse.Namespace) -> int:
                 bar.update(task, completed=state["percent"])
                 time.sleep(0.2)
         if state["status"] == "failed":
-            err.print(f"[red]rehearsal failed:[/red] {state['error']}")
-            return 1
+            raise CommandError(f"the rehearsal failed: {state['error']}")
         if args.csv:
             Path(args.csv).write_text(client.rehearsal_file(job["id"], "table.csv"))
         if args.svg:
@@ -223,7 +241,7 @@ def rehearse(args: argparse.Namespace) -> int:
     out.print(
         f"{result['combinations']} combinations over {trace['n_samples']} samples; Pareto front:"
     )
-    table = Table("#", *result["axes"], "trips", "false trips", "missed", "worst latency s")
+    table = _table("#", *result["axes"], "trips", "false trips", "missed", "worst latency s")
     for i in result["pareto"]:
         row = result["rows"][i]
         table.add_row(
@@ -238,13 +256,19 @@ def rehearse(args: argparse.Namespace) -> int:
 
 
 def calibrate(args: argparse.Namespace) -> int:
-    with open(args.curve, newline="") as fh:
-        rows = list(csv.DictReader(fh))
+    text = read_input(args.curve, "the heating curve").decode("utf-8", errors="replace")
+    rows = list(csv.DictReader(io.StringIO(text)))
     if not rows or not {"time_s", "temp_c"} <= set(rows[0]):
-        raise SystemExit("the curve must be CSV with time_s and temp_c columns")
+        raise usage(f"the heating curve {args.curve} must be CSV with time_s and temp_c columns "
+                    "(see examples/README.md)")  # fmt: skip
+    try:
+        t_s = [float(r["time_s"]) for r in rows]
+        temp_c = [float(r["temp_c"]) for r in rows]
+    except (TypeError, ValueError):
+        raise usage(f"the heating curve {args.curve} has a row that is not two numbers") from None
     body: dict[str, Any] = {
-        "t_s": [float(r["time_s"]) for r in rows],
-        "temp_c": [float(r["temp_c"]) for r in rows],
+        "t_s": t_s,
+        "temp_c": temp_c,
         "phase": args.phase, "cooling": args.cooling, "location": args.location,
         "apply": args.apply,
     }  # fmt: skip
@@ -255,7 +279,7 @@ def calibrate(args: argparse.Namespace) -> int:
         _dump(fit)
         return 0
     out.print(f"chosen order {fit['order']} by {fit['criterion'].upper()} ({fit['note']})")
-    table = Table("order", "R K/W (95 % CI)", "tau s (95 % CI)", "rms K", "BIC")
+    table = _table("order", "R K/W (95 % CI)", "tau s (95 % CI)", "rms K", "BIC")
     for f in fit["fits"]:
         rs = "; ".join(
             f"{s['r_k_per_w']:.4g} ({_n(s['r_ci_k_per_w'][0], 3)}..{_n(s['r_ci_k_per_w'][1], 3)})"
@@ -273,19 +297,28 @@ def calibrate(args: argparse.Namespace) -> int:
 
 
 def _reporting(fn: Callable[[argparse.Namespace], int]) -> Callable[[argparse.Namespace], int]:
-    """Run a command; a refusal from the service becomes one line on stderr and exit 1."""
+    """Run a command; a refusal from the service or a lost connection becomes one line (the
+    ``phaseward`` entry point prints it and exits 1)."""
 
     def run(args: argparse.Namespace) -> int:
-        from phaseward_client import PhasewardError
-
         try:
             return fn(args)
         except PhasewardError as refusal:
             where = f" ({refusal.field})" if refusal.field else ""
-            err.print(f"[red]{refusal.status} {refusal.error}[/red]{where}: {refusal.detail}")
-            return 1
+            hint = _HINTS.get(refusal.status, "")
+            raise CommandError(
+                f"{refusal.status} {refusal.error}{where}: {refusal.detail}{hint}"
+            ) from None
+        except httpx.TransportError as lost:
+            raise CommandError(f"the service stopped answering ({lost}): try again") from None
 
     return run
+
+
+_HINTS = {
+    401: " (set PHASEWARD_KEY to an access key)",
+    403: " (this key's role or rails do not allow it)",
+}
 
 
 def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
@@ -301,22 +334,26 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
         return p
 
     p = command("status", status, "a rail's condition, capacity, margin and phases")
-    p.add_argument("rail")
+    p.add_argument("rail", help="the rail's id")
     p = command("events", events, "recent events, or follow them live")
-    p.add_argument("--rail")
-    p.add_argument("--kind", action="append")
-    p.add_argument("--limit", type=int, default=50)
+    p.add_argument("--rail", help="only this rail's events (default: every rail)")
+    p.add_argument(
+        "--kind", action="append", help="only this kind, e.g. phase.isolated (repeatable)"
+    )
+    p.add_argument("--limit", type=int, default=50, help="at most this many, newest first")
     p.add_argument("--follow", action="store_true", help="stream events as they happen")
     p = command("screening", screening, "what each further phase loss would leave")
-    p.add_argument("rail")
-    p.add_argument("--depth", type=int, choices=(1, 2), default=1)
+    p.add_argument("rail", help="the rail's id")
+    p.add_argument(
+        "--depth", type=int, choices=(1, 2), default=1, help="further losses at once: 1 or 2"
+    )
     p = command("forecast", forecast, "junction temperatures ahead, with optional phase drops")
-    p.add_argument("rail")
+    p.add_argument("rail", help="the rail's id")
     p.add_argument("--load", type=float, help="total current in A (default: the present load)")
     p.add_argument("--drop", type=int, action="append", help="phase to lose (repeatable)")
     p.add_argument("--at", type=float, default=0.0, help="when the phases drop, s")
-    p.add_argument("--hours", type=float, default=1.0)
-    p.add_argument("--points", type=int, default=200)
+    p.add_argument("--hours", type=float, default=1.0, help="how far ahead, h (default 1)")
+    p.add_argument("--points", type=int, default=200, help="time points in the answer")
     p = command("rehearse", rehearse, "replay a trace against protection settings")
     p.add_argument("trace", help="CSV (.csv) or NDJSON samples")
     p.add_argument("--settings", required=True, help="JSON: setting -> value or list to sweep")
@@ -325,11 +362,17 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     p.add_argument("--svg", help="write the Pareto plot here")
     p = command("calibrate", calibrate, "fit a phase's thermal model to a heating curve")
     p.add_argument("curve", help="CSV with time_s and temp_c")
-    p.add_argument("--rail", required=True)
+    p.add_argument("--rail", required=True, help="the rail whose phase was heated")
     step = p.add_mutually_exclusive_group(required=True)
     step.add_argument("--power", type=float, help="the power step, W")
     step.add_argument("--current", type=float, help="the phase current during the step, A")
-    p.add_argument("--phase", type=int, default=0)
-    p.add_argument("--cooling", action="store_true")
-    p.add_argument("--location", choices=("junction", "sensor"), default="junction")
-    p.add_argument("--apply", choices=("no", "phase", "all"), default="no")
+    p.add_argument("--phase", type=int, default=0, help="the phase that was heated (default 0)")
+    p.add_argument("--cooling", action="store_true", help="the curve is a cool-down after the step")
+    p.add_argument(
+        "--location", choices=("junction", "sensor"), default="junction",
+        help="where the temperature was read",
+    )  # fmt: skip
+    p.add_argument(
+        "--apply", choices=("no", "phase", "all"), default="no",
+        help="store the fit as a new rail version: for that phase, for all, or not (default)",
+    )  # fmt: skip

@@ -11,16 +11,17 @@ import threading
 import time
 from collections.abc import Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import httpx
-import uvicorn
 
-from phaseward.api.app import create_app
-from phaseward.api.observability import configure_logging
 from phaseward.cli_support import FAILED, CommandError, load_settings, usage
 from phaseward.errors import PhasewardError
 from phaseward.operator_cli import add_commands
 from phaseward.settings import Settings
+
+if TYPE_CHECKING:  # the service's modules load only for the commands that run one
+    import uvicorn
 
 DESCRIPTION = (
     "phaseward watches multiphase power rails that can lose a phase and keep running. "
@@ -54,6 +55,11 @@ def _listen(settings: Settings) -> socket.socket:
 
 
 def _server(settings: Settings) -> uvicorn.Server:
+    import uvicorn
+
+    from phaseward.api.app import create_app
+    from phaseward.api.observability import configure_logging
+
     configure_logging(settings.log_level)
     config = uvicorn.Config(
         create_app(settings), host=settings.host, port=settings.port,

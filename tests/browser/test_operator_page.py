@@ -157,3 +157,17 @@ def test_unknown_rail_says_so_and_the_skip_link_reaches_main(
     # The 404 of the status fetch is the page's answer, not a script error.
     watched.console_errors[:] = [e for e in watched.console_errors if "404" not in e]
     same_origin_only(watched, server)
+
+
+def test_api_docs_work_offline(page: Page, server: str, watched: Watched) -> None:
+    """/docs renders the contract with every asset from the service itself: any
+    request elsewhere is aborted, as on a machine with no outside network."""
+    page.route(
+        lambda url: not url.startswith(server + "/"),
+        lambda route: route.abort("internetdisconnected"),
+    )
+    page.goto(f"{server}/docs")
+    expect(page.locator(".swagger-ui .info .title")).to_contain_text("phaseward")
+    expect(page.locator(".opblock").first).to_be_visible()
+    same_origin_only(watched, server)
+    assert watched.page_errors == []

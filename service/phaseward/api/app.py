@@ -18,6 +18,7 @@ from phaseward.api.auth import RateLimiter
 from phaseward.api.group_commit import GroupCommit
 from phaseward.api.routes import (
     analyses,
+    docs,
     events,
     rails,
     rehearsals,
@@ -69,6 +70,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         version=__version__,
         summary="Keeps watch over multiphase power rails that can lose a phase and keep running.",
         lifespan=lifespan,
+        docs_url=None,  # served from the package itself by routes/docs.py, no outside network
+        redoc_url=None,
     )
     app.state.settings = settings
     app.state.engine = engine
@@ -91,6 +94,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(traces.router)
     app.include_router(rehearsals.router)
     app.include_router(web.router)
+    app.include_router(docs.router)
 
     return app
 

@@ -61,6 +61,9 @@ DEMO_RAIL: dict[str, Any] = {
         ],
     },
     "board": {"to_ambient_k_per_w": 0.55, "capacitance_j_per_k": 300.0},
+    "output": {"capacitance_f": 0.0047, "esr_ohm": 0.00015},
+    # Per-phase failure rate for the reliability answer (the tour asks for it).
+    "reliability": {"fit_at_ref": 50.0, "ref_c": 55.0, "activation_ev": 0.7},
     "monitor": {"debounce_samples": 2, "forecast_horizon_s": 900.0},
 }
 

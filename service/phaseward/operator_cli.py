@@ -238,14 +238,21 @@ def rehearse(args: argparse.Namespace) -> int:
     if args.json:
         _dump(result)
         return 0
+    rows = result["rows"]
+    # Only the swept settings get a column (80 columns hold two or three); the fixed ones are
+    # said once above the table.
+    swept = [a for a in result["axes"] if len({r["settings"][a] for r in rows}) > 1]
+    fixed = [f"{a} {rows[0]['settings'][a]:g}" for a in result["axes"] if a not in swept]
     out.print(
-        f"{result['combinations']} combinations over {trace['n_samples']} samples; Pareto front:"
+        f"{result['combinations']} combinations over {trace['n_samples']} samples"
+        + (f"; fixed: {', '.join(fixed)}" if fixed and rows else "")
     )
-    table = _table("#", *result["axes"], "trips", "false trips", "missed", "worst latency s")
+    out.print("Pareto front (false trips against worst detection latency):")
+    table = _table("#", *swept, "trips", "false trips", "missed", "latency s")
     for i in result["pareto"]:
-        row = result["rows"][i]
+        row = rows[i]
         table.add_row(
-            str(i), *(f"{row['settings'][a]:g}" for a in result["axes"]), str(row["trips"]),
+            str(i), *(f"{row['settings'][a]:g}" for a in swept), str(row["trips"]),
             str(row["false_trips"]), str(row["missed"]), _n(row["max_latency_s"], 3),
         )  # fmt: skip
     out.print(table)

@@ -6,6 +6,7 @@ import asyncio
 import logging
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from typing import Any
 
 from fastapi import FastAPI
 from fastapi.concurrency import run_in_threadpool
@@ -27,6 +28,7 @@ from phaseward.api.routes import (
     traces,
     web,
 )
+from phaseward.api.schemas.glossary import describe
 from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor import retention
 from phaseward.monitor.jobs import JobRunner
@@ -95,6 +97,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(rehearsals.router)
     app.include_router(web.router)
     app.include_router(docs.router)
+    generate = app.openapi
+
+    def described() -> dict[str, Any]:
+        """The generated document, every field described (see api/schemas/glossary.py)."""
+        return describe(generate())
+
+    app.openapi = described  # type: ignore[method-assign]
 
     return app
 

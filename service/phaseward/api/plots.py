@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from html import escape
 
@@ -41,11 +42,14 @@ def pareto_svg(
         f'<text x="{WIDTH - PAD}" y="{PAD - 14}" text-anchor="end" fill="#555">'
         "x above the axes: misses a labelled fault</text>",
     ]
-    for k in range(5):
-        xv, yv = x_max * k / 4, y_max * k / 4
+    # False trips are counts: whole-number ticks, at most five or six of them.
+    x_step = max(1, math.ceil(x_max / 5))
+    for xv in range(0, int(x_max) + 1, x_step):
         out.append(
-            f'<text x="{sx(xv):.1f}" y="{HEIGHT - PAD + 16}" text-anchor="middle">{xv:.3g}</text>'
+            f'<text x="{sx(xv):.1f}" y="{HEIGHT - PAD + 16}" text-anchor="middle">{xv:d}</text>'
         )
+    for k in range(5):
+        yv = y_max * k / 4
         out.append(f'<text x="{PAD - 6}" y="{sy(yv) + 4:.1f}" text-anchor="end">{yv:.3g}</text>')
     on_front = set(front)
     for i, (x, y) in enumerate(points):

@@ -34,7 +34,8 @@ Celsius = Annotated[float, Field(ge=-273.15, le=1000)]
 # to about eleven days; thermal resistances up to a million K/W. Far beyond real parts, and
 # inside what float64 sums and ratios of them can hold (1e308 K/W overflowed a Zth sum).
 Seconds = Annotated[float, Field(ge=1e-9, le=1e6)]
-KelvinPerWatt = Annotated[float, Field(gt=0, le=1e6)]
+# From a micro-kelvin per watt: a subnormal resistance overflowed its conductance (1 / R).
+KelvinPerWatt = Annotated[float, Field(ge=1e-6, le=1e6)]
 
 CAUTION = (
     "phaseward is a monitoring aid: hardware protection stays in hardware, and local codes "

@@ -97,7 +97,7 @@ class PhaseOverride(Contract):
 class BoardSpec(Contract):
     """The shared board node every phase's thermal chain ends on, and its path to ambient."""
 
-    to_ambient_k_per_w: Positive
+    to_ambient_k_per_w: KelvinPerWatt
     capacitance_j_per_k: Positive
 
 

@@ -425,13 +425,14 @@ def rehearse(args: argparse.Namespace) -> int:
         "Pareto front (false trips against worst detection latency; a missed fault counts as "
         "infinitely late; tied rows grouped, their values joined by |):"
     )
-    table = _table("#", "tied", *swept, "trips", "false trips", "missed", "latency s")
+    table = _table("#", "tied", "settings", "trips", "false", "missed", "worst s")
     for group in result["pareto_groups"]:
         row = rows[group["rows"][0]]
         tied = [rows[i] for i in group["rows"]]
+        # every swept setting whole (name=value, tied values joined by |), wrapped in its cell
+        shown = " ".join(f"{a}={_tied_values(a, tied)}" for a in swept) or "-"
         table.add_row(
-            str(row["index"]), str(len(group["rows"])), *(_tied_values(a, tied) for a in swept),
-            str(row["trips"]),
+            str(row["index"]), str(len(group["rows"])), shown, str(row["trips"]),
             str(row["false_trips"]), str(row["missed"]), _n(row["max_latency_s"], 3),
         )  # fmt: skip
     out.print(table)

@@ -173,7 +173,7 @@ def test_input_files(tmp_path: Path, served: str) -> None:
              "time_s and temp_c")  # fmt: skip
     curve.write_text("time_s,temp_c\n0,25\n1,warm\n")
     one_line(cli("calibrate", str(curve), "--rail", "bench-a", "--power", "2", *url), 2,
-             "not two numbers")  # fmt: skip
+             "line 3", "is not a number")  # fmt: skip
 
 
 def test_service_refusals(served: str) -> None:

@@ -59,7 +59,12 @@ def list_rails(
     session: ReadSessionDep,
     settings: SettingsDep,
     who: Reader,
-    after: Annotated[str | None, Query(max_length=64, description="cursor: last id seen")] = None,
+    after: Annotated[
+        str | None,
+        Query(
+            pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64, description="cursor: last id seen"
+        ),
+    ] = None,
     limit: Annotated[int, Query(ge=1, le=1000)] = 100,
 ) -> list[RailOut]:
     page = rail_store.list_page(

@@ -37,7 +37,7 @@ def test_async_round_trip(service_url: str) -> None:
 
             newest_first = [e async for e in client.iter_events(rid, page_size=2)]
             assert [e.kind for e in reversed(newest_first)] == [
-                "rail.condition", "phase.isolated", "rail.condition",
+                "rail.condition", "phase.isolated", "rail.condition", "capacity.exposed",
             ]  # fmt: skip
             acked = await client.ack_event(newest_first[1].id, by="async operator")
             assert acked.acked_by == "async operator"

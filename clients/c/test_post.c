@@ -61,7 +61,7 @@ int main(int argc, char **argv) {
     if (client == NULL || dead == NULL) {
         return 1;
     }
-    build((double)time(NULL) + 60.0);
+    build((double)time(NULL) - 60.0); /* the service refuses samples dated ahead of its clock */
 
     /* An access key goes out as a bearer header; one that would break the header is refused,
      * and the open-mode service ignores a well-formed key it is sent. */

@@ -136,3 +136,28 @@ def test_two_servers_sweeping_at_once_run_each_orphan_once(
     assert len(rec.runs) == len(ids)
     a.shutdown()
     b.shutdown()
+
+
+def test_shutdown_stops_a_running_job_at_its_next_progress_report(
+    sessions: sessionmaker[Session],
+) -> None:
+    """A long job must not outlive its server's database pool (a job writing after the pool
+    closed left a connection open); it stays stored unfinished so a live server reruns it."""
+    started, ended = threading.Event(), threading.Event()
+
+    def endless(_: sessionmaker[Session], request: dict[str, Any], progress: Progress) -> Any:
+        started.set()
+        try:
+            while True:
+                progress(50.0)
+                time.sleep(0.01)
+        finally:
+            ended.set()
+
+    server = JobRunner(sessions, {"test": endless}, lease_s=LEASE_S)
+    server.resume()
+    job = server.submit("test", {"n": 3})
+    assert started.wait(20)
+    server.shutdown()
+    assert ended.is_set()  # shutdown returned only after the job had let go
+    assert stored(sessions, job.id)[0] == "running"  # not failed: taken over once the lease ends

@@ -125,8 +125,9 @@ def _complete_openapi(app: FastAPI) -> None:
 
 
 def close(app: FastAPI) -> None:
-    """Stop queued jobs and close the database pool once running requests have let go of it.
+    """Stop the jobs and close the database pool once running requests have let go of it.
 
-    A job already running is not awaited: jobs are stored and resume on the next start."""
+    A running job stops at its next progress report, unfinished: jobs are stored and run
+    again on the next start."""
     app.state.jobs.shutdown()
     close_engine(app.state.engine)

@@ -20,7 +20,7 @@ import threading
 import time
 import uuid
 from collections.abc import Callable, Mapping
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor, wait
 from typing import Any
 
 from sqlalchemy.orm import Session, sessionmaker
@@ -38,6 +38,11 @@ SHORT_COST = 100  # jobs up to this cost take the short lane (our choice)
 log = logging.getLogger(__name__)
 
 
+class _Stopping(Exception):
+    """The runner is shutting down: the job is left unfinished; once its lease expires a live
+    server reruns it from the start."""
+
+
 class JobRunner:
     def __init__(
         self, sessions: sessionmaker[Session], handlers: Mapping[str, Handler], *,
@@ -51,14 +56,20 @@ class JobRunner:
         self.lease_s = lease_s
         self._stop = threading.Event()
         self._keeper = threading.Thread(target=self._keep, name="phaseward-leases", daemon=True)
+        self._running: set[Future[None]] = set()
 
     def submit(self, kind: str, request: dict[str, Any], *, cost: int = SHORT_COST + 1) -> Job:
         now = time.time()
         with transaction(self._sessions) as session:
             job = jobs.add(session, kind=kind, request=request, now_s=now, owner=self.owner,
                            lease_until_s=now + self.lease_s)  # fmt: skip
-        (self._short if cost <= SHORT_COST else self._pool).submit(self._run, job.id)
+        self._start(self._short if cost <= SHORT_COST else self._pool, job.id)
         return job
+
+    def _start(self, pool: ThreadPoolExecutor, job_id: int) -> None:
+        future = pool.submit(self._run, job_id)
+        self._running.add(future)
+        future.add_done_callback(self._running.discard)
 
     def resume(self) -> None:
         """Take over the jobs no live server holds, and keep sweeping and renewing."""
@@ -71,16 +82,18 @@ class JobRunner:
             waiting = jobs.orphans(session, now_s=time.time())
         for job_id in waiting:
             if self._claim(job_id):
-                self._pool.submit(self._run, job_id)
+                self._start(self._pool, job_id)
 
     def shutdown(self) -> None:
-        """Stop renewing and sweeping (a job still running is not awaited: once its lease
-        expires a live server takes it over)."""
+        """Stop renewing and sweeping, drop queued jobs and stop running ones at their next
+        progress report, so no job holds a connection once the database pool closes. The
+        jobs stay stored unfinished: once their lease expires a live server takes them over."""
         self._stop.set()
         if self._keeper.is_alive():  # let a renewal under way return its connection
             self._keeper.join(timeout=self.lease_s)
         self._pool.shutdown(wait=False, cancel_futures=True)
         self._short.shutdown(wait=False, cancel_futures=True)
+        wait(list(self._running), timeout=self.lease_s)
 
     def _keep(self) -> None:
         while not self._stop.wait(self.lease_s / 3):
@@ -110,6 +123,8 @@ class JobRunner:
         last = [0.0]
 
         def progress(percent: float) -> None:
+            if self._stop.is_set():
+                raise _Stopping
             now = time.monotonic()
             if now - last[0] >= PROGRESS_EVERY_S:
                 last[0] = now
@@ -121,6 +136,8 @@ class JobRunner:
         error: str | None = None
         try:
             result = self._handlers[kind](self._sessions, request, progress)
+        except _Stopping:
+            return
         except (PhasewardError, ValueError, ArithmeticError) as err:
             error = str(err)
         except Exception as err:  # a job must end in a state a client can read

@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import os
 import uuid
-from collections.abc import AsyncIterator, Iterator
+from collections.abc import AsyncIterator, Callable, Iterator
 from pathlib import Path
+from typing import Any
 
 import httpx
 import pytest
@@ -47,12 +48,25 @@ def database_url(tmp_path: Path) -> Iterator[str]:
     admin.dispose()
 
 
+MakeSettings = Callable[..., Settings]
+
+
 @pytest.fixture
-def settings(tmp_path: Path, database_url: str) -> Settings:
-    return Settings(
-        data_dir=tmp_path, database_url=database_url, auth_mode="open", max_body_bytes=64 * 1024,
-        max_batch_samples=50, future_skew_s=1e8,  # invented test data is dated 2027
-    )  # fmt: skip
+def make_settings(tmp_path: Path, database_url: str) -> MakeSettings:
+    """Settings for a test's own app: its data directory and database, open access unless
+    overridden, and a clock policy that accepts the invented test data (dated 2027)."""
+
+    def make(**overrides: Any) -> Settings:
+        fields: dict[str, Any] = {"data_dir": tmp_path, "database_url": database_url,
+                                  "auth_mode": "open", "future_skew_s": 1e8}  # fmt: skip
+        return Settings(**(fields | overrides))
+
+    return make
+
+
+@pytest.fixture
+def settings(make_settings: MakeSettings) -> Settings:
+    return make_settings(max_body_bytes=64 * 1024, max_batch_samples=50)
 
 
 @pytest.fixture

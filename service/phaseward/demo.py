@@ -61,6 +61,9 @@ DEMO_RAIL: dict[str, Any] = {
         ],
     },
     "board": {"to_ambient_k_per_w": 0.55, "capacitance_j_per_k": 300.0},
+    "output": {"capacitance_f": 0.0047, "esr_ohm": 0.00015},
+    # Per-phase failure rate for the reliability answer (the tour asks for it).
+    "reliability": {"fit_at_ref": 50.0, "ref_c": 55.0, "activation_ev": 0.7},
     "monitor": {"debounce_samples": 2, "forecast_horizon_s": 900.0},
 }
 
@@ -115,15 +118,17 @@ def scenario_samples(start_s: float, seed: int = 7) -> list[dict[str, Any]]:
     return samples
 
 
-def run_scenario(base_url: str, *, pace_s: float, chunk: int = 5) -> bool:
-    """Create the demo rail afresh and post the script, printing what phaseward makes of it.
-    Returns whether the service reported what the script implies (the isolation and a
-    capacity drop)."""
+def run_scenario(base_url: str, *, pace_s: float, replace: bool, chunk: int = 5) -> bool:
+    """Create the demo rail and post the script, printing what phaseward makes of it; with
+    ``replace``, a demo rail from an earlier run is deleted first (the caller vouches that the
+    demo created it). Returns whether the service reported what the script implies (the
+    isolation and a capacity drop)."""
     import time
 
     samples = scenario_samples(time.time() - T_END)
     with httpx.Client(base_url=base_url, timeout=30.0) as client:
-        client.delete(f"/v1/rails/{RAIL_ID}")
+        if replace:
+            client.delete(f"/v1/rails/{RAIL_ID}")
         client.post("/v1/rails", json=DEMO_RAIL).raise_for_status()
         print(f"rail {RAIL_ID}: {DEMO_RAIL['name']}")
         print(f"{'t':>5}  {'condition':<10} {'load A':>7} {'capacity A':>10} {'bound by':<12} "

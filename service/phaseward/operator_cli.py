@@ -1,6 +1,8 @@
 """Operator and firmware-developer commands of ``phaseward``, talking to a service through
-the Python client (``clients/python``): status, events, screening, forecast, ratings, rehearse,
-calibrate. Tables by default, ``--json`` for scripts."""
+the Python client (``clients/python``, shipped inside the service's distribution too): status,
+events, screening, forecast, ratings, rehearse, export-settings, calibrate, capture. Tables by
+default (readable at 80 columns), ``--json`` for scripts. Plain text: nothing the service says
+is read as markup."""
 
 from __future__ import annotations
 
@@ -8,46 +10,55 @@ import argparse
 import csv
 import json
 import os
+import textwrap
 import threading
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
+import httpx
+from phaseward_client import Client, Event, PhasewardError
+from phaseward_client.models import PhaseStatus
+from rich import box
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TaskProgressColumn, TextColumn
 from rich.table import Table
 
-if TYPE_CHECKING:
-    from phaseward_client import Client, Event
-    from phaseward_client.models import PhaseStatus
+from phaseward.cli_support import CommandError, read_input, read_json, usage
 
 DEFAULT_URL = "http://127.0.0.1:8470"
-out = Console()
-err = Console(stderr=True)
+out = Console(markup=False, highlight=False)
+err = Console(stderr=True, markup=False, highlight=False)
+
+
+def _table(*columns: str) -> Table:
+    """A table that fits 80 columns: light rules, no outer padding."""
+    return Table(*columns, box=box.SIMPLE_HEAD, pad_edge=False, show_edge=False)
 
 
 @contextmanager
 def connected(url: str | None, *, embedded: bool) -> Iterator[Client]:
     """A client for ``url`` (or PHASEWARD_URL, or the default); with ``embedded`` and no
     service answering there, an in-process service on the embedded SQLite default."""
-    try:
-        from phaseward_client import Client
-    except ImportError:
-        raise SystemExit("this command needs the client: pip install -e clients/python") from None
     base = url or os.environ.get("PHASEWARD_URL") or DEFAULT_URL
+    if not base.startswith(("http://", "https://")):
+        raise usage(f"the service URL {base} is not an http:// or https:// address")
     with Client(base, timeout_s=120, api_key=os.environ.get("PHASEWARD_KEY")) as client:
         try:
             client.health()
-        except Exception:  # nothing answers there
+        except (httpx.TransportError, PhasewardError):  # nothing (or not phaseward) answers
             if not embedded or url:
-                raise SystemExit(f"no phaseward service answers at {base}") from None
+                raise CommandError(
+                    f"no phaseward service answers at {base}: start one (phaseward serve) or "
+                    "point --url or PHASEWARD_URL at one"
+                ) from None
         else:
             yield client
             return
     with _embedded() as local, Client(local, timeout_s=120) as client:
-        err.print(f"[dim]started an embedded service at {local}[/dim]")
+        err.print(f"started an embedded service at {local}")
         yield client
 
 
@@ -71,6 +82,8 @@ def _embedded() -> Iterator[str]:
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()
     while not server.started:
+        if not thread.is_alive():
+            raise CommandError("the embedded service did not start: see the messages above")
         time.sleep(0.05)
     try:
         yield f"http://127.0.0.1:{port}"
@@ -124,9 +137,7 @@ def status(args: argparse.Namespace) -> int:
         _dump(s)
         return 0
     cap, th = s.capacity, s.thermal
-    out.print(
-        f"[bold]{s.rail_id}[/bold] v{s.version}: [bold]{s.condition or 'no telemetry yet'}[/bold]"
-    )
+    out.print(f"{s.rail_id} v{s.version}: {s.condition or 'no telemetry yet'}")
     if s.last_sample is not None:
         out.print(f"newest sample seq {s.last_sample.seq}, {sample_age(s.last_sample.age_s)}")
     if cap is not None and th is not None:
@@ -138,7 +149,7 @@ def status(args: argparse.Namespace) -> int:
         )
     if s.load_assumed_a is not None:
         out.print(f"the load assumes {_n(s.load_assumed_a)} A for phases without a reading")
-    table = Table(
+    table = _table(
         "phase", "condition", "current A", "sensor degC", "junction degC", "share", "reading"
     )
     junctions = th.estimated_junction_c if th is not None else []
@@ -149,7 +160,7 @@ def status(args: argparse.Namespace) -> int:
             reading_note(p),
         )  # fmt: skip
     out.print(table)
-    out.print(f"[dim]{s.caution}[/dim]")
+    out.print(s.caution)
     return 0
 
 
@@ -161,24 +172,16 @@ def events(args: argparse.Namespace) -> int:
                 if args.json:
                     print(json.dumps(e.__dict__), flush=True)
                 else:
-                    out.print(
-                        f"{e.time}  {e.severity:<8} {e.rail_id}  {event_kind(e)}  {e.message}",
-                        style=_EXPOSED_STYLE if _security_lost(e) else None,
-                    )
+                    _show_event(e, flush=True)
             return 0
         page = client.list_events(args.rail, kind=kinds, limit=args.limit)
     if args.json:
         _dump([e.__dict__ for e in page.items])
         return 0
-    table = Table("id", "time", "severity", "rail", "kind", "phase", "message")
     for e in page.items:
-        phase = "" if e.phase is None else str(e.phase)
-        message = e.message + _fault_class(e.details.get("signature"))
-        table.add_row(
-            str(e.id), e.time, e.severity, e.rail_id, event_kind(e), phase, message,
-            style=_EXPOSED_STYLE if _security_lost(e) else None,
-        )  # fmt: skip
-    out.print(table)
+        _show_event(e)
+    if not page.items:
+        print("no events")
     return 0
 
 
@@ -206,6 +209,27 @@ def _fault_class(signature: dict[str, Any] | None) -> str:
     )
 
 
+def _event_lines(e: Event) -> str:
+    """One event in two lines that fit 80 columns: who, when, what; then the message (with
+    the fault class, if one was found)."""
+    when = e.time[:19].replace("T", " ")
+    phase = "" if e.phase is None else f"  phase {e.phase}"
+    head = f"#{e.id:<5} {when}  {e.severity:<8} {e.rail_id}  {event_kind(e)}{phase}"
+    message = e.message + _fault_class(e.details.get("signature"))
+    body = textwrap.fill(message, width=80, initial_indent="       ",
+                         subsequent_indent="       ")  # fmt: skip
+    return f"{head}\n{body}"
+
+
+def _show_event(e: Event, *, flush: bool = False) -> None:
+    """An event printed; N-1 security lost is highlighted on a terminal (plain text in a pipe,
+    where "N-1 LOST" says it)."""
+    if _security_lost(e) and out.is_terminal:
+        out.print(_event_lines(e), style=_EXPOSED_STYLE, soft_wrap=True)
+    else:
+        print(_event_lines(e), flush=flush)
+
+
 CAPTURE_TYPES = {".csv": "text/csv", ".npy": "application/x-npy", ".npz": "application/x-npz"}
 
 
@@ -213,10 +237,10 @@ def capture(args: argparse.Namespace) -> int:
     path = Path(args.file)
     media = CAPTURE_TYPES.get(path.suffix.lower())
     if media is None:
-        err.print(f"[red]a capture is a .csv, .npy or .npz file, not {path.name}[/red]")
-        return 2
+        raise usage(f"a capture is a .csv, .npy or .npz file, not {path.name}: name one of those")
+    content = read_input(args.file, "the capture")
     with connected(args.url, embedded=False) as client:
-        answer = client.upload_capture(args.rail, args.event, path.read_bytes(), content_type=media)
+        answer = client.upload_capture(args.rail, args.event, content, content_type=media)
     if args.json:
         _dump(answer)
         return 0
@@ -225,14 +249,14 @@ def capture(args: argparse.Namespace) -> int:
         f"capture {answer['id']} of event {answer['event_id']} (phase {answer['phase']}): "
         f"{answer['n_samples']} samples, {', '.join(answer['channels'])}"
     )
-    out.print(f"fault class: [bold]{sig['kind']}[/bold] (confidence {sig['confidence']:.2f})")
+    out.print(f"fault class: {sig['kind']} (confidence {sig['confidence']:.2f})")
     out.print(f"  {sig['reason']}")
-    table = Table("evidence", "value", "used")
+    table = _table("evidence", "value", "used")
     for name, value in sig["evidence"].items():
         shown = "-" if value is None else f"{value:.4g}"
         table.add_row(name, shown, "yes" if name in sig["used"] else "")
     out.print(table)
-    out.print(f"[dim]{answer['caution']}[/dim]")
+    out.print(answer["caution"])
     return 0
 
 
@@ -243,8 +267,8 @@ def screening(args: argparse.Namespace) -> int:
         _dump(s)
         return 0
     verdict = "secure" if s.secure else "NOT secure"
-    out.print(f"[bold]{s.rail_id}[/bold] at {_n(s.load_a)} A: N-{s.depth} {verdict}")
-    table = Table(
+    out.print(f"{s.rail_id} at {_n(s.load_a)} A: N-{s.depth} {verdict}")
+    table = _table(
         "lose",
         "capacity A",
         "headroom A",
@@ -259,7 +283,7 @@ def screening(args: argparse.Namespace) -> int:
             _n(c.steady_hottest_c), _n(c.time_to_warning_s, 0), _then(c.cascade, c.down_at_s),
         )  # fmt: skip
     out.print(table)
-    out.print(f"[dim]{s.caution}[/dim]")
+    out.print(s.caution)
     return 0
 
 
@@ -271,14 +295,14 @@ def ratings(args: argparse.Namespace) -> int:
         _dump(r)
         return 0
     out.print(
-        f"[bold]{r.rail_id}[/bold] at {_n(r.load_a)} A: the highest constant load in A for "
+        f"{r.rail_id} at {_n(r.load_a)} A: the highest constant load in A for "
         "each duration, and what binds it"
     )
     heads = ["lose"] + [
         "indefinitely" if d is None else (f"{d / 60:g} min" if d < 3600 else f"{d / 3600:g} h")
         for d in r.durations_s
     ]
-    table = Table(*heads)
+    table = _table(*heads)
     short = {"rating": "rating", "trip_current": "trip", "warning_line": "warning", "none": "-"}
     for c in r.cases:
         table.add_row(
@@ -287,10 +311,10 @@ def ratings(args: argparse.Namespace) -> int:
         )
     out.print(table)
     out.print(
-        "[dim]binds: rating = a phase's current rating, trip = its trip current, warning = a "
-        "junction's warning line (limit minus margin)[/dim]"
+        "binds: rating = a phase's current rating, trip = its trip current, warning = a "
+        "junction's warning line (limit minus margin)"
     )
-    out.print(f"[dim]{r.caution}[/dim]")
+    out.print(r.caution)
     return 0
 
 
@@ -330,7 +354,7 @@ def forecast(args: argparse.Namespace) -> int:
 
     verdict = f.verdict.upper() if f.verdict != "holds" else f.verdict
     when = "" if f.verdict_at_s is None else f" at {f.verdict_at_s:.0f} s: {f.verdict_cause}"
-    out.print(f"[bold]{f.rail_id}[/bold]: [bold]{verdict}[/bold]{when}")
+    out.print(f"{f.rail_id}: {verdict}{when}")
     summary = (
         f"warning line {reach(f.time_to_warning_s, f.warning_phase)}; "
         f"limit {reach(f.time_to_limit_s, f.limit_phase)}; "
@@ -348,36 +372,22 @@ def forecast(args: argparse.Namespace) -> int:
         why = _CAUSES.get(c.cause, c.cause)
         amps = "" if c.current_a is None else f" ({c.current_a:.1f} A)"
         out.print(f"  {c.at_s:.0f} s: phase {c.phase} {why}{amps}")
-    table = Table("t s", "load A", "hottest junction degC", "board degC")
+    table = _table("t s", "load A", "hottest junction degC", "board degC")
     step = max(1, len(f.time_s) // 12)
     for k in range(0, len(f.time_s), step):
         table.add_row(
             f"{f.time_s[k]:.0f}", _n(f.load_a[k]), _n(max(f.junction_c[k])), _n(f.board_c[k])
         )
     out.print(table)
-    out.print(f"[dim]{f.caution}[/dim]")
+    out.print(f.caution)
     return 0
-
-
-def _read(path: str) -> bytes:
-    try:
-        return Path(path).read_bytes()
-    except OSError as problem:
-        raise SystemExit(f"cannot read {path}: {problem.strerror}") from None
-
-
-def _json_file(path: str, what: str) -> Any:
-    try:
-        return json.loads(_read(path).decode("utf-8-sig"))
-    except (UnicodeDecodeError, json.JSONDecodeError) as problem:
-        raise SystemExit(f"{path} is not JSON ({what}): {problem}") from None
 
 
 def rehearse(args: argparse.Namespace) -> int:
     trace_path = Path(args.trace)
-    content = _read(args.trace)
-    settings = _json_file(args.settings, "settings")
-    labels = _json_file(args.labels, "labels") if args.labels else []
+    content = read_input(args.trace, "the trace")
+    settings = read_json(args.settings, "the settings file")
+    labels = read_json(args.labels, "the labels file") if args.labels else []
     missing = {"policy": args.missing, **({"hold_s": args.hold} if args.hold is not None else {})}
     with connected(args.url, embedded=True) as client:
         # text/plain: the service tells CSV from JSON by content, whatever the extension
@@ -393,8 +403,7 @@ def rehearse(args: argparse.Namespace) -> int:
                 bar.update(task, completed=state["percent"])
                 time.sleep(0.2)
         if state["status"] == "failed":
-            err.print(f"[red]rehearsal failed:[/red] {state['error']}")
-            return 1
+            raise CommandError(f"the rehearsal failed: {state['error']}")
         if args.csv:
             Path(args.csv).write_text(client.rehearsal_file(job["id"], "table.csv"))
         if args.svg:
@@ -403,22 +412,31 @@ def rehearse(args: argparse.Namespace) -> int:
     if args.json:
         _dump(result)
         return 0
+    rows = result["rows"]
+    # Only the swept settings get a column (80 columns hold two or three); the fixed ones are
+    # said once above the table.
+    swept = [a for a in result["axes"] if len({r["settings"][a] for r in rows}) > 1]
+    fixed = [f"{a} {rows[0]['settings'][a]:g}" for a in result["axes"] if a not in swept]
     out.print(
         f"rehearsal {job['id']}: {result['combinations']} combinations over "
-        f"{trace['n_samples']} samples; the Pareto front of false trips against the worst "
-        "latency (a missed fault counts as infinitely late), tied rows grouped:"
+        f"{trace['n_samples']} samples" + (f"; fixed: {', '.join(fixed)}" if fixed and rows else "")
     )
-    table = Table("row", "tied", "settings", "trips", "false", "missed", "worst s")
+    out.print(
+        "Pareto front (false trips against worst detection latency; a missed fault counts as "
+        "infinitely late; tied rows grouped, their values joined by |):"
+    )
+    table = _table("#", "tied", "settings", "trips", "false", "missed", "worst s")
     for group in result["pareto_groups"]:
-        row = result["rows"][group["rows"][0]]
-        shown = " ".join(_tied_values(a, [result["rows"][i] for i in group["rows"]])
-                         for a in result["axes"])  # fmt: skip
+        row = rows[group["rows"][0]]
+        tied = [rows[i] for i in group["rows"]]
+        # every swept setting whole (name=value, tied values joined by |), wrapped in its cell
+        shown = " ".join(f"{a}={_tied_values(a, tied)}" for a in swept) or "-"
         table.add_row(
             str(row["index"]), str(len(group["rows"])), shown, str(row["trips"]),
             str(row["false_trips"]), str(row["missed"]), _n(row["max_latency_s"], 3),
         )  # fmt: skip
     out.print(table)
-    out.print(f"[dim]export a row: phaseward export-settings {job['id']} ROW --header out.h[/dim]")
+    out.print(f"export a row: phaseward export-settings {job['id']} ROW --header out.h")
     for trip in result["trips"] or []:
         where = f"phase {trip['phase']}" if trip["phase"] >= 0 else "the input"
         out.print(f"  trip at {trip['time_s']:.3f} s: {where}, {trip['rule']}, {trip['value']:.3g}")
@@ -426,9 +444,8 @@ def rehearse(args: argparse.Namespace) -> int:
 
 
 def _tied_values(axis: str, rows: list[dict[str, Any]]) -> str:
-    """``axis=value``, or every value the tied rows take (``axis=90|100``)."""
-    values = sorted({r["settings"][axis] for r in rows})
-    return f"{axis}={'|'.join(f'{v:g}' for v in values)}"
+    """The value the tied rows take for ``axis``, or every one of them (``90|100``)."""
+    return "|".join(f"{v:g}" for v in sorted({r["settings"][axis] for r in rows}))
 
 
 def export_settings(args: argparse.Namespace) -> int:
@@ -446,11 +463,12 @@ def export_settings(args: argparse.Namespace) -> int:
 def _curve(path: str) -> tuple[list[float], list[float]]:
     """time_s and temp_c from a heating-curve CSV (README, "Rehearsal and calibration
     formats"): a row whose temp_c is empty or nan is left out (no reading then)."""
-    text = _read(path).decode("utf-8-sig", "replace")
+    text = read_input(path, "the heating curve").decode("utf-8-sig", "replace")
     lines = [ln for ln in text.splitlines() if ln.strip()]
     rows = list(csv.DictReader(lines))
     if not rows or not {"time_s", "temp_c"} <= set(rows[0]):
-        raise SystemExit(f"{path}: the curve must be CSV with time_s and temp_c columns")
+        raise usage(f"the heating curve {path} must be CSV with time_s and temp_c columns "
+                    "(see examples/README.md)")  # fmt: skip
     t_s, temp_c = [], []
     for line, row in enumerate(rows, start=2):
         cell = (row["temp_c"] or "").strip()
@@ -460,8 +478,9 @@ def _curve(path: str) -> tuple[list[float], list[float]]:
             t_s.append(float(row["time_s"]))
             temp_c.append(float(cell))
         except (TypeError, ValueError):
-            raise SystemExit(
-                f"{path}, line {line}: time_s '{row['time_s']}' or temp_c '{cell}' is not a number"
+            raise usage(
+                f"the heating curve {path}, line {line}: time_s '{row['time_s']}' or temp_c "
+                f"'{cell}' is not a number"
             ) from None
     return t_s, temp_c
 
@@ -477,9 +496,9 @@ def _stage_counts(text: str) -> list[int]:
 
 def calibrate(args: argparse.Namespace) -> int:
     if args.rail is None and args.power is None:
-        raise SystemExit("give --power (no rail needed), or --rail with --current")
+        raise usage("give --power (no rail needed), or --rail with --current")
     if args.rail is None and args.apply != "no":
-        raise SystemExit("--apply stores the fit in a rail: give --rail")
+        raise usage("--apply stores the fit in a rail: give --rail")
     t_s, temp_c = _curve(args.curve)
     body: dict[str, Any] = {
         "t_s": t_s, "temp_c": temp_c, "cooling": args.cooling, "location": args.location,
@@ -506,7 +525,7 @@ def calibrate(args: argparse.Namespace) -> int:
         f"(95 % {_n(low, 4)} .. {_n(high, 4)}); "
         + ("settled" if fit["settled"] else f"NOT settled ({fit['settled_rule']})")
     )
-    table = Table("order", "R K/W (95 % CI)", "tau s (95 % CI)", "rms K", "BIC")
+    table = _table("order", "R K/W (95 % CI)", "tau s (95 % CI)", "rms K", "BIC")
     for f in fit["fits"]:
         rs = "; ".join(
             f"{s['r_k_per_w']:.4g} ({_n(s['r_ci_k_per_w'][0], 3)}..{_n(s['r_ci_k_per_w'][1], 3)})"
@@ -521,26 +540,35 @@ def calibrate(args: argparse.Namespace) -> int:
     if fit["skipped_orders"]:
         out.print(f"orders not tried (too few samples per parameter): {fit['skipped_orders']}")
     for warning in fit["warnings"]:
-        err.print(f"[yellow]warning:[/yellow] {warning}")
+        err.print(f"warning: {warning}")
     if fit["applied_version"] is not None:
         out.print(f"applied as version {fit['applied_version']} of {args.rail}")
     return 0
 
 
 def _reporting(fn: Callable[[argparse.Namespace], int]) -> Callable[[argparse.Namespace], int]:
-    """Run a command; a refusal from the service becomes one line on stderr and exit 1."""
+    """Run a command; a refusal from the service or a lost connection becomes one line (the
+    ``phaseward`` entry point prints it and exits 1)."""
 
     def run(args: argparse.Namespace) -> int:
-        from phaseward_client import PhasewardError
-
         try:
             return fn(args)
         except PhasewardError as refusal:
             where = f" ({refusal.field})" if refusal.field else ""
-            err.print(f"[red]{refusal.status} {refusal.error}[/red]{where}: {refusal.detail}")
-            return 1
+            hint = _HINTS.get(refusal.status, "")
+            raise CommandError(
+                f"{refusal.status} {refusal.error}{where}: {refusal.detail}{hint}"
+            ) from None
+        except httpx.TransportError as lost:
+            raise CommandError(f"the service stopped answering ({lost}): try again") from None
 
     return run
+
+
+_HINTS = {
+    401: " (set PHASEWARD_KEY to an access key)",
+    403: " (this key's role or rails do not allow it)",
+}
 
 
 def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
@@ -556,24 +584,28 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
         return p
 
     p = command("status", status, "a rail's condition, capacity, margin and phases")
-    p.add_argument("rail")
+    p.add_argument("rail", help="the rail's id")
     p = command("events", events, "recent events, or follow them live")
-    p.add_argument("--rail")
-    p.add_argument("--kind", action="append")
-    p.add_argument("--limit", type=int, default=50)
+    p.add_argument("--rail", help="only this rail's events (default: every rail)")
+    p.add_argument(
+        "--kind", action="append", help="only this kind, e.g. phase.isolated (repeatable)"
+    )
+    p.add_argument("--limit", type=int, default=50, help="at most this many, newest first")
     p.add_argument("--follow", action="store_true", help="stream events as they happen")
     p = command("screening", screening, "what each further phase loss would leave")
-    p.add_argument("rail")
-    p.add_argument("--depth", type=int, choices=(1, 2), default=1)
+    p.add_argument("rail", help="the rail's id")
+    p.add_argument(
+        "--depth", type=int, choices=(1, 2), default=1, help="further losses at once: 1 or 2"
+    )
     p = command("forecast", forecast, "junction temperatures ahead, with optional phase drops")
-    p.add_argument("rail")
+    p.add_argument("rail", help="the rail's id")
     p.add_argument("--load", type=float, help="total current in A (default: the present load)")
     p.add_argument("--drop", type=int, action="append", help="phase to lose (repeatable)")
     p.add_argument("--at", type=float, default=0.0, help="when the phases drop, s")
-    p.add_argument("--hours", type=float, default=1.0)
-    p.add_argument("--points", type=int, default=200)
+    p.add_argument("--hours", type=float, default=1.0, help="how far ahead, h (default 1)")
+    p.add_argument("--points", type=int, default=200, help="time points in the answer")
     p = command("ratings", ratings, "how much load, for how long: time-limited ratings")
-    p.add_argument("rail")
+    p.add_argument("rail", help="the rail's id")
     p.add_argument(
         "--minutes", type=float, action="append",
         help="a duration in minutes (repeatable; default 1, 10, 60; indefinitely always shown)",
@@ -604,7 +636,7 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     p.add_argument("--csv", help="write the result table here")
     p.add_argument("--svg", help="write the Pareto plot here")
     p = command("capture", capture, "attach a capture of a trip to its event and classify it")
-    p.add_argument("rail")
+    p.add_argument("rail", help="the rail's id")
     p.add_argument("event", type=int, help="id of the phase.isolated event")
     p.add_argument("file", help="CSV (.csv) or NumPy (.npy, .npz) waveform around the trip")
     p = command("export-settings", export_settings, "a rehearsal row as firmware settings")
@@ -621,12 +653,16 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     step = p.add_mutually_exclusive_group(required=True)
     step.add_argument("--power", type=float, help="the power step, W")
     step.add_argument("--current", type=float, help="the phase current during the step, A")
-    p.add_argument("--phase", type=int, default=0, help="the phase the curve was taken on")
-    p.add_argument("--cooling", action="store_true", help="the curve follows power removal")
-    p.add_argument("--location", choices=("junction", "sensor"), default="junction",
-                   help="where the temperature was measured")  # fmt: skip
-    p.add_argument("--apply", choices=("no", "phase", "all"), default="no",
-                   help="store the fit as the rail's next version")  # fmt: skip
+    p.add_argument("--phase", type=int, default=0, help="the phase that was heated (default 0)")
+    p.add_argument("--cooling", action="store_true", help="the curve is a cool-down after the step")
+    p.add_argument(
+        "--location", choices=("junction", "sensor"), default="junction",
+        help="where the temperature was read",
+    )  # fmt: skip
+    p.add_argument(
+        "--apply", choices=("no", "phase", "all"), default="no",
+        help="store the fit as a new rail version: for that phase, for all, or not (default)",
+    )  # fmt: skip
     p.add_argument(
         "--orders", type=_stage_counts,
         help="Foster stage counts to try, comma-separated (default 1,2,3,4)",
@@ -634,4 +670,4 @@ def add_commands(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> No
     p.add_argument("--reference-temp", type=float,
                    help="temperature before the step, degC (default: fitted)")  # fmt: skip
     p.add_argument("--time-unit", choices=("s", "ms", "us"), default="s",
-                   help="the unit of the time_s column")  # fmt: skip
+                   help="the unit of the time_s column (default s)")  # fmt: skip

@@ -63,7 +63,8 @@ class Settings(BaseSettings):
             self.database_url = f"sqlite:///{(self.data_dir / 'phaseward.db').as_posix()}"
         if self.auth_mode == "open" and self.host not in LOOPBACK_HOSTS:
             raise ValueError(
-                f"auth_mode 'open' serves without keys, so it binds loopback only, not {self.host}"
+                f"auth_mode 'open' serves without keys, so it binds loopback only, not "
+                f"{self.host}: serve with keys (PHASEWARD_AUTH_MODE=keys) or on 127.0.0.1"
             )
         return self
 

@@ -220,8 +220,10 @@ def test_calibrate_with_power_needs_no_rail_and_takes_orders(tmp_path: Path) -> 
     bad = plain("calibrate", str(curve), "--power", "2", env=env)
     assert bad.returncode != 0
     assert "Traceback" not in bad.stderr
+    assert bad.returncode == 2  # a usage error: nothing was attempted
     assert bad.stderr.strip().splitlines() == [
-        f"{curve}, line 11: time_s '4.5' or temp_c 'warm' is not a number"
+        f"phaseward calibrate: the heating curve {curve}, line 11: time_s '4.5' or temp_c "
+        "'warm' is not a number"
     ]
     nothing = plain("calibrate", str(curve), "--current", "20", env=env)
     assert nothing.returncode != 0

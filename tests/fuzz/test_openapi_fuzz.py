@@ -8,6 +8,7 @@ matches the schema (status code, content type, body), invalid requests are refus
 
 from __future__ import annotations
 
+import json
 from collections.abc import AsyncIterator, Iterator
 from typing import Any
 
@@ -77,6 +78,15 @@ STATEFUL = schemathesis.Config.from_dict(SETTINGS | {"phases": {"stateful": {"en
 schemathesis.serializer.alias("text/csv", "text/plain")
 for _media in ("application/x-npy", "application/x-npz", "application/zip"):
     schemathesis.serializer.alias(_media, "application/octet-stream")
+
+
+@schemathesis.serializer("application/x-ndjson")
+def _ndjson(_: Any, value: Any) -> bytes:
+    """Samples as NDJSON: one JSON document a line (a generated array is one sample a line)."""
+    lines = value if isinstance(value, list) else [value]
+    return "".join(json.dumps(v) + "\n" for v in lines).encode()
+
+
 TRACE_CSV = "time_s,vin_v,i0_a,i1_a\n" + "".join(
     f"{k},12,{25 if 3 <= k <= 6 else 10},10\n" for k in range(10)
 )

@@ -4,12 +4,12 @@ only as digests, revocation, and the per-key rate limit (429 with Retry-After)."
 from __future__ import annotations
 
 from collections.abc import AsyncIterator
-from pathlib import Path
 
 import httpx
 import pytest
 from fastapi import FastAPI
 from sqlalchemy import text
+from tests.conftest import MakeSettings
 from tests.factories import SMALL_RAIL, rail_spec, sample
 
 from phaseward.api.app import close, create_app
@@ -20,13 +20,11 @@ pytestmark = pytest.mark.anyio
 
 
 @pytest.fixture
-def keyed_app(request: pytest.FixtureRequest, tmp_path: Path, database_url: str) -> FastAPI:
+def keyed_app(request: pytest.FixtureRequest, make_settings: MakeSettings) -> FastAPI:
     """An app that needs keys; a test marked with a ``burst`` parameter gets a tight limit."""
     burst = getattr(request, "param", 1000)
     # A slow refill, so a loaded machine's slow requests do not refill the bucket in time.
-    settings = Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys",
-                        rate_per_s=0.2, rate_burst=burst, future_skew_s=1e8)  # fmt: skip
-    return create_app(settings)
+    return create_app(make_settings(auth_mode="keys", rate_per_s=0.2, rate_burst=burst))
 
 
 @pytest.fixture

@@ -16,17 +16,16 @@ from __future__ import annotations
 
 import asyncio
 from collections.abc import AsyncIterator
-from pathlib import Path
 from typing import Any
 
 import httpx
 import pytest
 from fastapi import FastAPI
+from tests.conftest import MakeSettings
 from tests.factories import SMALL_RAIL, rail_spec, sample
 
 from phaseward.api.app import close, create_app
 from phaseward.monitor import access
-from phaseward.settings import Settings
 
 pytestmark = pytest.mark.anyio
 OPEN = "open"
@@ -75,11 +74,9 @@ TRACE_CSV = "time_s,vin_v,i0_a,i1_a\n" + "\n".join(f"{k},12,10,10" for k in rang
 
 
 @pytest.fixture
-def keyed_app(tmp_path: Path, database_url: str) -> FastAPI:
-    settings = Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys",
-                        rate_per_s=1000.0, rate_burst=100_000, auth_failure_burst=1000,
-                        future_skew_s=1e8)  # fmt: skip
-    return create_app(settings)
+def keyed_app(make_settings: MakeSettings) -> FastAPI:
+    return create_app(make_settings(auth_mode="keys", rate_per_s=1000.0, rate_burst=100_000,
+                                    auth_failure_burst=1000))  # fmt: skip
 
 
 @pytest.fixture

@@ -5,7 +5,6 @@ named and nothing stored changed."""
 from __future__ import annotations
 
 import io
-from pathlib import Path
 from typing import Any, get_args
 
 import httpx
@@ -13,13 +12,13 @@ import numpy as np
 import pytest
 from fastapi import FastAPI
 from tests.buck_sim import BuckCase, as_csv, as_npy, as_npz, columns, simulate
+from tests.conftest import MakeSettings
 from tests.factories import SMALL_RAIL, rail_spec, sample
 
 from phaseward.api.app import close, create_app
 from phaseward.api.schemas.rails import FeatureName
 from phaseward.monitor import access
 from phaseward.physics.signatures import FEATURES
-from phaseward.settings import Settings
 
 pytestmark = pytest.mark.anyio
 EVEN = [20.0, 20.0, 20.0, 20.0]
@@ -212,10 +211,8 @@ async def test_only_isolation_events_of_the_rail_take_a_capture(client: httpx.As
 
 
 @pytest.fixture
-def small_limit_app(tmp_path: Path, database_url: str) -> FastAPI:
-    return create_app(Settings(data_dir=tmp_path, database_url=database_url, auth_mode="open",
-                               max_capture_bytes=256 * 1024, max_capture_samples=1000,
-                               future_skew_s=1e8))  # fmt: skip
+def small_limit_app(make_settings: MakeSettings) -> FastAPI:
+    return create_app(make_settings(max_capture_bytes=256 * 1024, max_capture_samples=1000))
 
 
 async def test_too_large_captures_are_413(small_limit_app: FastAPI) -> None:
@@ -237,9 +234,8 @@ async def test_too_large_captures_are_413(small_limit_app: FastAPI) -> None:
 
 
 @pytest.fixture
-def keyed_app(tmp_path: Path, database_url: str) -> FastAPI:
-    return create_app(Settings(data_dir=tmp_path, database_url=database_url, auth_mode="keys",
-                               future_skew_s=1e8))  # fmt: skip
+def keyed_app(make_settings: MakeSettings) -> FastAPI:
+    return create_app(make_settings(auth_mode="keys"))
 
 
 def key(app: FastAPI, role: str, rails: list[str] | None = None) -> dict[str, str]:

@@ -15,7 +15,6 @@ from typing import Any
 import httpx
 import pytest
 from phaseward_client import EventPage
-from rich.console import Console
 from tests.factories import SMALL_RAIL, sample
 
 from phaseward import operator_cli
@@ -111,10 +110,14 @@ async def test_a_rail_insecure_from_its_first_sample_says_so(
 
 
 async def test_the_command_line_spells_out_n1_lost_and_regained(
-    client: httpx.AsyncClient, rail: str, monkeypatch: pytest.MonkeyPatch
+    client: httpx.AsyncClient,
+    rail: str,
+    monkeypatch: pytest.MonkeyPatch,
+    capsys: pytest.CaptureFixture[str],
 ) -> None:
     """``phaseward events`` marks the episode beside the kind (the rail condition ``exposed``
-    reads too much alike), the lost one highlighted. The command gets the service's real
+    reads too much alike; in a pipe the words say it, on a terminal the lost one is also
+    highlighted). The command gets the service's real
     answer through a stand-in client."""
     await client.post(f"{rail}/samples", json=loads(0, 60.0, 3) + loads(3, 100.0, 3))
     await client.post(f"{rail}/samples", json=loads(6, 60.0, 3))
@@ -130,13 +133,11 @@ async def test_the_command_line_spells_out_n1_lost_and_regained(
     def connected(url: str | None, *, embedded: bool) -> Iterator[Stand]:
         yield Stand()
 
-    screen = Console(record=True, width=300)
     monkeypatch.setattr(operator_cli, "connected", connected)
-    monkeypatch.setattr(operator_cli, "out", screen)
     args = argparse.Namespace(url=None, rail="bench-a", kind=None, follow=False, json=False,
                               limit=100)  # fmt: skip
     assert operator_cli.events(args) == 0
-    text = screen.export_text()
+    text = capsys.readouterr().out
     assert text.count("capacity.exposed (N-1 LOST)") == 1
     assert text.count("capacity.exposed (N-1 regained)") == 1
     assert "N-1 security lost: losing phase" in text

@@ -22,6 +22,7 @@ from phaseward.api.group_commit import GroupCommit
 from phaseward.api.routes import (
     analyses,
     captures,
+    docs,
     events,
     rails,
     rehearsals,
@@ -30,6 +31,7 @@ from phaseward.api.routes import (
     traces,
     web,
 )
+from phaseward.api.schemas.glossary import describe
 from phaseward.api.schemas.samples import BODY_COMPONENTS
 from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor import retention
@@ -78,6 +80,8 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
         version=__version__,
         summary="Keeps watch over multiphase power rails that can lose a phase and keep running.",
         lifespan=lifespan,
+        docs_url=None,  # served from the package itself by routes/docs.py, no outside network
+        redoc_url=None,
     )
     app.state.settings = settings
     app.state.clock = clock
@@ -104,6 +108,7 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     app.include_router(traces.router)
     app.include_router(rehearsals.router)
     app.include_router(web.router)
+    app.include_router(docs.router)
     _complete_openapi(app)
 
     return app
@@ -111,15 +116,18 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
 
 def _complete_openapi(app: FastAPI) -> None:
     """Add the models that hand-written request schemas refer to (the samples body, read
-    without a pydantic parameter) to the generated document's components."""
+    without a pydantic parameter) to the generated document's components, then describe
+    every field (see api/schemas/glossary.py)."""
     generate = app.openapi
 
     def openapi() -> dict[str, Any]:
         if app.openapi_schema is None:
-            schemas = generate().setdefault("components", {}).setdefault("schemas", {})
+            document = generate()
+            schemas = document.setdefault("components", {}).setdefault("schemas", {})
             for name, schema in BODY_COMPONENTS.items():
                 schemas.setdefault(name, schema)
-        return app.openapi_schema or {}
+            app.openapi_schema = describe(document)
+        return app.openapi_schema
 
     app.openapi = openapi  # type: ignore[method-assign]
 

@@ -8,8 +8,9 @@ The gate also holds every body to a size limit (413 beyond it) and limits failed
 authentication per client address (429), so guessing keys is slow.
 
 What needs a key: everything under ``/v1/`` and ``/metrics``. Open: ``/healthz`` and
-``/readyz`` (probes), the OpenAPI document and its viewers (``/openapi.json``, ``/docs``,
-``/redoc``: the contract, no data), and the operator page's files (the page asks for a key).
+``/readyz`` (probes), the OpenAPI document and its viewer (``/openapi.json``, ``/docs`` and
+``/docs-assets/``: the contract, no data), and the operator page's files (the page asks for
+a key).
 
 Rate limits are per server process: with N replicas a key may reach N times its rate. Sharing
 the buckets would put a database write in front of every request, ingest included; a

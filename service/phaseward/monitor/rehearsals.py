@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -18,8 +19,8 @@ import numpy.typing as npt
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.errors import Conflict, InvalidInput, NotFound
-from phaseward.monitor import rail_model, traces
 from phaseward.monitor import rails as rail_service
+from phaseward.monitor import traces
 from phaseward.monitor.jobs import JobRunner, Progress
 from phaseward.monitor.telemetry import ISOLATING_FLAGS
 from phaseward.physics.rehearsal import (
@@ -96,8 +97,26 @@ def _phases(session: Session, spec: dict[str, Any]) -> int:
         if found is None:
             raise InvalidInput(f"no trace {spec['trace_id']}", field="trace.trace_id")
         return found[1]
-    rail, rail_spec = rail_service.get(session, spec["rail_id"])
-    return rail_model.build(rail.id, rail.version, rail_spec).n_phases
+    rail_service.get(session, spec["rail_id"])
+    makeup = samples.window_makeup(
+        session, spec["rail_id"], start_s=spec["since"], end_s=spec["until"]
+    )
+    _check_window(
+        sum(n for _, _, n in makeup), [p for p, _, _ in makeup], [v for _, v, _ in makeup]
+    )
+    return makeup[0][0]
+
+
+def _check_window(n: int, phase_counts: Sequence[int], versions: Sequence[int]) -> None:
+    """A stored window replays when it holds two samples or more of one phase count."""
+    if n < 2:
+        raise InvalidInput("the window holds fewer than two samples", field="trace")
+    if len(set(phase_counts)) > 1:
+        raise InvalidInput(
+            f"the window spans definition versions {', '.join(map(str, sorted(set(versions))))}"
+            " with different phase counts; rehearse each version's part of it on its own",
+            field="trace",
+        )
 
 
 def check(session: Session, request: dict[str, Any]) -> ProtectionGrid:
@@ -144,15 +163,8 @@ def _trace(session: Session, spec: dict[str, Any]) -> RehearsalTrace:
         session, spec["rail_id"], start_s=spec["since"], end_s=spec["until"],
         limit=MAX_WINDOW_SAMPLES,
     )  # fmt: skip
-    if rows.t_s.size < 2:
-        raise InvalidInput("the window holds fewer than two samples", field="trace")
-    if np.unique(rows.phase_count).size > 1:
-        versions = ", ".join(str(v) for v in np.unique(rows.version))
-        raise InvalidInput(
-            f"the window spans definition versions {versions} with different phase counts; "
-            "rehearse each version's part of it on its own",
-            field="trace",
-        )
+    # Checked before the job too; samples stored since may change the window.
+    _check_window(rows.t_s.size, rows.phase_count.tolist(), rows.version.tolist())
     current = np.nan_to_num(rows.current_a, nan=0.0)  # a phase not reported carries nothing
     isolated = (rows.flags & ISOLATING_FLAGS) != 0
     return RehearsalTrace(rows.t_s, current, rows.temp_c, rows.vin_v, ~isolated)

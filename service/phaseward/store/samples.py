@@ -82,6 +82,21 @@ def around(session: Session, rail_id: str, *, t_s: float, before: int, after: in
     )
 
 
+def window_makeup(
+    session: Session, rail_id: str, *, start_s: float, end_s: float
+) -> list[tuple[int, int, int]]:
+    """(phase count, definition version, samples) of the samples with start_s <= t < end_s:
+    what a replay of the window must agree on, without loading it."""
+    phases = func.length(Sample.flags)  # one flag byte a phase
+    stmt = (
+        select(phases, Sample.version, func.count())
+        .where(Sample.rail_id == rail_id, Sample.t_s >= start_s, Sample.t_s < end_s)
+        .group_by(phases, Sample.version)
+        .order_by(Sample.version)
+    )
+    return [(int(p), int(v), int(n)) for p, v, n in session.execute(stmt).all()]
+
+
 def window(
     session: Session, rail_id: str, *, start_s: float, end_s: float, limit: int
 ) -> SampleRows:

@@ -11,6 +11,9 @@ import { follow } from './live.js';
 const REFRESH_MS = 30_000; // a safety net: events drive the page, this catches quiet changes
 const STATUS_COALESCE_MS = 200; // one status fetch for a burst of events of one rail
 const ANALYSES_DELAY_MS = 1_500; // screening and forecast are heavier: after the burst settles
+// What the analyses were run for when no status had arrived yet: a status arriving later
+// differs from it, so the analyses run again (they cannot forecast without the load).
+const NO_STATUS = 'no status yet';
 const HORIZON_S = 3_600;
 const EVENTS_PAGE = 50;
 const OPERATOR_KEY = 'phaseward.operator';
@@ -132,7 +135,7 @@ async function loadAnalyses(d) {
   const entry = state.rails.get(d.id);
   const status = entry ? entry.status : null;
   const seq = ++d.analysesSeq;
-  d.analysedFor = status ? judged(status) : null;
+  d.analysedFor = status ? judged(status) : NO_STATUS;
   const present = status && status.load_a != null ? status.load_a : null;
   const loadA = present ?? (status ? status.rated_load_a : null);
   const [screening, forecast, ratings] = await Promise.allSettled([
@@ -384,7 +387,10 @@ function renderRail() {
     return;
   }
   if (!st) return;
-  if (!$('rail-title')) mountRail(d);
+  if (!$('rail-title')) {
+    mountRail(d);
+    if (d.nextCursor !== undefined || d.eventsError) renderEvents(); // they came before the status
+  }
   const spec = d.spec ? d.spec.spec : null;
   $('rail-name').textContent = spec ? `${spec.name} \u00b7 definition version ${st.version}` : `definition version ${st.version}`;
   $('caution-text').textContent = st.caution;
@@ -807,10 +813,10 @@ function show(view, moveFocus) {
     const d = newDetail(view.id);
     state.detail = d;
     replaceKeepingFocus($('main'), h('div', { class: 'page-head' }, h('h1', { tabindex: '-1', 'data-focus-key': 'h1' }, view.id)), h('p', { class: 'loading' }, 'Loading\u2026'));
+    loadEvents(d); // the events need no status: fetched beside it, for a first view sooner
     refreshStatus(view.id).then(() => {
       if (state.detail !== d) return;
       if (moveFocus) headingFocus();
-      loadEvents(d);
       loadAnalyses(d);
     });
   }

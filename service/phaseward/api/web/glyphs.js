@@ -10,10 +10,9 @@ const paths = {
     s('path', { d: 'M10 2.5 L17.5 10 L10 17.5 L2.5 10 Z', fill: 'none', stroke: 'currentColor', 'stroke-width': 2 }),
     s('circle', { cx: 10, cy: 10, r: 2.2, fill: 'currentColor' }),
   ],
+  // A ring with one segment missing: a rail running with a phase out.
   degraded: () => [
-    s('path', { d: 'M10 2.8 L18 17 L2 17 Z', fill: 'none', stroke: 'currentColor', 'stroke-width': 2, 'stroke-linejoin': 'round' }),
-    s('path', { d: 'M10 7.5 V12.5', stroke: 'currentColor', 'stroke-width': 2.2, 'stroke-linecap': 'round' }),
-    s('circle', { cx: 10, cy: 15, r: 1.1, fill: 'currentColor' }),
+    s('path', { d: 'M13.25 4.37 A6.5 6.5 0 1 1 6.75 4.37', fill: 'none', stroke: 'currentColor', 'stroke-width': 3, 'stroke-linecap': 'butt' }),
   ],
   overloaded: () => [
     s('path', { d: 'M6.7 2 H13.3 L18 6.7 V13.3 L13.3 18 H6.7 L2 13.3 V6.7 Z', fill: 'currentColor' }),

@@ -55,14 +55,19 @@ mean follows a linear recurrence with a constant matrix, evaluated for a whole s
 operations. The loss slope enters the transition (F_k above), so the fixed point belongs to one
 slope: the fast path covers consecutive steps whose slope row is *equal* (the same currents,
 e.g. a held load or an isolated phase; any measured change of current changes the slope) and
-whose readings are all present (a NaN reading changes H). A step k takes it when, besides,
-the covariance before it is within ``STEADY_RTOL`` (relative to its largest variance) of the
-steady posterior covariance for slope s_k, and one full step from it moves the covariance by
-at most twice that (a cheap test that keeps the Riccati solve away from steps that cannot
-pass). The choice is a function of that covariance, s_k and which readings are present; the
-covariance after a fast stretch is the steady one itself, so a state carried to the next
-request makes the same choice whichever way the samples were cut into requests. Everywhere
-else the full filter runs.
+whose readings are all present (a NaN reading changes H). A step k takes it when the stretch
+from k holds at least ``MIN_STEADY_STEPS`` such steps in this call, one full step from the
+covariance before k moves it by at most twice ``STEADY_RTOL`` (relative to its largest
+variance; a cheap test that keeps the Riccati solve away from steps that cannot pass), and that
+covariance is within ``STEADY_RTOL`` of the steady posterior covariance for slope s_k. The
+covariance after a fast stretch is the steady one itself. Everywhere else the full filter runs.
+
+Batching: the stretch length makes the choice depend on how samples are cut into calls (one
+call of 100 equal steps goes fast, a hundred calls of one do not), so the guarantee is
+agreement, not identity: both paths follow the same filter, and from a covariance within
+``STEADY_RTOL`` of the steady one they differ by about 1e-8 K on the means and 1e-12
+(relative) on the covariance (tests/unit/physics/test_estimator_steady.py), far inside the
+rounding the batching-invariance tests of the live state tolerate (1e-7).
 
 Failure policy: invalid arguments raise ValueError naming the argument; an estimate that
 leaves float64 range (the loss feedback grows without bound) raises
@@ -88,6 +93,11 @@ _SYMMETRY_RTOL = 1e-9  # relative asymmetry tolerated in a supplied covariance (
 # filter (module docstring): the gain then differs by about this fraction, far below 1e-6 K
 # on the means (tests/unit/physics/test_estimator_steady.py measures it).
 STEADY_RTOL = 1e-12
+# Fewest steps a stretch must hold in one call before the steady gain is sought: a Riccati
+# solve not yet cached costs as much as about a hundred full steps on a 12-phase network
+# (bench/estimator_batch.py), so shorter stretches, and single-sample requests, stay on the
+# full filter.
+MIN_STEADY_STEPS = 32
 
 
 def _array(
@@ -501,8 +511,8 @@ def _steady(
 ) -> SteadyGain | None:
     """The steady-state filter for one model and loss slope; cached (the Riccati solve costs
     tens of ms on a 12-phase network). None where there is none, and where one full step from
-    its covariance moves it by more than ``STEADY_RTOL`` (the fast-path test in
-    :func:`kalman_run` then holds for this covariance exactly when it is stored and read back).
+    its covariance moves it by more than ``STEADY_RTOL`` (so a state left at the steady
+    covariance, stored and read back, passes the fast-path test of :func:`kalman_run` again).
     """
     model = discrete_model(
         net, dt_s, process_noise_w=process_noise_w, sensor_noise_k=sensor_noise_k,
@@ -588,26 +598,26 @@ def kalman_run(
         _tuple(process_noise_w, shape[1]),
         _tuple(sensor_noise_k, shape[1]),
     )
-    complete = np.all(np.isfinite(reading), axis=1)
+    stretch_end = _stretch_ends(slope, np.all(np.isfinite(reading), axis=1))
     means = np.empty((shape[0] + 1, model.n_states))
     variances = np.empty((shape[0] + 1, model.n_states))
     innovation_z = np.empty(shape)
     mean, cov = np.array(state.mean_c), np.array(state.cov_k2)
     means[0], variances[0] = mean, np.diag(cov)
-    steady: tuple[SteadyGain, FloatArray] | None = None  # the gain in use and its slope row
+    steady: SteadyGain | None = None  # the gain in use; ``cov`` is its covariance while it is
+    steady_slope = np.full(shape[1], np.nan)  # the slope row it was solved for
     k = 0
     while k < shape[0]:
+        stop = int(stretch_end[k])
         if (
             steady is not None
-            and cov is steady[0].post_cov
-            and complete[k]
-            and np.array_equal(slope[k], steady[1])
+            and cov is steady.post_cov
+            and stop > k
+            and np.array_equal(slope[k], steady_slope)
         ):
-            same = complete[k:] & np.all(slope[k:] == steady[1], axis=1)
-            stop = k + (int(np.argmin(same)) if not same.all() else same.size)
             span = slice(k, stop)
             mean, means[k + 1 : stop + 1], innovation_z[span] = _steady_stretch(
-                model, steady[0], mean, p0[span], ambient[span], reading[span]
+                model, steady, mean, p0[span], ambient[span], reading[span]
             )
             variances[k + 1 : stop + 1] = np.diag(cov)
             k = stop
@@ -618,10 +628,10 @@ def kalman_run(
         predicted = _predict(model, mean, cov, slope[k], drive)
         next_mean, next_cov, innovation_z[k] = _update(model, *predicted, reading[k])
         tol = STEADY_RTOL * np.max(np.diag(cov), initial=0.0)
-        if complete[k] and np.max(np.abs(next_cov - cov)) <= 2.0 * tol:
+        if stop - k >= MIN_STEADY_STEPS and np.max(np.abs(next_cov - cov)) <= 2.0 * tol:
             found = _steady(*key, tuple(slope[k].tolist()))
             if found is not None and np.max(np.abs(cov - found.post_cov)) <= tol:
-                steady, cov = (found, slope[k]), found.post_cov  # step k goes the fast path
+                steady, steady_slope, cov = found, slope[k], found.post_cov  # converged: fast
                 continue
         mean, cov = next_mean, next_cov
         means[k + 1], variances[k + 1] = mean, np.diag(cov)
@@ -637,6 +647,16 @@ def kalman_run(
             np.array(True),
         ) from err
     return KalmanTrace(final, means, np.sqrt(np.maximum(junction_var, 0.0)), innovation_z)
+
+
+def _stretch_ends(slope: FloatArray, complete: npt.NDArray[np.bool_]) -> IntArray:
+    """For each step k, the end (exclusive) of the stretch of steps from k with every reading
+    present and the slope row of step k; k itself where step k lacks a reading."""
+    n = complete.size
+    joined = complete[1:] & complete[:-1] & np.all(slope[1:] == slope[:-1], axis=1)
+    breaks = np.concatenate([np.flatnonzero(~joined) + 1, [n]])
+    ends = breaks[np.searchsorted(breaks, np.arange(n), side="right")]
+    return np.where(complete, ends, np.arange(n))
 
 
 def _tuple(value: npt.ArrayLike, n_phases: int) -> tuple[float, ...]:

@@ -207,12 +207,10 @@ def _state_through_json(state: EstimatorState) -> EstimatorState:
     max_examples=15, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
 )
 @given(cuts=st.lists(st.integers(1, 899), max_size=6, unique=True).map(sorted))
-def test_the_choice_of_path_does_not_depend_on_the_cut(
-    cuts: list[int], stretches: list[int]
-) -> None:
+def test_the_estimate_does_not_depend_on_the_cut(cuts: list[int], stretches: list[int]) -> None:
     """Cutting one trace into several runs (the state stored as JSON between them, as the
-    live state is) gives the same estimate; the switch to the fast path happens at the same
-    sample, since it depends on the covariance alone."""
+    live state is) gives the same estimate within 1e-8 K, whichever path each run took (a run
+    too short for the fast path stays on the full filter)."""
     net = network(3, seed=11, board_tau_s=5.0)
     kwargs = lag_kwargs(net, True)
     n = 900
@@ -232,10 +230,10 @@ def test_the_choice_of_path_does_not_depend_on_the_cut(
         state = _state_through_json(part.final)
     means = np.vstack([whole.means_c[:1], *[p.means_c[1:] for p in parts]])
     std = np.vstack([whole.junction_std_k[:1], *[p.junction_std_k[1:] for p in parts]])
-    np.testing.assert_allclose(means, whole.means_c, rtol=0.0, atol=1e-9)
-    np.testing.assert_array_equal(std, whole.junction_std_k)  # the same path at every step
+    np.testing.assert_allclose(means, whole.means_c, rtol=0.0, atol=1e-8)
+    np.testing.assert_allclose(std, whole.junction_std_k, rtol=1e-10)
     z = np.vstack([p.innovation_z for p in parts])
-    np.testing.assert_allclose(z, whole.innovation_z, rtol=0.0, atol=1e-9, equal_nan=True)
+    np.testing.assert_allclose(z, whole.innovation_z, rtol=0.0, atol=1e-8, equal_nan=True)
 
 
 @settings(

@@ -7,6 +7,7 @@ from pathlib import Path
 
 from bench import (
     analyses_latency,
+    estimator_batch,
     fault_classes,
     history_growth,
     ingest_http,
@@ -26,6 +27,7 @@ def main() -> None:
     rows = []
     for module in (
         thermal_capacity,
+        estimator_batch,
         rehearsal_sweep,
         analyses_latency,
         ratings_latency,

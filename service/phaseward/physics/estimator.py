@@ -43,6 +43,31 @@ the sensor temperature is the junction node itself, or the phase's lag state whe
 
 Each step predicts over [t_k, t_{k+1}] and then updates with the readings of row k; the
 covariance update is in Joseph form, (I - K H) P (I - K H)^T + K R K^T, then symmetrised.
+The normalised innovation of each reading, (y - offset - predicted sensed temperature) /
+sqrt(S_pp) with S = H P- H^T + R, is reported per step (NaN where there is no reading).
+
+Steady-state fast path
+----------------------
+With the step, the loss slope s and the sensor set fixed, the covariance recursion is the
+time-invariant Riccati recursion and converges to the fixed point of
+:mod:`~phaseward.physics.steady_gain` (``scipy.linalg.solve_discrete_are``); with that gain the
+mean follows a linear recurrence with a constant matrix, evaluated for a whole stretch as array
+operations. The loss slope enters the transition (F_k above), so the fixed point belongs to one
+slope: the fast path covers consecutive steps whose slope row is *equal* (the same currents,
+e.g. a held load or an isolated phase; any measured change of current changes the slope) and
+whose readings are all present (a NaN reading changes H). A step k takes it when the stretch
+from k holds at least ``MIN_STEADY_STEPS`` such steps in this call, one full step from the
+covariance before k moves it by at most twice ``STEADY_RTOL`` (relative to its largest
+variance; a cheap test that keeps the Riccati solve away from steps that cannot pass), and that
+covariance is within ``STEADY_RTOL`` of the steady posterior covariance for slope s_k. The
+covariance after a fast stretch is the steady one itself. Everywhere else the full filter runs.
+
+Batching: the stretch length makes the choice depend on how samples are cut into calls (one
+call of 100 equal steps goes fast, a hundred calls of one do not), so the guarantee is
+agreement, not identity: both paths follow the same filter, and from a covariance within
+``STEADY_RTOL`` of the steady one they differ by about 1e-8 K on the means and 1e-12
+(relative) on the covariance (tests/unit/physics/test_estimator_steady.py), far inside the
+rounding the batching-invariance tests of the live state tolerate (1e-7).
 
 Failure policy: invalid arguments raise ValueError naming the argument; an estimate that
 leaves float64 range (the loss feedback grows without bound) raises
@@ -57,12 +82,22 @@ import numpy as np
 import numpy.typing as npt
 from scipy import linalg
 
+from phaseward.physics.steady_gain import SteadyGain, linear_recurrence, steady_gain
 from phaseward.physics.thermal import ThermalNetwork, ThermalRunaway
 
 FloatArray = npt.NDArray[np.float64]
 IntArray = npt.NDArray[np.intp]
 
 _SYMMETRY_RTOL = 1e-9  # relative asymmetry tolerated in a supplied covariance (rounding only)
+# Relative distance from the steady covariance below which the steady gain replaces the full
+# filter (module docstring): the gain then differs by about this fraction, far below 1e-6 K
+# on the means (tests/unit/physics/test_estimator_steady.py measures it).
+STEADY_RTOL = 1e-12
+# Fewest steps a stretch must hold in one call before the steady gain is sought: a Riccati
+# solve not yet cached costs as much as about a hundred full steps on a 12-phase network
+# (bench/estimator_batch.py), so shorter stretches, and single-sample requests, stay on the
+# full filter.
+MIN_STEADY_STEPS = 32
 
 
 def _array(
@@ -333,7 +368,14 @@ def initial_from_readings(
         loading[n:, 2 + n :] = START_NODE_STD_K * np.eye(n_ph)
     cov = loading @ loading.T
     sensor = np.array(net.junction_node if not sensor_lag else n + np.arange(n_ph))
-    return EstimatorState(*_condition(mean, cov, sensor, var, offset, reading))
+    return EstimatorState(*_condition(mean, cov, sensor, var, offset, reading)[:2])
+
+
+def _transition(model: DiscreteModel, slope_w_per_k: FloatArray) -> FloatArray:
+    """F_k = F + Bp diag(s_k) S (module docstring)."""
+    f = np.array(model.transition)
+    f[:, model.junction_state] += model.loss_input_k_per_w * slope_w_per_k
+    return f
 
 
 def _predict(
@@ -343,12 +385,11 @@ def _predict(
     slope_w_per_k: FloatArray,
     drive_c: FloatArray,
 ) -> tuple[FloatArray, FloatArray]:
-    """One prediction: F_k = F + Bp diag(s_k) S; ``drive_c`` = Bp p0_k + ba T_amb,k.
+    """One prediction with F_k; ``drive_c`` = Bp p0_k + ba T_amb,k.
 
     :class:`ThermalRunaway` when the prediction leaves float64 range.
     """
-    f = np.array(model.transition)
-    f[:, model.junction_state] += model.loss_input_k_per_w * slope_w_per_k
+    f = _transition(model, slope_w_per_k)
     with np.errstate(over="ignore", invalid="ignore"):
         mean, cov = f @ mean + drive_c, f @ cov @ f.T + model.process_cov_k2
         finite = np.isfinite(mean.sum() + np.trace(cov))  # the trace bounds every covariance
@@ -362,8 +403,9 @@ def _predict(
 
 def _update(
     model: DiscreteModel, mean: FloatArray, cov: FloatArray, reading_c: FloatArray
-) -> tuple[FloatArray, FloatArray]:
-    """Measurement update with the finite readings (n_phases,) only; Joseph form."""
+) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """Measurement update with the finite readings (n_phases,) only; Joseph form. Returns the
+    mean, the covariance and the normalised innovations (n_phases,)."""
     return _condition(
         mean, cov, model.sensor_state, model.sensor_var_k2, model.sensor_offset_k, reading_c
     )
@@ -376,12 +418,14 @@ def _condition(
     sensor_var_k2: FloatArray,
     sensor_offset_k: FloatArray,
     reading_c: FloatArray,
-) -> tuple[FloatArray, FloatArray]:
+) -> tuple[FloatArray, FloatArray, FloatArray]:
     """Condition N(mean, cov) on the finite readings, reading p = state[sensor_state[p]] +
-    offset_p + N(0, var_p); Joseph form."""
+    offset_p + N(0, var_p); Joseph form. Also returns each reading's innovation over its
+    standard deviation, sqrt(S_pp) (NaN where there is no reading)."""
     seen = np.isfinite(reading_c)
+    z = np.full(reading_c.shape, np.nan)
     if not np.any(seen):
-        return mean, cov
+        return mean, cov, z
     rows = sensor_state[seen]
     var = sensor_var_k2[seen]
     innovation_cov = cov[np.ix_(rows, rows)] + np.diag(var)
@@ -391,8 +435,9 @@ def _condition(
     innovation = reading_c[seen] - sensor_offset_k[seen] - mean[rows]
     keep = np.eye(mean.size)
     keep[:, rows] -= gain
+    z[seen] = innovation / np.sqrt(np.diag(innovation_cov))
     cov = keep @ cov @ keep.T + (gain * var) @ gain.T
-    return mean + gain @ innovation, 0.5 * (cov + cov.T)
+    return mean + gain @ innovation, 0.5 * (cov + cov.T), z
 
 
 def _check_state(model: DiscreteModel, state: EstimatorState) -> None:
@@ -436,19 +481,53 @@ def kalman_step(
     reading = _array("measured_c", measured_c, (n_ph,), allow_nan=True)
     drive = model.loss_input_k_per_w @ p0 + model.ambient_input * ambient
     mean, cov = _predict(model, state.mean_c, state.cov_k2, slope, drive)
-    return EstimatorState(*_update(model, mean, cov, reading))
+    return EstimatorState(*_update(model, mean, cov, reading)[:2])
 
 
 class KalmanTrace(NamedTuple):
-    """Result of :func:`kalman_run` (unpacks as ``final, means_c, junction_std_k``).
+    """Result of :func:`kalman_run` (unpacks as ``final, means_c, junction_std_k,
+    innovation_z``).
 
     final: the estimate after the last step; means_c: (n_steps + 1, n_states) degC, row 0 the
-    starting mean; junction_std_k: (n_steps + 1, n_phases) K, std of each junction estimate.
+    starting mean; junction_std_k: (n_steps + 1, n_phases) K, std of each junction estimate;
+    innovation_z: (n_steps, n_phases), each reading's innovation (reading - offset - predicted
+    sensed temperature) over its standard deviation sqrt(S_pp), NaN where there is no reading.
     """
 
     final: EstimatorState
     means_c: FloatArray
     junction_std_k: FloatArray
+    innovation_z: FloatArray
+
+
+@lru_cache(maxsize=64)
+def _steady(
+    net: ThermalNetwork,
+    dt_s: float,
+    sensor_tau_s: tuple[float, ...] | None,
+    process_noise_w: tuple[float, ...],
+    sensor_noise_k: tuple[float, ...],
+    slope_w_per_k: tuple[float, ...],
+) -> SteadyGain | None:
+    """The steady-state filter for one model and loss slope; cached (the Riccati solve costs
+    tens of ms on a 12-phase network). None where there is none, and where one full step from
+    its covariance moves it by more than ``STEADY_RTOL`` (so a state left at the steady
+    covariance, stored and read back, passes the fast-path test of :func:`kalman_run` again).
+    """
+    model = discrete_model(
+        net, dt_s, process_noise_w=process_noise_w, sensor_noise_k=sensor_noise_k,
+        sensor_tau_s=sensor_tau_s,
+    )  # fmt: skip
+    slope = np.array(slope_w_per_k)
+    found = steady_gain(
+        _transition(model, slope), model.process_cov_k2, model.sensor_state, model.sensor_var_k2
+    )
+    if found is None:
+        return None
+    post = found.post_cov
+    step = _predict(model, np.zeros(model.n_states), post, slope, np.zeros(model.n_states))
+    moved = _update(model, *step, np.zeros(model.n_phases))[1] - post
+    return found if np.max(np.abs(moved)) <= STEADY_RTOL * np.max(np.diag(post)) else None
 
 
 def kalman_run(
@@ -472,18 +551,22 @@ def kalman_run(
     ambient_c: float or (n_steps,) degC held over each step; ``state``: the estimate at t_0
     (:func:`initial_state`, with ``sensor_lag=True`` when ``sensor_tau_s`` is given). Noise
     and sensor arguments as in :func:`discrete_model`. The recursion runs one small set of
-    matrix products per step; F, Bp, ba are cached per (network, dt, sensor lag).
+    matrix products per step, except on stretches where the filter has converged, which run
+    as array operations with the steady gain (module docstring, "Steady-state fast path");
+    F, Bp, ba and the steady gains are cached per (network, dt, sensor lag).
 
     >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
     >>> net = build_coupled_network([CauerStages(np.array([2.0]), np.array([0.5]))],
     ...                             board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
     >>> start = initial_state(net, 25.0, std_k=5.0, sensor_lag=True)
     >>> n = 400  # 2 W held: the junction settles at 25 + 2 x (2 + 1) = 31 degC
-    >>> final, means, std = kalman_run(net, start, 0.5, np.full((n, 1), 2.0), np.zeros((n, 1)),
-    ...     25.0, np.full((n, 1), 31.0), process_noise_w=0.05, sensor_noise_k=0.3,
-    ...     sensor_tau_s=2.0)
-    >>> means.shape, std.shape, round(float(means[-1, 0]), 2), bool(std[-1, 0] < std[0, 0])
-    ((401, 3), (401, 1), 31.0, True)
+    >>> final, means, std, z = kalman_run(net, start, 0.5, np.full((n, 1), 2.0),
+    ...     np.zeros((n, 1)), 25.0, np.full((n, 1), 31.0), process_noise_w=0.05,
+    ...     sensor_noise_k=0.3, sensor_tau_s=2.0)
+    >>> means.shape, std.shape, z.shape, round(float(means[-1, 0]), 2)
+    ((401, 3), (401, 1), (400, 1), 31.0)
+    >>> bool(std[-1, 0] < std[0, 0])
+    True
     """
     model = discrete_model(
         net,
@@ -508,17 +591,51 @@ def kalman_run(
     if np.ndim(ambient_c) not in (0, 1):
         raise ValueError("ambient_c must be a float or have shape (n_steps,)")
     ambient = _array("ambient_c", ambient_c, shape[:1])
+    key = (
+        net,
+        model.dt_s,
+        None if sensor_tau_s is None else _tuple(sensor_tau_s, shape[1]),
+        _tuple(process_noise_w, shape[1]),
+        _tuple(sensor_noise_k, shape[1]),
+    )
+    stretch_end = _stretch_ends(slope, np.all(np.isfinite(reading), axis=1))
     means = np.empty((shape[0] + 1, model.n_states))
     variances = np.empty((shape[0] + 1, model.n_states))
+    innovation_z = np.empty(shape)
     mean, cov = np.array(state.mean_c), np.array(state.cov_k2)
     means[0], variances[0] = mean, np.diag(cov)
-    for k in range(shape[0]):
+    steady: SteadyGain | None = None  # the gain in use; ``cov`` is its covariance while it is
+    steady_slope = np.full(shape[1], np.nan)  # the slope row it was solved for
+    k = 0
+    while k < shape[0]:
+        stop = int(stretch_end[k])
+        if (
+            steady is not None
+            and cov is steady.post_cov
+            and stop > k
+            and np.array_equal(slope[k], steady_slope)
+        ):
+            span = slice(k, stop)
+            mean, means[k + 1 : stop + 1], innovation_z[span] = _steady_stretch(
+                model, steady, mean, p0[span], ambient[span], reading[span]
+            )
+            variances[k + 1 : stop + 1] = np.diag(cov)
+            k = stop
+            continue
         # Each step's drive on its own (not one product over the run): the same sample then
         # gives the same bits however a trace is split into runs.
         drive = model.loss_input_k_per_w @ p0[k] + model.ambient_input * ambient[k]
-        mean, cov = _predict(model, mean, cov, slope[k], drive)
-        mean, cov = _update(model, mean, cov, reading[k])
+        predicted = _predict(model, mean, cov, slope[k], drive)
+        next_mean, next_cov, innovation_z[k] = _update(model, *predicted, reading[k])
+        tol = STEADY_RTOL * np.max(np.diag(cov), initial=0.0)
+        if stop - k >= MIN_STEADY_STEPS and np.max(np.abs(next_cov - cov)) <= 2.0 * tol:
+            found = _steady(*key, tuple(slope[k].tolist()))
+            if found is not None and np.max(np.abs(cov - found.post_cov)) <= tol:
+                steady, steady_slope, cov = found, slope[k], found.post_cov  # converged: fast
+                continue
+        mean, cov = next_mean, next_cov
         means[k + 1], variances[k + 1] = mean, np.diag(cov)
+        k += 1
     junction_var = variances[:, model.junction_state]
     try:
         final = EstimatorState(mean, cov)
@@ -529,4 +646,45 @@ def kalman_run(
             "the estimate lost its covariance: the loss feedback grows without bound",
             np.array(True),
         ) from err
-    return KalmanTrace(final, means, np.sqrt(np.maximum(junction_var, 0.0)))
+    return KalmanTrace(final, means, np.sqrt(np.maximum(junction_var, 0.0)), innovation_z)
+
+
+def _stretch_ends(slope: FloatArray, complete: npt.NDArray[np.bool_]) -> IntArray:
+    """For each step k, the end (exclusive) of the stretch of steps from k with every reading
+    present and the slope row of step k; k itself where step k lacks a reading."""
+    n = complete.size
+    joined = complete[1:] & complete[:-1] & np.all(slope[1:] == slope[:-1], axis=1)
+    breaks = np.concatenate([np.flatnonzero(~joined) + 1, [n]])
+    ends = breaks[np.searchsorted(breaks, np.arange(n), side="right")]
+    return np.where(complete, ends, np.arange(n))
+
+
+def _tuple(value: npt.ArrayLike, n_phases: int) -> tuple[float, ...]:
+    return tuple(np.broadcast_to(np.asarray(value, dtype=np.float64), (n_phases,)).tolist())
+
+
+def _steady_stretch(
+    model: DiscreteModel,
+    steady: SteadyGain,
+    mean: FloatArray,
+    p0_w: FloatArray,
+    ambient_c: FloatArray,
+    reading_c: FloatArray,
+) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """m steps with the steady gain from the posterior ``mean``: (last mean, (m, n_states)
+    posterior means, (m, n_phases) normalised innovations). p0_w, reading_c: (m, n_phases),
+    every reading present; ambient_c: (m,). The slope is the one ``steady`` was solved for.
+    """
+    drive = p0_w @ model.loss_input_k_per_w.T + ambient_c[:, None] * model.ambient_input
+    sensed = reading_c - model.sensor_offset_k
+    posterior = linear_recurrence(
+        steady.closed_loop, mean, drive @ steady.keep.T + sensed @ steady.gain.T
+    )
+    if not np.all(np.isfinite(posterior)):
+        raise ThermalRunaway(
+            "the estimate left float64 range: the loss feedback grows without bound",
+            np.array(True),
+        )
+    prior = np.vstack([mean, posterior[:-1]]) @ steady.transition.T + drive
+    innovation_z = (sensed - prior[:, model.sensor_state]) / steady.innovation_std
+    return posterior[-1], posterior, innovation_z

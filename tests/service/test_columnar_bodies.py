@@ -302,3 +302,67 @@ def _fits_csv(body: Json) -> bool:
     return all(type(v) in (int, float, str, type(None)) for v in cells) and all(
         type(v) in (bool, type(None)) for v in flagged
     )
+
+
+CSV_GOOD = "seq,time,vin_v,vout_v,current_a[0],current_a[1],temp_c[0],temp_c[1]\n"
+
+
+@pytest.mark.parametrize(
+    ("rows", "field"),
+    [
+        ("10,1800000010,12,1,20,20,60,60,7\n", "[0]"),  # a cell more than the header
+        ("10,1800000010,12,1,20,20,nan,60\n", "[0].temp_c[0]"),
+        ("10,1800000010,12,1,20,20,60,60\n11,1800000011,12,1,20,x,60,60\n", "[1].current_a[1]"),
+        ("10,1800000010,12,1,20,20,60,60\n11,,12,1,20,20,60,60\n", "[1].time"),
+        ("10,1800000010,12,1,,20,60,60\n", "[0].phase[0]"),
+    ],
+)
+async def test_csv_cells_are_refused_by_row_and_header(
+    client: httpx.AsyncClient, rows: str, field: str
+) -> None:
+    rail_id = await new_rail(client, 2, 2)
+    answer = await client.post(
+        f"/v1/rails/{rail_id}/samples",
+        content=CSV_GOOD + rows,
+        headers={"content-type": "text/csv"},
+    )
+    assert answer.status_code == 422, answer.text
+    assert answer.json()["field"] == field
+    window = (
+        await client.get(f"/v1/rails/{rail_id}/samples", params={"since": 0, "until": 1e11})
+    ).json()
+    assert window["seq"] == []
+
+
+@pytest.mark.parametrize(
+    ("header", "field"),
+    [("colour", "colour"), ("current_a[64]", "current_a[64]"), ("vin_v", "vin_v")],
+)
+async def test_csv_headers_are_refused_by_name(
+    client: httpx.AsyncClient, header: str, field: str
+) -> None:
+    """An unknown column, a phase beyond 63, a column given twice."""
+    rail_id = await new_rail(client, 2, 2)
+    body = CSV_GOOD.rstrip("\n") + f",{header}\n10,1800000010,12,1,20,20,60,60,1\n"
+    answer = await client.post(
+        f"/v1/rails/{rail_id}/samples", content=body, headers={"content-type": "text/csv"}
+    )
+    assert answer.status_code == 422, answer.text
+    assert answer.json()["field"] == field
+
+
+async def test_bulk_bodies_keep_the_sample_limit_and_other_media_are_refused(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    rail_id = await new_rail(client, 4, 2)
+    limit = app.state.settings.max_batch_samples
+    big = good_columns(limit + 1)
+    answer = await client.post(
+        f"/v1/rails/{rail_id}/samples", content=json.dumps(big), headers={"content-type": COLUMNS}
+    )
+    assert answer.status_code == 413, answer.text
+    answer = await client.post(
+        f"/v1/rails/{rail_id}/samples", content="seq\n1\n", headers={"content-type": "text/plain"}
+    )
+    assert answer.status_code == 415, answer.text
+    assert answer.json()["field"] == "content-type"

@@ -121,7 +121,8 @@ class Typed:
     given: npt.NDArray[np.bool_]
 
 
-def _first(mask: npt.NDArray[np.bool_]) -> tuple[int, int | None]:
+def first_cell(mask: npt.NDArray[np.bool_]) -> tuple[int, int | None]:
+    """(sample, slot) of the first True of a (n,) or (n, p) mask (slot None for (n,))."""
     at = np.argwhere(mask)[0]
     return int(at[0]), (int(at[1]) if at.shape[0] > 1 else None)
 
@@ -135,7 +136,7 @@ def in_bounds(column: Column, typed: Typed, cell: CellName) -> Typed:
     finite = np.isfinite(v) if column.kind == "float" else np.ones(v.shape, dtype=bool)
     bad = typed.given & ~(finite & (v >= lo) & (v <= hi))
     if bad.any():
-        k, j = _first(bad)
+        k, j = first_cell(bad)
         value = v[k] if j is None else v[k, j]
         detail = (
             f"{value} is not a finite number"

@@ -26,6 +26,7 @@ from phaseward.api.schemas.columns import (
     Typed,
     build,
     check_times,
+    first_cell,
     in_bounds,
     nothing,
 )
@@ -122,11 +123,6 @@ def _from_rows(header: list[str], data: list[list[str]]) -> IncomingSamples:
     return build(per_sample, index, per_phase, cell)
 
 
-def _at(mask: npt.NDArray[np.bool_]) -> tuple[int, int | None]:
-    at = np.argwhere(mask)[0]
-    return int(at[0]), (int(at[1]) if at.shape[0] > 1 else None)
-
-
 def _typed_text(column: Column, strings: Text, cell: CellName) -> Typed:
     """One field's cells as a typed array, within its bounds, or the refusal of the first bad
     one. Parsed by numpy for the whole field; per cell only to name a refusal."""
@@ -134,12 +130,12 @@ def _typed_text(column: Column, strings: Text, cell: CellName) -> Typed:
     if not given.any() and not column.required:
         return Typed(nothing(column, strings.shape), given)
     if column.required and not given.all():
-        k, j = _at(~given)
+        k, j = first_cell(~given)
         raise InvalidInput("a value is required", field=cell(k, j, column.name))
     if column.kind == "bool":
         bad = ~np.isin(strings, ("", "0", "1"))
         if bad.any():
-            k, j = _at(bad)
+            k, j = first_cell(bad)
             raise InvalidInput("must be 0 or 1", field=cell(k, j, column.name))
         ones = strings == "1"
         return Typed(ones, ones)

@@ -144,6 +144,26 @@ def test_the_columns_are_the_sample_objects_fields() -> None:
     assert {c.name for c in PHASE_COLUMNS} == set(PhaseReading.model_fields) - {"index"}
 
 
+def _bounds(prop: Json) -> tuple[float, float] | None:
+    """(minimum, maximum) of a JSON-schema property, through a nullable anyOf."""
+    for option in [prop, *prop.get("anyOf", [])]:
+        if "minimum" in option:
+            return option["minimum"], option["maximum"]
+    return None
+
+
+def test_the_columns_take_the_sample_objects_bounds() -> None:
+    """Bounds are named once; this catches a field of the objects given a bound of its own."""
+    doc = SampleIn.model_json_schema()
+    objects = {("sample", k): _bounds(v) for k, v in doc["properties"].items()}
+    objects |= {
+        ("phase", k): _bounds(v) for k, v in doc["$defs"]["PhaseReading"]["properties"].items()
+    }
+    for where, columns in (("sample", SAMPLE_COLUMNS), ("phase", PHASE_COLUMNS)):
+        for column in columns:
+            assert objects[(where, column.name)] == column.bounds, column.name
+
+
 # ---------------------------------------------------------------- refusals
 
 

@@ -24,8 +24,10 @@ from phaseward_client.columns import to_columns
 from tests.factories import rail_spec
 from tests.service.test_ingest_properties import T0, telemetry
 
-from phaseward.api.schemas.columns import PHASE_COLUMNS, SAMPLE_COLUMNS
+from phaseward.api.schemas.columns import PHASE_COLUMNS, SAMPLE_COLUMNS, Refusal, parse_columns
+from phaseward.api.schemas.columns_csv import parse_csv
 from phaseward.api.schemas.samples import PhaseReading, SampleIn
+from phaseward.errors import BadRequest, PayloadTooLarge
 from phaseward.store import state
 from phaseward.store.db import transaction
 
@@ -386,3 +388,70 @@ async def test_bulk_bodies_keep_the_sample_limit_and_other_media_are_refused(
     )
     assert answer.status_code == 415, answer.text
     assert answer.json()["field"] == "content-type"
+
+
+_JSON = st.recursive(
+    st.none() | st.booleans() | st.integers() | st.floats() | st.text(max_size=8),
+    lambda inner: (
+        st.lists(inner, max_size=4) | st.dictionaries(st.text(max_size=8), inner, max_size=4)
+    ),
+    max_leaves=30,
+)
+_NEAR = st.fixed_dictionaries(
+    {"seq": st.lists(st.integers(-2, 2**63) | _JSON, min_size=1, max_size=3)},
+    optional={
+        "time": st.lists(st.floats() | st.text(max_size=30) | _JSON, max_size=3),
+        "vin_v": _JSON,
+        "phases": st.dictionaries(
+            st.sampled_from(["index", "current_a", "temp_c", "read_iout", "breaker_tripped"]),
+            st.lists(st.lists(_JSON, max_size=3) | _JSON, max_size=3),
+        ),
+    },
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(doc=_NEAR | _JSON)
+def test_any_json_is_taken_or_refused_by_name_never_a_crash(doc: Any) -> None:
+    """Near-miss and arbitrary documents: a columnar body, or a 4xx naming a field (an
+    unknown key is named as sent, even the empty one)."""
+    field: str | None = None
+    try:
+        incoming = parse_columns(json.dumps(doc).encode(), max_items=100)
+    except Refusal as refused:
+        field = refused.error.field
+    except (BadRequest, PayloadTooLarge) as err:
+        field = err.field
+    else:
+        assert incoming.n == len(doc["seq"])
+        return
+    assert field is not None
+
+
+_CSV_CELL = st.sampled_from(
+    ["", "0", "1", "-1", "1e999", "nan", "x", "12.5", "2027-01-15T08:30:00Z"]
+)
+_CSV_HEADER = st.sampled_from(["seq", "time", "vin_v", "current_a[0]", "temp_c[1]", "read_iout[0]"])
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    header=st.lists(_CSV_HEADER | st.text(max_size=6), min_size=1, max_size=5),
+    rows=st.lists(st.lists(_CSV_CELL, min_size=1, max_size=6), max_size=4),
+)
+def test_any_csv_is_taken_or_refused_by_name_never_a_crash(
+    header: list[str], rows: list[list[str]]
+) -> None:
+    out = io.StringIO()
+    csv.writer(out).writerows([header, *rows])
+    field: str | None = None
+    try:
+        incoming = parse_csv(out.getvalue().encode(), max_items=100)
+    except Refusal as refused:
+        field = refused.error.field
+    except (BadRequest, PayloadTooLarge) as err:
+        field = err.field
+    else:
+        assert incoming.n == len(rows)
+        return
+    assert field is not None

@@ -31,7 +31,7 @@ from typing import Any
 
 import httpx
 import numpy as np
-from phaseward_client.columns import to_columns
+from phaseward_client.columns import to_columns, to_csv
 from tests.factories import rail_spec
 from tests.servers import free_port, start_server, wait_until_healthy
 
@@ -162,28 +162,12 @@ def _raw_sqlite(data_dir: Path, batches: list[list[tuple[Any, ...]]]) -> float:
     return stored / elapsed
 
 
-def as_csv(table: dict[str, Any]) -> str:
-    """A columnar body as CSV (per-phase fields as ``name[i]``, empty cells for null)."""
-    index = table["phases"]["index"]
-    header, columns = [], []
-    for name, values in table.items():
-        if name != "phases":
-            header.append(name)
-            columns.append(values)
-    for name, matrix in table["phases"].items():
-        if name != "index":
-            header += [f"{name}[{i}]" for i in index]
-            columns += [[row[j] for row in matrix] for j in range(len(index))]
-    cells = [["" if v is None else repr(v) for v in row] for row in zip(*columns, strict=True)]
-    return "\n".join(",".join(row) for row in [header, *cells]) + "\n"
-
-
 def schema_ms() -> dict[str, float]:
     """Milliseconds of CPU to parse and check one 100-sample body into the monitor's arrays,
     per form (best of 5 runs of 20, in this process; CPU time, as the machine is shared)."""
     items = loadgen.bodies(0, 1, 1, BATCH, time.time() - 3600)[0]
     objects, columns = items.encode(), as_columns(items).encode()
-    csv_body = as_csv(json.loads(columns)).encode()
+    csv_body = to_csv(json.loads(columns)).encode()
     forms = {
         "objects": lambda: to_incoming(SAMPLES.validate_python(json.loads(objects))),
         "columns": lambda: parse_columns(columns, max_items=BATCH),

@@ -20,7 +20,7 @@ import pytest
 from fastapi import FastAPI
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from phaseward_client.columns import to_columns
+from phaseward_client.columns import to_columns, to_csv
 from tests.factories import rail_spec
 from tests.service.test_ingest_properties import T0, telemetry
 
@@ -38,39 +38,6 @@ EXAMPLES = settings(
 COLUMNS = "application/vnd.phaseward.columns+json"
 RAILS = itertools.count()
 Json = dict[str, Any]
-
-
-def to_csv(columns: Json) -> str:
-    """A columnar body as CSV: per-phase fields as ``name[i]`` columns, empty for null."""
-    n = len(columns["seq"])
-    matrices = columns["phases"]
-    first = next(m for name, m in matrices.items() if name != "index")
-    index = matrices.get("index", range(len(first[0])))
-    header, cols = [], []
-    for name, values in columns.items():
-        if name != "phases":
-            header.append(name)
-            cols.append(values)
-    for name, matrix in columns["phases"].items():
-        if name == "index":
-            continue
-        for j, i in enumerate(index):
-            header.append(f"{name}[{i}]")
-            cols.append([row[j] for row in matrix])
-    out = io.StringIO()
-    writer = csv.writer(out)
-    writer.writerow(header)
-    for k in range(n):
-        writer.writerow([_csv_cell(col[k]) for col in cols])
-    return out.getvalue()
-
-
-def _csv_cell(value: object) -> str:
-    if value is None:
-        return ""
-    if isinstance(value, bool):
-        return "1" if value else "0"
-    return repr(value) if isinstance(value, float) else str(value)
 
 
 async def new_rail(client: httpx.AsyncClient, phase_count: int, debounce: int) -> str:

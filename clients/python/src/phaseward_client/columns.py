@@ -1,8 +1,11 @@
 """Samples as one columnar body: one array per field, one (samples x phases) matrix per
-phase field, which the service checks as arrays instead of object by object."""
+phase field, which the service checks as arrays instead of object by object; and the same
+as CSV."""
 
 from __future__ import annotations
 
+import csv
+import io
 from collections.abc import Sequence
 from typing import Any
 
@@ -53,3 +56,33 @@ def _fields(objects: Sequence[JsonObject], *, skip: str) -> list[str]:
             if key != skip and value is not None:
                 seen.setdefault(key)
     return list(seen)
+
+
+def to_csv(columns: JsonObject) -> str:
+    """A columnar body as the service's CSV form (``text/csv``): per-sample fields by name,
+    per-phase fields as ``name[i]`` for phase ``i``, an empty cell for null, flags as 0/1."""
+    matrices = columns["phases"]
+    first = next(m for name, m in matrices.items() if name != "index")
+    index = matrices.get("index", range(len(first[0])))
+    header, cells = [], []
+    for name, values in columns.items():
+        if name != "phases":
+            header.append(name)
+            cells.append(values)
+    for name, matrix in matrices.items():
+        if name != "index":
+            header += [f"{name}[{i}]" for i in index]
+            cells += [[row[j] for row in matrix] for j in range(len(index))]
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(header)
+    writer.writerows([_cell(v) for v in row] for row in zip(*cells, strict=True))
+    return out.getvalue()
+
+
+def _cell(value: object) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "1" if value else "0"
+    return repr(value) if isinstance(value, float) else str(value)

@@ -137,11 +137,11 @@ def in_bounds(column: Column, typed: Typed, cell: CellName) -> Typed:
     bad = typed.given & ~(finite & (v >= lo) & (v <= hi))
     if bad.any():
         k, j = first_cell(bad)
-        value = v[k] if j is None else v[k, j]
+        value = (v[k] if j is None else v[k, j]).item()
         detail = (
             f"{value} is not a finite number"
             if column.kind == "float" and not np.isfinite(value)
-            else f"must be within {lo:g}..{hi:g}, not {value:g}"
+            else f"must be within {lo:g}..{hi:g}, not {value}"
         )
         raise InvalidInput(detail, field=cell(k, j, column.name))
     return typed

@@ -7,7 +7,10 @@
    printed beside it: on these 2 cores it is what decides the share.
 2. Batches of 100 samples per request: stored rows per second against raw ``sqlite3``
    ``executemany`` of the same rows into the same schema and pragmas, one transaction per
-   100-row batch (the durability the service gives each request). Target >= 0.5.
+   100-row batch (the durability the service gives each request). Target >= 0.5. Once as
+   sample objects, once as the columnar body the batching senders post; beside them, the
+   schema's share: what parsing and checking a 100-sample body costs in this process, per
+   form (objects, columns, CSV), against the server's CPU per request.
 7. The server's peak resident memory after each, printed.
 
 Run: ``python -m bench.ingest_http [seconds]``.
@@ -22,16 +25,21 @@ import subprocess
 import sys
 import tempfile
 import time
+import timeit
 from pathlib import Path
 from typing import Any
 
 import httpx
 import numpy as np
+from phaseward_client.columns import to_columns, to_csv
 from tests.factories import rail_spec
 from tests.servers import free_port, start_server, wait_until_healthy
 
 from bench import loadgen
 from bench.common import Row, peak_rss_bytes, print_rows
+from phaseward.api.schemas.columns import COLUMNS_JSON, parse_columns
+from phaseward.api.schemas.columns_csv import parse_csv
+from phaseward.api.schemas.samples import SAMPLES, to_incoming
 from phaseward.settings import Settings
 from phaseward.store.db import build_engine, migrate
 
@@ -48,16 +56,28 @@ def cpu_seconds(pid: int) -> float:
     return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
 
 
+def as_columns(body: str) -> str:
+    """A JSON array of samples as the columnar body the batching senders post."""
+    return json.dumps(to_columns(json.loads(body)))
+
+
 def _load(
-    port: int, pid: int, connections: int, per_request: int, seconds: float
-) -> dict[str, Any]:
+    port: int, pid: int, connections: int, per_request: int, seconds: float, *,
+    columns: bool = False,
+) -> dict[str, Any]:  # fmt: skip
     """Closed-loop load; requests per second, statuses and server CPU per request."""
     t0 = time.time() - 3600
     count = int(8000 * seconds / connections / per_request) + 50  # more than can be sent
-    streams = [
-        {"paths": [PATH], "bodies": loadgen.bodies(c, connections, count, per_request, t0)}
-        for c in range(connections)
-    ]
+    streams = []
+    for c in range(connections):
+        bodies = loadgen.bodies(c, connections, count, per_request, t0)
+        if columns:
+            streams.append({
+                "paths": [PATH], "bodies": [as_columns(b) for b in bodies],
+                "content_type": COLUMNS_JSON,
+            })  # fmt: skip
+        else:
+            streams.append({"paths": [PATH], "bodies": bodies})
     cpu = cpu_seconds(pid)
     found = loadgen.run({"port": port, "duration_s": seconds, "streams": streams})
     done = sum(len(x) for x in found["latencies_s"])
@@ -81,14 +101,14 @@ def _bare(seconds: float) -> dict[str, Any]:
 
 
 def _phaseward(
-    data_dir: Path, connections: int, per_request: int, seconds: float
+    data_dir: Path, connections: int, per_request: int, seconds: float, *, columns: bool = False
 ) -> dict[str, Any]:
     port = free_port()
     proc = start_server(data_dir, port)
     try:
         spec = rail_spec(id=RAIL, phase_count=loadgen.PHASES, load_a=300.0)
         httpx.post(f"http://127.0.0.1:{port}/v1/rails", json=spec).raise_for_status()
-        found = _load(port, proc.pid, connections, per_request, seconds)
+        found = _load(port, proc.pid, connections, per_request, seconds, columns=columns)
         found["rss_mb"] = peak_rss_bytes(proc.pid) / 2**20
     finally:
         proc.terminate()
@@ -142,13 +162,35 @@ def _raw_sqlite(data_dir: Path, batches: list[list[tuple[Any, ...]]]) -> float:
     return stored / elapsed
 
 
+def schema_ms() -> dict[str, float]:
+    """Milliseconds of CPU to parse and check one 100-sample body into the monitor's arrays,
+    per form (best of 5 runs of 20, in this process; CPU time, as the machine is shared)."""
+    items = loadgen.bodies(0, 1, 1, BATCH, time.time() - 3600)[0]
+    objects, columns = items.encode(), as_columns(items).encode()
+    csv_body = to_csv(json.loads(columns)).encode()
+    forms = {
+        "objects": lambda: to_incoming(SAMPLES.validate_python(json.loads(objects))),
+        "columns": lambda: parse_columns(columns, max_items=BATCH),
+        "CSV": lambda: parse_csv(csv_body, max_items=BATCH),
+    }
+    return {
+        name: 1e3 * min(timeit.repeat(parse, number=20, repeat=5, timer=time.process_time)) / 20
+        for name, parse in forms.items()
+    }
+
+
 def rows(seconds: float = 10.0) -> list[Row]:
     with tempfile.TemporaryDirectory() as tmp:
         bare = _bare(seconds)
         single = _phaseward(Path(tmp, "single"), SINGLE_CONNECTIONS, 1, seconds)
         batched = _phaseward(Path(tmp, "batched"), BATCH_CONNECTIONS, BATCH, seconds)
+        by_columns = _phaseward(
+            Path(tmp, "columns"), BATCH_CONNECTIONS, BATCH, seconds, columns=True
+        )
         raw_rate = _raw_sqlite(Path(tmp, "raw"), _raw_rows(2000))
+    schema = schema_ms()
     stored_per_s = batched["rows"] / seconds
+    columns_per_s = by_columns["rows"] / seconds
     return [
         Row(
             f"single-sample ingest over HTTP, 12 phases, {SINGLE_CONNECTIONS} connections, "
@@ -167,8 +209,20 @@ def rows(seconds: float = 10.0) -> list[Row]:
             "vs sqlite3 executemany per batch",
             f"{stored_per_s:.0f} rows/s", f"{raw_rate:.0f} rows/s", stored_per_s / raw_rate, 0.5,
             note=(
-                f"server CPU per 100-sample request {batched['cpu_ms_per_request']:.2f} ms; "
+                f"server CPU per 100-sample request {batched['cpu_ms_per_request']:.2f} ms, of "
+                f"which the schema {schema['objects']:.2f} ms; "
                 f"statuses {batched['statuses']}; peak RSS {batched['rss_mb']:.0f} MiB"
+            ),
+        ),
+        Row(
+            f"batched ingest as columns, {BATCH} samples per request, {BATCH_CONNECTIONS} "
+            "connections, vs sqlite3 executemany per batch",
+            f"{columns_per_s:.0f} rows/s", f"{raw_rate:.0f} rows/s", columns_per_s / raw_rate,
+            0.5,
+            note=(
+                f"server CPU per 100-sample request {by_columns['cpu_ms_per_request']:.2f} ms, "
+                f"of which the schema {schema['columns']:.2f} ms (CSV {schema['CSV']:.2f} ms); "
+                f"statuses {by_columns['statuses']}; peak RSS {by_columns['rss_mb']:.0f} MiB"
             ),
         ),
     ]  # fmt: skip

@@ -52,6 +52,7 @@ class Stream:
 
     paths: list[str]
     bodies: list[bytes] | None = None
+    content_type: str = "application/json"
 
 
 async def _connection(
@@ -75,7 +76,8 @@ async def _connection(
             else:
                 body = stream.bodies[k]
                 request = (
-                    f"POST {path} HTTP/1.1\r\nhost: bench\r\ncontent-type: application/json\r\n"
+                    f"POST {path} HTTP/1.1\r\nhost: bench\r\n"
+                    f"content-type: {stream.content_type}\r\n"
                     f"content-length: {len(body)}\r\n\r\n"
                 ).encode() + body
             started = time.perf_counter()
@@ -98,7 +100,8 @@ async def _connection(
 
 async def _main(config: dict[str, Any]) -> dict[str, Any]:
     port, duration = int(config["port"]), float(config["duration_s"])
-    streams = [Stream(s["paths"], [b.encode() for b in s["bodies"]] if s.get("bodies") else None)
+    streams = [Stream(s["paths"], [b.encode() for b in s["bodies"]] if s.get("bodies") else None,
+                      s.get("content_type", "application/json"))
                for s in config["streams"]]  # fmt: skip
     rate = config.get("rate_per_s")
     interval = len(streams) / float(rate) if rate else None
@@ -118,8 +121,9 @@ async def _main(config: dict[str, Any]) -> dict[str, Any]:
 
 
 def run(config: dict[str, Any]) -> dict[str, Any]:
-    """Run one load in a child process; ``streams`` is a list of {paths, bodies?} (bodies as
-    text), ``rate_per_s`` (optional) paces all streams together."""
+    """Run one load in a child process; ``streams`` is a list of {paths, bodies?,
+    content_type?} (bodies as text, JSON by default), ``rate_per_s`` (optional) paces all
+    streams together."""
     done = subprocess.run(
         [sys.executable, "-m", "bench.loadgen"], input=json.dumps(config).encode(),
         capture_output=True, check=True,

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import numpy.typing as npt
@@ -32,6 +33,16 @@ FLAG_NAMES = {
 ISOLATING_FLAGS = FLAG_BREAKER | FLAG_DRIVER_OFF
 NO_WORD = -1
 
+# How a refusal names a cell of the body it came in: (sample, slot in its phase list or None
+# for a per-sample field, field name or None for the whole reading) -> the field it reports.
+CellName = Callable[[int, int | None, str | None], str]
+
+
+def object_cell(k: int, slot: int | None, name: str | None) -> str:
+    """A cell of a body of sample objects: ``[k].vin_v``, ``[k].phases[j].temp_c``."""
+    where = f"[{k}]" if slot is None else f"[{k}].phases[{slot}]"
+    return where if name is None else f"{where}.{name}"
+
 
 @dataclass(frozen=True)
 class IncomingSamples:
@@ -42,6 +53,7 @@ class IncomingSamples:
     phase list), phase index, current_a, sense_v (NaN if absent), the raw PMBus words
     iout_word, vin_word, iin_word, vout_word, temp_word (NO_WORD if absent), temp_c (NaN), flags.
     Exactly one of current_a, sense_v and iout_word is given per reading (the schema checks).
+    ``cell`` names a cell in the terms of the body the samples came in (objects or columns).
     """
 
     seq: I64
@@ -63,6 +75,7 @@ class IncomingSamples:
     temp_word: I64
     temp_c: F64
     flags: npt.NDArray[np.uint8]
+    cell: CellName = object_cell
 
     @property
     def n(self) -> int:
@@ -72,10 +85,10 @@ class IncomingSamples:
 def concat(parts: Sequence[IncomingSamples]) -> IncomingSamples:
     """Several requests' samples as one batch (readings renumbered to their merged sample)."""
     offsets = np.cumsum([0, *(p.n for p in parts[:-1])])
-    fields = {
+    fields: dict[str, Any] = {
         f: np.concatenate([getattr(p, f) for p in parts])
         for f in IncomingSamples.__dataclass_fields__
-        if f != "item"
+        if f not in ("item", "cell")
     }
     item = np.concatenate([p.item + o for p, o in zip(parts, offsets, strict=True)])
     return IncomingSamples(item=item, **fields)
@@ -124,7 +137,7 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
         raise InvalidInput(
             f"phase index {int(incoming.phase[k])} is out of range: rail '{model.rail_id}' "
             f"has {p} phases (0..{p - 1})",
-            field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].index",
+            field=incoming.cell(int(incoming.item[k]), int(incoming.slot[k]), "index"),
         )
     seen = np.zeros((n, p), dtype=bool)
     dup = np.zeros(incoming.item.shape, dtype=bool)
@@ -136,7 +149,7 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
         k = int(np.nonzero(dup)[0][0])
         raise InvalidInput(
             f"phase {int(incoming.phase[k])} appears twice in one sample",
-            field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].index",
+            field=incoming.cell(int(incoming.item[k]), int(incoming.slot[k]), "index"),
         )
 
     ambient = np.where(np.isfinite(incoming.ambient_c), incoming.ambient_c, model.ambient_c)
@@ -174,7 +187,7 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
             k = int(np.argmax(values < 0.0))
             raise InvalidInput(
                 f"{word} decodes to {float(values[k]):g}, below zero",
-                field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].{word}",
+                field=incoming.cell(int(incoming.item[k]), int(incoming.slot[k]), word),
             )
     vin = _or_phases(incoming.vin_v, incoming, vin_words)
     vout = _or_phases(incoming.vout_v, incoming, _vout(incoming, model))
@@ -182,7 +195,7 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
         if np.isnan(values).any():
             raise InvalidInput(
                 f"give {name} or {word} on every phase",
-                field=f"[{int(np.argmax(np.isnan(values)))}].{name}",
+                field=incoming.cell(int(np.argmax(np.isnan(values))), None, name),
             )
     return SampleBatch(
         seq=incoming.seq,
@@ -215,7 +228,7 @@ def _vout(incoming: IncomingSamples, model: RailModel) -> F64:
         k = int(np.argmax(given))
         raise InvalidInput(
             f"rail '{model.rail_id}' has no vout_mode to decode READ_VOUT (LINEAR16) with",
-            field=f"[{int(incoming.item[k])}].phases[{int(incoming.slot[k])}].read_vout",
+            field=incoming.cell(int(incoming.item[k]), int(incoming.slot[k]), "read_vout"),
         )
     mode = model.vout_mode
     return _decoded(incoming.vout_word, lambda w: linear16_decode(w, mode))
@@ -245,11 +258,11 @@ def _check_dcr_temperature(incoming: IncomingSamples, temp_c: F64) -> None:
     k = int(np.nonzero(cold)[0][0])
     item, slot = int(incoming.item[k]), int(incoming.slot[k])
     if np.isfinite(incoming.temp_c[k]):
-        field = f"[{item}].phases[{slot}].temp_c"
+        field = incoming.cell(item, slot, "temp_c")
     elif np.isfinite(incoming.ambient_c[item]):
-        field = f"[{item}].ambient_c"
+        field = incoming.cell(item, None, "ambient_c")
     else:
-        field = f"[{item}].phases[{slot}].sense_v"
+        field = incoming.cell(item, slot, "sense_v")
     raise InvalidInput(
         f"a sense voltage cannot be converted at {float(temp_c[k]):g} degC: copper has no "
         f"resistance left at or below {T_REF_CU_C - 1.0 / ALPHA_CU_20:.1f} degC",

@@ -15,6 +15,7 @@ from urllib.parse import quote
 
 import httpx
 
+from phaseward_client.columns import COLUMNS_JSON, to_columns
 from phaseward_client.errors import PhasewardError, UnexpectedResponse
 from phaseward_client.inputs import (
     BreakerParams,
@@ -182,6 +183,20 @@ def post_samples(rail_id: str, samples: SampleLike | Sequence[SampleLike]) -> Ca
     else:
         items = sample_json(samples)
     return Call("POST", rail_path(rail_id, "/samples"), model(IngestResult), body=encode(items))
+
+
+def post_columns(rail_id: str, samples: Sequence[SampleLike]) -> Call[IngestResult]:
+    """A batch as one columnar body (as objects when it does not fit columns)."""
+    items = [sample_json(s) for s in samples]
+    if not items:
+        raise ValueError("no samples to post")
+    body = to_columns(items)
+    if body is None:
+        return post_samples(rail_id, items)
+    return Call(
+        "POST", rail_path(rail_id, "/samples"), model(IngestResult), body=encode(body),
+        content_type=COLUMNS_JSON,
+    )  # fmt: skip
 
 
 def get_samples(rail_id: str, since: float, until: float, limit: int) -> Call[SampleWindow]:

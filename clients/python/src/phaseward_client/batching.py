@@ -3,6 +3,8 @@
 Policy, the same for ``BatchingSender`` (a background thread) and ``AsyncBatchingSender`` (an
 asyncio task):
 
+* A batch is posted as one columnar body (``columns.to_columns``), which the service checks
+  as arrays; a batch that does not fit columns is posted as objects.
 * A batch is posted when ``batch_size`` samples are waiting, when the oldest waiting sample
   has waited ``max_delay_s``, on ``flush()``, and on ``close()`` / leaving the ``with`` block.
 * A sample without ``seq`` gets the next number of the sender's counter. The counter starts
@@ -300,7 +302,7 @@ class BatchingSender:
         retry = 0
         while True:
             try:
-                result = self.client.post_samples(self.rail_id, batch)
+                result = self.client.post_columns(self.rail_id, batch)
             except (PhasewardError, httpx.TransportError) as err:
                 if not self.retry.retryable(err) or retry + 1 >= self.retry.max_attempts:
                     return SendFailed(self.rail_id, batch, err)
@@ -515,7 +517,7 @@ class AsyncBatchingSender:
         retry = 0
         while True:
             try:
-                result = await self.client.post_samples(self.rail_id, batch)
+                result = await self.client.post_columns(self.rail_id, batch)
             except (PhasewardError, httpx.TransportError) as err:
                 if not self.retry.retryable(err) or retry + 1 >= self.retry.max_attempts:
                     return SendFailed(self.rail_id, batch, err)

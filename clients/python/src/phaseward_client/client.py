@@ -120,6 +120,11 @@ class Client:
         """Post a batch as one JSON array: stored whole, or refused whole with a 4xx."""
         return self._run(_calls.post_samples(rail_id, samples))
 
+    def post_columns(self, rail_id: str, samples: Sequence[SampleLike]) -> IngestResult:
+        """Post a batch as one columnar body (checked as arrays by the service, much cheaper
+        per sample than objects): stored whole, or refused whole with a 4xx."""
+        return self._run(_calls.post_columns(rail_id, samples))
+
     def get_samples(
         self, rail_id: str, *, since: float, until: float, limit: int = 1000
     ) -> SampleWindow:

@@ -29,7 +29,8 @@ def is_row_id(text: str) -> bool:
 
 Positive = Annotated[float, Field(gt=0)]
 NonNegative = Annotated[float, Field(ge=0)]
-Celsius = Annotated[float, Field(ge=-273.15, le=1000)]
+CELSIUS_RANGE = (-273.15, 1000.0)  # a reading below absolute zero is no reading
+Celsius = Annotated[float, Field(ge=CELSIUS_RANGE[0], le=CELSIUS_RANGE[1])]
 # Thermal time constants and pulse times: from a nanosecond (a subnormal tau overflowed t / tau)
 # to about eleven days; thermal resistances up to a million K/W. Far beyond real parts, and
 # inside what float64 sums and ratios of them can hold (1e308 K/W overflowed a Zth sum).

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import collections
 from collections.abc import Callable
 from datetime import datetime
 from typing import Annotated, Any, Self
@@ -11,7 +12,14 @@ import numpy.typing as npt
 from pydantic import BeforeValidator, Field, TypeAdapter, WithJsonSchema, model_validator
 
 from phaseward.api.schemas.common import Celsius, Contract
-from phaseward.monitor.telemetry import FLAG_NAMES, NO_WORD, IncomingSamples
+from phaseward.monitor.telemetry import (
+    FLAG_DRIVER_OFF,
+    FLAG_NAMES,
+    FLAG_OVERCURRENT,
+    FLAG_OVERTEMP,
+    NO_WORD,
+    IncomingSamples,
+)
 from phaseward.physics.pmbus import (
     status_input_flags,
     status_iout_flags,
@@ -20,15 +28,32 @@ from phaseward.physics.pmbus import (
 )
 
 EPOCH_MAX_S = 1.0e11  # far beyond any real clock; catches milliseconds sent as seconds
-Word = Annotated[int, Field(ge=0, le=0xFFFF)]
+# Every bound of a sample, in one place: the per-object schema below and the columnar bodies
+# (api/schemas/columns.py) both take them from here.
+SEQ_RANGE = (0, 2**62)
+WORD_RANGE = (0, 0xFFFF)  # a PMBus word
+BYTE_RANGE = (0, 0xFF)  # a PMBus status byte
+PHASE_INDEX_RANGE = (0, 63)
+MAX_PHASES = 64  # readings per sample
 # Bounds of what can be a reading at all, far beyond any real rail, so that nothing accepted
 # can overflow the physics (a current of 1e300 A squared is infinite). Readings inside these
 # bounds that the rail cannot produce are stored as received and flagged by the plausibility
 # gate (physics/plausibility.py), which is where a rail's own limits apply.
-Amps = Annotated[float, Field(ge=-1e9, le=1e9)]
-SenseVolts = Annotated[float, Field(ge=-1e3, le=1e3)]  # DCR sense voltages are millivolts
-Volts = Annotated[float, Field(ge=0, le=1e6)]
-Byte = Annotated[int, Field(ge=0, le=0xFF)]
+AMPS_RANGE = (-1e9, 1e9)
+INPUT_AMPS_RANGE = (0.0, 1e9)
+SENSE_VOLTS_RANGE = (-1e3, 1e3)  # DCR sense voltages are millivolts
+VOLTS_RANGE = (0.0, 1e6)
+
+
+def _within(bounds: tuple[float, float]) -> Any:
+    return Field(ge=bounds[0], le=bounds[1])
+
+
+Word = Annotated[int, _within(WORD_RANGE)]
+Amps = Annotated[float, _within(AMPS_RANGE)]
+SenseVolts = Annotated[float, _within(SENSE_VOLTS_RANGE)]
+Volts = Annotated[float, _within(VOLTS_RANGE)]
+Byte = Annotated[int, _within(BYTE_RANGE)]
 
 
 class PhaseReading(Contract):
@@ -36,7 +61,7 @@ class PhaseReading(Contract):
     (voltage across the inductor DCR, converted with the temperature-compensated DCR) or
     ``read_iout`` (a raw PMBus READ_IOUT word, LINEAR11)."""
 
-    index: Annotated[int, Field(ge=0, le=63)]
+    index: Annotated[int, _within(PHASE_INDEX_RANGE)]
     current_a: Amps | None = None
     sense_v: SenseVolts | None = None
     read_iout: Word | None = None
@@ -76,7 +101,7 @@ class PhaseReading(Contract):
         return self
 
 
-def _epoch_seconds(value: object) -> float:
+def epoch_seconds(value: object) -> float:
     """RFC 3339 with an offset, or epoch seconds; naive times are refused (their zone is a
     guess, and telemetry must never carry a guessed time)."""
     if isinstance(value, bool):
@@ -100,7 +125,7 @@ def _epoch_seconds(value: object) -> float:
 
 Timestamp = Annotated[
     float,
-    BeforeValidator(_epoch_seconds),
+    BeforeValidator(epoch_seconds),
     WithJsonSchema(
         {"anyOf": [{"type": "string", "format": "date-time"}, {"type": "number"}],
          "description": "RFC 3339 with an offset, or epoch seconds"}
@@ -110,15 +135,15 @@ Timestamp = Annotated[
 
 class SampleIn(Contract):
     time: Timestamp
-    seq: Annotated[int, Field(ge=0, le=2**62)]
+    seq: Annotated[int, _within(SEQ_RANGE)]
     vin_v: Volts | None = Field(default=None, description="else every phase's read_vin")
     vout_v: Volts | None = Field(default=None, description="else every phase's read_vout")
     iout_a: Amps | None = None
-    iin_a: Annotated[float, Field(ge=0, le=1e9)] | None = Field(
+    iin_a: Annotated[float, _within(INPUT_AMPS_RANGE)] | None = Field(
         default=None, description="input current, A"
     )
     ambient_c: Celsius | None = None
-    phases: list[PhaseReading] = Field(min_length=1, max_length=64)
+    phases: list[PhaseReading] = Field(min_length=1, max_length=MAX_PHASES)
 
 
 SAMPLES = TypeAdapter(list[SampleIn])
@@ -128,6 +153,38 @@ BODY_SCHEMA = TypeAdapter(SampleIn | list[SampleIn]).json_schema(
 # The models the body schema refers to, for the OpenAPI document's components (a "$defs" left
 # inside an operation would not resolve from the document's root).
 BODY_COMPONENTS: dict[str, Any] = BODY_SCHEMA.pop("$defs")
+
+
+STATUS_WORDS = ("status_word", "status_iout", "status_temperature", "status_input")
+
+
+def reading_flags(
+    named: dict[str, npt.NDArray[np.bool_]], status: dict[str, npt.NDArray[np.int64]]
+) -> npt.NDArray[np.uint8]:
+    """The stored flag byte of each reading: the named flags (``FLAG_NAMES``) or'ed with what
+    its PMBus status words say (each of ``STATUS_WORDS``, NO_WORD where not given)."""
+    flags = np.zeros(next(iter(named.values())).shape, dtype=np.uint8)
+    for name, bit in FLAG_NAMES.items():
+        flags |= np.where(named[name], bit, 0).astype(np.uint8)
+
+    def decoded(name: str, decode: Callable[[Any], dict[str, Any]]) -> dict[str, Any]:
+        words = status[name]
+        given = words != NO_WORD
+        if not given.any():  # the common case: no status words at all
+            return collections.defaultdict(lambda: False)
+        return decode(np.where(given, words, 0))
+
+    word = decoded("status_word", status_word_flags)
+    iout = decoded("status_iout", status_iout_flags)
+    hot = decoded("status_temperature", status_temperature_flags)
+    inputs = decoded("status_input", status_input_flags)
+    # UNIT_OFF_LOW_VIN: the stage stopped switching, the hardware has acted.
+    off = word["OFF"] | inputs["UNIT_OFF_LOW_VIN"]
+    over = word["IOUT_OC_FAULT"] | iout["IOUT_OC_FAULT"] | inputs["IIN_OC_FAULT"]
+    warm = word["TEMPERATURE"] | hot["OT_FAULT"] | hot["OT_WARNING"]
+    for set_, bit in ((off, FLAG_DRIVER_OFF), (over, FLAG_OVERCURRENT), (warm, FLAG_OVERTEMP)):
+        flags |= np.where(set_, bit, 0).astype(np.uint8)
+    return flags
 
 
 def to_incoming(items: list[SampleIn]) -> IncomingSamples:
@@ -140,38 +197,17 @@ def to_incoming(items: list[SampleIn]) -> IncomingSamples:
     def nan(x: float | None) -> float:
         return np.nan if x is None else x
 
-    flags = np.array(
-        [sum(bit for name, bit in FLAG_NAMES.items() if getattr(r, name)) for _, _, r in readings],
-        dtype=np.uint8,
-    )
-    words = np.array([NO_WORD if r.status_word is None else r.status_word for _, _, r in readings])
-    decoded = status_word_flags(np.where(words == NO_WORD, 0, words))
-    has_word = words != NO_WORD
-    flags |= np.where(has_word & decoded["OFF"], FLAG_NAMES["driver_disabled"], 0).astype(np.uint8)
-    flags |= np.where(has_word & decoded["IOUT_OC_FAULT"], FLAG_NAMES["overcurrent"], 0).astype(
-        np.uint8
-    )
-    flags |= np.where(has_word & decoded["TEMPERATURE"], FLAG_NAMES["overtemperature"], 0).astype(
-        np.uint8
-    )
-    iout = np.array([r.status_iout or 0 for _, _, r in readings], dtype=np.int64)
-    temperature = np.array([r.status_temperature or 0 for _, _, r in readings], dtype=np.int64)
-    hot = status_temperature_flags(temperature)
-    inputs = status_input_flags([r.status_input or 0 for _, _, r in readings])
-    over = status_iout_flags(iout)["IOUT_OC_FAULT"] | inputs["IIN_OC_FAULT"]
-    flags |= np.where(over, FLAG_NAMES["overcurrent"], 0).astype(np.uint8)
-    off = inputs["UNIT_OFF_LOW_VIN"]  # the stage stopped switching: the hardware has acted
-    flags |= np.where(off, FLAG_NAMES["driver_disabled"], 0).astype(np.uint8)
-    flags |= np.where(hot["OT_FAULT"] | hot["OT_WARNING"], FLAG_NAMES["overtemperature"], 0).astype(
-        np.uint8
-    )
-
     def raw(name: str) -> npt.NDArray[np.int64]:
         return np.array(
             [NO_WORD if (w := getattr(r, name)) is None else w for _, _, r in readings],
             dtype=np.int64,
         )
 
+    flags = reading_flags(
+        {name: np.array([getattr(r, name) for _, _, r in readings], dtype=bool)
+         for name in FLAG_NAMES},
+        {name: raw(name) for name in STATUS_WORDS},
+    )  # fmt: skip
     return IncomingSamples(
         seq=np.array([s.seq for s in items], dtype=np.int64),
         t_s=per_sample(lambda s: s.time),

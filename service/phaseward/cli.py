@@ -101,19 +101,23 @@ def keys(args: argparse.Namespace) -> int:
 
 
 def retain(args: argparse.Namespace) -> int:
-    """Reduce samples older than the given age to per-interval summaries, now."""
+    """Reduce samples older than the given age to per-interval summaries, now; on PostgreSQL
+    also make the time partitions of samples ahead (as the server does hourly)."""
+    from phaseward.api.app import roll_partitions
     from phaseward.monitor import retention
     from phaseward.store.db import build_engine, build_sessionmaker, migrate
 
     settings = Settings()
     engine = build_engine(settings)
     migrate(engine)
+    made = roll_partitions(engine, settings)
     counts = retention.run(
         build_sessionmaker(engine), older_than_s=args.older_than_days * 86400.0,
         interval_s=settings.summary_interval_s,
     )  # fmt: skip
     print(f"{counts['intervals']} intervals kept as summaries, "
-          f"{counts['samples_deleted']} samples deleted")  # fmt: skip
+          f"{counts['samples_deleted']} samples deleted, "
+          f"{counts['partitions_dropped']} partitions dropped, {made} made")  # fmt: skip
     engine.dispose()
     return 0
 

@@ -4,12 +4,14 @@ from __future__ import annotations
 
 import argparse
 import gc
+import os
 import sys
 import threading
 import time
 from collections.abc import Sequence
 
 import uvicorn
+from fastapi import FastAPI
 from pydantic import ValidationError
 
 from phaseward.api.app import create_app
@@ -33,8 +35,45 @@ def _server(settings: Settings) -> uvicorn.Server:
 
 def serve(args: argparse.Namespace) -> int:
     overrides = {k: v for k, v in (("host", args.host), ("port", args.port)) if v is not None}
-    _server(Settings(**overrides)).run()
+    settings = Settings(**overrides)
+    if args.workers == 1:
+        _server(settings).run()
+        return 0
+    if settings.is_sqlite:
+        # SQLite has one writer at a time: processes would only queue on its lock (and 503
+        # once the busy timeout ran out), so the design keeps one writing process there.
+        print(
+            "--workers above 1 needs PostgreSQL (PHASEWARD_DATABASE_URL): SQLite takes one "
+            "writer at a time, so phaseward serves it from one process",
+            file=sys.stderr,
+        )
+        return 2
+    # Each worker builds its app from the environment (the command line's host and port go
+    # there too). Their start-up work is safe side by side: migrations and partition rolls
+    # take advisory locks, jobs resume under leases, and retention passes lock rail rows and
+    # partitions; each rail's row lock decides which worker writes its samples.
+    os.environ.update({f"PHASEWARD_{k.upper()}": str(v) for k, v in overrides.items()})
+    configure_logging(settings.log_level)
+    uvicorn.run(
+        "phaseward.cli:worker_app", factory=True, host=settings.host, port=settings.port,
+        workers=args.workers, log_level=settings.log_level, log_config=None,
+        timeout_worker_healthcheck=WORKER_START_S,
+    )  # fmt: skip
     return 0
+
+
+# A worker answers the supervisor's health check only once its imports are done; on a busy
+# 2-core machine that took longer than uvicorn's 5 s default, and the worker was killed.
+WORKER_START_S = 60
+
+
+def worker_app() -> FastAPI:
+    """One worker process's app (``serve --workers N``), set up as ``_server`` does."""
+    settings = Settings()
+    configure_logging(settings.log_level)
+    app = create_app(settings)
+    gc.freeze()  # as in _server: the start-up heap stays out of full collections
+    return app
 
 
 def demo(args: argparse.Namespace) -> int:
@@ -128,6 +167,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     p = sub.add_parser("serve", help="run the service (settings from PHASEWARD_* variables)")
     p.add_argument("--host")
     p.add_argument("--port", type=int)
+    p.add_argument(
+        "--workers", type=int, default=1, choices=range(1, 65), metavar="N",
+        help="server processes on one port (PostgreSQL only above 1; default 1)",
+    )  # fmt: skip
     p.set_defaults(func=serve)
     p = sub.add_parser("demo", help="start the service and replay a scripted fault scenario")
     p.add_argument(

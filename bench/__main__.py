@@ -8,6 +8,7 @@ from pathlib import Path
 from bench import (
     analyses_latency,
     fault_classes,
+    fleet,
     history_growth,
     ingest_http,
     ratings_latency,
@@ -32,6 +33,7 @@ def main() -> None:
         ingest_http,
         status_under_load,
         history_growth,
+        fleet,
     ):
         found = module.rows()
         print_rows(found)

@@ -156,3 +156,14 @@ async def test_retention_drops_a_whole_partition_with_the_same_summaries(
     assert [r["reduced"] for r in after] == [True, True, True]
     strip = [{k: v for k, v in r.items() if k != "reduced"} for r in before]
     assert strip == [{k: v for k, v in r.items() if k != "reduced"} for r in after]
+    # A late sample for the dropped day lands in the default partition, and the next pass
+    # reduces it row by row into the interval's summary.
+    late = sample(1000, [40.0, 20.0, 20.0, 20.0], t0=old_start - 950)  # t = old_start + 50
+    assert (await client.post("/v1/rails/bench-a/samples", json=late)).json()["stored"] == 1
+    with app.state.engine.connect() as conn:
+        assert _where(conn) == {partitions.DEFAULT: 1}
+    again = retention.run(app.state.sessions, older_than_s=DAY, interval_s=60.0)
+    assert again == {"intervals": 1, "samples_deleted": 1, "partitions_dropped": 0}
+    first = (await client.get("/v1/rails/bench-a/history", params=window)).json()["rows"][0]
+    assert first["count"] == 61
+    assert first["current_a"]["max"][0] == 40.0

@@ -50,6 +50,7 @@ from tests.servers import free_port, wait_until_healthy
 
 from bench import loadgen
 from bench.common import Row, print_rows
+from bench.ingest_http import cpu_seconds
 from bench.status_under_load import percentile
 from phaseward.settings import Settings
 from phaseward.store.db import build_engine, migrate
@@ -87,6 +88,7 @@ class Fleet:
     ingest_p99_s: float
     status_p99_s: float
     errors: dict[str, int]
+    cpu_ms: float  # server CPU per stored sample, status reads included (robust when shared)
 
     @property
     def sustained(self) -> bool:
@@ -106,7 +108,8 @@ class Fleet:
         return (
             f"{self.achieved:.1f} samples/s of {self.offered:.0f} offered, ingest p50 "
             f"{1e3 * self.ingest_p50_s:.0f} ms p99 {1e3 * self.ingest_p99_s:.0f} ms, status p99 "
-            f"{1e3 * self.status_p99_s:.0f} ms, errors {sum(self.errors.values())}"
+            f"{1e3 * self.status_p99_s:.0f} ms, errors {sum(self.errors.values())}, server CPU "
+            f"{self.cpu_ms:.1f} ms per sample (its status reads included)"
         )
 
 
@@ -130,7 +133,8 @@ def database(kind: str, data_dir: Path) -> Iterator[str]:
 
 
 @contextmanager
-def server(data_dir: Path, url: str) -> Iterator[int]:
+def server(data_dir: Path, url: str) -> Iterator[tuple[int, int]]:
+    """A ``phaseward serve`` on ``url``: its port and process id."""
     port = free_port()
     env = os.environ | {
         "PHASEWARD_DATA_DIR": str(data_dir), "PHASEWARD_DATABASE_URL": url,
@@ -141,7 +145,7 @@ def server(data_dir: Path, url: str) -> Iterator[int]:
     proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)
     try:
         wait_until_healthy(proc, port)
-        yield port
+        yield port, proc.pid
     finally:
         proc.terminate()
         proc.wait(timeout=30)
@@ -156,8 +160,11 @@ def make_rails(port: int, n: int) -> None:
         list(pool.map(make, range(n)))
 
 
-def run_fleet(port: int, rails: int, seconds: float, first_seq: int, t0: float) -> Fleet:
+def run_fleet(
+    server: tuple[int, int], rails: int, seconds: float, first_seq: int, t0: float
+) -> Fleet:
     """``rails`` rails at one sample a second each for ``seconds``, and the status reader."""
+    port, pid = server
     connections = min(CONNECTIONS, rails)
     per_connection = int(np.ceil(seconds * rails / connections)) + 2
     streams = []
@@ -180,11 +187,13 @@ def run_fleet(port: int, rails: int, seconds: float, first_seq: int, t0: float) 
         status.update(loadgen.run(config))
 
     side = threading.Thread(target=reader)
+    cpu = cpu_seconds(pid)
     side.start()
     found = loadgen.run(
         {"port": port, "duration_s": seconds, "rate_per_s": float(rails), "streams": streams}
     )
     side.join()
+    cpu = cpu_seconds(pid) - cpu
     ingest = [x for lat in found["latencies_s"] for x in lat]
     errors = {
         f"{what} {code}": n
@@ -197,11 +206,12 @@ def run_fleet(port: int, rails: int, seconds: float, first_seq: int, t0: float) 
         rails=rails, offered=float(rails), achieved=ok / found["elapsed_s"],
         ingest_p50_s=percentile(ingest, 0.5), ingest_p99_s=percentile(ingest, 0.99),
         status_p99_s=percentile(status["latencies_s"][0], 0.99), errors=errors,
+        cpu_ms=1e3 * cpu / max(ok, 1),
     )  # fmt: skip
 
 
 def search(
-    port: int, rails: int, first: Fleet, seconds: float, t0: float, seq: int
+    server: tuple[int, int], rails: int, first: Fleet, seconds: float, t0: float, seq: int
 ) -> tuple[int, str]:
     """Largest sustained fleet by bisection between 0 and ``rails`` (at most 4 probes, the
     first near what the full fleet achieved), seqs from ``seq``. Returns it and the probes
@@ -212,7 +222,7 @@ def search(
     probe = max(1, min(rails - 1, int(first.achieved * 0.8)))
     notes = []
     for _ in range(4):
-        got = run_fleet(port, probe, seconds, seq, t0)
+        got = run_fleet(server, probe, seconds, seq, t0)
         seq += 2 * int(seconds) + 10  # past every seq a rail of the probe was sent
         notes.append(f"{probe} rails: {got.text()}")
         if got.sustained:
@@ -288,10 +298,12 @@ def raw_insert(kind: str, url: str, rows: list[tuple[Any, ...]], rails: int) -> 
 def measure(kind: str, rails: int, seconds: float, search_seconds: float) -> dict[str, Any]:
     t0 = time.time() - 86400  # a day back: the clock policy refuses samples from the future
     with tempfile.TemporaryDirectory() as tmp:
-        with database(kind, Path(tmp)) as url, server(Path(tmp), url) as port:
-            make_rails(port, rails)
-            fleet = run_fleet(port, rails, seconds, 0, t0)
-            largest, probes = search(port, rails, fleet, search_seconds, t0, 2 * int(seconds) + 10)
+        with database(kind, Path(tmp)) as url, server(Path(tmp), url) as running:
+            make_rails(running[0], rails)
+            fleet = run_fleet(running, rails, seconds, 0, t0)
+            largest, probes = search(
+                running, rails, fleet, search_seconds, t0, 2 * int(seconds) + 10
+            )
         raw_dir = Path(tmp, "raw")
         raw_dir.mkdir()
         per_rail = max(1, int(seconds))

@@ -9,6 +9,7 @@ from bench import (
     analyses_latency,
     estimator_batch,
     fault_classes,
+    fleet,
     history_growth,
     ingest_http,
     ratings_latency,
@@ -34,6 +35,7 @@ def main() -> None:
         ingest_http,
         status_under_load,
         history_growth,
+        fleet,
     ):
         found = module.rows()
         print_rows(found)

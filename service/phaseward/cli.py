@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import errno
 import gc
+import os
 import socket
 import sys
 import threading
@@ -22,6 +23,7 @@ from phaseward.settings import Settings
 
 if TYPE_CHECKING:  # the service's modules load only for the commands that run one
     import uvicorn
+    from fastapi import FastAPI
 
 DESCRIPTION = (
     "phaseward watches multiphase power rails that can lose a phase and keep running. "
@@ -75,9 +77,52 @@ def _server(settings: Settings) -> uvicorn.Server:
 def serve(args: argparse.Namespace) -> int:
     overrides = {k: v for k, v in (("host", args.host), ("port", args.port)) if v is not None}
     settings = load_settings(**overrides)
+    if args.workers > 1 and settings.is_sqlite:
+        # SQLite has one writer at a time: processes would only queue on its lock (and 503
+        # once the busy timeout ran out), so the design keeps one writing process there.
+        raise usage(
+            "--workers above 1 needs PostgreSQL (PHASEWARD_DATABASE_URL): SQLite takes one "
+            "writer at a time, so phaseward serves it from one process"
+        )
     sock = _listen(settings)
-    _server(settings).run(sockets=[sock])
+    if args.workers == 1:
+        _server(settings).run(sockets=[sock])
+        return 0
+    sock.close()  # bound only to say in one line that the address is taken; the workers bind
+    import uvicorn
+
+    from phaseward.api.observability import configure_logging
+
+    # Each worker builds its app from the environment (the command line's host and port go
+    # there too). Their start-up work is safe side by side:
+    # migrations and partition rolls take advisory locks, jobs resume under leases, and
+    # retention passes lock rail rows and partitions; each rail's row lock decides which
+    # worker writes its samples.
+    os.environ.update({f"PHASEWARD_{k.upper()}": str(v) for k, v in overrides.items()})
+    configure_logging(settings.log_level)
+    uvicorn.run(
+        "phaseward.cli:worker_app", factory=True, host=settings.host, port=settings.port,
+        workers=args.workers, log_level=settings.log_level, log_config=None,
+        timeout_worker_healthcheck=WORKER_START_S,
+    )  # fmt: skip
     return 0
+
+
+# A worker answers the supervisor's health check only once its imports are done; on a busy
+# 2-core machine that took longer than uvicorn's 5 s default, and the worker was killed.
+WORKER_START_S = 60
+
+
+def worker_app() -> FastAPI:
+    """One worker process's app (``serve --workers N``), set up as ``_server`` does."""
+    from phaseward.api.app import create_app
+    from phaseward.api.observability import configure_logging
+
+    settings = Settings()
+    configure_logging(settings.log_level)
+    app = create_app(settings)
+    gc.freeze()  # as in _server: the start-up heap stays out of full collections
+    return app
 
 
 def _demo_dir(data_dir: Path) -> bool:
@@ -173,7 +218,9 @@ def keys(args: argparse.Namespace) -> int:
 
 
 def retain(args: argparse.Namespace) -> int:
-    """Reduce samples older than the given age to per-interval summaries, now."""
+    """Reduce samples older than the given age to per-interval summaries, now; on PostgreSQL
+    also make the time partitions of samples ahead (as the server does hourly)."""
+    from phaseward.api.app import roll_partitions
     from phaseward.monitor import retention
     from phaseward.store.db import build_engine, build_sessionmaker, migrate
 
@@ -181,6 +228,7 @@ def retain(args: argparse.Namespace) -> int:
     engine = build_engine(settings)
     try:
         migrate(engine)
+        made = roll_partitions(engine, settings)
         counts = retention.run(
             build_sessionmaker(engine), older_than_s=args.older_than_days * 86400.0,
             interval_s=settings.summary_interval_s,
@@ -188,7 +236,8 @@ def retain(args: argparse.Namespace) -> int:
     finally:
         engine.dispose()
     print(f"{counts['intervals']} intervals kept as summaries, "
-          f"{counts['samples_deleted']} samples deleted")  # fmt: skip
+          f"{counts['samples_deleted']} samples deleted, "
+          f"{counts['partitions_dropped']} partitions dropped, {made} made")  # fmt: skip
     return 0
 
 
@@ -198,6 +247,10 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("serve", help="run the service (settings from PHASEWARD_* variables)")
     p.add_argument("--host", help="address to listen on (default PHASEWARD_HOST or 127.0.0.1)")
     p.add_argument("--port", type=int, help="port to listen on (default PHASEWARD_PORT or 8470)")
+    p.add_argument(
+        "--workers", type=int, default=1, choices=range(1, 65), metavar="N",
+        help="server processes on one port (PostgreSQL only above 1; default 1)",
+    )  # fmt: skip
     p.set_defaults(func=serve)
     p = sub.add_parser("demo", help="start the service and replay a scripted fault scenario")
     p.add_argument(

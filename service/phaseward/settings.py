@@ -44,6 +44,10 @@ class Settings(BaseSettings):
     retain_raw_s: float | None = Field(default=None, gt=0, description="None: keep all")
     summary_interval_s: float = Field(default=60.0, gt=0)
     retention_every_s: float = Field(default=3600.0, gt=0)
+    # PostgreSQL: samples are partitioned by time, one partition per this many days; the
+    # partitions of the current and this many upcoming periods are kept made ahead.
+    partition_days: int = Field(default=1, ge=1, le=366)
+    partitions_ahead: int = Field(default=3, ge=1, le=366)
     max_trace_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
     max_trace_samples: int = Field(default=500_000, ge=2)
     # Clock policy: a sample dated more than this ahead of the service's clock is refused
@@ -71,3 +75,7 @@ class Settings(BaseSettings):
     @property
     def is_sqlite(self) -> bool:
         return self.database_url.startswith("sqlite")
+
+    @property
+    def partition_s(self) -> float:
+        return self.partition_days * 86400.0

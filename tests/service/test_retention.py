@@ -39,7 +39,7 @@ async def test_reduce_old_samples_and_keep_answering_history(
     assert before["rows"][0]["current_a"]["max"][0] == 16.0
 
     counts = retention.run(app.state.sessions, older_than_s=86400.0, interval_s=INTERVAL)
-    assert counts == {"intervals": 3, "samples_deleted": 150}
+    assert counts == {"intervals": 3, "samples_deleted": 150, "partitions_dropped": 0}
 
     after = (await client.get("/v1/rails/bench-a/history", params=window)).json()
     assert [r["reduced"] for r in after["rows"]] == [True, True, True]
@@ -60,7 +60,7 @@ async def test_reduce_old_samples_and_keep_answering_history(
     events_after = (await client.get("/v1/events", params={"limit": 1000})).json()["items"]
     assert events_after == events_before
     assert retention.run(app.state.sessions, older_than_s=86400.0, interval_s=INTERVAL) == {
-        "intervals": 0, "samples_deleted": 0,
+        "intervals": 0, "samples_deleted": 0, "partitions_dropped": 0,
     }  # fmt: skip
 
 

@@ -11,6 +11,7 @@ from typing import Any
 
 from fastapi import FastAPI
 from fastapi.concurrency import run_in_threadpool
+from sqlalchemy import Engine
 from sqlalchemy.orm import Session, sessionmaker
 from threadpoolctl import threadpool_limits
 
@@ -37,6 +38,7 @@ from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor import retention
 from phaseward.monitor.jobs import JobRunner
 from phaseward.settings import Settings
+from phaseward.store import partitions
 from phaseward.store.db import build_engine, build_sessionmaker, close_engine, migrate
 
 
@@ -55,6 +57,23 @@ async def _retention_loop(settings: Settings, sessions: sessionmaker[Session]) -
         await asyncio.sleep(settings.retention_every_s)
 
 
+async def _partition_loop(settings: Settings, engine: Engine) -> None:
+    """PostgreSQL: keep the time partitions of samples made ahead (a no-op on SQLite)."""
+    while True:
+        await asyncio.sleep(PARTITION_ROLL_EVERY_S)
+        try:
+            await run_in_threadpool(roll_partitions, engine, settings)
+        except Exception:  # logged; the default partition holds samples until the next roll
+            logging.getLogger(__name__).exception("partition roll failed")
+
+
+PARTITION_ROLL_EVERY_S = 3600.0  # with three or more periods made ahead, hourly is ample
+
+
+def roll_partitions(engine: Engine, settings: Settings) -> int:
+    return partitions.roll(engine, period_s=settings.partition_s, ahead=settings.partitions_ahead)
+
+
 def create_app(settings: Settings | None = None, *, clock: Clock = time.time) -> FastAPI:
     """``clock`` is the service's clock (epoch seconds): the clock policy refuses samples dated
     ahead of it, and ages are measured on it. Tests pass a fixed one."""
@@ -62,6 +81,7 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     threadpool_limits(limits=settings.blas_threads, user_api="blas")  # for the whole process
     engine = build_engine(settings)
     migrate(engine)
+    roll_partitions(engine, settings)
     sessions = build_sessionmaker(engine)
     read_sessions = build_sessionmaker(engine, read_only=True)
     runner = JobRunner(
@@ -70,9 +90,13 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
-        keeper = asyncio.create_task(_retention_loop(settings, sessions))
+        keepers = [
+            asyncio.create_task(_retention_loop(settings, sessions)),
+            asyncio.create_task(_partition_loop(settings, engine)),
+        ]
         yield
-        keeper.cancel()
+        for keeper in keepers:
+            keeper.cancel()
         await run_in_threadpool(close, app)
 
     app = FastAPI(

@@ -1,6 +1,7 @@
 """Retention: raw samples older than the configured age are reduced to per-interval minimum,
-maximum and mean, then deleted; events are kept. The same reduction answers history queries
-over raw samples, so reduced and raw history read alike."""
+maximum and mean, then deleted (on PostgreSQL, whole time partitions dropped); events are
+kept. The same reduction answers history queries over raw samples, so reduced and raw history
+read alike."""
 
 from __future__ import annotations
 
@@ -10,10 +11,11 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
+from sqlalchemy import text
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.monitor import rails as rail_service
-from phaseward.store import rails, samples, summaries
+from phaseward.store import partitions, rails, samples, summaries
 from phaseward.store.db import transaction
 from phaseward.store.models import SampleSummary
 from phaseward.store.samples import SampleRows
@@ -64,12 +66,26 @@ def _unpack(blob: bytes, n_phases: int | None) -> F64:
 def run(
     sessions: sessionmaker[Session], *, older_than_s: float, interval_s: float
 ) -> dict[str, int]:
-    """Reduce and delete every rail's samples older than ``older_than_s`` (cut at a whole
-    interval, so every stored summary covers a complete interval). Returns counts."""
-    cutoff = np.floor((time.time() - older_than_s) / interval_s) * interval_s
+    """Reduce every rail's samples older than ``older_than_s`` and remove them. On PostgreSQL
+    a partition wholly older than that is reduced and dropped whole; rows elsewhere (the
+    default partition, SQLite's plain table) are reduced and deleted up to a whole interval
+    (every stored summary then covers a complete interval) and, on PostgreSQL, not into the
+    partition that holds the cut (it goes whole, later). Returns counts."""
+    now = time.time()
+    cutoff = np.floor((now - older_than_s) / interval_s) * interval_s
     with sessions() as session:
         rail_ids = [r.id for r in rails.list_page(session, after=None, limit=1_000_000)]
-    reduced = deleted = 0
+        parted = partitions.is_partitioned(session.connection())
+    reduced = deleted = dropped = 0
+    if parted:
+        with sessions() as session:
+            parts = partitions.listing(session.connection())
+        for part in parts:
+            if part.hi <= now - older_than_s:
+                n_intervals, n_rows = _drop_partition(sessions, part, rail_ids, interval_s)
+                reduced, deleted, dropped = reduced + n_intervals, deleted + n_rows, dropped + 1
+            elif part.lo < cutoff:
+                cutoff = part.lo
     for rail_id in rail_ids:
         while True:
             with transaction(sessions) as session:
@@ -81,14 +97,45 @@ def run(
                 start = np.floor(oldest / interval_s) * interval_s
                 end = min(cutoff, start + CHUNK_INTERVALS * interval_s)
                 rows = samples.window(session, rail_id, start_s=start, end_s=end, limit=10_000_000)
-                stats = reduce_rows(rows, interval_s)
-                for k, t0 in enumerate(stats.t_start_s):
-                    summaries.put(
-                        session, _merged(session, rail_id, stats, k, float(t0), interval_s)
-                    )
-                reduced += int(stats.count.size)
+                reduced += _store(session, rail_id, rows, interval_s)
                 deleted += summaries.delete_samples_before(session, rail_id, end_s=end)
-    return {"intervals": reduced, "samples_deleted": deleted}
+    return {"intervals": reduced, "samples_deleted": deleted, "partitions_dropped": dropped}
+
+
+def _store(session: Session, rail_id: str, rows: SampleRows, interval_s: float) -> int:
+    """Summaries of ``rows`` merged into those stored; returns how many intervals."""
+    if not rows.t_s.size:
+        return 0
+    stats = reduce_rows(rows, interval_s)
+    for k, t0 in enumerate(stats.t_start_s):
+        summaries.put(session, _merged(session, rail_id, stats, k, float(t0), interval_s))
+    return int(stats.count.size)
+
+
+def _drop_partition(
+    sessions: sessionmaker[Session], part: partitions.Partition, rail_ids: list[str],
+    interval_s: float,
+) -> tuple[int, int]:  # fmt: skip
+    """Reduce one partition for every rail and drop it, in one transaction: a crash leaves
+    it whole and unreduced, never reduced twice. Its lock makes a late sample for it wait,
+    so none is dropped unreduced. An interval cut by the partition's edge is merged with
+    its other part like a late sample."""
+    reduced = rows_seen = 0
+    with transaction(sessions) as session:
+        conn = session.connection()
+        conn.execute(text("SELECT pg_advisory_xact_lock(:k)"), {"k": partitions.ROLL_LOCK})
+        if part not in partitions.listing(conn):
+            return 0, 0  # another process dropped it meanwhile
+        conn.execute(text(f"LOCK TABLE {part.name} IN SHARE MODE"))
+        for rail_id in rail_ids:
+            rows = samples.window(
+                session, rail_id, start_s=part.lo, end_s=part.hi, limit=10_000_000
+            )
+            reduced += _store(session, rail_id, rows, interval_s)
+            rows_seen += int(rows.t_s.size)
+        session.flush()
+        partitions.drop(conn, part)
+    return reduced, rows_seen
 
 
 def _merged(

@@ -2,9 +2,11 @@
 
 Sample layout: one row per sample, with the per-phase columns (current, temperature, flags)
 packed as little-endian arrays in binary columns. A sample of a 12-phase rail is then one
-INSERT instead of twelve, the unique (rail, seq) key absorbs resends, and a time window reads
+INSERT instead of twelve, the (rail, seq) key finds resends, and a time window reads
 back with one indexed range scan into ``np.frombuffer`` without pivoting per-phase rows.
 Per-phase history queries across many samples are rarer than windows, so this trade fits.
+On PostgreSQL the table is partitioned by time instead (migration 0008, store/partitions.py):
+its key is (rail, seq, time) and the rail's row lock keeps a seq to one row.
 """
 
 from __future__ import annotations

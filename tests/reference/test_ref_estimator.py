@@ -66,7 +66,7 @@ def test_one_state_steady_gain_matches_riccati() -> None:
     gain = prior / (prior + r)
 
     n = 300
-    final, _, std = kalman_run(
+    final, _, std, _ = kalman_run(
         net,
         initial_state(net, 25.0, std_k=5.0),
         dt,
@@ -125,7 +125,7 @@ def test_network_steady_covariance_matches_riccati(tau_s: FloatArray | None) -> 
     posterior = (np.eye(size) - gain @ h) @ prior
 
     n = 3000
-    final, _, _ = kalman_run(
+    final, _, _, _ = kalman_run(
         NET,
         initial_state(NET, 25.0, std_k=3.0, sensor_lag=tau_s is not None),
         dt,
@@ -146,7 +146,7 @@ def test_open_loop_covariance_matches_lyapunov() -> None:
     q = (bp * sigma_w) @ (bp * sigma_w).T
     stationary = linalg.solve_discrete_lyapunov(f, q)
     n = 4000
-    final, _, std = kalman_run(
+    final, _, std, _ = kalman_run(
         NET,
         initial_state(NET, 25.0, std_k=0.0),
         dt,
@@ -165,7 +165,7 @@ def test_sensor_lag_step_response_is_two_lags_in_series() -> None:
     c, g, tau_sensor, power_w, dt, n = 4.0, 0.5, 3.0, 2.0, 0.25, 200
     tau_junction = c / g
     net = single_node(c, g)
-    _, means, _ = kalman_run(
+    _, means, _, _ = kalman_run(
         net,
         initial_state(net, 25.0, std_k=0.0, sensor_lag=True),
         dt,
@@ -219,7 +219,7 @@ def test_filter_beats_the_raw_lagged_noisy_sensor_on_the_exact_model() -> None:
     readings = sensor_fine[sub::sub] + offset_k + rng.normal(0.0, noise_k, size=(n, 3))
     readings[rng.random((n, 3)) < 0.2] = np.nan  # a fifth of the readings missing
 
-    _, means, std = kalman_run(
+    _, means, std, _ = kalman_run(
         NET,
         initial_state(NET, 25.0, std_k=1.0, sensor_lag=True),
         dt,

@@ -78,7 +78,7 @@ def run(seed: int) -> tuple[FloatArray, FloatArray]:
         NET, AMBIENT_C, steady, readings[0], sensor_noise_k=NOISE_K, sensor_offset_k=OFFSET_K,
         sensor_lag=True,
     )  # fmt: skip
-    _, means, std = kalman_run(
+    _, means, std, _ = kalman_run(
         NET, start, DT_S, p0, slope, AMBIENT_C, readings[1:], process_noise_w=LOSS_NOISE_W,
         sensor_noise_k=NOISE_K, sensor_tau_s=TAU_S, sensor_offset_k=OFFSET_K,
     )  # fmt: skip

@@ -440,15 +440,22 @@ def kalman_step(
 
 
 class KalmanTrace(NamedTuple):
-    """Result of :func:`kalman_run` (unpacks as ``final, means_c, junction_std_k``).
+    """Result of :func:`kalman_run` (unpacks as ``final, means_c, junction_std_k,
+    innovation_z``).
 
     final: the estimate after the last step; means_c: (n_steps + 1, n_states) degC, row 0 the
-    starting mean; junction_std_k: (n_steps + 1, n_phases) K, std of each junction estimate.
+    starting mean; junction_std_k: (n_steps + 1, n_phases) K, std of each junction estimate;
+    innovation_z: (n_steps, n_phases) normalised innovation of each reading, (reading - offset
+    - predicted sensed temperature) / sqrt(S_pp) with S = H P- H^T + R the innovation
+    covariance before the update (NaN where no reading). For a filter whose model matches the
+    data it is N(0, 1) and white (Bar-Shalom et al., ch. 5.4, from memory): what a sequential
+    test for a persistent model error watches.
     """
 
     final: EstimatorState
     means_c: FloatArray
     junction_std_k: FloatArray
+    innovation_z: FloatArray
 
 
 def kalman_run(
@@ -479,11 +486,13 @@ def kalman_run(
     ...                             board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
     >>> start = initial_state(net, 25.0, std_k=5.0, sensor_lag=True)
     >>> n = 400  # 2 W held: the junction settles at 25 + 2 x (2 + 1) = 31 degC
-    >>> final, means, std = kalman_run(net, start, 0.5, np.full((n, 1), 2.0), np.zeros((n, 1)),
-    ...     25.0, np.full((n, 1), 31.0), process_noise_w=0.05, sensor_noise_k=0.3,
-    ...     sensor_tau_s=2.0)
+    >>> final, means, std, z = kalman_run(net, start, 0.5, np.full((n, 1), 2.0),
+    ...     np.zeros((n, 1)), 25.0, np.full((n, 1), 31.0), process_noise_w=0.05,
+    ...     sensor_noise_k=0.3, sensor_tau_s=2.0)
     >>> means.shape, std.shape, round(float(means[-1, 0]), 2), bool(std[-1, 0] < std[0, 0])
     ((401, 3), (401, 1), 31.0, True)
+    >>> z.shape, bool(abs(z[-1, 0]) < 0.1)  # settled on the readings: nothing unexpected
+    ((400, 1), True)
     """
     model = discrete_model(
         net,
@@ -510,6 +519,9 @@ def kalman_run(
     ambient = _array("ambient_c", ambient_c, shape[:1])
     means = np.empty((shape[0] + 1, model.n_states))
     variances = np.empty((shape[0] + 1, model.n_states))
+    sensed = model.sensor_state
+    predicted = np.empty(shape)  # sensed temperature predicted before each update
+    predicted_var = np.empty(shape)  # and its variance
     mean, cov = np.array(state.mean_c), np.array(state.cov_k2)
     means[0], variances[0] = mean, np.diag(cov)
     for k in range(shape[0]):
@@ -517,6 +529,7 @@ def kalman_run(
         # gives the same bits however a trace is split into runs.
         drive = model.loss_input_k_per_w @ p0[k] + model.ambient_input * ambient[k]
         mean, cov = _predict(model, mean, cov, slope[k], drive)
+        predicted[k], predicted_var[k] = mean[sensed], cov[sensed, sensed]
         mean, cov = _update(model, mean, cov, reading[k])
         means[k + 1], variances[k + 1] = mean, np.diag(cov)
     junction_var = variances[:, model.junction_state]
@@ -529,4 +542,7 @@ def kalman_run(
             "the estimate lost its covariance: the loss feedback grows without bound",
             np.array(True),
         ) from err
-    return KalmanTrace(final, means, np.sqrt(np.maximum(junction_var, 0.0)))
+    innovation_z = (reading - model.sensor_offset_k - predicted) / np.sqrt(
+        predicted_var + model.sensor_var_k2
+    )
+    return KalmanTrace(final, means, np.sqrt(np.maximum(junction_var, 0.0)), innovation_z)

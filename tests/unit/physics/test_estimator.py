@@ -40,7 +40,7 @@ def profile(n_steps: int, seed: int = 0) -> tuple[FloatArray, FloatArray]:
 def test_shapes_and_first_row() -> None:
     p0, slope = profile(30)
     start = initial_state(NET, 25.0, std_k=2.0)
-    final, means, std = kalman_run(
+    final, means, std, _ = kalman_run(
         NET, start, 0.5, p0, slope, 25.0, np.full((30, 3), 26.0), **NOISE
     )
     assert means.shape == (31, 7)
@@ -52,7 +52,7 @@ def test_shapes_and_first_row() -> None:
     np.testing.assert_array_equal(means[-1], final.mean_c)
 
     lagged = initial_state(NET, 25.0, std_k=2.0, sensor_lag=True)
-    _, means, std = kalman_run(
+    _, means, std, _ = kalman_run(
         NET, lagged, 0.5, p0, slope, 25.0, np.full((30, 3), 26.0), **NOISE, sensor_tau_s=2.0
     )
     assert means.shape == (31, 10)
@@ -66,7 +66,7 @@ def test_step_by_step_equals_run() -> None:
     ambient = np.linspace(20.0, 30.0, 6)
     kwargs = NOISE | {"sensor_tau_s": [1.0, 2.0, 3.0], "sensor_offset_k": [0.5, 0.0, -0.5]}
     state = initial_state(NET, 25.0, std_k=1.0, sensor_lag=True)
-    final, means, _ = kalman_run(NET, state, 0.5, p0, slope, ambient, readings, **kwargs)
+    final, means, _, _ = kalman_run(NET, state, 0.5, p0, slope, ambient, readings, **kwargs)
     model = discrete_model(NET, 0.5, **kwargs)
     for k in range(6):
         state = kalman_step(model, state, p0[k], slope[k], float(ambient[k]), readings[k])
@@ -77,7 +77,7 @@ def test_step_by_step_equals_run() -> None:
 def test_prediction_only_follows_the_exact_network() -> None:
     p0, slope = profile(40)
     start = initial_state(NET, 25.0, std_k=0.0)
-    _, means, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, np.full((40, 3), np.nan), **NOISE)
+    _, means, _, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, np.full((40, 3), np.nan), **NOISE)
     expected = simulate_c(NET, np.full(7, 25.0), 0.5, p0, slope, 25.0)
     np.testing.assert_allclose(means, expected, rtol=1e-10)
 
@@ -87,9 +87,9 @@ def test_missing_readings_leave_that_phase_less_certain() -> None:
     readings = np.full((50, 3), 30.0)
     start = initial_state(NET, 25.0, std_k=3.0)
     kwargs = {"process_noise_w": 0.5, "sensor_noise_k": 0.3}
-    _, _, full = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings, **kwargs)
+    _, _, full, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings, **kwargs)
     readings[:, 2] = np.nan
-    _, _, std = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings, **kwargs)
+    _, _, std, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings, **kwargs)
     assert std[-1, 2] > 2.0 * full[-1, 2]
     np.testing.assert_allclose(std[-1, :2], full[-1, :2], rtol=1e-2)
     assert np.all(full[-1] < 0.3)  # better than one reading (0.3 K) once readings add up
@@ -99,7 +99,7 @@ def test_constant_readings_with_offset_converge_to_the_sensed_temperature() -> N
     # Losses that hold every junction at 40 degC in steady state; the sensor reads 2 K high.
     net = build_coupled_network([CHAINS[2]], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
     p0 = np.full((2000, 1), 15.0 / 7.0)  # 40 - 25 = P x (6 + 1) K/W
-    final, _, _ = kalman_run(
+    final, _, _, _ = kalman_run(
         net,
         initial_state(net, 25.0, std_k=10.0, sensor_lag=True),
         0.5,
@@ -123,8 +123,8 @@ def test_readings_correct_a_biased_loss_model() -> None:
     readings = truth[1:, NET.junction_node] + rng.normal(0.0, 0.3, size=(n, 3))
     start = initial_state(NET, 25.0, std_k=1.0)
     kwargs = {"process_noise_w": 0.5, "sensor_noise_k": 0.3}
-    _, filtered, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings, **kwargs)
-    _, open_loop, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings * np.nan, **kwargs)
+    _, filtered, _, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings, **kwargs)
+    _, open_loop, _, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings * np.nan, **kwargs)
 
     def rms(means: FloatArray) -> float:
         error = means[:, NET.junction_node] - truth[:, NET.junction_node]
@@ -184,8 +184,8 @@ def test_covariance_stays_symmetric_psd_and_readings_only_help(
         "sensor_tau_s": 3.0 if lag else None,
     }
     start = initial_state(NET, 25.0, std_k=2.0, sensor_lag=lag)
-    final, _, std = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings, **kwargs)  # type: ignore[arg-type]
-    _, _, blind = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings * np.nan, **kwargs)  # type: ignore[arg-type]
+    final, _, std, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings, **kwargs)  # type: ignore[arg-type]
+    _, _, blind, _ = kalman_run(NET, start, 0.5, p0, slope, 25.0, readings * np.nan, **kwargs)  # type: ignore[arg-type]
     cov = final.cov_k2
     np.testing.assert_array_equal(cov, cov.T)
     assert np.linalg.eigvalsh(cov)[0] > -1e-12 * np.abs(cov).max()
@@ -203,8 +203,8 @@ def test_shifting_every_temperature_shifts_the_estimate(shift: float) -> None:
     readings[::4, 1] = np.nan
     start = initial_state(NET, np.linspace(25.0, 30.0, 7), std_k=1.5)
     moved = initial_state(NET, np.linspace(25.0, 30.0, 7) + shift, std_k=1.5)
-    _, base, _ = kalman_run(NET, start, 0.5, p0, zero, 25.0, readings, **NOISE)
-    _, other, _ = kalman_run(NET, moved, 0.5, p0, zero, 25.0 + shift, readings + shift, **NOISE)
+    _, base, _, _ = kalman_run(NET, start, 0.5, p0, zero, 25.0, readings, **NOISE)
+    _, other, _, _ = kalman_run(NET, moved, 0.5, p0, zero, 25.0 + shift, readings + shift, **NOISE)
     np.testing.assert_allclose(other - base, shift, atol=1e-9)
 
 

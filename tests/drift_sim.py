@@ -48,12 +48,14 @@ PROCESS_NOISE_W, SENSOR_NOISE_K = 0.2, 0.5  # the definition's defaults
 
 
 def network(n_phases: int, scale: F64 | None = None) -> ThermalNetwork:
-    """The rail's network; ``scale`` (n_phases,) multiplies each phase's chain resistances
-    (its heat capacities stay)."""
-    factor = np.ones(n_phases) if scale is None else scale
-    chains = [CauerStages(CHAIN.r_k_per_w * f, CHAIN.c_j_per_k) for f in factor]
+    """The rail's network; ``scale`` (n_phases + 1,) multiplies each phase's chain
+    resistances and, last, the board's resistance to ambient (heat capacities stay)."""
+    factor = np.ones(n_phases + 1) if scale is None else scale
+    chains = [CauerStages(CHAIN.r_k_per_w * f, CHAIN.c_j_per_k) for f in factor[:-1]]
     return build_coupled_network(
-        chains, board_to_ambient_k_per_w=BOARD_K_PER_W, board_c_j_per_k=BOARD_J_PER_K
+        chains,
+        board_to_ambient_k_per_w=BOARD_K_PER_W * float(factor[-1]),
+        board_c_j_per_k=BOARD_J_PER_K,
     )
 
 
@@ -68,7 +70,7 @@ def simulate(
 ) -> tuple[F64, F64]:
     """True junction temperatures and sensor readings, each (n, n_phases), reading k taken at
     the end of step k. power_w (n, n_phases) held over each step; ``scale(start_step)``: the
-    resistance factors of the chunk starting there (None: nominal throughout)."""
+    resistance factors (n_phases + 1,) of the chunk starting there (None: nominal)."""
     n, n_ph = power_w.shape
     nominal = network(n_ph)
     x = steady_state_c(nominal, power_w[0], np.zeros(n_ph), ambient_c)

@@ -51,13 +51,12 @@ def steady(model: RailModel, step_s: float) -> SteadyInnovation:
 
 @lru_cache(maxsize=64)
 def _steady(net: ThermalNetwork, rules: MonitorRules, step_s: float) -> SteadyInnovation:
-    return steady_innovation(
-        discrete_model(
-            net, step_s, process_noise_w=rules.process_noise_w,
-            sensor_noise_k=rules.sensor_noise_k, sensor_tau_s=rules.sensor_tau_s,
-            sensor_offset_k=rules.sensor_offset_k,
-        )  # fmt: skip
-    )
+    model = discrete_model(
+        net, step_s, process_noise_w=rules.process_noise_w,
+        sensor_noise_k=rules.sensor_noise_k, sensor_tau_s=rules.sensor_tau_s,
+        sensor_offset_k=rules.sensor_offset_k,
+    )  # fmt: skip
+    return steady_innovation(model)
 
 
 def load_carry(data: dict[str, Any] | None, n_channels: int) -> DriftCarry:
@@ -110,9 +109,7 @@ def view(model: RailModel, state: dict[str, Any] | None) -> list[dict[str, Any]]
     ]
 
 
-def _finding(
-    model: RailModel, run: DriftRun, k: int, c: int, on: bool, t_s: F64
-) -> Finding:
+def _finding(model: RailModel, run: DriftRun, k: int, c: int, on: bool, t_s: F64) -> Finding:
     board = c == model.n_phases
     r, se = extra_resistance(run.window[:, k, c])
     start = run.start_t_s[k, c]

@@ -171,9 +171,7 @@ def channels(
         if excluded is None:
             others = seen.sum(axis=1, keepdims=True) - seen
             mean_others = (z0.sum(axis=1, keepdims=True) - z0) / others
-            contrast = np.where(
-                others > 0, (z - mean_others) / np.sqrt(1.0 + 1.0 / others), z
-            )
+            contrast = np.where(others > 0, (z - mean_others) / np.sqrt(1.0 + 1.0 / others), z)
             u = np.where(seen, e / scale.own_gain, np.nan)
             return contrast, u, power_w
         used = seen & ~excluded
@@ -288,8 +286,10 @@ def drift_run(
     carried = (last_reset < 0) & (carry.window[0] > 0)[None, :]
     start = np.where(window[0] > 0, np.where(carried, carry.start_t_s[None, :], first), np.nan)
     end = closed[-1]
+    turned = np.zeros(m, dtype=bool)  # a raise or clear at the last sample restarts at zero
+    turned[[c for k, c, _ in changes if k == n - 1]] = True
     final = DriftCarry(
-        raised[-1].copy(), stat[-1].copy(), np.where(end, 0.0, window[:, -1]),
+        raised[-1].copy(), np.where(turned, 0.0, stat[-1]), np.where(end, 0.0, window[:, -1]),
         np.where(end, np.nan, start[-1]),
     )  # fmt: skip
     return DriftRun(stat, raised, window, start, changes, final)
@@ -319,12 +319,14 @@ def drift_watch(
             carry.start_t_s[cols],
         )  # fmt: skip
 
-    opts = {"reference": reference, "threshold": threshold}
-    phases = drift_run(*channels(z, scale, power_w), t_s, part(slice(0, n_ph)), **opts)
+    phase_in = channels(z, scale, power_w)
+    phases = drift_run(
+        *phase_in, t_s, part(slice(0, n_ph)), reference=reference, threshold=threshold
+    )
+    board_in = channels(z, scale, power_w, excluded=phases.raised)
     board = drift_run(
-        *channels(z, scale, power_w, excluded=phases.raised), t_s, part(slice(n_ph, None)),
-        **opts,
-    )  # fmt: skip
+        *board_in, t_s, part(slice(n_ph, None)), reference=reference, threshold=threshold
+    )
     changes = sorted(phases.changes + [(k, n_ph, on) for k, _, on in board.changes])
     a, b = phases.carry, board.carry
     return DriftRun(

@@ -149,6 +149,7 @@ def watch(
         raised=np.concatenate([r.raised for r, _ in runs]),
         window=np.concatenate([r.window for r, _ in runs], axis=1),
         start_t_s=np.concatenate([r.start_t_s for r, _ in runs]),
+        recent=np.concatenate([r.recent for r, _ in runs], axis=1),
         changes=[(k + lo, c, on) for r, lo in runs for k, c, on in r.changes],
         carry=carry,
     )

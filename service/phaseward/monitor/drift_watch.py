@@ -27,6 +27,7 @@ from phaseward.physics.drift import (
     SteadyInnovation,
     drift_watch,
     extra_resistance,
+    recent_resistance,
     steady_innovation,
 )
 from phaseward.physics.estimator import discrete_model
@@ -61,14 +62,23 @@ def _steady(net: ThermalNetwork, rules: MonitorRules, step_s: float) -> SteadyIn
 
 def load_carry(data: dict[str, Any] | None, n_channels: int) -> DriftCarry:
     """The carried test from the live state (fresh when absent or the phase count changed)."""
-    if data is None or len(data["raised"]) != n_channels:
+    if data is None or len(data["raised"]) != n_channels or "recent" not in data:
         return DriftCarry.fresh(n_channels)
     return DriftCarry(
         raised=np.asarray(data["raised"], dtype=bool),
         statistic=np.asarray(data["statistic"], dtype=np.float64),
         window=np.asarray(data["window"], dtype=np.float64),
-        start_t_s=np.array([np.nan if t is None else t for t in data["start_t_s"]], np.float64),
+        start_t_s=_floats(data["start_t_s"]),
+        recent=np.array([_floats(row) for row in data["recent"]]),
     )
+
+
+def _floats(values: list[float | None]) -> F64:
+    return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
+
+
+def _nones(values: F64) -> list[float | None]:
+    return [float(v) if np.isfinite(v) else None for v in values]
 
 
 def watch(
@@ -88,7 +98,8 @@ def watch(
         "raised": final.raised.tolist(),
         "statistic": final.statistic.tolist(),
         "window": final.window.tolist(),
-        "start_t_s": [None if not np.isfinite(t) else float(t) for t in final.start_t_s],
+        "start_t_s": _nones(final.start_t_s),
+        "recent": [_nones(row) for row in final.recent],
     }, findings
 
 
@@ -96,6 +107,7 @@ def view(model: RailModel, state: dict[str, Any] | None) -> list[dict[str, Any]]
     """Each channel's present drift state (phases in order, then the board) for status."""
     carry = load_carry(state, model.n_phases + 1)
     r, se = extra_resistance(carry.window)
+    now, now_se = recent_resistance(carry.recent)
     return [
         {
             "raised": bool(carry.raised[c]),
@@ -103,6 +115,8 @@ def view(model: RailModel, state: dict[str, Any] | None) -> list[dict[str, Any]]
             "threshold": model.rules.drift_threshold,
             "extra_k_per_w": _sig(r[c]),
             "extra_se_k_per_w": _sig(se[c]),
+            "recent_k_per_w": _sig(now[c]),
+            "recent_se_k_per_w": _sig(now_se[c]),
             "since_s": None if not np.isfinite(carry.start_t_s[c]) else float(carry.start_t_s[c]),
         }
         for c in range(model.n_phases + 1)
@@ -112,6 +126,7 @@ def view(model: RailModel, state: dict[str, Any] | None) -> list[dict[str, Any]]
 def _finding(model: RailModel, run: DriftRun, k: int, c: int, on: bool, t_s: F64) -> Finding:
     board = c == model.n_phases
     r, se = extra_resistance(run.window[:, k, c])
+    now, now_se = recent_resistance(run.recent[:, k, c])
     start = run.start_t_s[k, c]
     where = "the board's path to ambient" if board else f"phase {c}'s path to the board"
     name = "board path" if board else f"phase {c}"
@@ -130,6 +145,8 @@ def _finding(model: RailModel, run: DriftRun, k: int, c: int, on: bool, t_s: F64
             "channel": "board" if board else "phase",
             "extra_k_per_w": _sig(r),
             "extra_se_k_per_w": _sig(se),
+            "recent_k_per_w": _sig(now),
+            "recent_se_k_per_w": _sig(now_se),
             "statistic": _sig(run.statistic[k, c]),
             "threshold": model.rules.drift_threshold,
             "since_t_s": None if not np.isfinite(start) else float(start),

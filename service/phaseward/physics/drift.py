@@ -46,7 +46,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import numpy.typing as npt
-from scipy import linalg
+from scipy import linalg, signal
 
 from phaseward.physics.estimator import DiscreteModel
 
@@ -197,10 +197,14 @@ class DriftCarry:
     statistic: FloatArray
     window: FloatArray
     start_t_s: FloatArray
+    recent: FloatArray  # (3, m) the running averages of u, u^2 and P (NaN: none yet)
 
     @classmethod
     def fresh(cls, m: int) -> DriftCarry:
-        return cls(np.zeros(m, bool), np.zeros(m), np.zeros((4, m)), np.full(m, np.nan))
+        return cls(
+            np.zeros(m, bool), np.zeros(m), np.zeros((4, m)), np.full(m, np.nan),
+            np.full((3, m), np.nan),
+        )  # fmt: skip
 
 
 @dataclass(frozen=True)
@@ -213,6 +217,7 @@ class DriftRun:
     raised: BoolArray
     window: FloatArray
     start_t_s: FloatArray
+    recent: FloatArray  # (3, n, m): the running averages of u, u^2 and P after each sample
     changes: list[tuple[int, int, bool]]
     carry: DriftCarry
 
@@ -288,11 +293,58 @@ def drift_run(
     end = closed[-1]
     turned = np.zeros(m, dtype=bool)  # a raise or clear at the last sample restarts at zero
     turned[[c for k, c, _ in changes if k == n - 1]] = True
+    recent = _running_average(np.stack([u_k, u_k**2, power_w]), seen, carry.recent)
     final = DriftCarry(
         raised[-1].copy(), np.where(turned, 0.0, stat[-1]), np.where(end, 0.0, window[:, -1]),
-        np.where(end, np.nan, start[-1]),
+        np.where(end, np.nan, start[-1]), recent[:, -1].copy(),
     )  # fmt: skip
-    return DriftRun(stat, raised, window, start, changes, final)
+    return DriftRun(stat, raised, window, start, recent, changes, final)
+
+
+RECENT_SAMPLES = 600.0  # time constant of the running averages, samples (10 min at 1 Hz)
+
+
+def _running_average(x: FloatArray, seen: BoolArray, prev: FloatArray) -> FloatArray:
+    """Exponentially weighted averages (q, n, m) over the samples ``seen`` (n, m), from
+    ``prev`` (q, m; NaN: start at the first value), held where a sample is not seen.
+    scipy.signal.lfilter runs the recursion y = (1 - a) y + a x, one call per channel."""
+    a = 1.0 / RECENT_SAMPLES
+    q, n, m = x.shape
+    out = np.empty((q, n, m))
+    for c in range(m):
+        rows = np.flatnonzero(seen[:, c])
+        start = prev[:, c]
+        y = np.empty((q, 0))
+        if rows.size:
+            start = np.where(np.isfinite(start), start, x[:, rows[0], c])
+            y, _ = signal.lfilter([a], [1.0, a - 1.0], x[:, rows, c], axis=1,
+                                  zi=((1.0 - a) * start)[:, None])  # fmt: skip
+        # Each row takes the newest average at or before it (``prev`` before the first).
+        latest = np.searchsorted(rows, np.arange(n), side="right") - 1
+        held = np.concatenate([prev[:, c, None], y], axis=1)
+        out[:, :, c] = held[:, latest + 1]
+    return out
+
+
+def recent_resistance(recent: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """Extra thermal resistance over the last RECENT_SAMPLES or so and its standard error
+    (K/W), from running averages (3, ...) of u, u^2 and P: the present value while a
+    resistance still rises, where the window's mean lags it. The standard error of an
+    exponentially weighted mean of white noise is sd sqrt(a / (2 - a)) (Montgomery, ch. 9.2,
+    EWMA chart, from memory).
+
+    >>> r, se = recent_resistance(np.array([2.0, 5.0, 2.0]))  # u 2 K, sd 1 K, at 2 W
+    >>> float(r), round(float(se), 4)  # 1 K / sqrt(1199) / 2 W
+    (1.0, 0.0144)
+    """
+    a = 1.0 / RECENT_SAMPLES
+    mean_u, mean_u2, mean_p = recent
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ok = np.isfinite(mean_p) & (mean_p > 0)
+        sd = np.sqrt(np.maximum(mean_u2 - mean_u**2, 0.0))
+        r = np.where(ok, mean_u / mean_p, np.nan)
+        se = np.where(ok, sd * np.sqrt(a / (2.0 - a)) / mean_p, np.nan)
+    return r, se
 
 
 def drift_watch(
@@ -316,7 +368,7 @@ def drift_watch(
     def part(cols: slice) -> DriftCarry:
         return DriftCarry(
             carry.raised[cols], carry.statistic[cols], carry.window[:, cols],
-            carry.start_t_s[cols],
+            carry.start_t_s[cols], carry.recent[:, cols],
         )  # fmt: skip
 
     phase_in = channels(z, scale, power_w)
@@ -334,10 +386,12 @@ def drift_watch(
         raised=np.hstack([phases.raised, board.raised]),
         window=np.concatenate([phases.window, board.window], axis=2),
         start_t_s=np.hstack([phases.start_t_s, board.start_t_s]),
+        recent=np.concatenate([phases.recent, board.recent], axis=2),
         changes=changes,
         carry=DriftCarry(
             np.concatenate([a.raised, b.raised]), np.concatenate([a.statistic, b.statistic]),
             np.hstack([a.window, b.window]), np.concatenate([a.start_t_s, b.start_t_s]),
+            np.hstack([a.recent, b.recent]),
         ),
     )  # fmt: skip
 

@@ -59,9 +59,9 @@ def test_events_do_not_depend_on_the_cut(seed: int, cuts: list[int]) -> None:
     np.testing.assert_array_equal(whole.raised, np.vstack([p.raised for p in parts]))
     joined = np.concatenate([p.window for p in parts], axis=1)
     np.testing.assert_allclose(whole.window, joined, rtol=1e-9, atol=1e-9)
-    np.testing.assert_array_equal(
-        whole.start_t_s, np.vstack([p.start_t_s for p in parts])
-    )
+    np.testing.assert_array_equal(whole.start_t_s, np.vstack([p.start_t_s for p in parts]))
+    joined = np.concatenate([p.recent for p in parts], axis=1)
+    np.testing.assert_allclose(whole.recent, joined, rtol=1e-9, atol=1e-9)
 
 
 def test_shift_raises_then_clears_on_its_phase_only() -> None:

@@ -128,7 +128,8 @@ def test_extra_resistance_of_a_known_step() -> None:
     run = watch(power, readings, 1.0, 25.0, reference=0.25, threshold=35.0, pieces=4).run
     assert [(c, on) for _, c, on in run.changes] == [(1, True)]
     r, se = extra_resistance(run.window[:, -1, 1])
-    assert abs(float(r) - 2.0) < 3 * float(se) and float(se) < 0.05, (r, se)
+    assert abs(float(r) - 2.0) < 3 * float(se), (r, se)
+    assert float(se) < 0.05
 
     def board(step: int) -> F64:
         return np.array([1.0, 1.0, 1.0, 1.3 if step >= 3600 else 1.0])
@@ -137,4 +138,5 @@ def test_extra_resistance_of_a_known_step() -> None:
     run = watch(power, readings, 1.0, 25.0, reference=0.25, threshold=35.0).run
     assert [(c, on) for _, c, on in run.changes] == [(3, True)]  # the board, no phase
     r, se = extra_resistance(run.window[:, -1, 3])
-    assert abs(float(r) - 0.3) < 3 * float(se) and float(se) < 0.02, (r, se)
+    assert abs(float(r) - 0.3) < 3 * float(se), (r, se)
+    assert float(se) < 0.02

@@ -69,7 +69,8 @@ def test_shift_raises_then_clears_on_its_phase_only() -> None:
     whole, _ = run_in_pieces(z, power, [])
     assert [(c, on) for _, c, on in whole.changes] == [(0, True), (0, False)]
     raised_at, cleared_at = (k for k, _, _ in whole.changes)
-    assert 200 <= raised_at < 240 and 400 <= cleared_at < 520
+    assert 200 <= raised_at < 240
+    assert 400 <= cleared_at < 520
     # At the raise the window starts where the statistic last stood at zero: near the shift.
     assert 180 <= whole.start_t_s[raised_at, 0] <= 205
 
@@ -87,8 +88,10 @@ def test_board_channel_leaves_out_a_drifting_phase() -> None:
 
 def test_extra_resistance_needs_two_samples_and_power() -> None:
     r, se = extra_resistance(np.array([[1.0, 3.0], [2.0, 6.0], [4.0, 14.0], [0.0, 6.0]]))
-    assert np.isnan(r[0]) and np.isnan(se[0])
-    assert r[1] == 1.0 and se[1] > 0
+    assert np.isnan(r[0])
+    assert np.isnan(se[0])
+    assert r[1] == 1.0
+    assert se[1] > 0
 
 
 def test_healthy_week_at_one_sample_per_second_raises_nothing() -> None:

@@ -16,6 +16,7 @@ from phaseward.physics.pmbus import (
     status_input_flags,
     status_iout_flags,
     status_temperature_flags,
+    status_vout_flags,
     status_word_flags,
 )
 
@@ -45,6 +46,11 @@ class PhaseReading(Contract):
     driver_disabled: bool = False
     overcurrent: bool = False
     overtemperature: bool = False
+    vout_fault: bool = Field(
+        default=False,
+        description="the device reports its output voltage outside its fault limits "
+        "(informs; does not isolate the phase: the output is shared)",
+    )
     status_word: Word | None = Field(
         default=None,
         description="PMBus STATUS_WORD: OFF sets driver_disabled, IOUT_OC_FAULT overcurrent, "
@@ -64,6 +70,9 @@ class PhaseReading(Contract):
     status_input: Byte | None = Field(
         default=None,
         description="IIN_OC_FAULT sets overcurrent; UNIT_OFF_LOW_VIN sets driver_disabled",
+    )
+    status_vout: Byte | None = Field(
+        default=None, description="VOUT_OV_FAULT or VOUT_UV_FAULT sets vout_fault"
     )
 
     @model_validator(mode="after")
@@ -160,6 +169,9 @@ def to_incoming(items: list[SampleIn]) -> IncomingSamples:
     inputs = status_input_flags([r.status_input or 0 for _, _, r in readings])
     over = status_iout_flags(iout)["IOUT_OC_FAULT"] | inputs["IIN_OC_FAULT"]
     flags |= np.where(over, FLAG_NAMES["overcurrent"], 0).astype(np.uint8)
+    vout = status_vout_flags([r.status_vout or 0 for _, _, r in readings])
+    vout_fault = vout["VOUT_OV_FAULT"] | vout["VOUT_UV_FAULT"]
+    flags |= np.where(vout_fault, FLAG_NAMES["vout_fault"], 0).astype(np.uint8)
     off = inputs["UNIT_OFF_LOW_VIN"]  # the stage stopped switching: the hardware has acted
     flags |= np.where(off, FLAG_NAMES["driver_disabled"], 0).astype(np.uint8)
     flags |= np.where(hot["OT_FAULT"] | hot["OT_WARNING"], FLAG_NAMES["overtemperature"], 0).astype(

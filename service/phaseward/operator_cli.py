@@ -21,7 +21,7 @@ from rich.table import Table
 
 if TYPE_CHECKING:
     from phaseward_client import Client, Event
-    from phaseward_client.models import PhaseStatus
+    from phaseward_client.models import DriftStatus, PhaseStatus
 
 DEFAULT_URL = "http://127.0.0.1:8470"
 out = Console()
@@ -117,6 +117,26 @@ def reading_note(p: PhaseStatus) -> str:
     return "; ".join(notes) or "fresh"
 
 
+def drift_note(d: DriftStatus | None) -> str:
+    """A cooling path's drift test in words: the extra thermal resistance while an episode is
+    open, else how far the statistic is towards its threshold.
+
+    >>> from phaseward_client import DriftStatus
+    >>> drift_note(DriftStatus(True, 2.0, 35.0, 1.21, 0.05, 1.8e9, 1.62, 0.04))
+    'DRIFT +1.21 +- 0.05 K/W since it began, +1.62 +- 0.04 K/W recently'
+    >>> drift_note(DriftStatus(False, 7.4, 35.0, None, None, None))
+    'none (7/35)'
+    """
+    if d is None:
+        return "-"
+    if not d.raised:
+        return f"none ({d.statistic:.0f}/{d.threshold:.0f})"
+    text = f"DRIFT +{_n(d.extra_k_per_w, 2)} +- {_n(d.extra_se_k_per_w, 2)} K/W since it began"
+    if d.recent_k_per_w is not None:
+        text += f", +{_n(d.recent_k_per_w, 2)} +- {_n(d.recent_se_k_per_w, 2)} K/W recently"
+    return text
+
+
 def status(args: argparse.Namespace) -> int:
     with connected(args.url, embedded=False) as client:
         s = client.status(args.rail)
@@ -139,16 +159,19 @@ def status(args: argparse.Namespace) -> int:
     if s.load_assumed_a is not None:
         out.print(f"the load assumes {_n(s.load_assumed_a)} A for phases without a reading")
     table = Table(
-        "phase", "condition", "current A", "sensor degC", "junction degC", "share", "reading"
-    )
+        "phase", "condition", "current A", "sensor degC", "junction degC", "share", "reading",
+        "cooling drift (to the board)",
+    )  # fmt: skip
     junctions = th.estimated_junction_c if th is not None else []
     for p in s.phases:
         table.add_row(
             str(p.index), p.condition, _n(p.current_a), _n(p.temp_c),
             _n(junctions[p.index] if junctions else None), f"{100 * p.share:.1f} %",
-            reading_note(p),
+            reading_note(p), drift_note(p.drift),
         )  # fmt: skip
     out.print(table)
+    if th is not None and th.board_drift is not None:
+        out.print(f"board path to ambient, cooling drift: {drift_note(th.board_drift)}")
     out.print(f"[dim]{s.caution}[/dim]")
     return 0
 
@@ -173,7 +196,7 @@ def events(args: argparse.Namespace) -> int:
     table = Table("id", "time", "severity", "rail", "kind", "phase", "message")
     for e in page.items:
         phase = "" if e.phase is None else str(e.phase)
-        message = e.message + _fault_class(e.details.get("signature"))
+        message = e.message + _fault_class(e.details.get("signature")) + _drift_recent(e)
         table.add_row(
             str(e.id), e.time, e.severity, e.rail_id, event_kind(e), phase, message,
             style=_EXPOSED_STYLE if _security_lost(e) else None,
@@ -195,6 +218,13 @@ def event_kind(e: Event) -> str:
 
 def _security_lost(e: Event) -> bool:
     return e.kind == "capacity.exposed" and not e.cleared
+
+
+def _drift_recent(e: Event) -> str:
+    d = e.drift
+    if d is None or d.cleared or d.recent_k_per_w is None:
+        return ""
+    return f"; recently +{_n(d.recent_k_per_w, 2)} +- {_n(d.recent_se_k_per_w, 2)} K/W"
 
 
 def _fault_class(signature: dict[str, Any] | None) -> str:

@@ -9,6 +9,9 @@ readings add 0.5 K of noise, as the rail's definition says.
 
 from __future__ import annotations
 
+import argparse
+from collections.abc import Iterator
+from contextlib import contextmanager
 from typing import Any
 
 import httpx
@@ -16,11 +19,14 @@ import numpy as np
 import numpy.typing as npt
 import pytest
 from fastapi import FastAPI
+from phaseward_client import EventPage, RailStatus
+from rich.console import Console
 from sqlalchemy import select
 from tests.drift_sim import simulate
 from tests.factories import rail_spec
 from tests.service.cuts import T0, incoming
 
+from phaseward import operator_cli
 from phaseward.api.schemas.rails import RailBody
 from phaseward.monitor import rail_model
 from phaseward.monitor.ingest import ingest
@@ -110,6 +116,38 @@ async def test_drift_is_found_before_the_warning_line_and_clears(
     assert others == [False, False, False]
     assert status["thermal"]["board_drift"]["raised"] is False
     assert status["thermal"]["board_drift"]["threshold"] == 35.0
+
+    # The command line shows the phase and the estimate (the service's answers, through a
+    # stand-in for the client).
+    answer = await client.get("/v1/rails/worn/events", params={"kind": "thermal.drift"})
+    text = command_line(RailStatus.from_json(status), EventPage.from_json(answer.json()))
+    assert "DRIFT +" in text
+    assert "K/W recently" in text
+    assert text.count("thermal.drift") == 2
+    assert "phase 1: cooling drift" in text
+
+
+def command_line(status: RailStatus, page: EventPage) -> str:
+    class Stand:
+        def status(self, rail_id: str) -> RailStatus:
+            return status
+
+        def list_events(self, rail_id: str, **_: Any) -> EventPage:
+            return page
+
+    @contextmanager
+    def connected(url: str | None, *, embedded: bool) -> Iterator[Stand]:
+        yield Stand()
+
+    screen = Console(record=True, width=400)
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(operator_cli, "connected", connected)
+        patch.setattr(operator_cli, "out", screen)
+        args = argparse.Namespace(url=None, rail="worn", kind=None, follow=False, json=False,
+                                  limit=100)  # fmt: skip
+        assert operator_cli.status(args) == 0
+        assert operator_cli.events(args) == 0
+    return screen.export_text()
 
 
 @pytest.mark.parametrize(

@@ -256,7 +256,15 @@ def drift_run(
     reset = np.zeros((n, m), dtype=bool)  # S at zero: the window restarts after this sample
     closed = np.zeros((n, m), dtype=bool)  # a clear: its sample still counts, the next not
     changes: list[tuple[int, int, bool]] = []
-    for c in range(m):  # one turn per channel and per raise or clear, never per sample
+    # All channels in one pass; only a channel that raises or clears in the batch is taken
+    # again on its own, one turn per raise or clear.
+    up0 = carry.raised.astype(bool)
+    s_all = cusum_upper(np.where(up0, -1.0, 1.0) * (z - reference), carry.statistic)
+    crossed = (s_all > threshold).any(axis=0)
+    stat[:] = s_all
+    raised[:] = up0
+    reset[:] = ~up0 & (s_all <= 0.0)
+    for c in np.flatnonzero(crossed):
         pos, up, s0 = 0, bool(carry.raised[c]), float(carry.statistic[c])
         while pos < n:
             x = (z[pos:, c] - reference) if not up else (reference - z[pos:, c])
@@ -265,11 +273,10 @@ def drift_run(
             stop = n if over.size == 0 else pos + int(over[0]) + 1
             stat[pos:stop, c] = s[: stop - pos]
             raised[pos:stop, c] = up
-            if not up:  # watching: the window restarts wherever S stands at zero
-                reset[pos:stop, c] = s[: stop - pos] <= 0.0
+            reset[pos:stop, c] = (not up) & (s[: stop - pos] <= 0.0)
             if over.size == 0:
                 break
-            changes.append((stop - 1, c, not up))
+            changes.append((stop - 1, int(c), not up))
             raised[stop - 1, c] = not up
             closed[stop - 1, c] = up
             up, s0, pos = not up, 0.0, stop
@@ -311,7 +318,12 @@ def _running_average(x: FloatArray, seen: BoolArray, prev: FloatArray) -> FloatA
     a = 1.0 / RECENT_SAMPLES
     q, n, m = x.shape
     out = np.empty((q, n, m))
-    for c in range(m):
+    whole = seen.all(axis=0) & np.isfinite(prev).all(axis=0)  # the usual case, all at once
+    if whole.any():
+        out[:, :, whole], _ = signal.lfilter(
+            [a], [1.0, a - 1.0], x[:, :, whole], axis=1, zi=((1.0 - a) * prev[:, whole])[:, None]
+        )
+    for c in np.flatnonzero(~whole):
         rows = np.flatnonzero(seen[:, c])
         start = prev[:, c]
         y = np.empty((q, 0))

@@ -45,19 +45,24 @@ class DriftInput:
     power_w: F64
 
 
-def steady(model: RailModel, step_s: float) -> SteadyInnovation:
-    """The steady-state filter's innovation figures for one propagation step (cached)."""
+def steady(model: RailModel, step_s: float) -> SteadyInnovation | None:
+    """The steady-state filter's innovation figures for one propagation step (cached); None
+    when the Riccati equation has no solution in float64 (a step far below the network's
+    time constants with almost no process noise): such samples stay out of the drift test."""
     return _steady(model.network, model.rules, step_s)
 
 
 @lru_cache(maxsize=64)
-def _steady(net: ThermalNetwork, rules: MonitorRules, step_s: float) -> SteadyInnovation:
+def _steady(net: ThermalNetwork, rules: MonitorRules, step_s: float) -> SteadyInnovation | None:
     model = discrete_model(
         net, step_s, process_noise_w=rules.process_noise_w,
         sensor_noise_k=rules.sensor_noise_k, sensor_tau_s=rules.sensor_tau_s,
         sensor_offset_k=rules.sensor_offset_k,
     )  # fmt: skip
-    return steady_innovation(model)
+    try:
+        return steady_innovation(model)
+    except np.linalg.LinAlgError:
+        return None
 
 
 def load_carry(data: dict[str, Any] | None, n_channels: int) -> DriftCarry:

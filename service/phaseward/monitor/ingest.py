@@ -482,10 +482,12 @@ def _estimate(
             state = trace.final
             means.extend(trace.means_c[1:])
             stds.extend(trace.junction_std_k[1:])
-            z[lo:hi] = trace.innovation_z
             held_w[lo:hi] = power0[lo:hi] + power_slope[lo:hi] * trace.means_c[:-1, junction]
-            sc = drift_watch.steady(model, step).scale
-            scale[:, lo:hi] = np.stack([sc.std_k, sc.own_gain, sc.row_gain])[:, None, :]
+            innovation = drift_watch.steady(model, step)
+            if innovation is not None:
+                z[lo:hi] = trace.innovation_z
+                sc = innovation.scale
+                scale[:, lo:hi] = np.stack([sc.std_k, sc.own_gain, sc.row_gain])[:, None, :]
     except ThermalRunaway:
         # The losses outgrow the network's conductance: the assessment reports runaway;
         # keep the last finite estimate rather than numbers that mean nothing.

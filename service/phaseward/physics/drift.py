@@ -113,6 +113,10 @@ class InnovationScale:
 def steady_innovation(model: DiscreteModel) -> SteadyInnovation:
     """Steady-state innovation covariance and its DC gain G for ``model``.
 
+    Raises numpy.linalg.LinAlgError when the discrete Riccati equation has no stabilising
+    solution in float64 (steps far below the network's time constants with almost no
+    process noise put the pencil's eigenvalues on the unit circle).
+
     >>> from phaseward.physics.estimator import discrete_model
     >>> from phaseward.physics.thermal import CauerStages, build_coupled_network
     >>> net = build_coupled_network([CauerStages(np.array([2.0]), np.array([0.5]))],

@@ -10,8 +10,9 @@ as one batch; a sample two of them carry is stored and judged once.
 
 Events and the live state are a pure function of the sample sequence, however it was cut into
 requests. Everything carried from one batch to the next (debounce tails, hysteresis latches,
-sharing weights, the Kalman estimate, the last verdict) is the state the same recurrence would
-hold after that sample, and where the rail is assessed depends on the samples alone:
+sharing weights, the Kalman estimate, the drift test's statistics and windows, the last
+verdict) is the state the same recurrence would hold after that sample, and where the rail is
+assessed depends on the samples alone:
 
 * phase conditions are judged at every sample against the one before it (the previous
   batch's last sample for a batch's first);

@@ -19,7 +19,9 @@ The recursion is sequential; it is evaluated in one pass by its closed form (Lin
 recursion: with the partial sums C_n = S_0 + sum_{i<=n} x_i, S_n = C_n - min(0, min_{j<=n}
 C_j)), so no Python loop runs per sample: only one turn per raise or clear.
 
-Missing readings (NaN) add nothing: the statistic holds.
+Missing readings (NaN) add nothing: the statistic holds. A phase's channel is its innovation
+against the other phases', the board's the sum over the phases not in an episode of their own
+(:func:`channels`), so a drift is named where it is.
 
 Estimate of the extra thermal resistance
 ----------------------------------------
@@ -36,8 +38,10 @@ board's path to ambient it raises every junction by P_total dR. So each sample g
 bias-equivalent excess u = e / G_pp = z sqrt(S_pp) / G_pp (for the board, the sum of the
 phases' e over the sum of their G 1), and over the window since the CUSUM last stood at zero
 (Montgomery's estimate of when the shift began) dR = sum u / sum P, with the standard error of
-the mean of u over the window divided by the mean power. F is the loss-free transition (the
-loss's temperature slope is left out of G: a stated simplification, small for real slopes).
+the mean of u over the window divided by the mean power; an exponentially weighted average of
+u and P over about RECENT_SAMPLES gives the present value while the resistance still rises. F
+is the loss-free transition (the loss's temperature slope is left out of G: a stated
+simplification, small for real slopes).
 """
 
 from __future__ import annotations

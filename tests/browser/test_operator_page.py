@@ -241,6 +241,8 @@ def test_cooling_drift_shows_with_its_phase_and_estimate(
     expect(phase2.locator(".drift-cell")).to_contain_text("K/W")
     expect(page.locator("#sec-phases tr[data-phase='0'] .drift-cell")).to_contain_text("no drift")
     drift = page.locator("#sec-events tr[data-kind='thermal.drift']")
-    expect(drift).to_contain_text("Extra thermal resistance, phase 2 to the board: +")
+    expect(drift).to_contain_text(
+        "Extra thermal resistance, phase 2 to the board: +", timeout=60_000
+    )
     expect(page.locator("#sec-thermal")).to_contain_text("Board path cooling")
     same_origin_only(watched, server)

@@ -67,14 +67,14 @@ def _steady(net: ThermalNetwork, rules: MonitorRules, step_s: float) -> SteadyIn
 
 def load_carry(data: dict[str, Any] | None, n_channels: int) -> DriftCarry:
     """The carried test from the live state (fresh when absent or the phase count changed)."""
-    if data is None or len(data["raised"]) != n_channels or "recent" not in data:
+    if data is None or len(data["raised"]) != n_channels or len(data.get("recent", ())) != 4:
         return DriftCarry.fresh(n_channels)
     return DriftCarry(
         raised=np.asarray(data["raised"], dtype=bool),
         statistic=np.asarray(data["statistic"], dtype=np.float64),
         window=np.asarray(data["window"], dtype=np.float64),
         start_t_s=_floats(data["start_t_s"]),
-        recent=np.array([_floats(row) for row in data["recent"]]),
+        recent=np.asarray(data["recent"], dtype=np.float64),
     )
 
 
@@ -104,7 +104,7 @@ def watch(
         "statistic": final.statistic.tolist(),
         "window": final.window.tolist(),
         "start_t_s": _nones(final.start_t_s),
-        "recent": [_nones(row) for row in final.recent],
+        "recent": final.recent.tolist(),
     }, findings
 
 

@@ -38,8 +38,9 @@ board's path to ambient it raises every junction by P_total dR. So each sample g
 bias-equivalent excess u = e / G_pp = z sqrt(S_pp) / G_pp (for the board, the sum of the
 phases' e over the sum of their G 1), and over the window since the CUSUM last stood at zero
 (Montgomery's estimate of when the shift began) dR = sum u / sum P, with the standard error of
-the mean of u over the window divided by the mean power; an exponentially weighted average of
-u and P over about RECENT_SAMPLES gives the present value while the resistance still rises. F
+the mean of u over the window divided by the mean power; the same over the window with older
+samples discounted (a memory of about RECENT_SAMPLES) gives the present value while the
+resistance still rises. F
 is the loss-free transition (the loss's temperature slope is left out of G: a stated
 simplification, small for real slopes).
 """
@@ -205,13 +206,13 @@ class DriftCarry:
     statistic: FloatArray
     window: FloatArray
     start_t_s: FloatArray
-    recent: FloatArray  # (3, m) the running averages of u, u^2 and P (NaN: none yet)
+    recent: FloatArray  # (4, m) the window's discounted sums (WINDOW_FIELDS order)
 
     @classmethod
     def fresh(cls, m: int) -> DriftCarry:
         return cls(
             np.zeros(m, bool), np.zeros(m), np.zeros((4, m)), np.full(m, np.nan),
-            np.full((3, m), np.nan),
+            np.zeros((4, m)),
         )  # fmt: skip
 
 
@@ -225,7 +226,7 @@ class DriftRun:
     raised: BoolArray
     window: FloatArray
     start_t_s: FloatArray
-    recent: FloatArray  # (3, n, m): the running averages of u, u^2 and P after each sample
+    recent: FloatArray  # (4, n, m): the window's discounted sums after each sample
     changes: list[tuple[int, int, bool]]
     carry: DriftCarry
 
@@ -308,62 +309,64 @@ def drift_run(
     end = closed[-1]
     turned = np.zeros(m, dtype=bool)  # a raise or clear at the last sample restarts at zero
     turned[[c for k, c, _ in changes if k == n - 1]] = True
-    recent = _running_average(np.stack([u_k, u_k**2, power_w]), seen, carry.recent)
+    # The same window with older samples discounted by DECAY per sample read: the discounted
+    # sums D of this call (from zero), less what fell before the reset, or plus the carry.
+    discounted = _discounted(q, seen)
+    count = np.cumsum(seen, axis=0)
+    since = count - np.where(last_reset >= 0, count[at, col], 0)
+    base = np.where(last_reset >= 0, -discounted[:, at, col], carry.recent[:, None, :])
+    recent = discounted + DECAY**since * base
     final = DriftCarry(
         raised[-1].copy(), np.where(turned, 0.0, stat[-1]), np.where(end, 0.0, window[:, -1]),
-        np.where(end, np.nan, start[-1]), recent[:, -1].copy(),
+        np.where(end, np.nan, start[-1]), np.where(end, 0.0, recent[:, -1]),
     )  # fmt: skip
     return DriftRun(stat, raised, window, start, recent, changes, final)
 
 
-RECENT_SAMPLES = 600.0  # time constant of the running averages, samples (10 min at 1 Hz)
+RECENT_SAMPLES = 600.0  # memory of the recent estimate, samples (10 min at 1 Hz), a choice
+DECAY = 1.0 - 1.0 / RECENT_SAMPLES
 
 
-def _running_average(x: FloatArray, seen: BoolArray, prev: FloatArray) -> FloatArray:
-    """Exponentially weighted averages (q, n, m) over the samples ``seen`` (n, m), from
-    ``prev`` (q, m; NaN: start at the first value), held where a sample is not seen.
-    scipy.signal.lfilter runs the recursion y = (1 - a) y + a x, one call per channel."""
-    a = 1.0 / RECENT_SAMPLES
+def _discounted(x: FloatArray, seen: BoolArray) -> FloatArray:
+    """D_k = DECAY D_{k-1} + x_k over the samples ``seen`` (n, m), from zero, held where a
+    sample is not seen: (q, n, m). scipy.signal.lfilter runs the recursion; channels read at
+    every sample go in one call."""
     q, n, m = x.shape
     out = np.empty((q, n, m))
-    whole = seen.all(axis=0) & np.isfinite(prev).all(axis=0)  # the usual case, all at once
+    whole = seen.all(axis=0)
     if whole.any():
-        out[:, :, whole], _ = signal.lfilter(
-            [a], [1.0, a - 1.0], x[:, :, whole], axis=1, zi=((1.0 - a) * prev[:, whole])[:, None]
-        )
+        out[:, :, whole] = signal.lfilter([1.0], [1.0, -DECAY], x[:, :, whole], axis=1)
     for c in np.flatnonzero(~whole):
         rows = np.flatnonzero(seen[:, c])
-        start = prev[:, c]
-        y = np.empty((q, 0))
-        if rows.size:
-            start = np.where(np.isfinite(start), start, x[:, rows[0], c])
-            y, _ = signal.lfilter([a], [1.0, a - 1.0], x[:, rows, c], axis=1,
-                                  zi=((1.0 - a) * start)[:, None])  # fmt: skip
-        # Each row takes the newest average at or before it (``prev`` before the first).
-        latest = np.searchsorted(rows, np.arange(n), side="right") - 1
-        held = np.concatenate([prev[:, c, None], y], axis=1)
-        out[:, :, c] = held[:, latest + 1]
+        y = signal.lfilter([1.0], [1.0, -DECAY], x[:, rows, c], axis=1)
+        latest = np.searchsorted(rows, np.arange(n), side="right")  # rows read so far
+        out[:, :, c] = np.concatenate([np.zeros((q, 1)), y], axis=1)[:, latest]
     return out
 
 
 def recent_resistance(recent: FloatArray) -> tuple[FloatArray, FloatArray]:
-    """Extra thermal resistance over the last RECENT_SAMPLES or so and its standard error
-    (K/W), from running averages (3, ...) of u, u^2 and P: the present value while a
-    resistance still rises, where the window's mean lags it. The standard error of an
-    exponentially weighted mean of white noise is sd sqrt(a / (2 - a)) (Montgomery, ch. 9.2,
-    EWMA chart, from memory).
+    """Extra thermal resistance over the window's recent samples and its standard error (K/W),
+    from discounted sums (4, ...) in WINDOW_FIELDS order: the same estimate as
+    :func:`extra_resistance` with each sample weighted DECAY^(samples read since), so over a
+    short window it is the window's and over a long one that of about its last
+    RECENT_SAMPLES: the present value while a resistance still rises. Its standard error takes
+    the sum of the weights as the number of samples (the exact effective number of an
+    exponentially weighted mean is up to twice that: the error is stated wide, not narrow).
 
-    >>> r, se = recent_resistance(np.array([2.0, 5.0, 2.0]))  # u 2 K, sd 1 K, at 2 W
-    >>> float(r), round(float(se), 4)  # 1 K / sqrt(1199) / 2 W
-    (1.0, 0.0144)
+    >>> w = DECAY ** np.arange(3)[::-1]  # three samples, the newest weighted 1
+    >>> u = np.array([1.0, 2.0, 3.0])
+    >>> r, se = recent_resistance(np.array([w.sum(), w @ u, w @ u**2, 2.0 * w.sum()]))
+    >>> round(float(r), 4), round(float(se), 4)  # about 2 K at 2 W
+    (1.0006, 0.2359)
     """
-    a = 1.0 / RECENT_SAMPLES
-    mean_u, mean_u2, mean_p = recent
+    weight, sum_u, sum_u2, sum_p = recent
     with np.errstate(invalid="ignore", divide="ignore"):
-        ok = np.isfinite(mean_p) & (mean_p > 0)
-        sd = np.sqrt(np.maximum(mean_u2 - mean_u**2, 0.0))
-        r = np.where(ok, mean_u / mean_p, np.nan)
-        se = np.where(ok, sd * np.sqrt(a / (2.0 - a)) / mean_p, np.nan)
+        mean_u = sum_u / weight
+        mean_p = sum_p / weight
+        sd = np.sqrt(np.maximum(sum_u2 / weight - mean_u**2, 0.0))
+        ok = (weight >= 2.0) & (mean_p > 0)
+        r = np.where(ok, sum_u / sum_p, np.nan)
+        se = np.where(ok, sd / np.sqrt(weight) / mean_p, np.nan)
     return r, se
 
 

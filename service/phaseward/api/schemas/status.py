@@ -29,8 +29,8 @@ class DriftStatus(BaseModel):
     )
     extra_se_k_per_w: float | None = Field(description="its standard error, K/W")
     recent_k_per_w: float | None = Field(
-        description="the same over about the last 600 samples (exponentially weighted): the "
-        "present value while the resistance still rises, K/W"
+        description="the same with older samples of the window discounted (a memory of about "
+        "600 samples): the present value while the resistance still rises, K/W"
     )
     recent_se_k_per_w: float | None = Field(description="its standard error, K/W")
     since_s: float | None = Field(

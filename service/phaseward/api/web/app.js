@@ -463,7 +463,7 @@ function renderThermal(st, spec) {
  * imply while a thermal.drift episode is open, else how far the test stands from raising. */
 function driftText(d) {
   if (!d) return fmt.dash;
-  if (!d.raised) return h('span', {}, 'no drift', h('span', { class: 'sub' }, `test ${fmt.num(d.statistic, 0)} of ${fmt.num(d.threshold, 0)}`));
+  if (!d.raised) return h('span', {}, 'no drift', h('span', { class: 'sub' }, ` (test ${fmt.num(d.statistic, 0)} of ${fmt.num(d.threshold, 0)})`));
   return h('span', { class: 'lvl-text lvl-warn drift' },
     `drift +${fmt.kPerW(d.extra_k_per_w)} \u00b1${fmt.num(d.extra_se_k_per_w, 2)}`,
     h('span', { class: 'sub' },

@@ -7,6 +7,7 @@ from pathlib import Path
 
 from bench import (
     analyses_latency,
+    drift_false_alarms,
     estimator_batch,
     fault_classes,
     fleet,
@@ -44,8 +45,14 @@ def main() -> None:
     found = fault_classes.rows(report)
     print_rows(found)
     rows += found
+    drift = drift_false_alarms.measure()
+    found = drift_false_alarms.rows(drift)
+    print_rows(found)
+    rows += found
     path = Path(__file__).with_name("RESULTS.md")
-    appendix = fault_classes.section(report) + "\n" + GAPS.read_text()
+    appendix = "\n".join(
+        [fault_classes.section(report), drift_false_alarms.section(drift), GAPS.read_text()]
+    )
     write_results(rows, path, started=started, host=host, appendix=appendix)
     print("written to bench/RESULTS.md")
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import os
 import platform
+import re
 import statistics
 import time
 from collections.abc import Callable, Sequence
@@ -101,6 +102,20 @@ def write_results(
         + "\n"
         + (f"\n{appendix}" if appendix else "")
     )
+
+
+def write_section(text: str, heading: str, path: Path) -> None:
+    """Replace the section under ``heading`` in a results file (or put it before the unmet
+    targets' notes): a benchmark measured alone keeps the rest of the file."""
+    old = path.read_text()
+    pattern = re.compile(rf"{re.escape(heading)}\n.*?(?=\n## (?!#)|\Z)", re.S)
+    if pattern.search(old):
+        new = pattern.sub(lambda _: text.rstrip("\n") + "\n", old)
+    else:
+        marker = "## Targets not met"
+        cut = old.find(marker)
+        new = old + "\n" + text if cut < 0 else old[:cut] + text + "\n" + old[cut:]
+    path.write_text(new)
 
 
 def now_text() -> str:

@@ -10,7 +10,6 @@ replaces its section in bench/RESULTS.md; ``python -m bench`` includes it.
 
 from __future__ import annotations
 
-import re
 import time
 from collections import Counter
 from dataclasses import dataclass
@@ -19,7 +18,7 @@ from pathlib import Path
 import numpy as np
 from tests.buck_sim import FAULTS, random_case, simulate
 
-from bench.common import Row, machine, now_text
+from bench.common import Row, machine, now_text, write_section
 from phaseward.physics.signatures import classify_capture
 
 NOISE = (0.01, 0.02, 0.05)
@@ -113,24 +112,11 @@ def section(report: Report) -> str:
     return "\n".join(parts) + "\n"
 
 
-def write_section(text: str, path: Path = RESULTS) -> None:
-    """Replace this section in RESULTS.md (or put it before the unmet targets' notes)."""
-    old = path.read_text()
-    pattern = re.compile(rf"{re.escape(HEADING)}\n.*?(?=\n## (?!#)|\Z)", re.S)
-    if pattern.search(old):
-        new = pattern.sub(lambda _: text.rstrip("\n") + "\n", old)
-    else:
-        marker = "## Targets not met"
-        cut = old.find(marker)
-        new = old + "\n" + text if cut < 0 else old[:cut] + text + "\n" + old[cut:]
-    path.write_text(new)
-
-
 def main() -> None:
     report = measure()
     text = section(report)
     print(text)
-    write_section(text)
+    write_section(text, HEADING, RESULTS)
     print("section written to bench/RESULTS.md")
 
 

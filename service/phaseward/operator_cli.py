@@ -20,7 +20,7 @@ from typing import Any
 
 import httpx
 from phaseward_client import Client, Event, PhasewardError
-from phaseward_client.models import PhaseStatus
+from phaseward_client.models import DriftStatus, PhaseStatus
 from rich import box
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TaskProgressColumn, TextColumn
@@ -130,6 +130,43 @@ def reading_note(p: PhaseStatus) -> str:
     return "; ".join(notes) or "fresh"
 
 
+def drift_cell(d: DriftStatus | None) -> str:
+    """A cooling path's drift test in a table cell: the extra thermal resistance while an
+    episode is open, else how far the statistic is towards its threshold.
+
+    >>> from phaseward_client import DriftStatus
+    >>> drift_cell(DriftStatus(True, 2.0, 35.0, 1.21, 0.05, 1.8e9, 1.62, 0.04))
+    '+1.21 K/W'
+    >>> drift_cell(DriftStatus(False, 7.4, 35.0, None, None, None))
+    '7/35'
+    """
+    if d is None:
+        return "-"
+    if not d.raised:
+        return f"{d.statistic:.0f}/{d.threshold:.0f}"
+    return f"+{_n(d.extra_k_per_w, 2)} K/W"
+
+
+def drift_note(d: DriftStatus | None) -> str:
+    """A cooling path's drift test in words: the extra thermal resistance while an episode is
+    open, else how far the statistic is towards its threshold.
+
+    >>> from phaseward_client import DriftStatus
+    >>> drift_note(DriftStatus(True, 2.0, 35.0, 1.21, 0.05, 1.8e9, 1.62, 0.04))
+    'DRIFT +1.21 +- 0.05 K/W since it began, +1.62 +- 0.04 K/W recently'
+    >>> drift_note(DriftStatus(False, 7.4, 35.0, None, None, None))
+    'none (7/35)'
+    """
+    if d is None:
+        return "-"
+    if not d.raised:
+        return f"none ({d.statistic:.0f}/{d.threshold:.0f})"
+    text = f"DRIFT +{_n(d.extra_k_per_w, 2)} +- {_n(d.extra_se_k_per_w, 2)} K/W since it began"
+    if d.recent_k_per_w is not None:
+        text += f", +{_n(d.recent_k_per_w, 2)} +- {_n(d.recent_se_k_per_w, 2)} K/W recently"
+    return text
+
+
 def status(args: argparse.Namespace) -> int:
     with connected(args.url, embedded=False) as client:
         s = client.status(args.rail)
@@ -150,16 +187,22 @@ def status(args: argparse.Namespace) -> int:
     if s.load_assumed_a is not None:
         out.print(f"the load assumes {_n(s.load_assumed_a)} A for phases without a reading")
     table = _table(
-        "phase", "condition", "current A", "sensor degC", "junction degC", "share", "reading"
-    )
+        "phase", "condition", "current A", "sensor degC", "junction degC", "share", "reading",
+        "drift",
+    )  # fmt: skip
     junctions = th.estimated_junction_c if th is not None else []
     for p in s.phases:
         table.add_row(
             str(p.index), p.condition, _n(p.current_a), _n(p.temp_c),
             _n(junctions[p.index] if junctions else None), f"{100 * p.share:.1f} %",
-            reading_note(p),
+            reading_note(p), drift_cell(p.drift),
         )  # fmt: skip
     out.print(table)
+    for p in s.phases:
+        if p.drift is not None and p.drift.raised:
+            out.print(f"phase {p.index}: cooling drift to the board, {drift_note(p.drift)}")
+    if th is not None and th.board_drift is not None:
+        out.print(f"board path to ambient, cooling drift: {drift_note(th.board_drift)}")
     out.print(s.caution)
     return 0
 
@@ -200,6 +243,13 @@ def _security_lost(e: Event) -> bool:
     return e.kind == "capacity.exposed" and not e.cleared
 
 
+def _drift_recent(e: Event) -> str:
+    d = e.drift
+    if d is None or d.cleared or d.recent_k_per_w is None:
+        return ""
+    return f"; recently +{_n(d.recent_k_per_w, 2)} +- {_n(d.recent_se_k_per_w, 2)} K/W"
+
+
 def _fault_class(signature: dict[str, Any] | None) -> str:
     if not signature:
         return ""
@@ -215,7 +265,7 @@ def _event_lines(e: Event) -> str:
     when = e.time[:19].replace("T", " ")
     phase = "" if e.phase is None else f"  phase {e.phase}"
     head = f"#{e.id:<5} {when}  {e.severity:<8} {e.rail_id}  {event_kind(e)}{phase}"
-    message = e.message + _fault_class(e.details.get("signature"))
+    message = e.message + _fault_class(e.details.get("signature")) + _drift_recent(e)
     body = textwrap.fill(message, width=80, initial_indent="       ",
                          subsequent_indent="       ")  # fmt: skip
     return f"{head}\n{body}"

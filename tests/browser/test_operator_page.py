@@ -12,6 +12,7 @@ import httpx
 import pytest
 from tests.buck_sim import BuckCase, as_csv, columns, simulate
 from tests.factories import SMALL_RAIL, sample
+from tests.service.cuts import TRACES
 
 from phaseward.api.schemas.common import CAUTION
 
@@ -296,3 +297,25 @@ def test_first_complete_view_and_distinct_glyphs(
     assert degraded != warning
     assert "A6.5 6.5" in degraded  # the ring with one segment missing
     assert watched.page_errors == []
+
+
+def test_cooling_drift_shows_with_its_phase_and_estimate(
+    server: str, api: httpx.Client, page: Page, watched: Watched
+) -> None:
+    """The invented drift trace (phase 2 reads 4 K above its model from sample 20, on a rail
+    whose drift test is set tight): the phase row and the event name the extra resistance."""
+    trace = TRACES["drift"]
+    assert api.post("/v1/rails", json=trace.spec | {"id": "worn"}).status_code == 201
+    answer = api.post("/v1/rails/worn/samples", json=trace.samples[:45])
+    assert answer.status_code == 200, answer.text
+    page.goto(f"{server}/rails/worn")
+    phase2 = page.locator("#sec-phases tr[data-phase='2']")
+    expect(phase2.locator(".drift-cell")).to_contain_text("drift +")
+    expect(phase2.locator(".drift-cell")).to_contain_text("K/W")
+    expect(page.locator("#sec-phases tr[data-phase='0'] .drift-cell")).to_contain_text("no drift")
+    drift = page.locator("#sec-events tr[data-kind='thermal.drift']")
+    expect(drift).to_contain_text(
+        "Extra thermal resistance, phase 2 to the board: +", timeout=60_000
+    )
+    expect(page.locator("#sec-thermal")).to_contain_text("Board path cooling")
+    same_origin_only(watched, server)

@@ -3,9 +3,11 @@ READ_IIN and READ_TEMPERATURE_1 are LINEAR11 (bits 15..11 = N, 5-bit two's compl
 10..0 = Y, 11-bit two's complement; value = Y * 2**N), READ_VOUT is LINEAR16 (value = V * 2**N,
 N from VOUT_MODE bits 4..0); STATUS_IOUT bit 7 = IOUT_OC_FAULT, bit 5 = IOUT_OC_WARNING;
 STATUS_TEMPERATURE bit 7 = OT_FAULT, bit 6 = OT_WARNING, bit 4 = UT_FAULT; STATUS_INPUT bit 3 =
-unit off for low input voltage, bit 2 = IIN_OC_FAULT, bit 1 = IIN_OC_WARNING (bit positions
-from memory, as in physics/pmbus.py). Every word below is worked out by hand from those definitions
-and decoded the way ingest does (schema -> monitor.telemetry.to_batch).
+unit off for low input voltage, bit 2 = IIN_OC_FAULT, bit 1 = IIN_OC_WARNING; STATUS_VOUT
+bit 7 = VOUT_OV_FAULT, bit 6 = VOUT_OV_WARNING, bit 5 = VOUT_UV_WARNING, bit 4 = VOUT_UV_FAULT,
+bit 2 = TON_MAX_FAULT (bit positions from memory, as in physics/pmbus.py). Every word below is
+worked out by hand from those definitions and decoded the way ingest does (schema ->
+monitor.telemetry.to_batch).
 """
 
 from typing import Any
@@ -22,9 +24,11 @@ from phaseward.monitor.telemetry import (
     FLAG_DRIVER_OFF,
     FLAG_OVERCURRENT,
     FLAG_OVERTEMP,
+    FLAG_VOUT_FAULT,
     SampleBatch,
     to_batch,
 )
+from phaseward.physics.pmbus import decode_status_vout
 
 VIN_12 = 0xD300  # N = 11010b = -6, Y = 0x300 = 768 -> 768 / 64 = 12.0 V
 VIN_11_984 = 0xD2FF  # Y = 767 -> 11.984375 V
@@ -84,6 +88,17 @@ def test_status_input_sets_flags() -> None:
               words(2, status_input=0x08), words(3, status_input=0x00)]  # fmt: skip
     flags = batch(phases).flags[0].tolist()
     assert flags == [FLAG_OVERCURRENT, 0, FLAG_DRIVER_OFF, 0]
+
+
+def test_status_vout_faults_set_the_vout_fault_flag_only() -> None:
+    """0x80 = bit 7 (OV fault), 0x10 = bit 4 (UV fault), 0x60 = bits 6 and 5 (the two
+    warnings), 0x04 = bit 2 (TON_MAX fault: not an output voltage outside its limits)."""
+    phases = [words(0, status_vout=0x80), words(1, status_vout=0x10),
+              words(2, status_vout=0x60), words(3, status_vout=0x04)]  # fmt: skip
+    flags = batch(phases).flags[0].tolist()
+    assert flags == [FLAG_VOUT_FAULT, FLAG_VOUT_FAULT, 0, 0]
+    assert decode_status_vout(0x60) == {"VOUT_OV_WARNING", "VOUT_UV_WARNING"}
+    assert decode_status_vout(0x04) == {"TON_MAX_FAULT"}
 
 
 def test_read_vout_needs_the_rails_vout_mode() -> None:

@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
+from tests.drift_sim import simulate
 from tests.factories import rail_spec
 
 from phaseward.api.schemas.samples import SAMPLES, to_incoming
@@ -221,6 +222,20 @@ def thermal_excursion() -> Trace:
     return Trace("thermal", spec, _bodies(t, cur, temp, ambient=ambient))
 
 
+def cooling_drift() -> Trace:
+    """Phase 2 reads 4 K above its model from sample 20 to 55 (its cooling lost for a while)
+    on a rail whose drift test is set tight (h 6, k 0.5): a thermal.drift raised and cleared.
+    Readings from the network itself (tests/drift_sim.py) at 22.5 A a phase."""
+    rng = np.random.default_rng(6)
+    n = 90
+    t = _clock(n, rng, step_s=1.0, jitter=0.02)
+    cur = np.full((n, 4), 22.5)
+    _, temp = simulate(np.full((n, 4), 2.44), 1.0, 25.0, rng)
+    temp[20:55, 2] += 4.0
+    spec = rail_spec(monitor={"drift_threshold": 6.0, "drift_reference": 0.5})
+    return Trace("drift", spec, _bodies(t, cur, temp))
+
+
 TRACES = {
     trace.name: trace
     for trace in (
@@ -229,5 +244,6 @@ TRACES = {
         dropouts_and_supply(),
         exposed_then_trip(),
         thermal_excursion(),
+        cooling_drift(),
     )
 }

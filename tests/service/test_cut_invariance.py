@@ -135,6 +135,11 @@ async def test_every_trace_raises_the_events_it_was_invented_for(
     assert {"telemetry.gap", "input.undervoltage", "output.excursion"} <= kinds["dropout"]
     assert {"phase.isolated", "rail.condition", "capacity.exposed"} <= kinds["exposed"]
     assert {"thermal.warning", "thermal.forecast"} <= kinds["thermal"]
+    drift, _ = await reference(client, app, TRACES["drift"])
+    assert [(e[1], e[6]["cleared"]) for e in drift if e[0] == "thermal.drift"] == [
+        (2, False),
+        (2, True),
+    ]
 
 
 # ---------------------------------------------------------------- the cases measured in issue 12

@@ -10,9 +10,11 @@ import pytest
 
 import phaseward_client.errors
 from phaseward_client import (
+    DriftStatus,
     Event,
     EventPage,
     IngestResult,
+    PhaseStatus,
     PhasewardError,
     RetryPolicy,
     UnexpectedResponse,
@@ -109,3 +111,34 @@ def test_retry_policy() -> None:
     assert all(3.0 <= policy.delay_s(0, told, rng) <= 3.1 for _ in range(50))
     far = PhasewardError(429, "too_many", "wait", retry_after_s=1e6)
     assert policy.delay_s(0, far, rng) <= policy.max_retry_after_s + 0.1
+
+
+def test_a_drift_event_has_typed_details() -> None:
+    details = {
+        "channel": "phase", "extra_k_per_w": 1.21, "extra_se_k_per_w": 0.05,
+        "recent_k_per_w": 1.6, "recent_se_k_per_w": 0.04, "statistic": 35.2, "threshold": 35.0,
+        "since_t_s": 1.8e9, "samples": 1290, "cleared": False, "seq": 7,
+    }  # fmt: skip
+    event = Event.from_json({**EVENT, "kind": "thermal.drift", "details": details})
+    drift = event.drift
+    assert drift is not None
+    assert (drift.channel, drift.extra_k_per_w, drift.samples) == ("phase", 1.21, 1290)
+    assert not drift.cleared
+    assert Event.from_json(EVENT).drift is None
+    with pytest.raises(UnexpectedResponse, match=r"details\.samples: missing"):
+        _ = Event.from_json({**EVENT, "kind": "thermal.drift",
+                             "details": {k: v for k, v in details.items() if k != "samples"}
+                             }).drift  # fmt: skip
+
+
+def test_status_carries_the_drift_of_each_path() -> None:
+    drift = {"raised": True, "statistic": 3.0, "threshold": 35.0, "extra_k_per_w": 1.5,
+             "extra_se_k_per_w": 0.1, "since_s": 1.8e9, "recent_k_per_w": None,
+             "recent_se_k_per_w": None}  # fmt: skip
+    phase = PhaseStatus.from_json({
+        "index": 1, "condition": "active", "current_a": 20.0, "temp_c": 60.0, "share": 0.25,
+        "rated_current_a": 30.0, "junction_limit_c": 125.0, "flags": [], "drift": drift,
+    })  # fmt: skip
+    assert isinstance(phase.drift, DriftStatus)
+    assert phase.drift.raised
+    assert phase.drift.extra_k_per_w == 1.5

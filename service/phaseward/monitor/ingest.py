@@ -10,8 +10,9 @@ as one batch; a sample two of them carry is stored and judged once.
 
 Events and the live state are a pure function of the sample sequence, however it was cut into
 requests. Everything carried from one batch to the next (debounce tails, hysteresis latches,
-sharing weights, the Kalman estimate, the last verdict) is the state the same recurrence would
-hold after that sample, and where the rail is assessed depends on the samples alone:
+sharing weights, the Kalman estimate, the drift test's statistics and windows, the last
+verdict) is the state the same recurrence would hold after that sample, and where the rail is
+assessed depends on the samples alone:
 
 * phase conditions are judged at every sample against the one before it (the previous
   batch's last sample for a batch's first);
@@ -46,7 +47,7 @@ import numpy.typing as npt
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.errors import Conflict, InvalidInput, NotFound
-from phaseward.monitor import fault_class, rail_model
+from phaseward.monitor import drift_watch, fault_class, rail_model
 from phaseward.monitor.assess import Assessment, assess, hottest_margin
 from phaseward.monitor.conditions import (
     ACTIVE,
@@ -62,6 +63,7 @@ from phaseward.monitor.conditions import (
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.rejections import record_rejection
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
+from phaseward.physics.drift import InnovationScale
 from phaseward.physics.estimator import EstimatorState, initial_from_readings, kalman_run
 from phaseward.physics.plausibility import RULES
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c
@@ -252,16 +254,17 @@ def advance(
     received, batch = batch, judgement.clean  # judged without its implausible readings
     ambient = np.where(np.isfinite(batch.ambient_c), batch.ambient_c, model.ambient_c)
     current = np.where(np.isfinite(batch.current_a), batch.current_a, 0.0)
-    nodes, junction_std, estimate = _estimate(
+    nodes, junction_std, estimate, drift_in = _estimate(
         model, batch, judgement.codes, current, ambient, previous
     )
+    drift_state, drift_found = drift_watch.watch(model, drift_in, batch.t_s, previous)
 
     prior = previous.get("rail", {})
     signature = _signature(model, judgement, current, nodes[1:], ambient, batch.vout_v)
     points, reference = _assessment_points(
         model, batch, judgement.codes, signature, previous if prior else {}
     )
-    findings = list(judgement.findings)
+    findings = list(judgement.findings) + drift_found
     for k in points:
         verdict = assess(
             model, codes=judgement.codes[k], current_a=current[k],
@@ -283,6 +286,7 @@ def advance(
         "nodes_c": nodes[-1].tolist(),
         "junction_std_k": junction_std[-1].tolist(),
         "estimate": {"mean_c": estimate.mean_c.tolist(), "cov_k2": estimate.cov_k2.tolist()},
+        "drift": drift_state,
         "sample": {
             "seq": int(batch.seq[last]),
             "t_s": float(batch.t_s[last]),
@@ -412,9 +416,11 @@ def _estimate(
     current: F64,
     ambient: F64,
     previous: dict[str, Any],
-) -> tuple[F64, F64, EstimatorState]:
+) -> tuple[F64, F64, EstimatorState, drift_watch.DriftInput]:
     """Kalman estimate of every node at the previous sample and at each sample of the batch:
-    node means (n + 1, n_nodes), junction std (n + 1, n_phases), and the final estimate.
+    node means (n + 1, n_nodes), junction std (n + 1, n_phases), the final estimate, and what
+    the drift test takes of each sample (normalised innovations, NaN where none; the scale of
+    the step it was filtered at; the loss held over the interval).
 
     The network is driven by the measured currents through the loss model, each held until
     the next sample with the ambient of the sample that starts the interval, and corrected by
@@ -458,6 +464,10 @@ def _estimate(
     n_nodes = model.network.n_nodes
     means = [state.mean_c]
     stds = [np.sqrt(np.diag(state.cov_k2))[model.network.junction_node]]
+    junction = model.network.junction_node
+    z = np.full((batch.n, model.n_phases), np.nan)  # normalised innovations (none: NaN)
+    scale = np.ones((3, batch.n, model.n_phases))  # InnovationScale of each sample's step
+    held_w = np.zeros((batch.n, model.n_phases))  # loss held over each interval
     try:
         for lo, hi, step in _step_runs(dt):
             if step <= 0.0:  # samples at one instant: nothing to propagate
@@ -473,12 +483,19 @@ def _estimate(
             state = trace.final
             means.extend(trace.means_c[1:])
             stds.extend(trace.junction_std_k[1:])
+            held_w[lo:hi] = power0[lo:hi] + power_slope[lo:hi] * trace.means_c[:-1, junction]
+            innovation = drift_watch.steady(model, step)
+            if innovation is not None:
+                z[lo:hi] = trace.innovation_z
+                sc = innovation.scale
+                scale[:, lo:hi] = np.stack([sc.std_k, sc.own_gain, sc.row_gain])[:, None, :]
     except ThermalRunaway:
         # The losses outgrow the network's conductance: the assessment reports runaway;
         # keep the last finite estimate rather than numbers that mean nothing.
         means.extend([means[-1]] * (batch.n + 1 - len(means)))
         stds.extend([stds[-1]] * (batch.n + 1 - len(stds)))
-    return np.asarray(means)[:, :n_nodes], np.asarray(stds), state
+    drift_in = drift_watch.DriftInput(z, InnovationScale(*scale), held_w)
+    return np.asarray(means)[:, :n_nodes], np.asarray(stds), state, drift_in
 
 
 STEP_GRID = 0.005  # relative: each interval is propagated with its length on this grid

@@ -46,6 +46,9 @@ class MonitorRules:
     # Absent from definitions stored before sharing could be declared.
     share_learning_rate: float = 0.2
     share_significance: float = 5.0
+    # Cooling drift (monitor/drift_watch.py): absent from definitions stored before it.
+    drift_reference: float = 0.25
+    drift_threshold: float = 35.0
 
 
 @dataclass(frozen=True)

@@ -8,7 +8,7 @@ import numpy as np
 import numpy.typing as npt
 from sqlalchemy.orm import Session
 
-from phaseward.monitor import rail_model
+from phaseward.monitor import drift_watch, rail_model
 from phaseward.monitor import rails as rail_service
 from phaseward.monitor.assess import hottest_margin
 from phaseward.monitor.ripple_view import ripple_view
@@ -47,6 +47,7 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
     limit = model.temp_limit_c
     junction = np.asarray(s["nodes_c"])[model.network.junction_node]  # estimates, not sensors
     hottest, margin = hottest_margin(model, np.asarray(s["nodes_c"]), active)
+    drift = drift_watch.view(model, s.get("drift"))
     out.update(
         condition=verdict["condition"],
         state_version=live.version,
@@ -86,6 +87,7 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
             "estimated_junction_c": [s["nodes_c"][j] for j in model.network.junction_node.tolist()],
             "junction_std_k": s["junction_std_k"],
             "board_c": s["nodes_c"][model.network.board_node],
+            "board_drift": drift[-1],
         },
         screening={"n1_secure": verdict["n1_secure"], "weakest": verdict["n1_weakest"]},
         ripple=ripple_view(model, active, spec.get("output")),
@@ -105,6 +107,7 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
                 "reading_age_s": p.get("reading_age_s"),
                 "assumed_a": p.get("assumed_a"),
                 "implausible": p.get("implausible"),
+                "drift": drift[i],
             }
             for i, p in enumerate(s["phases"])
         ],

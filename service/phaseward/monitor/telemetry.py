@@ -24,11 +24,13 @@ FLAG_BREAKER = 1  # input circuit breaker (hot-swap) tripped
 FLAG_DRIVER_OFF = 2  # driver disabled
 FLAG_OVERCURRENT = 4
 FLAG_OVERTEMP = 8
+FLAG_VOUT_FAULT = 16  # the device reports its output outside its fault limits (informs only)
 FLAG_NAMES = {
     "breaker_tripped": FLAG_BREAKER,
     "driver_disabled": FLAG_DRIVER_OFF,
     "overcurrent": FLAG_OVERCURRENT,
     "overtemperature": FLAG_OVERTEMP,
+    "vout_fault": FLAG_VOUT_FAULT,
 }
 ISOLATING_FLAGS = FLAG_BREAKER | FLAG_DRIVER_OFF
 NO_WORD = -1

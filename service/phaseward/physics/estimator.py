@@ -490,8 +490,11 @@ class KalmanTrace(NamedTuple):
 
     final: the estimate after the last step; means_c: (n_steps + 1, n_states) degC, row 0 the
     starting mean; junction_std_k: (n_steps + 1, n_phases) K, std of each junction estimate;
-    innovation_z: (n_steps, n_phases), each reading's innovation (reading - offset - predicted
-    sensed temperature) over its standard deviation sqrt(S_pp), NaN where there is no reading.
+    innovation_z: (n_steps, n_phases) normalised innovation of each reading, (reading - offset
+    - predicted sensed temperature) / sqrt(S_pp) with S = H P- H^T + R the innovation
+    covariance before the update (NaN where no reading). For a filter whose model matches the
+    data it is N(0, 1) and white (Bar-Shalom et al., ch. 5.4, from memory): what a sequential
+    test for a persistent model error watches.
     """
 
     final: EstimatorState
@@ -563,10 +566,10 @@ def kalman_run(
     >>> final, means, std, z = kalman_run(net, start, 0.5, np.full((n, 1), 2.0),
     ...     np.zeros((n, 1)), 25.0, np.full((n, 1), 31.0), process_noise_w=0.05,
     ...     sensor_noise_k=0.3, sensor_tau_s=2.0)
-    >>> means.shape, std.shape, z.shape, round(float(means[-1, 0]), 2)
-    ((401, 3), (401, 1), (400, 1), 31.0)
-    >>> bool(std[-1, 0] < std[0, 0])
-    True
+    >>> means.shape, std.shape, round(float(means[-1, 0]), 2), bool(std[-1, 0] < std[0, 0])
+    ((401, 3), (401, 1), 31.0, True)
+    >>> z.shape, bool(abs(z[-1, 0]) < 0.1)  # settled on the readings: nothing unexpected
+    ((400, 1), True)
     """
     model = discrete_model(
         net,

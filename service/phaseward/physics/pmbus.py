@@ -87,6 +87,21 @@ STATUS_INPUT_BITS: Final[Mapping[str, int]] = MappingProxyType(
     }
 )
 
+# STATUS_VOUT: PMBus Part II, STATUS_VOUT command section (17.3 in revision 1.2; from memory;
+# bits 7..4 agree with the voltage bits of the Linux hwmon PMBus driver header).
+STATUS_VOUT_BITS: Final[Mapping[str, int]] = MappingProxyType(
+    {
+        "VOUT_TRACKING_ERROR": 0,
+        "TOFF_MAX_WARNING": 1,
+        "TON_MAX_FAULT": 2,
+        "VOUT_MAX_MIN_WARNING": 3,
+        "VOUT_UV_FAULT": 4,
+        "VOUT_UV_WARNING": 5,
+        "VOUT_OV_WARNING": 6,
+        "VOUT_OV_FAULT": 7,
+    }
+)
+
 
 def _unsigned(raw: npt.ArrayLike, name: str, bits: int) -> IntArray:
     """Validate integer field(s) in 0 .. 2**bits - 1 and return them as int64."""
@@ -250,6 +265,15 @@ def decode_status_temperature(byte: int | np.integer[Any]) -> frozenset[str]:
     return _decode_one(byte, "byte", 8, STATUS_TEMPERATURE_BITS)
 
 
+def decode_status_vout(byte: int | np.integer[Any]) -> frozenset[str]:
+    """Names of the bits set in a STATUS_VOUT byte (see ``STATUS_VOUT_BITS``).
+
+    >>> sorted(decode_status_vout(0x90))  # over- and under-voltage fault
+    ['VOUT_OV_FAULT', 'VOUT_UV_FAULT']
+    """
+    return _decode_one(byte, "byte", 8, STATUS_VOUT_BITS)
+
+
 def status_word_flags(words: npt.ArrayLike) -> dict[str, BoolArray]:
     """One boolean array (shape of ``words``) per STATUS_WORD bit name.
 
@@ -276,6 +300,15 @@ def status_temperature_flags(bytes_: npt.ArrayLike) -> dict[str, BoolArray]:
     [True, False]
     """
     return _flags(_unsigned(bytes_, "bytes", 8), STATUS_TEMPERATURE_BITS)
+
+
+def status_vout_flags(bytes_: npt.ArrayLike) -> dict[str, BoolArray]:
+    """One boolean array (shape of ``bytes_``) per STATUS_VOUT bit name.
+
+    >>> status_vout_flags([0x00, 0x80, 0x40])["VOUT_OV_FAULT"].tolist()
+    [False, True, False]
+    """
+    return _flags(_unsigned(bytes_, "bytes", 8), STATUS_VOUT_BITS)
 
 
 def status_input_flags(bytes_: npt.ArrayLike) -> dict[str, BoolArray]:

@@ -8,9 +8,11 @@ from hypothesis import strategies as st
 from phaseward.physics.pmbus import (
     STATUS_IOUT_BITS,
     STATUS_TEMPERATURE_BITS,
+    STATUS_VOUT_BITS,
     STATUS_WORD_BITS,
     decode_status_iout,
     decode_status_temperature,
+    decode_status_vout,
     decode_status_word,
     linear11_decode,
     linear11_encode,
@@ -109,6 +111,7 @@ def test_linear16_encode_range() -> None:
 def test_status_tables_are_complete_and_distinct() -> None:
     assert sorted(STATUS_WORD_BITS.values()) == list(range(16))
     assert sorted(STATUS_IOUT_BITS.values()) == list(range(8))
+    assert sorted(STATUS_VOUT_BITS.values()) == list(range(8))
     assert sorted(STATUS_TEMPERATURE_BITS.values()) == [4, 5, 6, 7]
     assert {"OFF", "INPUT", "IOUT_OC_FAULT", "TEMPERATURE", "POWER_GOOD#"} <= set(STATUS_WORD_BITS)
 
@@ -121,6 +124,11 @@ def test_each_status_word_bit_decodes_alone(name: str, bit: int) -> None:
 @pytest.mark.parametrize(("name", "bit"), sorted(STATUS_IOUT_BITS.items()))
 def test_each_status_iout_bit_decodes_alone(name: str, bit: int) -> None:
     assert decode_status_iout(1 << bit) == {name}
+
+
+@pytest.mark.parametrize(("name", "bit"), sorted(STATUS_VOUT_BITS.items()))
+def test_each_status_vout_bit_decodes_alone(name: str, bit: int) -> None:
+    assert decode_status_vout(1 << bit) == {name}
 
 
 def test_status_temperature_ignores_reserved_bits() -> None:

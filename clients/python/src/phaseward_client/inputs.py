@@ -53,6 +53,7 @@ class PhaseReading:
     driver_disabled: bool = False
     overcurrent: bool = False
     overtemperature: bool = False
+    vout_fault: bool = False
     status_word: int | None = None
     read_vin: int | None = None
     read_iin: int | None = None
@@ -61,6 +62,7 @@ class PhaseReading:
     status_iout: int | None = None
     status_temperature: int | None = None
     status_input: int | None = None
+    status_vout: int | None = None
 
     def to_json(self) -> JsonObject:
         given = [v is not None for v in (self.current_a, self.sense_v, self.read_iout)]
@@ -77,7 +79,9 @@ class PhaseReading:
             out["read_iout"] = int(self.read_iout)
         if self.temp_c is not None:
             out["temp_c"] = finite(self.temp_c, f"phase {self.index} temp_c")
-        for flag in ("breaker_tripped", "driver_disabled", "overcurrent", "overtemperature"):
+        for flag in (
+            "breaker_tripped", "driver_disabled", "overcurrent", "overtemperature", "vout_fault",
+        ):  # fmt: skip
             if getattr(self, flag):
                 out[flag] = True
         for word in _WORDS:
@@ -87,7 +91,7 @@ class PhaseReading:
 
 
 _WORDS = ("status_word", "read_vin", "read_iin", "read_vout", "read_temperature_1",
-          "status_iout", "status_temperature", "status_input")  # fmt: skip
+          "status_iout", "status_temperature", "status_input", "status_vout")  # fmt: skip
 
 
 @dataclass(frozen=True)

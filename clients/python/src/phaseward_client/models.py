@@ -166,6 +166,39 @@ class Implausible(Model):
 
 
 @dataclass(frozen=True)
+class DriftStatus(Model):
+    """Cooling drift of one path (a phase's to the board, or the board's to ambient): the
+    CUSUM statistic against its threshold (in innovation standard deviations), whether a
+    ``thermal.drift`` episode is open, and the extra thermal resistance the readings imply
+    (K/W, with standard errors) over the window since ``since_s`` and over recent samples."""
+
+    raised: bool
+    statistic: float
+    threshold: float
+    extra_k_per_w: float | None
+    extra_se_k_per_w: float | None
+    since_s: float | None
+    recent_k_per_w: float | None = None
+    recent_se_k_per_w: float | None = None
+
+
+@dataclass(frozen=True)
+class DriftEvent(Model):
+    """The details of a ``thermal.drift`` event (see :attr:`Event.drift`)."""
+
+    channel: str  # "phase" or "board"
+    cleared: bool
+    statistic: float | None
+    threshold: float
+    extra_k_per_w: float | None
+    extra_se_k_per_w: float | None
+    since_t_s: float | None
+    samples: int
+    recent_k_per_w: float | None = None
+    recent_se_k_per_w: float | None = None
+
+
+@dataclass(frozen=True)
 class PhaseStatus(Model):
     index: int
     condition: str
@@ -182,6 +215,7 @@ class PhaseStatus(Model):
     # The share from the learned sharing, and from the definition (capacity uses ``share``).
     share_learned: float | None = None
     share_declared: float | None = None
+    drift: DriftStatus | None = None  # cooling drift of the phase's path to the board
 
 
 @dataclass(frozen=True)
@@ -220,6 +254,7 @@ class ThermalStatus(Model):
     estimated_junction_c: list[float]
     junction_std_k: list[float]
     board_c: float
+    board_drift: DriftStatus | None = None  # cooling drift of the board's path to ambient
 
 
 @dataclass(frozen=True)
@@ -291,6 +326,13 @@ class Event(Model):
     def cleared(self) -> bool:
         """A watch clearing (same kind as the one it clears, severity info)."""
         return self.details.get("cleared") is True
+
+    @property
+    def drift(self) -> DriftEvent | None:
+        """The typed details of a ``thermal.drift`` event (None for other kinds)."""
+        if self.kind != "thermal.drift":
+            return None
+        return DriftEvent.from_json(self.details, path=f"Event {self.id}.details")
 
 
 @dataclass(frozen=True)

@@ -161,6 +161,21 @@ class MonitorSpec(Contract):
     # shares it uses by more than share_significance standard errors (an EWMA chart).
     share_learning_rate: Annotated[float, Field(ge=1e-4, le=1)] = 0.2
     share_significance: Annotated[float, Field(ge=1, le=20)] = 5.0
+    # Cooling drift: Page's CUSUM on the estimator's normalised innovations (README, "Cooling
+    # drift"). k = 0.25 looks for a shift of half a standard deviation; h = 35 puts the
+    # in-control run length near 6e8 samples per channel by Siegmund's approximation
+    # (about 19 years at 1 Hz; bench/drift_false_alarms.py measures the rate).
+    drift_reference: Annotated[float, Field(ge=0.05, le=5)] = Field(
+        default=0.25,
+        description="CUSUM reference value k, in standard deviations of the innovation: "
+        "half the smallest persistent shift worth finding",
+    )
+    drift_threshold: Annotated[float, Field(ge=2, le=1000)] = Field(
+        default=35.0,
+        description="CUSUM decision interval h, in standard deviations: larger means rarer "
+        "false alarms and later detection (35: about one false alarm in 19 years per phase "
+        "at one sample per second)",
+    )
     stale_s: Annotated[float, Field(gt=0, le=86400)] = Field(
         default=5.0,
         description="a phase not reported (or read implausibly) keeps its last good reading "

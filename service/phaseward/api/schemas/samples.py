@@ -17,6 +17,7 @@ from phaseward.monitor.telemetry import (
     FLAG_NAMES,
     FLAG_OVERCURRENT,
     FLAG_OVERTEMP,
+    FLAG_VOUT_FAULT,
     NO_WORD,
     IncomingSamples,
 )
@@ -24,6 +25,7 @@ from phaseward.physics.pmbus import (
     status_input_flags,
     status_iout_flags,
     status_temperature_flags,
+    status_vout_flags,
     status_word_flags,
 )
 
@@ -70,6 +72,11 @@ class PhaseReading(Contract):
     driver_disabled: bool = False
     overcurrent: bool = False
     overtemperature: bool = False
+    vout_fault: bool = Field(
+        default=False,
+        description="the device reports its output voltage outside its fault limits "
+        "(informs; does not isolate the phase: the output is shared)",
+    )
     status_word: Word | None = Field(
         default=None,
         description="PMBus STATUS_WORD: OFF sets driver_disabled, IOUT_OC_FAULT overcurrent, "
@@ -89,6 +96,9 @@ class PhaseReading(Contract):
     status_input: Byte | None = Field(
         default=None,
         description="IIN_OC_FAULT sets overcurrent; UNIT_OFF_LOW_VIN sets driver_disabled",
+    )
+    status_vout: Byte | None = Field(
+        default=None, description="VOUT_OV_FAULT or VOUT_UV_FAULT sets vout_fault"
     )
 
     @model_validator(mode="after")
@@ -155,7 +165,9 @@ BODY_SCHEMA = TypeAdapter(SampleIn | list[SampleIn]).json_schema(
 BODY_COMPONENTS: dict[str, Any] = BODY_SCHEMA.pop("$defs")
 
 
-STATUS_WORDS = ("status_word", "status_iout", "status_temperature", "status_input")
+STATUS_WORDS = (
+    "status_word", "status_iout", "status_temperature", "status_input", "status_vout",
+)  # fmt: skip
 
 
 def reading_flags(
@@ -178,11 +190,16 @@ def reading_flags(
     iout = decoded("status_iout", status_iout_flags)
     hot = decoded("status_temperature", status_temperature_flags)
     inputs = decoded("status_input", status_input_flags)
+    vout = decoded("status_vout", status_vout_flags)
     # UNIT_OFF_LOW_VIN: the stage stopped switching, the hardware has acted.
     off = word["OFF"] | inputs["UNIT_OFF_LOW_VIN"]
     over = word["IOUT_OC_FAULT"] | iout["IOUT_OC_FAULT"] | inputs["IIN_OC_FAULT"]
     warm = word["TEMPERATURE"] | hot["OT_FAULT"] | hot["OT_WARNING"]
-    for set_, bit in ((off, FLAG_DRIVER_OFF), (over, FLAG_OVERCURRENT), (warm, FLAG_OVERTEMP)):
+    vout_fault = vout["VOUT_OV_FAULT"] | vout["VOUT_UV_FAULT"]
+    for set_, bit in (
+        (off, FLAG_DRIVER_OFF), (over, FLAG_OVERCURRENT), (warm, FLAG_OVERTEMP),
+        (vout_fault, FLAG_VOUT_FAULT),
+    ):  # fmt: skip
         flags |= np.where(set_, bit, 0).astype(np.uint8)
     return flags
 

@@ -14,6 +14,31 @@ class Implausible(BaseModel):
     temp_c: float | None = Field(description="as received")
 
 
+class DriftStatus(BaseModel):
+    """Cooling drift of one path (a phase's to the board, or the board's to ambient): Page's
+    CUSUM on the estimator's normalised innovations (README, "Cooling drift")."""
+
+    raised: bool = Field(description="a thermal.drift episode is open")
+    statistic: float = Field(
+        description="the CUSUM statistic, in innovation standard deviations: the upper one "
+        "(raise at threshold) while no episode is open, the clearing one while it is"
+    )
+    threshold: float = Field(description="the rail's monitor.drift_threshold (h)")
+    extra_k_per_w: float | None = Field(
+        description="extra thermal resistance the readings imply over the window, K/W"
+    )
+    extra_se_k_per_w: float | None = Field(description="its standard error, K/W")
+    recent_k_per_w: float | None = Field(
+        description="the same with older samples of the window discounted (a memory of about "
+        "600 samples): the present value while the resistance still rises, K/W"
+    )
+    recent_se_k_per_w: float | None = Field(description="its standard error, K/W")
+    since_s: float | None = Field(
+        description="time of the window's first sample: where the statistic last stood at "
+        "zero, the estimated start of the shift (null: no window)"
+    )
+
+
 class PhaseStatus(BaseModel):
     index: int
     condition: str = Field(description="active, isolated, suspect or silent")
@@ -41,6 +66,9 @@ class PhaseStatus(BaseModel):
     )
     implausible: Implausible | None = Field(
         default=None, description="the newest reading broke a plausibility rule (suspect)"
+    )
+    drift: DriftStatus | None = Field(
+        default=None, description="cooling drift of the phase's path to the board"
     )
 
 
@@ -97,6 +125,9 @@ class ThermalStatus(BaseModel):
     )
     junction_std_k: list[float] = Field(description="one standard deviation of each estimate")
     board_c: float = Field(description="estimated temperature of the shared board node")
+    board_drift: DriftStatus | None = Field(
+        default=None, description="cooling drift of the board's path to ambient"
+    )
 
 
 class Screening(BaseModel):

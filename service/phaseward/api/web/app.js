@@ -461,7 +461,20 @@ function renderThermal(st, spec) {
       fact('Margin to warning line', h('span', { class: th.margin_to_warning_k != null && th.margin_to_warning_k < 0 ? 'neg' : '' }, fmt.kelvin(th.margin_to_warning_k))),
       fact('Reaches warning line', th.runaway ? 'thermal runaway: no steady state'
         : th.time_to_warning_s == null ? 'not within the watch horizon' : `in ${fmt.duration(th.time_to_warning_s)} (phase ${th.warning_phase})`),
-      fact('Board', fmt.celsius(th.board_c))));
+      fact('Board', fmt.celsius(th.board_c)),
+      fact('Board path cooling', driftText(th.board_drift))));
+}
+
+/** Cooling drift of one path (status ``drift``): the extra thermal resistance the readings
+ * imply while a thermal.drift episode is open, else how far the test stands from raising. */
+function driftText(d) {
+  if (!d) return fmt.dash;
+  if (!d.raised) return h('span', {}, 'no drift', h('span', { class: 'sub' }, ` (test ${fmt.num(d.statistic, 0)} of ${fmt.num(d.threshold, 0)})`));
+  return h('span', { class: 'lvl-text lvl-warn drift' },
+    `drift +${fmt.kPerW(d.extra_k_per_w)} \u00b1${fmt.num(d.extra_se_k_per_w, 2)}`,
+    h('span', { class: 'sub' },
+      d.recent_k_per_w != null ? `recently +${fmt.kPerW(d.recent_k_per_w)} \u00b1${fmt.num(d.recent_se_k_per_w, 2)}` : '',
+      d.since_s != null ? ` \u00b7 since ${fmt.utc(d.since_s)}` : ''));
 }
 
 /** Per phase: junction limit, warning line (limit minus warning margin), current limits. */
@@ -530,11 +543,12 @@ function renderPhases(st, spec) {
         gauge({ value: est, lo: jLo, hi: jHi, state: jState, marks: [{ at: lim.hold, kind: 'hold' }, { at: lim.limit, kind: 'limit' }] }),
         h('span', { class: 'sub' }, lim.hold != null ? `warning ${fmt.celsius(lim.hold, 0)} \u00b7 ` : '', `limit ${fmt.celsius(lim.limit, 0)}`)),
       h('td', { class: 'num' }, fmt.celsius(p.temp_c)),
-      h('td', {}, p.flags.length ? p.flags.map((f) => f.replace(/_/g, ' ')).join(', ') : fmt.dash));
+      h('td', {}, p.flags.length ? p.flags.map((f) => f.replace(/_/g, ' ')).join(', ') : fmt.dash),
+      h('td', { class: 'drift-cell' }, driftText(p.drift)));
   });
   replaceKeepingFocus(body,
     tableBox('Phases', h('table', { class: 'phases' },
-      h('caption', { class: 'visually-hidden' }, 'Per phase: condition, current against its rating, estimated junction temperature against its limit'),
+      h('caption', { class: 'visually-hidden' }, 'Per phase: condition, current against its rating, estimated junction temperature against its limit, cooling drift'),
       h('thead', {}, h('tr', {},
         h('th', { scope: 'col' }, 'Phase'),
         h('th', { scope: 'col' }, 'Condition'),
@@ -542,7 +556,8 @@ function renderPhases(st, spec) {
         h('th', { scope: 'col' }, 'Share'),
         h('th', { scope: 'col' }, 'Junction (estimate)'),
         h('th', { scope: 'col' }, 'Sensor'),
-        h('th', { scope: 'col' }, 'Flags'))),
+        h('th', { scope: 'col' }, 'Flags'),
+        h('th', { scope: 'col' }, 'Cooling (to the board)'))),
       h('tbody', {}, rows))),
     gaugeKey());
 }
@@ -667,7 +682,7 @@ function renderEvents() {
     h('td', {}, tag(e.severity)),
     h('th', { scope: 'row', class: 'kind' }, e.kind, securityBadge(e) || (e.details && e.details.cleared ? h('span', { class: 'cleared' }, 'cleared') : null)),
     h('td', { class: 'num' }, e.phase == null ? fmt.dash : `${e.phase}`),
-    h('td', { class: 'message' }, e.message, signature(e), weakestLoss(e)),
+    h('td', { class: 'message' }, e.message, signature(e), weakestLoss(e), driftDetail(e)),
     h('td', { class: 'ack' }, ackCell(e))));
   replaceKeepingFocus(body,
     controls,
@@ -697,6 +712,14 @@ function weakestLoss(e) {
   const lost = d.weakest.lose_phases.join(', ');
   const short = typeof d.shortfall_a === 'number' && d.shortfall_a > 0 ? `${fmt.num(d.shortfall_a, 1)} A short` : 'overheats the survivors';
   return h('span', { class: 'signature' }, `Weakest further loss: phase ${lost}, ${short} (${d.overloading_losses} of ${d.single_losses} single losses overload)`);
+}
+
+function driftDetail(e) {
+  const d = e.details;
+  if (e.kind !== 'thermal.drift' || !d || d.cleared) return null;
+  const where = d.channel === 'board' ? 'board path to ambient' : `phase ${e.phase} to the board`;
+  const recent = d.recent_k_per_w != null ? `; recently +${fmt.kPerW(d.recent_k_per_w)} \u00b1${fmt.num(d.recent_se_k_per_w, 2)}` : '';
+  return h('span', { class: 'signature drift' }, `Extra thermal resistance, ${where}: +${fmt.kPerW(d.extra_k_per_w)} \u00b1${fmt.num(d.extra_se_k_per_w, 2)} since ${fmt.utc(d.since_t_s)}${recent} (test ${fmt.num(d.statistic, 1)} over ${fmt.num(d.threshold, 0)})`);
 }
 
 function signature(e) {

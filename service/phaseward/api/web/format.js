@@ -16,6 +16,7 @@ export const amps = (x, digits = 1) => (x == null ? DASH : `${num(x, digits)} A`
 export const celsius = (x, digits = 1) => (x == null ? DASH : `${num(x, digits)} \u00b0C`);
 export const kelvin = (x, digits = 1) => (x == null ? DASH : `${num(x, digits)} K`);
 export const volts = (x, digits = 3) => (x == null ? DASH : `${num(x, digits)} V`);
+export const kPerW = (x, digits = 2) => (x == null ? DASH : `${num(x, digits)} K/W`);
 export const percent = (x) => (x == null ? DASH : `${num(100 * x, 0)} %`);
 
 /** A duration in the unit an operator reads fastest. */

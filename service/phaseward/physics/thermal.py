@@ -49,8 +49,9 @@ IntArray = npt.NDArray[np.intp]
 _SETTLED = 40.0  # time constants after which exp(-t/tau) < 5e-18: the state has settled
 _GROWTH = 700.0  # largest exponent of a growing mode that float64 still holds (e^709 max)
 _GRID_PER_DECADE = 64  # log-grid density used to bracket the first limit crossing
-_PEAK_PER_DECADE = 8  # log-grid density that locates a peak before golden-section refinement
-_PEAK_STEPS = 24  # golden-section steps: the bracket shrinks to 0.618^24 = 1e-5 of its width
+_PEAK_PER_DECADE = 8  # log-grid density that locates a peak before the zoom refines it
+_ZOOM_POINTS = 17  # points per zoom round of a peak: the bracket shrinks 8-fold per round
+_ZOOM_ROUNDS = 6  # 8^-6 = 4e-6 of the two grid intervals around the best grid point
 _GRID_MAX = 2048  # grid points at most (only a near-singular system spans > 32 decades)
 _WINDOW_STEPS = 8192  # transient steps per Picard window (working set stays in cache)
 _ONE = np.ones(1)  # numerator of the per-mode filter (the input gain is folded in before)
@@ -854,9 +855,6 @@ class Peaks:
     phase: IntArray
 
 
-_GOLDEN = 0.5 * (np.sqrt(5.0) - 1.0)
-
-
 def peak_batch(
     net: ThermalNetwork,
     initial_c: npt.ArrayLike,
@@ -871,11 +869,11 @@ def peak_batch(
 
     Exact solution on the log grid of :meth:`_Cases.grid` (which ends at the duration, or
     where the state has settled when the duration is longer or infinite, where the steady
-    state is the limit), the grid's largest point refined by golden-section search between
-    its neighbours (24 steps, to 1e-5 of the interval); the larger of the grid and refined
-    values is kept, so the result never understates the grid. offset_c: (n_phases,) or
-    (n_cases, n_phases), np.inf for a phase to ignore (0 for plain temperatures);
-    duration_s: float or (n_cases,), np.inf allowed. Other shapes as in
+    state is the limit), the grid's largest point refined by zooming in between its
+    neighbours (:data:`_ZOOM_ROUNDS` rounds of :data:`_ZOOM_POINTS` points, to 1e-5 of the
+    interval); the largest value seen is kept, so the result never understates the grid.
+    offset_c: (n_phases,) or (n_cases, n_phases), np.inf for a phase to ignore (0 for plain
+    temperatures); duration_s: float or (n_cases,), np.inf allowed. Other shapes as in
     :func:`time_to_limit_batch_s`.
 
     >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
@@ -888,11 +886,73 @@ def peak_batch(
     >>> print(f"{peak_batch(net, cold, [2.0], [0.0], 25.0, [0.0], duration_s=1e9).value[0]:.3f}")
     31.000
     """
-    cases, offset = _cases(net, initial_c, p0_w, slope_w_per_k, ambient_c, offset_c)
+    p0 = _phase_values(net, "p0_w", p0_w)
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    if p0.ndim > 2 or slope.ndim > 2:
+        raise ValueError("thermal crossings and peaks take at most one batch axis (n_cases)")
+    slope = np.broadcast_to(slope, (*np.broadcast_shapes(p0.shape, slope.shape)[:-1], p0.shape[-1]))
+    family = peak_family(net, initial_c, slope, ambient_c, offset_c, duration_s=duration_s)
+    every = np.arange(family.n_cases)
+    return family(every, np.broadcast_to(p0, (family.n_cases, net.n_phases)))
+
+
+@dataclass(frozen=True, eq=False)
+class PeakFamily:
+    """Peaks of n_cases systems whose slopes are fixed and whose constant losses p0 vary: the
+    eigen-decomposition is done once, each call costs only the scan of the exact transient.
+
+    Call with ``rows`` (k,) case indices and ``p0_w`` (k, n_phases) in W: the
+    :class:`Peaks` of those cases with losses P = p0 + s T_j (s fixed at construction).
+    """
+
+    cases: _Cases
+    offset: FloatArray
+    duration: FloatArray
+    drive: FloatArray  # (n_cases, n, n_phases): modal injection per watt at each junction
+
+    @property
+    def n_cases(self) -> int:
+        return int(self.offset.shape[0])
+
+    def __call__(self, rows: IntArray, p0_w: FloatArray) -> Peaks:
+        c = self.cases
+        u = c.u[rows] + np.einsum("bmk,bk->bm", self.drive[rows], p0_w)
+        sub = _Cases(c.lam[rows], c.phi[rows], c.z0[rows], u, c.junction)
+        return _peaks(sub, self.offset[rows], self.duration[rows])
+
+
+def peak_family(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    offset_c: npt.ArrayLike,
+    *,
+    duration_s: npt.ArrayLike,
+) -> PeakFamily:
+    """The :class:`PeakFamily` of the cases given by ``slope_w_per_k`` (n_phases,) or
+    (n_cases, n_phases) and the other arguments as in :func:`peak_batch`.
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    >>> net = build_coupled_network([chain], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> family = peak_family(net, [25.0, 25.0], [0.0], 25.0, [0.0], duration_s=1e9)
+    >>> family(np.array([0, 0]), np.array([[2.0], [4.0]])).value.round(3).tolist()
+    [31.0, 37.0]
+    """
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    cases, offset = _cases(net, initial_c, np.zeros_like(slope), slope, ambient_c, offset_c)
     n_cases = offset.shape[0]
     duration = np.array(np.broadcast_to(np.asarray(duration_s, dtype=np.float64), (n_cases,)))
     if np.any(np.isnan(duration)) or np.any(duration < 0.0):
         raise ValueError("duration_s must be >= 0")
+    # u = Phi^T f and f is E p0 plus the ambient term: the junction rows of Phi carry p0.
+    drive = np.ascontiguousarray(np.swapaxes(cases.phi_j, -1, -2))
+    return PeakFamily(cases, np.array(offset), duration, drive)
+
+
+def _peaks(cases: _Cases, offset: FloatArray, duration: FloatArray) -> Peaks:
+    """:func:`peak_batch` on prepared cases (see there)."""
+    n_cases = offset.shape[0]
     every = np.arange(n_cases)
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
@@ -916,36 +976,29 @@ def peak_batch(
         pick = np.argmax(values, axis=1)
         value[up], time[up] = values[np.arange(up.size), pick], ends[np.arange(up.size), pick]
     rows = np.flatnonzero(~rising & ~unbounded)
-    grid = np.zeros((n_cases, 1))
     if rows.size:
         grid = cases.grid(np.where(end > 0.0, end, 1e-300), _PEAK_PER_DECADE)
-        grid = np.where(end[:, None] > 0.0, grid, 0.0)
-        values = excess(rows, grid[rows])
+        grid = np.where(end[:, None] > 0.0, grid, 0.0)[rows]
+        values = excess(rows, grid)
         best = np.argmax(values, axis=1)
         value[rows] = values[np.arange(rows.size), best]
-        time[rows] = grid[rows, best]
+        time[rows] = grid[np.arange(rows.size), best]
         inner = (best > 0) & (best < grid.shape[1] - 1)
-        rows, best = rows[inner], best[inner]
-    if rows.size:
-        lo, hi = grid[rows, best - 1], grid[rows, best + 1]
-        a, b = hi - _GOLDEN * (hi - lo), lo + _GOLDEN * (hi - lo)
-        f_a, f_b = (excess(rows, x[:, None])[:, 0] for x in (a, b))
-        for _ in range(_PEAK_STEPS):  # one new point per step: the other is reused
-            left = f_a >= f_b
-            lo, hi = np.where(left, lo, a), np.where(left, b, hi)
-            new = np.where(left, hi - _GOLDEN * (hi - lo), lo + _GOLDEN * (hi - lo))
-            f_new = excess(rows, new[:, None])[:, 0]
-            a, f_a, b, f_b = (
-                np.where(left, new, b),
-                np.where(left, f_new, f_b),
-                np.where(left, a, new),
-                np.where(left, f_a, f_new),
-            )
-        pick = f_a >= f_b
-        t_mid, v_mid = np.where(pick, a, b), np.where(pick, f_a, f_b)
-        better = v_mid > value[rows]
-        value[rows] = np.where(better, v_mid, value[rows])
-        time[rows] = np.where(better, t_mid, time[rows])
+        lo, hi = grid[inner, best[inner] - 1], grid[inner, best[inner] + 1]
+        rows = rows[inner]
+        # Zoom: a uniform grid between the best point's neighbours, then between the new best
+        # point's neighbours, and so on (vectorised; one call per round).
+        frac = np.linspace(0.0, 1.0, _ZOOM_POINTS)
+        for _ in range(_ZOOM_ROUNDS if rows.size else 0):
+            ts = lo[:, None] + (hi - lo)[:, None] * frac
+            values = excess(rows, ts)
+            best = np.argmax(values, axis=1)
+            at = np.arange(rows.size)
+            better = values[at, best] > value[rows]
+            value[rows] = np.where(better, values[at, best], value[rows])
+            time[rows] = np.where(better, ts[at, best], time[rows])
+            lo = ts[at, np.maximum(best - 1, 0)]
+            hi = ts[at, np.minimum(best + 1, _ZOOM_POINTS - 1)]
     temps = _above(cases.at_c(every, np.where(np.isfinite(time), time, 0.0)[:, None])[:, 0], offset)
     phase = np.where(np.isfinite(offset).any(axis=1), np.argmax(temps, axis=1), -1)
     return Peaks(value=value, time_s=time, phase=phase.astype(np.intp))

@@ -18,6 +18,7 @@ under the limit (the temperature diverges as the runaway point is approached, so
 is crossed first).
 """
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from itertools import combinations
 
@@ -25,7 +26,13 @@ import numpy as np
 import numpy.typing as npt
 
 from phaseward.physics.losses import PhaseLossParams, loss_coefficients
-from phaseward.physics.thermal import ThermalNetwork, bracketed_root, peak_batch, steady_state_c
+from phaseward.physics.thermal import (
+    Peaks,
+    ThermalNetwork,
+    bracketed_root,
+    peak_family,
+    steady_state_c,
+)
 
 FloatArray = npt.NDArray[np.float64]
 BoolArray = npt.NDArray[np.bool_]
@@ -222,14 +229,26 @@ def time_limited_ratings(
     case = np.repeat(np.arange(n_cases), n_dur)  # the grid, flattened case-major
     span = np.tile(duration, n_cases)
     offset = np.where(act, warning, np.inf)
+    start = np.asarray(initial_c, dtype=np.float64)
+    floor_c = min(float(ambient_c), float(start.min()))  # no node gets cooler than this
 
-    def excess(rows: IntArray, current_a: FloatArray) -> FloatArray:
-        c = case[rows]
-        p0, slope = loss_coefficients(params, share[c] * current_a[:, None])
-        on = act[c]
-        return peak_batch(
-            net, initial_c, p0 * on, slope * on, ambient_c, offset[c], duration_s=span[rows]
-        ).value
+    def bounded(rows: IntArray, lo_a: FloatArray, hi_a: FloatArray, side: str) -> _Peaks:
+        """Peak excess of ``rows`` at currents in [lo_a, hi_a], from the modes of one slope
+        per row: the largest slope over the interval ("hot", a bound from above) or the
+        smallest ("cool", from below). See the module docstring for why this bounds."""
+        c, on = case[rows], act[case[rows]]
+        s_lo, s_hi = (loss_coefficients(params, share[c] * x[:, None])[1] for x in (lo_a, hi_a))
+        fixed = (np.maximum if side == "hot" else np.minimum)(s_lo, s_hi) * on
+        family = peak_family(net, start, fixed, ambient_c, offset[c], duration_s=span[rows])
+
+        def excess(sub: IntArray, current_a: FloatArray) -> FloatArray:
+            p0, slope = loss_coefficients(params, share[c[sub]] * current_a[:, None])
+            return family(sub, (p0 + (slope * on[sub] - fixed[sub]) * floor_c) * on[sub])
+
+        return excess
+
+    def exact(rows: IntArray, current_a: FloatArray) -> Peaks:
+        return bounded(rows, current_a, current_a, "hot")(np.arange(rows.size), current_a)
 
     bound = np.minimum(rated, trip)
     with np.errstate(divide="ignore"):
@@ -239,35 +258,88 @@ def time_limited_ratings(
     current_phase = np.argmin(per_phase, axis=1)[case]
     current_kind = np.where(rated <= trip, "rating", "trip_current")[current_phase]
     every = np.arange(case.size)
-    cold = excess(every, np.zeros(case.size)) > 0.0
-    fits = excess(every, current_limit) <= 0.0
-    kind = np.where(~some[case], "none", np.where(fits & ~cold, current_kind, "warning_line"))
-    rating = np.where(fits & ~cold, current_limit, 0.0)
+    zero = np.zeros(case.size)
+    # One bound from above for every row over [0, its current limit]: where it holds at the
+    # limit, the rail does; where it fails at no load, the exact answer decides.
+    first = bounded(every, zero, current_limit, "hot")
+    f_zero, f_limit = first(every, zero).value, first(every, current_limit).value
+    fits = f_limit <= 0.0
+    cold = np.zeros(case.size, dtype=bool)
+    check = np.flatnonzero(some[case] & ~fits & (f_zero > 0.0))
+    cold[check] = exact(check, zero[check]).value > 0.0
+    kind = np.where(~some[case], "none", np.where(fits, current_kind, "warning_line"))
+    rating = np.where(fits, current_limit, 0.0)
     rows = np.flatnonzero(some[case] & ~fits & ~cold)
-    # Re-evaluated on the subset, an end may round to the other side: then it is the answer
-    # (no load when the cold end is past the line, which is the safe side).
-    cold_again = excess(rows, np.zeros(rows.size)) > 0.0
-    fits_again = excess(rows, current_limit[rows]) <= 0.0
-    rating[rows] = np.where(fits_again & ~cold_again, current_limit[rows], 0.0)
-    kind[rows] = np.where(fits_again & ~cold_again, current_kind[rows], kind[rows])
-    rows = rows[~cold_again & ~fits_again]
-    if rows.size:  # in I^2, where the loss, and so the excess, is nearly linear
-        low, _ = bracketed_root(
-            lambda x: excess(rows, np.sqrt(x)), np.zeros(rows.size), current_limit[rows] ** 2,
-            rtol=2.0 * rtol,
-        )  # fmt: skip
-        rating[rows] = np.sqrt(low)
-    c = case
-    p0, slope = loss_coefficients(params, share[c] * rating[:, None])
-    hot = peak_batch(
-        net, initial_c, p0 * act[c], slope * act[c], ambient_c, offset[c], duration_s=span
-    ).phase
+    lo, hi = np.zeros(rows.size), current_limit[rows]  # lo holds, hi does not
+    guess = np.full(rows.size, np.nan)
+    for step in range(_PASSES):
+        todo = np.flatnonzero(hi - lo > rtol * hi)
+        if not todo.size:
+            break
+        r, a, b, g = rows[todo], lo[todo], hi[todo], guess[todo]
+        # Bound from above with the slope at ``top``: where it holds, the rail holds.
+        top = np.where(np.isnan(g), b, np.clip(g * (1.0 + 0.25 * rtol), a, b))
+        if step == 0:  # the first bound over [0, limit] serves, its ends already known
+            got_lo = _narrow(lambda sub, x: first(r[sub], x), a, top, rtol,
+                             ends=(f_zero[r], f_limit[r]))[0]  # fmt: skip
+        else:
+            got_lo = _narrow(bounded(r, a, top, "hot"), a, top, rtol)[0]
+        # From below with the slope at ``bottom``: where it fails, the rail fails.
+        bottom = np.where(np.isnan(g), got_lo, np.clip(g * (1.0 - 0.25 * rtol), got_lo, b))
+        got_hi = _narrow(bounded(r, bottom, b, "cool"), bottom, b, rtol)[1]
+        # Each bound's root moves against its slope's current by about the same fraction:
+        # the secant through the two answers the current whose slope is its own root.
+        with np.errstate(invalid="ignore", divide="ignore"):
+            pull = (got_hi - got_lo) / (top - bottom)
+            guess[todo] = (got_lo + pull * top) / (1.0 + pull)
+        lo[todo], hi[todo] = got_lo, got_hi
+    rating[rows] = lo
+    peaks = exact(every, rating)
+    # The bounds hold while every junction's loss P(T) at ``floor_c`` is >= 0 (so that no
+    # node gets cooler than that); a rating that does not check out exactly is searched again
+    # with exact peaks below it (the safe side).
+    wrong = np.flatnonzero((kind == "warning_line") & (rating > 0.0) & (peaks.value > 0.0))
+    if wrong.size:
+        rating[wrong] = _narrow(
+            lambda sub, x: exact(wrong[sub], x), np.zeros(wrong.size), rating[wrong], rtol
+        )[0]
+        peaks = exact(every, rating)
+    hot = peaks.phase
     phase = np.where(kind == "warning_line", hot, np.where(kind == "none", -1, current_phase))
     return RatingTable(
         rating_a=rating.reshape(n_cases, n_dur),
         binding_kind=kind.reshape(n_cases, n_dur),
         binding_phase=phase.astype(np.intp).reshape(n_cases, n_dur),
     )
+
+
+_Peaks = Callable[[IntArray, FloatArray], Peaks]  # peaks of some rows at rail currents, A
+_PASSES = 4  # rounds of hot and cool bounds; each shrinks the bracket by the slope's share
+
+
+def _narrow(
+    peaks: _Peaks,
+    lo_a: FloatArray,
+    hi_a: FloatArray,
+    rtol: float,
+    ends: tuple[FloatArray, FloatArray] | None = None,
+) -> tuple[FloatArray, FloatArray]:
+    """Where ``peaks`` changes sign between lo_a and hi_a, the bracket of its root in I^2
+    (where the loss, and so the excess, is nearly linear) shrunk to ``rtol`` relative in I;
+    (hi_a, hi_a) where it is <= 0 at both ends, (lo_a, lo_a) where it is > 0 at both.
+    ``ends``: its values at lo_a and hi_a where the caller has them."""
+    every = np.arange(lo_a.size)
+    f_lo, f_hi = ends or (peaks(every, lo_a).value, peaks(every, hi_a).value)
+    lo = np.where(f_lo > 0.0, lo_a, hi_a)
+    hi = np.where(f_hi > 0.0, lo, hi_a)
+    rows = np.flatnonzero((f_lo <= 0.0) & (f_hi > 0.0))
+    if rows.size:
+        low, high = bracketed_root(
+            lambda x: peaks(rows, np.sqrt(x)).value, lo_a[rows] ** 2, hi_a[rows] ** 2,
+            rtol=2.0 * rtol, f_lo=f_lo[rows], f_hi=f_hi[rows],
+        )  # fmt: skip
+        lo[rows], hi[rows] = np.sqrt(low), np.sqrt(high)
+    return lo, hi
 
 
 def _per_phase(

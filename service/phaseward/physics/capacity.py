@@ -186,10 +186,23 @@ def time_limited_ratings(
     The current shares as in :func:`remaining_capacity`. A load I is allowed for a duration D
     if no active phase's current passes its rating or its trip current and no active
     junction passes its warning line at any time in [0, D] (D = np.inf: ever, steady state
-    included), with the transient solved exactly (:func:`thermal.peak_batch`). Temperatures
+    included), with the transient solved exactly (:func:`thermal.peak_family`). Temperatures
     grow with I, so the thermal bound is a root in I, found for the whole case x duration
-    grid at once by :func:`thermal.bracketed_root` (relative tolerance ``rtol``, the lower
-    and safe end reported). A case already past a warning line at no load gets 0.
+    grid at once (relative tolerance ``rtol``, the lower and safe end reported). A case
+    already past a warning line at no load gets 0.
+
+    The search keeps the modes fixed while the load varies. The loss P = p0(I) + s(I) T has
+    a slope s(I) that grows with |I| (the resistances' temperature coefficients), and the
+    modes depend on s. With the slope held at s_a and the intercept p0(I) + (s(I) - s_a)
+    T_floor (T_floor: the lowest of ambient and the present node temperatures, below which
+    no node falls while losses are >= 0), the difference from the exact temperatures obeys
+    C d' = -A_a d + E (s_a - s(I)) (T_j - T_floor) with d(0) = 0. A_a has no positive
+    off-diagonal entry, so exp(-C^-1 A_a t) >= 0 (Berman and Plemmons, Nonnegative Matrices
+    in the Mathematical Sciences, ch. 6): with s_a >= s(I) the held modes run hot (a load
+    they allow is allowed), with s_a <= s(I) cool (a load they refuse is refused). Rounds of
+    both bounds, their slopes taken ever closer to the answer, shrink the bracket without an
+    eigen-decomposition per trial load; the answer is then checked with its own modes, and
+    searched exactly below where the check fails (losses below 0 W at T_floor).
 
     active: (n_cases, n_phases) bool; weights: (n_phases,) or (n_cases, n_phases);
     rated_current_a, trip_current_a, warning_c: (n_phases,); initial_c: (n_nodes,) node
@@ -232,23 +245,24 @@ def time_limited_ratings(
     start = np.asarray(initial_c, dtype=np.float64)
     floor_c = min(float(ambient_c), float(start.min()))  # no node gets cooler than this
 
-    def bounded(rows: IntArray, lo_a: FloatArray, hi_a: FloatArray, side: str) -> _Peaks:
-        """Peak excess of ``rows`` at currents in [lo_a, hi_a], from the modes of one slope
-        per row: the largest slope over the interval ("hot", a bound from above) or the
-        smallest ("cool", from below). See the module docstring for why this bounds."""
+    def bounded(rows: IntArray, lo_a: FloatArray, hi_a: FloatArray, hot: BoolArray) -> _Peaks:
+        """Peaks of ``rows`` at currents in [lo_a, hi_a], from the modes of one slope per
+        row: the largest slope over the interval where ``hot`` (a bound from above), else the
+        smallest (from below). See the docstring above for why these bound."""
         c, on = case[rows], act[case[rows]]
         s_lo, s_hi = (loss_coefficients(params, share[c] * x[:, None])[1] for x in (lo_a, hi_a))
-        fixed = (np.maximum if side == "hot" else np.minimum)(s_lo, s_hi) * on
+        fixed = np.where(hot[:, None], np.maximum(s_lo, s_hi), np.minimum(s_lo, s_hi)) * on
         family = peak_family(net, start, fixed, ambient_c, offset[c], duration_s=span[rows])
 
-        def excess(sub: IntArray, current_a: FloatArray) -> FloatArray:
+        def excess(sub: IntArray, current_a: FloatArray) -> Peaks:
             p0, slope = loss_coefficients(params, share[c[sub]] * current_a[:, None])
             return family(sub, (p0 + (slope * on[sub] - fixed[sub]) * floor_c) * on[sub])
 
         return excess
 
     def exact(rows: IntArray, current_a: FloatArray) -> Peaks:
-        return bounded(rows, current_a, current_a, "hot")(np.arange(rows.size), current_a)
+        same = np.ones(rows.size, dtype=bool)
+        return bounded(rows, current_a, current_a, same)(np.arange(rows.size), current_a)
 
     bound = np.minimum(rated, trip)
     with np.errstate(divide="ignore"):
@@ -261,7 +275,7 @@ def time_limited_ratings(
     zero = np.zeros(case.size)
     # One bound from above for every row over [0, its current limit]: where it holds at the
     # limit, the rail does; where it fails at no load, the exact answer decides.
-    first = bounded(every, zero, current_limit, "hot")
+    first = bounded(every, zero, current_limit, np.ones(case.size, dtype=bool))
     f_zero, f_limit = first(every, zero).value, first(every, current_limit).value
     fits = f_limit <= 0.0
     cold = np.zeros(case.size, dtype=bool)
@@ -271,27 +285,43 @@ def time_limited_ratings(
     rating = np.where(fits, current_limit, 0.0)
     rows = np.flatnonzero(some[case] & ~fits & ~cold)
     lo, hi = np.zeros(rows.size), current_limit[rows]  # lo holds, hi does not
-    guess = np.full(rows.size, np.nan)
+    guess, pull = np.full(rows.size, np.nan), np.zeros(rows.size)
     for step in range(_PASSES):
         todo = np.flatnonzero(hi - lo > rtol * hi)
         if not todo.size:
             break
         r, a, b, g = rows[todo], lo[todo], hi[todo], guess[todo]
-        # Bound from above with the slope at ``top``: where it holds, the rail holds.
-        top = np.where(np.isnan(g), b, np.clip(g * (1.0 + 0.25 * rtol), a, b))
-        if step == 0:  # the first bound over [0, limit] serves, its ends already known
-            got_lo = _narrow(lambda sub, x: first(r[sub], x), a, top, rtol,
-                             ends=(f_zero[r], f_limit[r]))[0]  # fmt: skip
-        else:
-            got_lo = _narrow(bounded(r, a, top, "hot"), a, top, rtol)[0]
-        # From below with the slope at ``bottom``: where it fails, the rail fails.
-        bottom = np.where(np.isnan(g), got_lo, np.clip(g * (1.0 - 0.25 * rtol), got_lo, b))
-        got_hi = _narrow(bounded(r, bottom, b, "cool"), bottom, b, rtol)[1]
-        # Each bound's root moves against its slope's current by about the same fraction:
-        # the secant through the two answers the current whose slope is its own root.
+        if step == 0:
+            # From above with the slope at the limit (``first``, its ends known): where it
+            # holds, the rail holds. Then from below with the slope at that answer: where it
+            # fails, the rail fails.
+            top = b
+            got_lo = _narrow(_rows_of(first, r), a, b, rtol, ends=(f_zero[r], f_limit[r]))[0]
+            bottom = got_lo
+            cool = np.zeros(r.size, dtype=bool)
+            got_hi = _narrow(bounded(r, bottom, b, cool), bottom, b, rtol)[1]
+        else:  # both bounds at once, their slopes just either side of the guess
+            top = np.clip(g * (1.0 + 0.25 * rtol), a, b)
+            bottom = np.clip(g * (1.0 - 0.25 * rtol), a, top)
+            ends_lo, ends_hi, hot = np.r_[a, bottom], np.r_[top, b], np.arange(2 * r.size) < r.size
+            got = _narrow(bounded(np.r_[r, r], ends_lo, ends_hi, hot), ends_lo, ends_hi, rtol)
+            got_lo, got_hi = got[0][: r.size], got[1][r.size :]
+        # A bound with the slope at current a puts its root near I* - k (a - I*): its slope
+        # errs by about (a - I*) and moves the root against it by a fraction k of that. The
+        # first pass's two roots give k; each root since then gives an estimate of I*.
         with np.errstate(invalid="ignore", divide="ignore"):
-            pull = (got_hi - got_lo) / (top - bottom)
-            guess[todo] = (got_lo + pull * top) / (1.0 + pull)
+            if step == 0:
+                pull[todo] = (got_hi - got_lo) / (top - bottom)
+            k = pull[todo]
+            from_hot = np.where((got_lo > a) & (got_lo < top), (got_lo + k * top) / (1 + k), np.nan)
+            from_cool = np.where(
+                (got_hi < b) & (got_hi > bottom), (got_hi + k * bottom) / (1 + k), np.nan
+            )
+            mean = np.where(np.isnan(from_hot), from_cool, from_hot)
+            mean = np.where(np.isnan(from_cool), mean, 0.5 * (mean + from_cool))
+        guess[todo] = np.clip(
+            np.where(np.isnan(mean), 0.5 * (got_lo + got_hi), mean), got_lo, got_hi
+        )
         lo[todo], hi[todo] = got_lo, got_hi
     rating[rows] = lo
     peaks = exact(every, rating)
@@ -300,12 +330,13 @@ def time_limited_ratings(
     # with exact peaks below it (the safe side).
     wrong = np.flatnonzero((kind == "warning_line") & (rating > 0.0) & (peaks.value > 0.0))
     if wrong.size:
-        rating[wrong] = _narrow(
-            lambda sub, x: exact(wrong[sub], x), np.zeros(wrong.size), rating[wrong], rtol
-        )[0]
+        rating[wrong] = _narrow(_rows_of(exact, wrong), np.zeros(wrong.size), rating[wrong], rtol)[
+            0
+        ]
         peaks = exact(every, rating)
-    hot = peaks.phase
-    phase = np.where(kind == "warning_line", hot, np.where(kind == "none", -1, current_phase))
+    phase = np.where(
+        kind == "warning_line", peaks.phase, np.where(kind == "none", -1, current_phase)
+    )
     return RatingTable(
         rating_a=rating.reshape(n_cases, n_dur),
         binding_kind=kind.reshape(n_cases, n_dur),
@@ -314,7 +345,12 @@ def time_limited_ratings(
 
 
 _Peaks = Callable[[IntArray, FloatArray], Peaks]  # peaks of some rows at rail currents, A
-_PASSES = 4  # rounds of hot and cool bounds; each shrinks the bracket by the slope's share
+_PASSES = 6  # rounds of bounds from above and below (two or three are usual)
+
+
+def _rows_of(peaks: _Peaks, rows: IntArray) -> _Peaks:
+    """``peaks`` restricted to ``rows``: row k of the result is row rows[k] of ``peaks``."""
+    return lambda sub, current_a: peaks(rows[sub], current_a)
 
 
 def _narrow(

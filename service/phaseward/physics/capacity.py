@@ -324,19 +324,18 @@ def time_limited_ratings(
         )
         lo[todo], hi[todo] = got_lo, got_hi
     rating[rows] = lo
-    peaks = exact(every, rating)
+    warm = np.flatnonzero(kind == "warning_line")  # the rows whose binding phase is thermal
+    peaks = exact(warm, rating[warm])
     # The bounds hold while every junction's loss P(T) at ``floor_c`` is >= 0 (so that no
     # node gets cooler than that); a rating that does not check out exactly is searched again
     # with exact peaks below it (the safe side).
-    wrong = np.flatnonzero((kind == "warning_line") & (rating > 0.0) & (peaks.value > 0.0))
-    if wrong.size:
-        rating[wrong] = _narrow(_rows_of(exact, wrong), np.zeros(wrong.size), rating[wrong], rtol)[
-            0
-        ]
-        peaks = exact(every, rating)
-    phase = np.where(
-        kind == "warning_line", peaks.phase, np.where(kind == "none", -1, current_phase)
-    )
+    wrong = (rating[warm] > 0.0) & (peaks.value > 0.0)
+    if wrong.any():
+        bad = warm[wrong]
+        rating[bad] = _narrow(_rows_of(exact, bad), np.zeros(bad.size), rating[bad], rtol)[0]
+        peaks = exact(warm, rating[warm])
+    phase = np.where(kind == "none", -1, current_phase)
+    phase[warm] = peaks.phase
     return RatingTable(
         rating_a=rating.reshape(n_cases, n_dur),
         binding_kind=kind.reshape(n_cases, n_dur),

@@ -944,10 +944,15 @@ class PeakFamily:
 
     def __call__(self, rows: IntArray, p0_w: FloatArray) -> Peaks:
         c = self.cases
-        u = c.u[rows] + np.matmul(self.drive[rows], p0_w[..., None])[..., 0]
-        sub = _Cases(c.lam[rows], c.phi[rows], c.z0[rows], u, c.junction)
-        scan = (self.grid[rows], self.decay[rows], self.gain[rows])
-        return _peaks(sub, self.offset[rows], self.duration[rows], self.end[rows], scan)
+        whole = rows.size == self.n_cases and bool(np.all(rows == np.arange(rows.size)))
+
+        def pick(x: FloatArray) -> FloatArray:  # no copy of the big arrays for every row
+            return x if whole else x[rows]
+
+        u = pick(c.u) + np.matmul(pick(self.drive), p0_w[..., None])[..., 0]
+        sub = _Cases(pick(c.lam), pick(c.phi), pick(c.z0), u, c.junction)
+        scan = (pick(self.grid), pick(self.decay), pick(self.gain))
+        return _peaks(sub, pick(self.offset), pick(self.duration), pick(self.end), scan)
 
 
 def peak_family(

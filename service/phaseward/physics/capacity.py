@@ -276,8 +276,11 @@ def time_limited_ratings(
     # One bound from above for every row over [0, its current limit]: where it holds at the
     # limit, the rail does; where it fails at no load, the exact answer decides.
     first = bounded(every, zero, current_limit, np.ones(case.size, dtype=bool))
-    f_zero, f_limit = first(every, zero).value, first(every, current_limit).value
+    f_limit = first(every, current_limit).value
     fits = f_limit <= 0.0
+    f_zero = np.full(case.size, -np.inf)  # needed only where the limit does not fit
+    open_ = np.flatnonzero(~fits)
+    f_zero[open_] = first(open_, zero[open_]).value
     cold = np.zeros(case.size, dtype=bool)
     check = np.flatnonzero(some[case] & ~fits & (f_zero > 0.0))
     cold[check] = exact(check, zero[check]).value > 0.0

@@ -4,8 +4,9 @@ Each example posts a definition whose numbers are drawn from the edges of the ra
 schema declares (the bound itself, one float inside it, a log-uniform value between the
 bounds, now and then one beyond), then a few samples, then asks every analysis of the stored
 definition: status (with ripple), N-1 and N-2 screening, forecasts (steps and ramps), ratings
-(with pairs), reliability, the breaker tool on the definition's numbers. A definition is refused with 422 naming a field, or stored;
-and no answer about a stored definition is ever a 5xx.
+(with pairs), reliability, the breaker tool on the definition's numbers. A definition is
+refused with 422 naming a field, or stored; and no answer about a stored definition is ever
+a 5xx.
 """
 
 from __future__ import annotations

@@ -7,12 +7,23 @@ import os
 import platform
 import re
 import statistics
+import tempfile
+import threading
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from importlib.metadata import version
 from pathlib import Path
+from typing import Any
+
+import httpx
+import uvicorn
+
+from phaseward.api.app import create_app
+from phaseward.demo import DEMO_RAIL, scenario_samples
+from phaseward.settings import Settings
 
 
 @dataclass(frozen=True)
@@ -57,6 +68,64 @@ def mean_time(func: Callable[[], object], repeats: int = 5) -> float:
     for _ in range(repeats):
         func()
     return (time.perf_counter() - start) / repeats
+
+
+def twelve_phase_rail() -> dict[str, Any]:
+    """The demo rail widened to twelve phases (id ``bench-12``)."""
+    return dict(DEMO_RAIL, id="bench-12", phase_count=12, load_a=400.0)
+
+
+def samples_for_twelve(n: int) -> list[dict[str, Any]]:
+    """The demo's first samples, widened from six phases to twelve."""
+    out = []
+    for s in scenario_samples(start_s=time.time() - 3600)[:n]:
+        phases = [dict(p, index=i) for i, p in enumerate(s["phases"] + s["phases"])]
+        for p in phases:
+            p["breaker_tripped"] = False
+        out.append(dict(s, phases=phases))
+    return out
+
+
+@contextmanager
+def twelve_phase_server(port: int) -> Iterator[httpx.Client]:
+    """A real server on loopback (uvicorn in a thread, open access, a fresh data directory)
+    holding :func:`twelve_phase_rail` with 50 samples, and a client to it."""
+    with tempfile.TemporaryDirectory() as tmp:
+        settings = Settings(data_dir=Path(tmp), port=port, log_level="warning", auth_mode="open")
+        config = uvicorn.Config(
+            create_app(settings), host="127.0.0.1", port=settings.port, log_level="warning"
+        )
+        server = uvicorn.Server(config)
+        thread = threading.Thread(target=server.run, daemon=True)
+        thread.start()
+        while not server.started:
+            time.sleep(0.05)
+        try:
+            with httpx.Client(base_url=f"http://127.0.0.1:{settings.port}", timeout=120) as c:
+                c.post("/v1/rails", json=twelve_phase_rail()).raise_for_status()
+                c.post("/v1/rails/bench-12/samples", json=samples_for_twelve(50)).raise_for_status()
+                yield c
+        finally:
+            server.should_exit = True
+            thread.join(timeout=10)
+
+
+def empty_endpoint_s(client: httpx.Client, repeats: int) -> float:
+    """Median time of the empty endpoint, the baseline of the latency rows, s."""
+    return median_time(lambda: client.get("/healthz").raise_for_status(), repeats)
+
+
+def latency_row(name: str, seconds: float, empty: float, target: float) -> Row:
+    """A row for an endpoint timed against the empty endpoint (lower is better)."""
+    return Row(
+        name,
+        f"{seconds * 1e3:.1f} ms",
+        f"{empty * 1e3:.2f} ms",
+        seconds / empty,
+        target,
+        at_least=False,
+        note="over HTTP on loopback to a real server",
+    )
 
 
 def peak_rss_bytes(pid: int) -> int:

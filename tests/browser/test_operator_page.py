@@ -27,6 +27,7 @@ sync_api = pytest.importorskip(
 )
 expect = sync_api.expect
 
+ANALYSES_WITHIN_MS = 30_000  # the page's delay before its analyses, and them, on a busy machine
 LIVE_WITHIN_MS = 10_000  # well inside the page's 30 s safety refresh: only the stream is this fast
 
 
@@ -163,6 +164,31 @@ def test_unknown_rail_says_so_and_the_skip_link_reaches_main(
     expect(page.get_by_role("heading", level=1)).to_have_text("No rail named “no-such-rail”")
     # The 404 of the status fetch is the page's answer, not a script error.
     watched.console_errors[:] = [e for e in watched.console_errors if "404" not in e]
+    same_origin_only(watched, server)
+
+
+def test_ratings_panel_shows_pair_losses_on_request(
+    server: str, api: httpx.Client, page: Page, watched: Watched
+) -> None:
+    assert api.post("/v1/rails", json=SMALL_RAIL).status_code == 201
+    api.post("/v1/rails/bench-a/samples", json=[sample(k, [20.0] * 4) for k in range(3)])
+    page.goto(f"{server}/rails/bench-a")
+    rows = page.locator("#sec-ratings tbody tr")
+    # The analyses wait for the page's first burst of requests to settle, then compute.
+    expect(rows).to_have_count(5, timeout=ANALYSES_WITHIN_MS)  # as it is, each single loss
+    page.get_by_label("Rate", exact=True).select_option("pairs")
+    expect(rows).to_have_count(11, timeout=ANALYSES_WITHIN_MS)  # and the six pairs of four
+    pair = rows.filter(has_text="lose phases 1 + 3")
+    expect(pair).to_have_count(1)
+    expect(pair).to_contain_text("60.0 A")  # two 30 A phases left for a minute
+    expect(pair).to_contain_text("current rating")
+    assert any("/ratings?pairs=true" in u for u in watched.requests)
+    # The choice holds when the analyses refresh; a keyboard user can go back.
+    select = page.locator("#ratings-cases")
+    select.focus()
+    select.select_option("singles")
+    expect(rows).to_have_count(5, timeout=ANALYSES_WITHIN_MS)
+    expect(select).to_be_focused()
     same_origin_only(watched, server)
 
 

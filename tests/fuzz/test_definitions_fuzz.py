@@ -3,9 +3,10 @@
 Each example posts a definition whose numbers are drawn from the edges of the ranges the
 schema declares (the bound itself, one float inside it, a log-uniform value between the
 bounds, now and then one beyond), then a few samples, then asks every analysis of the stored
-definition: status (with ripple), N-1 and N-2 screening, forecasts, reliability, the breaker
-tool on the definition's numbers. A definition is refused with 422 naming a field, or stored;
-and no answer about a stored definition is ever a 5xx.
+definition: status (with ripple), N-1 and N-2 screening, forecasts (steps and ramps), ratings
+(with pairs), reliability, the breaker tool on the definition's numbers. A definition is
+refused with 422 naming a field, or stored; and no answer about a stored definition is ever
+a 5xx.
 """
 
 from __future__ import annotations
@@ -203,6 +204,10 @@ async def test_no_analysis_of_a_stored_definition_answers_5xx(
         ("POST", f"{rail}/forecast", {"json": {
             "drop": [{"phase": 0, "at_s": 5.0}], "horizon_s": 600.0, "load": {"steps": steps}
         }}),
+        ("POST", f"{rail}/forecast", {"json": {  # ramps up and down
+            "horizon_s": 600.0, "load": {"points": [*steps, {"at_s": 300.0, "current_a": 0.0}]}
+        }}),
+        ("GET", f"{rail}/ratings", {"params": {"pairs": True}}),
         ("GET", f"{rail}/reliability", {"params": {"hours": 1e4}}),
         ("POST", "/v1/tools/breaker-stress", {"json": breaker}),
     ]:  # fmt: skip

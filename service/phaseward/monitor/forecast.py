@@ -5,8 +5,10 @@ The profile is cut into stretches of constant load and constant set of carrying 
 losses are affine in junction temperature, so each stretch is a linear system solved exactly
 (:func:`~phaseward.physics.thermal.piecewise_c`): temperatures, peaks and crossing times do
 not depend on the horizon, the number of points or any step. A linear ramp between profile
-points is cut into RAMP_PIECES stretches, each held at the higher of its two ends, so a ramp
-errs hot and early, never cool and late.
+points is cut into stretches, each held at the higher of its two ends, so a ramp errs hot and
+early, never cool and late; enough of them that one stretch's step in load moves the steady
+junction temperature by at most RAMP_STEP_K (at the profile's highest load, where the
+temperature is steepest in the load, with the fewest phases the requested drops leave).
 
 Cascade: at the start of every stretch each surviving phase takes its share of the load
 (sharing weights renormalised over the survivors); a phase above its trip current drops at
@@ -35,7 +37,8 @@ from phaseward.physics.thermal import (
 
 F64 = npt.NDArray[np.float64]
 B = npt.NDArray[np.bool_]
-RAMP_PIECES = 256  # stretches per linear ramp of the profile (held at the higher end: hot)
+RAMP_STEP_K = 0.03  # K: steady junction rise per stretch of a ramp, at most (held high: hot)
+RAMP_PIECES = 4096  # stretches per linear ramp of the profile, at most
 MAX_STRETCHES = 20_000  # ramps are cut more coarsely when a profile would exceed this
 VERDICTS = ("holds", "overloaded", "down")
 
@@ -90,14 +93,17 @@ def shed(load_a: F64, alive: B, weights: F64, trip_a: F64) -> tuple[B, list[B]]:
     return alive, rounds
 
 
-def _base_edges(profile: Profile, horizon_s: float) -> tuple[F64, F64]:
-    """Stretch starts within [0, horizon) and the load held over each, before any drop."""
+def _base_edges(profile: Profile, horizon_s: float, kelvin_per_amp: float) -> tuple[F64, F64]:
+    """Stretch starts within [0, horizon) and the load held over each, before any drop;
+    ``kelvin_per_amp``: steady junction rise per amp of load at most (see the docstring)."""
     t, v = profile.times_s, profile.values_a
     if profile.stepwise or t.size == 1:
         starts = np.r_[0.0, t[(t > 0.0) & (t < horizon_s)]]
         return starts, v[np.clip(np.searchsorted(t, starts, side="right") - 1, 0, None)]
-    pieces = int(np.clip(MAX_STRETCHES // (t.size - 1), 1, RAMP_PIECES))
-    per_ramp = np.where(np.diff(v) == 0, 1, pieces)
+    wanted = np.ceil(np.abs(np.diff(v)) * kelvin_per_amp / RAMP_STEP_K)
+    cap = max(MAX_STRETCHES // (t.size - 1), 1)
+    per_ramp = np.clip(np.nan_to_num(wanted, nan=RAMP_PIECES), 1, min(cap, RAMP_PIECES))
+    per_ramp = np.where(np.diff(v) == 0, 1, per_ramp).astype(np.intp)
     ramp = np.repeat(np.arange(t.size - 1), per_ramp)
     k = np.arange(ramp.size) - np.repeat(np.cumsum(per_ramp) - per_ramp, per_ramp)
     width = (t[ramp + 1] - t[ramp]) / per_ramp[ramp]
@@ -107,6 +113,30 @@ def _base_edges(profile: Profile, horizon_s: float) -> tuple[F64, F64]:
     held = np.r_[v[0], held, v[-1]]
     use = (hi > 0.0) & (lo < horizon_s)
     return np.maximum(lo[use], 0.0), held[use]
+
+
+def _requested_any(drops: Sequence[Drop], n_phases: int) -> B:
+    """The phases some requested drop takes out, (n_phases,) bool."""
+    out = np.zeros(n_phases, dtype=bool)
+    out[[d.phase for d in drops]] = True
+    return out
+
+
+def _kelvin_per_amp(
+    model: RailModel, alive: B, weights: F64, top_a: float, ambient_c: float
+) -> float:
+    """Largest steady junction rise per amp of rail load near ``top_a`` shared by ``alive``
+    (losses grow faster than the load, so that is where it is steepest); inf where there is
+    no steady state."""
+    if not alive.any() or top_a <= 0.0:  # nothing carries the load: any cut will do
+        return 0.0
+    loads = np.array([top_a * (1.0 - 1e-3), top_a])
+    p0, slope = phase_power(model, share_a(loads, alive, weights), alive)
+    temps, runaway = steady_state_c(model.network, p0, slope, ambient_c, runaway="flag")
+    if runaway.any():
+        return float("inf")
+    rise = temps[1, model.network.junction_node] - temps[0, model.network.junction_node]
+    return float(np.max(rise) / (loads[1] - loads[0]))
 
 
 PAST_ANY_LIMIT_C = 1e6  # degC: stands in for a temperature past float range (runaway)
@@ -128,7 +158,10 @@ def forecast(
     ``points`` rows (evenly spaced plus the peak and every stretch edge that fits)."""
     net = model.network
     n = model.n_phases
-    base_starts, base_load = _base_edges(profile, horizon_s)
+    base_starts, base_load = _base_edges(
+        profile, horizon_s, _kelvin_per_amp(model, active & ~_requested_any(drops, n), weights,
+                                            float(np.max(profile.values_a)), ambient_c),
+    )  # fmt: skip
     requested = np.full(n, np.inf)
     for d in drops:
         requested[d.phase] = min(requested[d.phase], d.at_s)

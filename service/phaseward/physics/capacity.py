@@ -18,6 +18,7 @@ under the limit (the temperature diverges as the runaway point is approached, so
 is crossed first).
 """
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from itertools import combinations
 
@@ -25,7 +26,13 @@ import numpy as np
 import numpy.typing as npt
 
 from phaseward.physics.losses import PhaseLossParams, loss_coefficients
-from phaseward.physics.thermal import ThermalNetwork, bracketed_root, peak_batch, steady_state_c
+from phaseward.physics.thermal import (
+    Peaks,
+    ThermalNetwork,
+    bracketed_root,
+    peak_family,
+    steady_state_c,
+)
 
 FloatArray = npt.NDArray[np.float64]
 BoolArray = npt.NDArray[np.bool_]
@@ -179,10 +186,23 @@ def time_limited_ratings(
     The current shares as in :func:`remaining_capacity`. A load I is allowed for a duration D
     if no active phase's current passes its rating or its trip current and no active
     junction passes its warning line at any time in [0, D] (D = np.inf: ever, steady state
-    included), with the transient solved exactly (:func:`thermal.peak_batch`). Temperatures
+    included), with the transient solved exactly (:func:`thermal.peak_family`). Temperatures
     grow with I, so the thermal bound is a root in I, found for the whole case x duration
-    grid at once by :func:`thermal.bracketed_root` (relative tolerance ``rtol``, the lower
-    and safe end reported). A case already past a warning line at no load gets 0.
+    grid at once (relative tolerance ``rtol``, the lower and safe end reported). A case
+    already past a warning line at no load gets 0.
+
+    The search keeps the modes fixed while the load varies. The loss P = p0(I) + s(I) T has
+    a slope s(I) that grows with |I| (the resistances' temperature coefficients), and the
+    modes depend on s. With the slope held at s_a and the intercept p0(I) + (s(I) - s_a)
+    T_floor (T_floor: the lowest of ambient and the present node temperatures, below which
+    no node falls while losses are >= 0), the difference from the exact temperatures obeys
+    C d' = -A_a d + E (s_a - s(I)) (T_j - T_floor) with d(0) = 0. A_a has no positive
+    off-diagonal entry, so exp(-C^-1 A_a t) >= 0 (Berman and Plemmons, Nonnegative Matrices
+    in the Mathematical Sciences, ch. 6): with s_a >= s(I) the held modes run hot (a load
+    they allow is allowed), with s_a <= s(I) cool (a load they refuse is refused). Rounds of
+    both bounds, their slopes taken ever closer to the answer, shrink the bracket without an
+    eigen-decomposition per trial load; the answer is then checked with its own modes, and
+    searched exactly below where the check fails (losses below 0 W at T_floor).
 
     active: (n_cases, n_phases) bool; weights: (n_phases,) or (n_cases, n_phases);
     rated_current_a, trip_current_a, warning_c: (n_phases,); initial_c: (n_nodes,) node
@@ -222,14 +242,27 @@ def time_limited_ratings(
     case = np.repeat(np.arange(n_cases), n_dur)  # the grid, flattened case-major
     span = np.tile(duration, n_cases)
     offset = np.where(act, warning, np.inf)
+    start = np.asarray(initial_c, dtype=np.float64)
+    floor_c = min(float(ambient_c), float(start.min()))  # no node gets cooler than this
 
-    def excess(rows: IntArray, current_a: FloatArray) -> FloatArray:
-        c = case[rows]
-        p0, slope = loss_coefficients(params, share[c] * current_a[:, None])
-        on = act[c]
-        return peak_batch(
-            net, initial_c, p0 * on, slope * on, ambient_c, offset[c], duration_s=span[rows]
-        ).value
+    def bounded(rows: IntArray, lo_a: FloatArray, hi_a: FloatArray, hot: BoolArray) -> _Peaks:
+        """Peaks of ``rows`` at currents in [lo_a, hi_a], from the modes of one slope per
+        row: the largest slope over the interval where ``hot`` (a bound from above), else the
+        smallest (from below). See the docstring above for why these bound."""
+        c, on = case[rows], act[case[rows]]
+        s_lo, s_hi = (loss_coefficients(params, share[c] * x[:, None])[1] for x in (lo_a, hi_a))
+        fixed = np.where(hot[:, None], np.maximum(s_lo, s_hi), np.minimum(s_lo, s_hi)) * on
+        family = peak_family(net, start, fixed, ambient_c, offset[c], duration_s=span[rows])
+
+        def excess(sub: IntArray, current_a: FloatArray) -> Peaks:
+            p0, slope = loss_coefficients(params, share[c[sub]] * current_a[:, None])
+            return family(sub, (p0 + (slope * on[sub] - fixed[sub]) * floor_c) * on[sub])
+
+        return excess
+
+    def exact(rows: IntArray, current_a: FloatArray) -> Peaks:
+        same = np.ones(rows.size, dtype=bool)
+        return bounded(rows, current_a, current_a, same)(np.arange(rows.size), current_a)
 
     bound = np.minimum(rated, trip)
     with np.errstate(divide="ignore"):
@@ -239,35 +272,112 @@ def time_limited_ratings(
     current_phase = np.argmin(per_phase, axis=1)[case]
     current_kind = np.where(rated <= trip, "rating", "trip_current")[current_phase]
     every = np.arange(case.size)
-    cold = excess(every, np.zeros(case.size)) > 0.0
-    fits = excess(every, current_limit) <= 0.0
-    kind = np.where(~some[case], "none", np.where(fits & ~cold, current_kind, "warning_line"))
-    rating = np.where(fits & ~cold, current_limit, 0.0)
+    zero = np.zeros(case.size)
+    # One bound from above for every row over [0, its current limit]: where it holds at the
+    # limit, the rail does; where it fails at no load, the exact answer decides.
+    first = bounded(every, zero, current_limit, np.ones(case.size, dtype=bool))
+    f_limit = first(every, current_limit).value
+    fits = f_limit <= 0.0
+    f_zero = np.full(case.size, -np.inf)  # needed only where the limit does not fit
+    open_ = np.flatnonzero(~fits)
+    f_zero[open_] = first(open_, zero[open_]).value
+    cold = np.zeros(case.size, dtype=bool)
+    check = np.flatnonzero(some[case] & ~fits & (f_zero > 0.0))
+    cold[check] = exact(check, zero[check]).value > 0.0
+    kind = np.where(~some[case], "none", np.where(fits, current_kind, "warning_line"))
+    rating = np.where(fits, current_limit, 0.0)
     rows = np.flatnonzero(some[case] & ~fits & ~cold)
-    # Re-evaluated on the subset, an end may round to the other side: then it is the answer
-    # (no load when the cold end is past the line, which is the safe side).
-    cold_again = excess(rows, np.zeros(rows.size)) > 0.0
-    fits_again = excess(rows, current_limit[rows]) <= 0.0
-    rating[rows] = np.where(fits_again & ~cold_again, current_limit[rows], 0.0)
-    kind[rows] = np.where(fits_again & ~cold_again, current_kind[rows], kind[rows])
-    rows = rows[~cold_again & ~fits_again]
-    if rows.size:  # in I^2, where the loss, and so the excess, is nearly linear
-        low, _ = bracketed_root(
-            lambda x: excess(rows, np.sqrt(x)), np.zeros(rows.size), current_limit[rows] ** 2,
-            rtol=2.0 * rtol,
-        )  # fmt: skip
-        rating[rows] = np.sqrt(low)
-    c = case
-    p0, slope = loss_coefficients(params, share[c] * rating[:, None])
-    hot = peak_batch(
-        net, initial_c, p0 * act[c], slope * act[c], ambient_c, offset[c], duration_s=span
-    ).phase
-    phase = np.where(kind == "warning_line", hot, np.where(kind == "none", -1, current_phase))
+    lo, hi = np.zeros(rows.size), current_limit[rows]  # lo holds, hi does not
+    guess, pull = np.full(rows.size, np.nan), np.zeros(rows.size)
+    for step in range(_PASSES):
+        todo = np.flatnonzero(hi - lo > rtol * hi)
+        if not todo.size:
+            break
+        r, a, b, g = rows[todo], lo[todo], hi[todo], guess[todo]
+        if step == 0:
+            # From above with the slope at the limit (``first``, its ends known): where it
+            # holds, the rail holds. Then from below with the slope at that answer: where it
+            # fails, the rail fails.
+            top = b
+            got_lo = _narrow(_rows_of(first, r), a, b, rtol, ends=(f_zero[r], f_limit[r]))[0]
+            bottom = got_lo
+            cool = np.zeros(r.size, dtype=bool)
+            got_hi = _narrow(bounded(r, bottom, b, cool), bottom, b, rtol)[1]
+        else:  # both bounds at once, their slopes just either side of the guess
+            top = np.clip(g * (1.0 + 0.25 * rtol), a, b)
+            bottom = np.clip(g * (1.0 - 0.25 * rtol), a, top)
+            ends_lo, ends_hi, hot = np.r_[a, bottom], np.r_[top, b], np.arange(2 * r.size) < r.size
+            got = _narrow(bounded(np.r_[r, r], ends_lo, ends_hi, hot), ends_lo, ends_hi, rtol)
+            got_lo, got_hi = got[0][: r.size], got[1][r.size :]
+        # A bound with the slope at current a puts its root near I* - k (a - I*): its slope
+        # errs by about (a - I*) and moves the root against it by a fraction k of that. The
+        # first pass's two roots give k; each root since then gives an estimate of I*.
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if step == 0:
+                pull[todo] = (got_hi - got_lo) / (top - bottom)
+            k = pull[todo]
+            from_hot = np.where((got_lo > a) & (got_lo < top), (got_lo + k * top) / (1 + k), np.nan)
+            from_cool = np.where(
+                (got_hi < b) & (got_hi > bottom), (got_hi + k * bottom) / (1 + k), np.nan
+            )
+            mean = np.where(np.isnan(from_hot), from_cool, from_hot)
+            mean = np.where(np.isnan(from_cool), mean, 0.5 * (mean + from_cool))
+        guess[todo] = np.clip(
+            np.where(np.isnan(mean), 0.5 * (got_lo + got_hi), mean), got_lo, got_hi
+        )
+        lo[todo], hi[todo] = got_lo, got_hi
+    rating[rows] = lo
+    warm = np.flatnonzero(kind == "warning_line")  # the rows whose binding phase is thermal
+    peaks = exact(warm, rating[warm])
+    # The bounds hold while every junction's loss P(T) at ``floor_c`` is >= 0 (so that no
+    # node gets cooler than that); a rating that does not check out exactly is searched again
+    # with exact peaks below it (the safe side).
+    wrong = (rating[warm] > 0.0) & (peaks.value > 0.0)
+    if wrong.any():
+        bad = warm[wrong]
+        rating[bad] = _narrow(_rows_of(exact, bad), np.zeros(bad.size), rating[bad], rtol)[0]
+        peaks = exact(warm, rating[warm])
+    phase = np.where(kind == "none", -1, current_phase)
+    phase[warm] = peaks.phase
     return RatingTable(
         rating_a=rating.reshape(n_cases, n_dur),
         binding_kind=kind.reshape(n_cases, n_dur),
         binding_phase=phase.astype(np.intp).reshape(n_cases, n_dur),
     )
+
+
+_Peaks = Callable[[IntArray, FloatArray], Peaks]  # peaks of some rows at rail currents, A
+_PASSES = 6  # rounds of bounds from above and below (two or three are usual)
+
+
+def _rows_of(peaks: _Peaks, rows: IntArray) -> _Peaks:
+    """``peaks`` restricted to ``rows``: row k of the result is row rows[k] of ``peaks``."""
+    return lambda sub, current_a: peaks(rows[sub], current_a)
+
+
+def _narrow(
+    peaks: _Peaks,
+    lo_a: FloatArray,
+    hi_a: FloatArray,
+    rtol: float,
+    ends: tuple[FloatArray, FloatArray] | None = None,
+) -> tuple[FloatArray, FloatArray]:
+    """Where ``peaks`` changes sign between lo_a and hi_a, the bracket of its root in I^2
+    (where the loss, and so the excess, is nearly linear) shrunk to ``rtol`` relative in I;
+    (hi_a, hi_a) where it is <= 0 at both ends, (lo_a, lo_a) where it is > 0 at both.
+    ``ends``: its values at lo_a and hi_a where the caller has them."""
+    every = np.arange(lo_a.size)
+    f_lo, f_hi = ends or (peaks(every, lo_a).value, peaks(every, hi_a).value)
+    lo = np.where(f_lo > 0.0, lo_a, hi_a)
+    hi = np.where(f_hi > 0.0, lo, hi_a)
+    rows = np.flatnonzero((f_lo <= 0.0) & (f_hi > 0.0))
+    if rows.size:
+        low, high = bracketed_root(
+            lambda x: peaks(rows, np.sqrt(x)).value, lo_a[rows] ** 2, hi_a[rows] ** 2,
+            rtol=2.0 * rtol, f_lo=f_lo[rows], f_hi=f_hi[rows],
+        )  # fmt: skip
+        lo[rows], hi[rows] = np.sqrt(low), np.sqrt(high)
+    return lo, hi
 
 
 def _per_phase(

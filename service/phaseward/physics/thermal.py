@@ -47,10 +47,12 @@ BoolArray = npt.NDArray[np.bool_]
 IntArray = npt.NDArray[np.intp]
 
 _SETTLED = 40.0  # time constants after which exp(-t/tau) < 5e-18: the state has settled
+_UNDERFLOW = 600.0  # exp(-600) = 3e-261: a mode this far decayed has settled
 _GROWTH = 700.0  # largest exponent of a growing mode that float64 still holds (e^709 max)
 _GRID_PER_DECADE = 64  # log-grid density used to bracket the first limit crossing
-_PEAK_PER_DECADE = 8  # log-grid density that locates a peak before golden-section refinement
-_PEAK_STEPS = 24  # golden-section steps: the bracket shrinks to 0.618^24 = 1e-5 of its width
+_PEAK_PER_DECADE = 8  # log-grid density that locates a peak before the zoom refines it
+_ZOOM_POINTS = 33  # points per zoom round of a peak: the bracket shrinks 16-fold per round
+_ZOOM_ROUNDS = 4  # 16^-4 = 1.5e-5 of the two grid intervals around the best grid point
 _GRID_MAX = 2048  # grid points at most (only a near-singular system spans > 32 decades)
 _WINDOW_STEPS = 8192  # transient steps per Picard window (working set stays in cache)
 _ONE = np.ones(1)  # numerator of the per-mode filter (the input gain is folded in before)
@@ -610,6 +612,8 @@ def bracketed_root(
     rtol: float,
     atol: float = 0.0,
     max_iter: int = 400,
+    f_lo: FloatArray | None = None,
+    f_hi: FloatArray | None = None,
 ) -> tuple[FloatArray, FloatArray]:
     """Vectorised root bracketing: shrink [lo, hi] elementwise around a sign change.
 
@@ -617,7 +621,7 @@ def bracketed_root(
     independent. Illinois-modified regula falsi with every fifth step a bisection, each
     point kept half a tolerance inside the bracket; stops when hi - lo <= atol + rtol |hi|.
     Returns the final (lo, hi) with f(lo) <= 0 < f(hi). ArithmeticError if ``max_iter`` is
-    exhausted.
+    exhausted. ``f_lo``, ``f_hi``: f at lo and hi where the caller has them already.
 
     >>> lo, hi = bracketed_root(lambda x: x**2 - 2.0, np.array([0.0]), np.array([2.0]),
     ...                         rtol=1e-12)
@@ -625,7 +629,8 @@ def bracketed_root(
     1.4142135624 1.4142135624
     """
     lo, hi = np.array(lo, dtype=np.float64), np.array(hi, dtype=np.float64)
-    f_lo, f_hi = func(lo), func(hi)
+    f_lo = func(lo) if f_lo is None else np.array(f_lo, dtype=np.float64)
+    f_hi = func(hi) if f_hi is None else np.array(f_hi, dtype=np.float64)
     if np.any(f_lo > 0.0) or not np.all(f_hi > 0.0):
         raise ValueError("lo and hi must bracket a sign change: f(lo) <= 0 < f(hi)")
     kept = np.zeros(lo.shape, dtype=np.int8)  # side kept last step: -1 lo, +1 hi, 0 none
@@ -690,12 +695,14 @@ class _Cases:
     def at_c(self, rows: IntArray, t: FloatArray, *, nodes: bool = False) -> FloatArray:
         """Junction (or, with ``nodes``, all node) temperatures (len(rows), n_t, k) in degC
         at times t (len(rows), n_t) >= 0; a growing mode past float range gives inf."""
-        x = -self.lam[rows, None, :] * t[..., None]
-        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            e = np.exp(x)
-            # t exprel(x) from the same exponential; its series where (e - 1) / x would cancel.
-            rel = np.where(np.abs(x) > 1e-4, (e - 1.0) / x, 1.0 + x * (0.5 + x / 6.0))
-            coef = e * self.z0[rows, None, :] + t[..., None] * rel * self.u[rows, None, :]
+        return self.combine(rows, *_time_basis(self.lam[rows], t), nodes=nodes)
+
+    def combine(
+        self, rows: IntArray, decay: FloatArray, gain: FloatArray, *, nodes: bool = False
+    ) -> FloatArray:
+        """:meth:`at_c` from the time basis of :func:`_time_basis` at the same times."""
+        with np.errstate(over="ignore", invalid="ignore"):
+            coef = decay * self.z0[rows, None, :] + gain * self.u[rows, None, :]
             phi = self.phi[rows] if nodes else self.phi_j[rows]
             out = np.matmul(coef, np.swapaxes(phi, -1, -2))
         return np.asarray(np.where(np.isnan(out), np.inf, out))
@@ -725,6 +732,20 @@ class _Cases:
         inner = t_first[:, None] * (t_end / t_first)[:, None] ** frac
         last = np.where(np.isfinite(horizon), np.maximum(horizon, t_end), t_end)
         return np.concatenate([np.zeros((self.lam.shape[0], 1)), inner, last[:, None]], axis=1)
+
+
+def _time_basis(lam: FloatArray, t: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """exp(-lam t) and t exprel(-lam t), each (b, n_t, n), for rates lam (b, n) at times t
+    (b, n_t): T(t) = Phi [exp(-lam t) z0 + t exprel(-lam t) u]."""
+    x = -lam[:, None, :] * t[..., None]
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        # A settled mode (exp below -_UNDERFLOW, < 1e-260) is set to 0: tinier values would
+        # make subnormal numbers, on which arithmetic takes a slow path (25 times slower).
+        settled = x < -_UNDERFLOW
+        decay = np.where(settled, 0.0, np.exp(np.maximum(x, -_UNDERFLOW)))
+        # t exprel(x) from the same exponential; its series where (e - 1) / x would cancel.
+        rel = np.where(np.abs(x) > 1e-4, (decay - 1.0) / x, 1.0 + x * (0.5 + x / 6.0))
+    return decay, t[..., None] * rel
 
 
 def _above(temps_c: FloatArray, line_c: FloatArray) -> FloatArray:
@@ -759,7 +780,11 @@ def _cases(
     n_cases = batch[0] if batch else 1
     p0, slope, offset = (np.broadcast_to(x, (n_cases, net.n_phases)) for x in (p0, slope, offset))
     temp0 = np.broadcast_to(temp0, (n_cases, net.n_nodes))
-    lam, phi = _modes(_system_matrix(net, slope), net.capacitance_j_per_k)
+    # Cases that share their slopes share their modes (e.g. one rail state at several
+    # durations): one eigen-decomposition each.
+    distinct, which = np.unique(slope, axis=0, return_inverse=True)
+    lam, phi = _modes(_system_matrix(net, distinct), net.capacitance_j_per_k)
+    lam, phi = lam[which.reshape(-1)], phi[which.reshape(-1)]
     z0 = np.einsum("bnm,bn->bm", phi, net.capacitance_j_per_k * temp0)
     u = np.einsum("bnm,bn->bm", phi, _injection(net, p0, _finite("ambient_c", ambient_c)))
     return _Cases(lam, phi, z0, u, net.junction_node), offset
@@ -854,9 +879,6 @@ class Peaks:
     phase: IntArray
 
 
-_GOLDEN = 0.5 * (np.sqrt(5.0) - 1.0)
-
-
 def peak_batch(
     net: ThermalNetwork,
     initial_c: npt.ArrayLike,
@@ -871,11 +893,11 @@ def peak_batch(
 
     Exact solution on the log grid of :meth:`_Cases.grid` (which ends at the duration, or
     where the state has settled when the duration is longer or infinite, where the steady
-    state is the limit), the grid's largest point refined by golden-section search between
-    its neighbours (24 steps, to 1e-5 of the interval); the larger of the grid and refined
-    values is kept, so the result never understates the grid. offset_c: (n_phases,) or
-    (n_cases, n_phases), np.inf for a phase to ignore (0 for plain temperatures);
-    duration_s: float or (n_cases,), np.inf allowed. Other shapes as in
+    state is the limit), the grid's largest point refined by zooming in between its
+    neighbours (:data:`_ZOOM_ROUNDS` rounds of :data:`_ZOOM_POINTS` points, to 1.5e-5 of
+    the interval); the largest value seen is kept, so the result never understates the grid.
+    offset_c: (n_phases,) or (n_cases, n_phases), np.inf for a phase to ignore (0 for plain
+    temperatures); duration_s: float or (n_cases,), np.inf allowed. Other shapes as in
     :func:`time_to_limit_batch_s`.
 
     >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
@@ -888,66 +910,146 @@ def peak_batch(
     >>> print(f"{peak_batch(net, cold, [2.0], [0.0], 25.0, [0.0], duration_s=1e9).value[0]:.3f}")
     31.000
     """
-    cases, offset = _cases(net, initial_c, p0_w, slope_w_per_k, ambient_c, offset_c)
+    p0 = _phase_values(net, "p0_w", p0_w)
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    if p0.ndim > 2 or slope.ndim > 2:
+        raise ValueError("thermal crossings and peaks take at most one batch axis (n_cases)")
+    slope = np.broadcast_to(slope, (*np.broadcast_shapes(p0.shape, slope.shape)[:-1], p0.shape[-1]))
+    family = peak_family(net, initial_c, slope, ambient_c, offset_c, duration_s=duration_s)
+    every = np.arange(family.n_cases)
+    return family(every, np.broadcast_to(p0, (family.n_cases, net.n_phases)))
+
+
+@dataclass(frozen=True, eq=False)
+class PeakFamily:
+    """Peaks of n_cases systems whose slopes are fixed and whose constant losses p0 vary: the
+    eigen-decomposition is done once, each call costs only the scan of the exact transient.
+
+    Call with ``rows`` (k,) case indices and ``p0_w`` (k, n_phases) in W: the
+    :class:`Peaks` of those cases with losses P = p0 + s T_j (s fixed at construction).
+    """
+
+    cases: _Cases
+    offset: FloatArray
+    duration: FloatArray
+    drive: FloatArray  # (n_cases, n, n_phases): modal injection per watt at each junction
+    end: FloatArray  # (n_cases,) where the window ends (or the state has settled), s
+    grid: FloatArray  # (n_cases, n_grid) the scan's times and their basis, computed once
+    decay: FloatArray
+    gain: FloatArray
+
+    @property
+    def n_cases(self) -> int:
+        return int(self.offset.shape[0])
+
+    def __call__(self, rows: IntArray, p0_w: FloatArray) -> Peaks:
+        c = self.cases
+        whole = rows.size == self.n_cases and bool(np.all(rows == np.arange(rows.size)))
+
+        def pick(x: FloatArray) -> FloatArray:  # no copy of the big arrays for every row
+            return x if whole else x[rows]
+
+        u = pick(c.u) + np.matmul(pick(self.drive), p0_w[..., None])[..., 0]
+        sub = _Cases(pick(c.lam), pick(c.phi), pick(c.z0), u, c.junction)
+        scan = (pick(self.grid), pick(self.decay), pick(self.gain))
+        return _peaks(sub, pick(self.offset), pick(self.duration), pick(self.end), scan)
+
+
+def peak_family(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    offset_c: npt.ArrayLike,
+    *,
+    duration_s: npt.ArrayLike,
+) -> PeakFamily:
+    """The :class:`PeakFamily` of the cases given by ``slope_w_per_k`` (n_phases,) or
+    (n_cases, n_phases) and the other arguments as in :func:`peak_batch`.
+
+    >>> chain = CauerStages(np.array([2.0]), np.array([0.5]))
+    >>> net = build_coupled_network([chain], board_to_ambient_k_per_w=1.0, board_c_j_per_k=5.0)
+    >>> family = peak_family(net, [25.0, 25.0], [0.0], 25.0, [0.0], duration_s=1e9)
+    >>> family(np.array([0, 0]), np.array([[2.0], [4.0]])).value.round(3).tolist()
+    [31.0, 37.0]
+    """
+    slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
+    cases, offset = _cases(net, initial_c, np.zeros_like(slope), slope, ambient_c, offset_c)
     n_cases = offset.shape[0]
     duration = np.array(np.broadcast_to(np.asarray(duration_s, dtype=np.float64), (n_cases,)))
     if np.any(np.isnan(duration)) or np.any(duration < 0.0):
         raise ValueError("duration_s must be >= 0")
-    every = np.arange(n_cases)
+    # u = Phi^T f and f is E p0 plus the ambient term: the junction rows of Phi carry p0.
+    drive = np.ascontiguousarray(np.swapaxes(cases.phi_j, -1, -2))
+    unbounded = (cases.lam[:, 0] <= 0.0) & ~np.isfinite(duration)  # grows past every bound
+    settled = _SETTLED / np.maximum(cases.lam[:, 0], 1e-300)
+    end = np.where(np.isfinite(duration), duration, np.where(unbounded, 0.0, settled))
+    grid = cases.grid(np.where(end > 0.0, end, 1e-300), _PEAK_PER_DECADE)
+    grid = np.where(end[:, None] > 0.0, grid, 0.0)
+    return PeakFamily(cases, np.array(offset), duration, drive, end, grid,
+                      *_time_basis(cases.lam, grid))  # fmt: skip
 
-    def excess(rows: IntArray, t: FloatArray) -> FloatArray:
-        return np.asarray(np.max(_above(cases.at_c(rows, t), offset[rows, None, :]), axis=-1))
+
+def _peaks(
+    cases: _Cases,
+    offset: FloatArray,
+    duration: FloatArray,
+    end: FloatArray,
+    scan: tuple[FloatArray, FloatArray, FloatArray],
+) -> Peaks:
+    """:func:`peak_batch` on prepared cases: ``end`` and the scan's (grid, decay, gain) as
+    :class:`PeakFamily` computes them."""
+    n_cases = offset.shape[0]
+    value, time = np.full(n_cases, -np.inf), np.zeros(n_cases)
+    phase = np.full(n_cases, -1, dtype=np.intp)
+
+    def keep(rows: IntArray, t: FloatArray, temps: FloatArray, *, last: bool = False) -> IntArray:
+        """Keep the best of temps (len(rows), n_t, n_phases) at times t where it beats what
+        is kept; return the index of each row's best time (the last of equal values with
+        ``last``: the grid's end repeats where the window ends before the state settles)."""
+        over = _above(temps, offset[rows, None, :])
+        values = np.max(over, axis=-1)
+        n_t = t.shape[1]
+        best = n_t - 1 - np.argmax(values[:, ::-1], axis=1) if last else np.argmax(values, 1)
+        at = np.arange(rows.size)
+        better = values[at, best] > value[rows]
+        value[rows] = np.where(better, values[at, best], value[rows])
+        time[rows] = np.where(better, t[at, best], time[rows])
+        phase[rows] = np.where(better, np.argmax(over[at, best], axis=-1), phase[rows])
+        return np.asarray(best)
 
     # Every node warming at t = 0, dT/dt = Phi (u - lam z0) >= 0, keeps warming: dT/dt obeys
     # the same linear system, whose propagator exp(-C^-1 A t) is non-negative because A has
     # no positive off-diagonal entry (Berman and Plemmons, ch. 6). Such a case peaks at the
     # end of its window (or at its steady state), so only the others need the grid.
-    warming = np.einsum("bnm,bm->bn", cases.phi, cases.u - cases.lam * cases.z0)
+    warming = np.matmul(cases.phi, (cases.u - cases.lam * cases.z0)[..., None])[..., 0]
     rising = np.all(warming >= 0.0, axis=1)
     unbounded = (cases.lam[:, 0] <= 0.0) & ~np.isfinite(duration)  # grows past every bound
-    settled = _SETTLED / np.maximum(cases.lam[:, 0], 1e-300)
-    end = np.where(np.isfinite(duration), duration, np.where(unbounded, 0.0, settled))
-    value = np.where(unbounded, np.inf, -np.inf)
-    time = np.where(unbounded, np.inf, 0.0)
     up = np.flatnonzero(rising & ~unbounded)
     if up.size:
         ends = np.stack([np.zeros(up.size), end[up]], axis=1)
-        values = excess(up, ends)
-        pick = np.argmax(values, axis=1)
-        value[up], time[up] = values[np.arange(up.size), pick], ends[np.arange(up.size), pick]
+        keep(up, ends, cases.at_c(up, ends))
     rows = np.flatnonzero(~rising & ~unbounded)
-    grid = np.zeros((n_cases, 1))
     if rows.size:
-        grid = cases.grid(np.where(end > 0.0, end, 1e-300), _PEAK_PER_DECADE)
-        grid = np.where(end[:, None] > 0.0, grid, 0.0)
-        values = excess(rows, grid[rows])
-        best = np.argmax(values, axis=1)
-        value[rows] = values[np.arange(rows.size), best]
-        time[rows] = grid[rows, best]
+        grid = scan[0][rows]
+        best = keep(rows, grid, cases.combine(rows, scan[1][rows], scan[2][rows]), last=True)
         inner = (best > 0) & (best < grid.shape[1] - 1)
-        rows, best = rows[inner], best[inner]
-    if rows.size:
-        lo, hi = grid[rows, best - 1], grid[rows, best + 1]
-        a, b = hi - _GOLDEN * (hi - lo), lo + _GOLDEN * (hi - lo)
-        f_a, f_b = (excess(rows, x[:, None])[:, 0] for x in (a, b))
-        for _ in range(_PEAK_STEPS):  # one new point per step: the other is reused
-            left = f_a >= f_b
-            lo, hi = np.where(left, lo, a), np.where(left, b, hi)
-            new = np.where(left, hi - _GOLDEN * (hi - lo), lo + _GOLDEN * (hi - lo))
-            f_new = excess(rows, new[:, None])[:, 0]
-            a, f_a, b, f_b = (
-                np.where(left, new, b),
-                np.where(left, f_new, f_b),
-                np.where(left, a, new),
-                np.where(left, f_a, f_new),
-            )
-        pick = f_a >= f_b
-        t_mid, v_mid = np.where(pick, a, b), np.where(pick, f_a, f_b)
-        better = v_mid > value[rows]
-        value[rows] = np.where(better, v_mid, value[rows])
-        time[rows] = np.where(better, t_mid, time[rows])
-    temps = _above(cases.at_c(every, np.where(np.isfinite(time), time, 0.0)[:, None])[:, 0], offset)
-    phase = np.where(np.isfinite(offset).any(axis=1), np.argmax(temps, axis=1), -1)
+        lo, hi = grid[inner, best[inner] - 1], grid[inner, best[inner] + 1]
+        rows = rows[inner]
+        # Zoom: a uniform grid between the best point's neighbours, then between the new best
+        # point's neighbours, and so on (vectorised; one call per round).
+        frac = np.linspace(0.0, 1.0, _ZOOM_POINTS)
+        for _ in range(_ZOOM_ROUNDS if rows.size else 0):
+            ts = lo[:, None] + (hi - lo)[:, None] * frac
+            best = keep(rows, ts, cases.at_c(rows, ts))
+            at = np.arange(rows.size)
+            lo = ts[at, np.maximum(best - 1, 0)]
+            hi = ts[at, np.minimum(best + 1, _ZOOM_POINTS - 1)]
+    wild = np.flatnonzero(unbounded)  # past every bound: the hottest phase now is named
+    if wild.size:
+        keep(wild, np.zeros((wild.size, 1)), cases.at_c(wild, np.zeros((wild.size, 1))))
+        value[wild], time[wild] = np.inf, np.inf
+    phase = np.where(np.isfinite(offset).any(axis=1), phase, -1)
     return Peaks(value=value, time_s=time, phase=phase.astype(np.intp))
 
 

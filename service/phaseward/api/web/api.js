@@ -54,7 +54,7 @@ export const api = {
   newestEvent: () => request('GET', '/v1/events?limit=1'),
   screening: (id, depth = 1) => request('GET', `${rail(id)}/screening?depth=${depth}`),
   forecast: (id, body) => request('POST', `${rail(id)}/forecast`, body),
-  ratings: (id) => request('GET', `${rail(id)}/ratings`),
+  ratings: (id, pairs = false) => request('GET', `${rail(id)}/ratings${pairs ? '?pairs=true' : ''}`),
   ack: (eventId, by, note) =>
     request('POST', `/v1/events/${encodeURIComponent(eventId)}/ack`, { by, note: note || null }),
 };

@@ -143,7 +143,7 @@ async function loadAnalyses(d) {
     loadA == null
       ? Promise.reject(new Error('the rail has no load to forecast from'))
       : api.forecast(d.id, { load: { constant_a: loadA }, horizon_s: HORIZON_S, points: 120 }),
-    api.ratings(d.id),
+    api.ratings(d.id, d.ratingPairs),
   ]);
   if (state.detail !== d || seq !== d.analysesSeq) return; // left, or a newer run is on its way
   d.screening = screening.status === 'fulfilled' ? screening.value : null;
@@ -340,7 +340,7 @@ function newDetail(id) {
   return {
     id, spec: null, statusError: null, events: [], nextCursor: undefined, eventsError: null,
     screening: null, screeningError: null, forecast: null, forecastError: null, forecastLoad: null,
-    ratings: null, ratingsError: null,
+    ratings: null, ratingsError: null, ratingPairs: false,
     depth: 1, onlyOpen: false, forecastTableOpen: false, analysesSeq: 0, analysedFor: null,
   };
 }
@@ -368,7 +368,7 @@ function mountRail(d) {
       section('phases', 'Phases'),
       section('forecast', 'Thermal forecast, next hour', 'At the present load; from the state of the latest sample.'),
       section('screening', 'N\u22121 screening', 'What one more loss would leave, weakest first.'),
-      section('ratings', 'How much load, for how long', 'The highest constant load from the present state, as the rail is and after one more loss, with no junction past its warning line and no phase past its current rating or trip current.'),
+      section('ratings', 'How much load, for how long', 'The highest constant load from the present state, as the rail is and after one more loss (or two), with no junction past its warning line and no phase past its current rating or trip current.'),
       section('events', 'Events', 'Newest first, live.')));
 }
 
@@ -646,8 +646,15 @@ function renderRatings() {
   const d = state.detail;
   const body = $('sec-ratings-body');
   if (!d || !body) return;
+  const casesSelect = h('select', { id: 'ratings-cases', 'data-focus-key': 'ratings-cases', onchange: (e) => {
+    d.ratingPairs = e.target.value === 'pairs';
+    loadAnalyses(d);
+  } },
+  h('option', { value: 'singles', selected: !d.ratingPairs }, 'every single further loss'),
+  h('option', { value: 'pairs', selected: d.ratingPairs }, 'every single and every pair of further losses'));
+  const controls = h('p', { class: 'controls' }, h('label', { for: 'ratings-cases' }, 'Rate '), casesSelect);
   if (d.ratingsError) {
-    replaceKeepingFocus(body, errorNotice('the ratings', d.ratingsError));
+    replaceKeepingFocus(body, controls, errorNotice('the ratings', d.ratingsError));
     return;
   }
   const r = d.ratings;
@@ -657,7 +664,7 @@ function renderRatings() {
     h('th', { scope: 'row' }, c.lose_phases.length ? `lose phase${c.lose_phases.length > 1 ? 's' : ''} ${c.lose_phases.join(' + ')}` : 'as it is'),
     ...c.ratings.map((x) => h('td', { class: `num${x.headroom_a < 0 ? ' neg' : ''}`, title: `limited by ${BINDS[x.binding] ?? x.binding}${x.binding_phase == null ? '' : ` of phase ${x.binding_phase}`}` },
       fmt.amps(x.rating_a), h('span', { class: 'sub' }, ` ${BINDS[x.binding] ?? x.binding}`)))));
-  replaceKeepingFocus(body,
+  replaceKeepingFocus(body, controls,
     h('p', {}, `Present load ${fmt.amps(r.load_a)}. Each cell: the highest constant load for that long, and what limits it.`),
     tableBox('Time-limited ratings', h('table', { class: 'ratings' },
       h('caption', { class: 'visually-hidden' }, 'Time-limited ratings per further loss and duration'),

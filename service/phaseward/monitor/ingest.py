@@ -136,6 +136,43 @@ def ingest_together(
     return results
 
 
+RailWork = tuple[str, Sequence[IncomingSamples]]
+
+
+def ingest_rails(
+    sessions: sessionmaker[Session], work: Sequence[RailWork]
+) -> list[list[IngestResult | Exception]]:
+    """The groups of several rails (each: its requests' batches) in one transaction: one
+    durable commit for a fleet whose every request is for another rail. Each rail keeps its
+    own monitor pass, in a savepoint of its own; a rail whose pass fails is rolled back to its
+    savepoint and, after the commit, ingested on its own (:func:`ingest_together`), so one
+    rail's bad request fails only itself. If the transaction fails as a whole (the commit, a
+    lost connection), every rail is ingested on its own. Rails are locked in id order, so two
+    processes merging overlapping fleets on PostgreSQL never wait on each other in a cycle."""
+    results: list[list[IngestResult | Exception] | None] = [None] * len(work)
+    if len(work) > 1:
+        try:
+            done: dict[int, list[IngestResult | Exception]] = {}
+            with transaction(sessions) as session:
+                for k in sorted(range(len(work)), key=lambda k: work[k][0]):
+                    rail_id, batches = work[k]
+                    sizes = [b.n for b in batches]
+                    try:
+                        with session.begin_nested():
+                            outcome = _ingest(session, rail_id, concat(batches), sizes)
+                    except Exception:  # retried alone below, where each failure is reported
+                        continue
+                    done[k] = list(outcome.split(sizes))
+            for k, outcomes in done.items():
+                results[k] = outcomes
+        except Exception:  # nothing of this transaction was stored: all retried alone
+            pass
+    return [
+        outcomes if outcomes is not None else ingest_together(sessions, *work[k])
+        for k, outcomes in enumerate(results)
+    ]
+
+
 def _ingest(
     session: Session, rail_id: str, incoming: IncomingSamples, parts: Sequence[int] = ()
 ) -> _Outcome:

@@ -214,7 +214,10 @@ async def test_a_resend_racing_its_original_in_one_group_is_judged_once(
 
 
 async def test_an_unexpected_failure_on_one_requests_data_fails_that_request_alone(
-    client: httpx.AsyncClient, app: FastAPI, transactions: list[dict[str, int]], monkeypatch: pytest.MonkeyPatch
+    client: httpx.AsyncClient,
+    app: FastAPI,
+    transactions: list[dict[str, int]],
+    monkeypatch: pytest.MonkeyPatch,
 ) -> None:
     """Issue 17.5: one request's data that made the physics raise (not a refusal) failed the
     whole group, and other clients' good requests answered 500."""
@@ -261,7 +264,9 @@ async def test_requests_for_many_rails_share_one_transaction_and_a_bad_one_fails
     rails = [f"fleet-{k}" for k in range(6)]
     for rail_id in rails:
         assert (await client.post("/v1/rails", json=rail_spec(id=rail_id))).status_code == 201
-        assert (await client.post(f"/v1/rails/{rail_id}/samples", json=sample(0, HEALTHY))).is_success
+        assert (
+            await client.post(f"/v1/rails/{rail_id}/samples", json=sample(0, HEALTHY))
+        ).is_success
     bodies = {rail_id: [sample(1, TRIPPED)] for rail_id in rails}
     bodies["fleet-3"] = [sample(1, HEALTHY), sample(0, [21.0] * 4)]  # seq 0 with other content
     for body in bodies.values():
@@ -282,9 +287,7 @@ async def test_requests_for_many_rails_share_one_transaction_and_a_bad_one_fails
     assert isinstance(outcomes["fleet-3"], Conflict)
     assert outcomes["fleet-3"].field == "[1].seq"
     for rail_id in rails:
-        window = await client.get(
-            f"/v1/rails/{rail_id}/samples", params={"since": 0, "until": 4e9}
-        )
+        window = await client.get(f"/v1/rails/{rail_id}/samples", params={"since": 0, "until": 4e9})
         status = (await client.get(f"/v1/rails/{rail_id}/status")).json()
         if rail_id == "fleet-3":
             assert window.json()["seq"] == [0]

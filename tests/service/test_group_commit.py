@@ -51,9 +51,9 @@ def transactions(monkeypatch: pytest.MonkeyPatch) -> list[dict[str, int]]:
     groups: list[dict[str, int]] = []
     real = ingest_module.ingest_rails
 
-    def spy(sessions: Any, work: list[tuple[str, list[IncomingSamples]]]) -> list[Any]:
+    def spy(sessions: Any, work: list[tuple[str, list[IncomingSamples]]], **kw: Any) -> list[Any]:
         groups.append({rail_id: len(batches) for rail_id, batches in work})
-        return real(sessions, work)
+        return real(sessions, work, **kw)
 
     monkeypatch.setattr("phaseward.api.group_commit.ingest_rails", spy)
     return groups
@@ -173,7 +173,7 @@ async def test_a_database_failure_reaches_every_request_of_the_group(
 ) -> None:
     assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
 
-    def unreachable(*_: Any) -> list[Any]:
+    def unreachable(*_: Any, **__: Any) -> list[Any]:
         raise ConnectionError("database went away")
 
     monkeypatch.setattr("phaseward.api.group_commit.ingest_rails", unreachable)

@@ -12,11 +12,12 @@ outcome (:func:`~phaseward.monitor.ingest.ingest_rails`).
 from __future__ import annotations
 
 import asyncio
+from functools import partial
 
 from fastapi.concurrency import run_in_threadpool
 from sqlalchemy.orm import Session, sessionmaker
 
-from phaseward.monitor.ingest import IngestResult, ingest_rails
+from phaseward.monitor.ingest import TOLERANCES, IngestResult, Tolerances, ingest_rails
 from phaseward.monitor.telemetry import IncomingSamples
 
 _Waiting = list[tuple[str, IncomingSamples, "asyncio.Future[IngestResult]"]]
@@ -27,9 +28,16 @@ class GroupCommit:
     samples (a larger single request still goes alone). Requests of one rail keep their
     order: once one has to wait for the next group, every later request waits too."""
 
-    def __init__(self, sessions: sessionmaker[Session], max_samples: int) -> None:
+    def __init__(
+        self,
+        sessions: sessionmaker[Session],
+        max_samples: int,
+        *,
+        tolerances: Tolerances = TOLERANCES,
+    ) -> None:
         self._sessions = sessions
         self._max = max_samples
+        self._tolerances = tolerances
         self._queue: _Waiting = []
         self._task: asyncio.Task[None] | None = None
 
@@ -51,7 +59,9 @@ class GroupCommit:
                 work = [(rail_id, [b for _, b, _ in waiting]) for rail_id, waiting in rails.items()]
                 outcomes: list[list[IngestResult | Exception]]
                 try:
-                    outcomes = await run_in_threadpool(ingest_rails, self._sessions, work)
+                    outcomes = await run_in_threadpool(
+                        partial(ingest_rails, tolerances=self._tolerances), self._sessions, work
+                    )
                 except Exception as err:  # e.g. the database is unreachable: all of them hear
                     outcomes = [[err] * len(waiting) for waiting in rails.values()]
                 for waiting, answers in zip(rails.values(), outcomes, strict=True):

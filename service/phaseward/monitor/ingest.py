@@ -19,7 +19,7 @@ hold after that sample, and where the rail is assessed depends on the samples al
   grid (``_step_runs``), held at the loss and ambient of the sample that starts it;
 * the rail (capacity, N-1 screening, forecast, condition) is assessed at the rail's first
   sample; at every sample whose phase conditions differ from the sample before; at the first
-  sample in each ``ASSESS_GRID_S`` cell of absolute time; and at every sample where what a
+  sample in each ``Tolerances.grid_s`` cell of absolute time; and at every sample where what a
   verdict depends on moved beyond its tolerance since the last assessment (load and each phase
   current, each junction estimate, ambient, output voltage, each sharing weight; see
   ``_signature``: 2 % of the rail's total rated current, 1 K, 2 % of nominal output voltage,
@@ -102,19 +102,45 @@ class _Outcome:
         )  # fmt: skip
 
 
+@dataclass(frozen=True)
+class Tolerances:
+    """Where the rail is assessed (module docstring): a time grid, and tolerances on what moves
+    a verdict between the points where phase conditions change (common practice: well inside
+    the margins the verdicts are drawn with, and above sensor noise). Settings
+    ``PHASEWARD_ASSESS_*``; tests/service/test_assessment_tolerances.py bounds what they allow
+    against assessing every sample."""
+
+    grid_s: float = 10.0  # s, absolute time: one assessment at least in every grid cell
+    load: float = 0.02  # of the rail's total rated current, on the load and each phase current
+    temp_k: float = 1.0  # K, on each junction estimate and on ambient
+    vout: float = 0.02  # of nominal output voltage
+    weight: float = 0.02  # on each sharing weight (1.0 = an equal share)
+
+
+TOLERANCES = Tolerances()
+
+
 def ingest(
-    sessions: sessionmaker[Session], rail_id: str, incoming: IncomingSamples
+    sessions: sessionmaker[Session],
+    rail_id: str,
+    incoming: IncomingSamples,
+    *,
+    tolerances: Tolerances = TOLERANCES,
 ) -> IngestResult:
     try:
         with transaction(sessions) as session:
-            return _ingest(session, rail_id, incoming).split([incoming.n])[0]
+            return _ingest(session, rail_id, incoming, tolerances=tolerances).split([incoming.n])[0]
     except (InvalidInput, Conflict) as err:
         record_rejection(sessions, rail_id, samples=incoming.n, error=err)
         raise
 
 
 def ingest_together(
-    sessions: sessionmaker[Session], rail_id: str, batches: Sequence[IncomingSamples]
+    sessions: sessionmaker[Session],
+    rail_id: str,
+    batches: Sequence[IncomingSamples],
+    *,
+    tolerances: Tolerances = TOLERANCES,
 ) -> list[IngestResult | Exception]:
     """Several requests' batches for one rail in one transaction and one monitor pass (group
     commit). Each batch stays all-or-nothing: if the merged batch fails, for a refusal or for
@@ -123,14 +149,16 @@ def ingest_together(
     if len(batches) > 1:
         try:
             with transaction(sessions) as session:
-                outcome = _ingest(session, rail_id, concat(batches), [b.n for b in batches])
+                outcome = _ingest(
+                    session, rail_id, concat(batches), [b.n for b in batches], tolerances
+                )
             return list(outcome.split([b.n for b in batches]))
         except Exception:  # retried one by one below, where each failure is reported
             pass
     results: list[IngestResult | Exception] = []
     for batch in batches:
         try:
-            results.append(ingest(sessions, rail_id, batch))
+            results.append(ingest(sessions, rail_id, batch, tolerances=tolerances))
         except Exception as err:  # handed to that request alone
             results.append(err)
     return results
@@ -140,7 +168,10 @@ RailWork = tuple[str, Sequence[IncomingSamples]]
 
 
 def ingest_rails(
-    sessions: sessionmaker[Session], work: Sequence[RailWork]
+    sessions: sessionmaker[Session],
+    work: Sequence[RailWork],
+    *,
+    tolerances: Tolerances = TOLERANCES,
 ) -> list[list[IngestResult | Exception]]:
     """The groups of several rails (each: its requests' batches) in one transaction: one
     durable commit for a fleet whose every request is for another rail. Each rail keeps its
@@ -159,7 +190,7 @@ def ingest_rails(
                     sizes = [b.n for b in batches]
                     try:
                         with session.begin_nested():
-                            outcome = _ingest(session, rail_id, concat(batches), sizes)
+                            outcome = _ingest(session, rail_id, concat(batches), sizes, tolerances)
                     except Exception:  # retried alone below, where each failure is reported
                         continue
                     done[k] = list(outcome.split(sizes))
@@ -168,13 +199,19 @@ def ingest_rails(
         except Exception:  # nothing of this transaction was stored: all retried alone
             pass
     return [
-        outcomes if outcomes is not None else ingest_together(sessions, *work[k])
+        outcomes
+        if outcomes is not None
+        else ingest_together(sessions, *work[k], tolerances=tolerances)
         for k, outcomes in enumerate(results)
     ]
 
 
 def _ingest(
-    session: Session, rail_id: str, incoming: IncomingSamples, parts: Sequence[int] = ()
+    session: Session,
+    rail_id: str,
+    incoming: IncomingSamples,
+    parts: Sequence[int] = (),
+    tolerances: Tolerances = TOLERANCES,
 ) -> _Outcome:
     """Store and judge ``incoming``: one request, or the requests of a group (``parts``: their
     sizes). A sample two requests of a group both carry (a resend racing its original) is
@@ -222,7 +259,7 @@ def _ingest(
     if live_batch.n:
         # A new definition keeps time order but restarts judgement from a fresh state.
         previous = live.state if live is not None and live.version == rail.version else {}
-        new_state, findings = advance(model, live_batch, previous)
+        new_state, findings = advance(model, live_batch, previous, tolerances)
         events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
         isolations = [
             (float(live_batch.t_s[f.sample]), int(f.phase))
@@ -277,7 +314,10 @@ def _rows(rail_id: str, version: int, batch: SampleBatch) -> list[dict[str, Any]
 
 
 def advance(
-    model: RailModel, batch: SampleBatch, previous: dict[str, Any]
+    model: RailModel,
+    batch: SampleBatch,
+    previous: dict[str, Any],
+    tolerances: Tolerances = TOLERANCES,
 ) -> tuple[dict[str, Any], list[Finding]]:
     """The live state after ``batch`` (in time order, newer than ``previous``) and its findings.
 
@@ -294,9 +334,9 @@ def advance(
     )
 
     prior = previous.get("rail", {})
-    signature = _signature(model, judgement, current, nodes[1:], ambient, batch.vout_v)
+    signature = _signature(model, judgement, current, nodes[1:], ambient, batch.vout_v, tolerances)
     points, reference = _assessment_points(
-        model, batch, judgement.codes, signature, previous if prior else {}
+        model, batch, judgement.codes, signature, previous if prior else {}, tolerances.grid_s
     )
     findings = list(judgement.findings)
     for k in points:
@@ -344,30 +384,28 @@ def advance(
     return new_state, findings
 
 
-# Where the rail is assessed (module docstring): a time grid, and tolerances on what moves a
-# verdict between the points where phase conditions change (common practice: well inside
-# the margins the verdicts are drawn with, and above sensor noise).
-ASSESS_GRID_S = 10.0  # s, absolute time: one assessment at least in every grid cell
-LOAD_TOLERANCE = 0.02  # of the rail's total rated current, on the load and each phase current
-TEMP_TOLERANCE_K = 1.0  # on each junction estimate and on ambient
-VOUT_TOLERANCE = 0.02  # of nominal output voltage
-WEIGHT_TOLERANCE = 0.02  # on each sharing weight (1.0 = an equal share)
 _LOOKAHEAD = 64  # samples scanned at a time for the next drift beyond tolerance
 
 
 def _signature(
-    model: RailModel, judgement: Judgement, current: F64, nodes: F64, ambient: F64, vout: F64
+    model: RailModel,
+    judgement: Judgement,
+    current: F64,
+    nodes: F64,
+    ambient: F64,
+    vout: F64,
+    tol: Tolerances,
 ) -> F64:
     """What a verdict depends on at each sample, in units of its tolerance. (n, m)."""
-    amps = LOAD_TOLERANCE * float(model.rated_current_a.sum())
+    amps = tol.load * float(model.rated_current_a.sum())
     return np.column_stack(
         [
             judgement.load_a / amps,
             current / amps,
-            nodes[:, model.network.junction_node] / TEMP_TOLERANCE_K,
-            ambient / TEMP_TOLERANCE_K,
-            vout / (VOUT_TOLERANCE * model.vout_v),
-            judgement.weights / WEIGHT_TOLERANCE,
+            nodes[:, model.network.junction_node] / tol.temp_k,
+            ambient / tol.temp_k,
+            vout / (tol.vout * model.vout_v),
+            judgement.weights / tol.weight,
         ]
     )
 
@@ -378,6 +416,7 @@ def _assessment_points(
     codes: npt.NDArray[np.int8],
     signature: F64,
     previous: dict[str, Any],
+    grid_s: float,
 ) -> tuple[list[int], F64]:
     """Samples of the batch at which the rail is assessed, and the signature of the last one.
 
@@ -386,9 +425,9 @@ def _assessment_points(
     known = bool(previous) and "assessed" in previous
     codes_before = np.asarray(previous["watch"]["codes"]) if known else codes[0]
     t_before = float(previous["sample"]["t_s"]) if known else batch.t_s[0]
-    cell = np.floor(batch.t_s / ASSESS_GRID_S)
+    cell = np.floor(batch.t_s / grid_s)
     forced = np.any(codes != np.concatenate([codes_before[None, :], codes[:-1]]), axis=1)
-    forced |= cell != np.concatenate([[np.floor(t_before / ASSESS_GRID_S)], cell[:-1]])
+    forced |= cell != np.concatenate([[np.floor(t_before / grid_s)], cell[:-1]])
     if known:
         reference = np.asarray(previous["assessed"]["signature"], dtype=np.float64)
     else:

@@ -65,8 +65,12 @@ class Settings(BaseSettings):
     assess_temp_tolerance_k: float = Field(default=1.0, gt=0, le=20)
     assess_vout_tolerance: float = Field(default=0.02, gt=0, le=0.2)  # of nominal output
     assess_weight_tolerance: float = Field(default=0.02, gt=0, le=0.5)  # 1.0 = an equal share
-    # Rails whose model (thermal network, arrays) a process keeps built: the fleet's size.
+    # Rails whose model (thermal network, arrays) and live state a process keeps in memory:
+    # the fleet's size.
     rail_cache_size: int = Field(default=4096, ge=16)
+    # The whole live state (the estimator's covariance included) is checkpointed every this
+    # many judged samples of a rail; between checkpoints the state row is written without it.
+    state_checkpoint_samples: int = Field(default=60, ge=1, le=10_000)
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

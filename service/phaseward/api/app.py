@@ -33,8 +33,9 @@ from phaseward.api.routes import (
 from phaseward.api.schemas.samples import BODY_COMPONENTS
 from phaseward.monitor import rail_model, retention
 from phaseward.monitor import rehearsals as rehearsal_jobs
-from phaseward.monitor.ingest import Tolerances
+from phaseward.monitor.ingest import Tolerances, Tuning
 from phaseward.monitor.jobs import JobRunner
+from phaseward.monitor.resident import LiveStates
 from phaseward.settings import Settings
 from phaseward.store.db import build_engine, build_sessionmaker, close_engine, migrate
 
@@ -91,9 +92,12 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
         temp_k=settings.assess_temp_tolerance_k, vout=settings.assess_vout_tolerance,
         weight=settings.assess_weight_tolerance,
     )  # fmt: skip
-    app.state.group_commit = GroupCommit(
-        sessions, settings.max_batch_samples, tolerances=tolerances
-    )
+    app.state.live_states = LiveStates(settings.rail_cache_size)
+    tuning = Tuning(
+        tolerances=tolerances, checkpoint_samples=settings.state_checkpoint_samples,
+        live=app.state.live_states,
+    )  # fmt: skip
+    app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples, tuning=tuning)
     rail_model.resize_cache(settings.rail_cache_size)
     app.state.rate_limiter = RateLimiter(settings.rate_per_s, settings.rate_burst)
     runner.resume()  # jobs whose server stopped run again here; leases renewed from now on

@@ -17,7 +17,7 @@ from functools import partial
 from fastapi.concurrency import run_in_threadpool
 from sqlalchemy.orm import Session, sessionmaker
 
-from phaseward.monitor.ingest import TOLERANCES, IngestResult, Tolerances, ingest_rails
+from phaseward.monitor.ingest import TUNING, IngestResult, Tuning, ingest_rails
 from phaseward.monitor.telemetry import IncomingSamples
 
 _Waiting = list[tuple[str, IncomingSamples, "asyncio.Future[IngestResult]"]]
@@ -33,11 +33,11 @@ class GroupCommit:
         sessions: sessionmaker[Session],
         max_samples: int,
         *,
-        tolerances: Tolerances = TOLERANCES,
+        tuning: Tuning = TUNING,
     ) -> None:
         self._sessions = sessions
         self._max = max_samples
-        self._tolerances = tolerances
+        self._tuning = tuning
         self._queue: _Waiting = []
         self._task: asyncio.Task[None] | None = None
 
@@ -60,7 +60,7 @@ class GroupCommit:
                 outcomes: list[list[IngestResult | Exception]]
                 try:
                     outcomes = await run_in_threadpool(
-                        partial(ingest_rails, tolerances=self._tolerances), self._sessions, work
+                        partial(ingest_rails, tuning=self._tuning), self._sessions, work
                     )
                 except Exception as err:  # e.g. the database is unreachable: all of them hear
                     outcomes = [[err] * len(waiting) for waiting in rails.values()]

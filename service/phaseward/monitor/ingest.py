@@ -35,9 +35,10 @@ hold after that sample, and where the rail is assessed depends on the samples al
 
 from __future__ import annotations
 
+import secrets
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from itertools import pairwise
 from typing import Any
 
@@ -61,12 +62,14 @@ from phaseward.monitor.conditions import (
 )
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.rejections import record_rejection
+from phaseward.monitor.resident import LiveStates, Resident
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
 from phaseward.physics.estimator import EstimatorState, initial_from_readings, kalman_run
 from phaseward.physics.plausibility import RULES
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c
 from phaseward.store import events, rails, samples, state
 from phaseward.store.db import transaction
+from phaseward.store.models import Sample
 
 F64 = npt.NDArray[np.float64]
 
@@ -88,6 +91,13 @@ class _Outcome:
     newer: npt.NDArray[np.bool_]
     condition: str | None
     version: int
+    rail_id: str = ""
+    resident: Resident | None = None  # the live state this pass wrote
+
+    def publish(self, tuning: Tuning) -> None:
+        """Keep the written state in memory: only once its transaction has committed."""
+        if tuning.live is not None and self.resident is not None:
+            tuning.live.put(self.rail_id, self.resident)
 
     def split(self, sizes: Sequence[int]) -> list[IngestResult]:
         cuts = np.cumsum(sizes)[:-1]
@@ -120,16 +130,33 @@ class Tolerances:
 TOLERANCES = Tolerances()
 
 
+@dataclass(frozen=True)
+class Tuning:
+    """How the monitor runs, from the settings: where it assesses (``tolerances``), how often
+    it checkpoints the whole live state (every ``checkpoint_samples`` judged samples; between
+    checkpoints the state row is written without the estimator's covariance), and the live
+    states it keeps in memory (``live``; None: every pass reads the state from the store)."""
+
+    tolerances: Tolerances = TOLERANCES
+    checkpoint_samples: int = 60
+    live: LiveStates | None = None
+
+
+TUNING = Tuning()
+
+
 def ingest(
     sessions: sessionmaker[Session],
     rail_id: str,
     incoming: IncomingSamples,
     *,
-    tolerances: Tolerances = TOLERANCES,
+    tuning: Tuning = TUNING,
 ) -> IngestResult:
     try:
         with transaction(sessions) as session:
-            return _ingest(session, rail_id, incoming, tolerances=tolerances).split([incoming.n])[0]
+            outcome = _ingest(session, rail_id, incoming, tuning=tuning)
+        outcome.publish(tuning)
+        return outcome.split([incoming.n])[0]
     except (InvalidInput, Conflict) as err:
         record_rejection(sessions, rail_id, samples=incoming.n, error=err)
         raise
@@ -140,7 +167,7 @@ def ingest_together(
     rail_id: str,
     batches: Sequence[IncomingSamples],
     *,
-    tolerances: Tolerances = TOLERANCES,
+    tuning: Tuning = TUNING,
 ) -> list[IngestResult | Exception]:
     """Several requests' batches for one rail in one transaction and one monitor pass (group
     commit). Each batch stays all-or-nothing: if the merged batch fails, for a refusal or for
@@ -149,16 +176,15 @@ def ingest_together(
     if len(batches) > 1:
         try:
             with transaction(sessions) as session:
-                outcome = _ingest(
-                    session, rail_id, concat(batches), [b.n for b in batches], tolerances
-                )
+                outcome = _ingest(session, rail_id, concat(batches), [b.n for b in batches], tuning)
+            outcome.publish(tuning)
             return list(outcome.split([b.n for b in batches]))
         except Exception:  # retried one by one below, where each failure is reported
             pass
     results: list[IngestResult | Exception] = []
     for batch in batches:
         try:
-            results.append(ingest(sessions, rail_id, batch, tolerances=tolerances))
+            results.append(ingest(sessions, rail_id, batch, tuning=tuning))
         except Exception as err:  # handed to that request alone
             results.append(err)
     return results
@@ -171,7 +197,7 @@ def ingest_rails(
     sessions: sessionmaker[Session],
     work: Sequence[RailWork],
     *,
-    tolerances: Tolerances = TOLERANCES,
+    tuning: Tuning = TUNING,
 ) -> list[list[IngestResult | Exception]]:
     """The groups of several rails (each: its requests' batches) in one transaction: one
     durable commit for a fleet whose every request is for another rail. Each rail keeps its
@@ -183,25 +209,24 @@ def ingest_rails(
     results: list[list[IngestResult | Exception] | None] = [None] * len(work)
     if len(work) > 1:
         try:
-            done: dict[int, list[IngestResult | Exception]] = {}
+            done: dict[int, _Outcome] = {}
             with transaction(sessions) as session:
                 for k in sorted(range(len(work)), key=lambda k: work[k][0]):
                     rail_id, batches = work[k]
                     sizes = [b.n for b in batches]
                     try:
                         with session.begin_nested():
-                            outcome = _ingest(session, rail_id, concat(batches), sizes, tolerances)
+                            outcome = _ingest(session, rail_id, concat(batches), sizes, tuning)
                     except Exception:  # retried alone below, where each failure is reported
                         continue
-                    done[k] = list(outcome.split(sizes))
-            for k, outcomes in done.items():
-                results[k] = outcomes
+                    done[k] = outcome
+            for k, outcome in done.items():
+                outcome.publish(tuning)
+                results[k] = list(outcome.split([b.n for b in work[k][1]]))
         except Exception:  # nothing of this transaction was stored: all retried alone
             pass
     return [
-        outcomes
-        if outcomes is not None
-        else ingest_together(sessions, *work[k], tolerances=tolerances)
+        outcomes if outcomes is not None else ingest_together(sessions, *work[k], tuning=tuning)
         for k, outcomes in enumerate(results)
     ]
 
@@ -211,7 +236,7 @@ def _ingest(
     rail_id: str,
     incoming: IncomingSamples,
     parts: Sequence[int] = (),
-    tolerances: Tolerances = TOLERANCES,
+    tuning: Tuning = TUNING,
 ) -> _Outcome:
     """Store and judge ``incoming``: one request, or the requests of a group (``parts``: their
     sizes). A sample two requests of a group both carry (a resend racing its original) is
@@ -220,7 +245,15 @@ def _ingest(
     rail = rails.get(session, rail_id, for_update=True)
     if rail is None:
         raise NotFound(f"no rail '{rail_id}'", field="rail_id")
-    model = rail_model.build(rail.id, rail.version, rails.spec(session, rail.id, rail.version))
+    head = state.head(session, rail_id)
+    held = tuning.live.get(rail_id) if tuning.live is not None else None
+    if held is None or head is None or head.stamp != held.stamp:
+        held = None  # another process wrote since, or nothing is held: read the store
+    if held is not None and held.version == rail.version:
+        model = held.model
+    else:
+        spec = rails.spec(session, rail.id, rail.version)
+        model = rail_model.build(rail.id, rail.version, spec)
     for part in np.split(incoming.seq, np.cumsum(parts or [incoming.n])[:-1]):
         _check_unique_seq(part)
     batch = to_batch(incoming, model)
@@ -250,29 +283,127 @@ def _ingest(
         fresh[k] = False
     samples.insert_rows(session, [r for r, f in zip(rows, fresh, strict=True) if f])
 
-    live = state.get(session, rail_id, for_update=True)
-    last_t = live.last_t_s if live is not None else None
+    last_t = head.last_t_s if head is not None else None
     newer = fresh & (batch.t_s > (last_t if last_t is not None else -np.inf))
     order = np.argsort(batch.t_s[newer], kind="stable")
     live_batch = batch.take(np.nonzero(newer)[0][order])
-    condition = live.state.get("rail", {}).get("condition") if live is not None else None
-    if live_batch.n:
-        # A new definition keeps time order but restarts judgement from a fresh state.
-        previous = live.state if live is not None and live.version == rail.version else {}
-        new_state, findings = advance(model, live_batch, previous, tolerances)
-        events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
-        isolations = [
-            (float(live_batch.t_s[f.sample]), int(f.phase))
-            for f in findings
-            if f.kind == "phase.isolated" and f.phase is not None
-        ]
-        fault_class.settle(session, model, isolations)
-        state.put(
-            session, rail_id=rail_id, version=rail.version, last_seq=int(live_batch.seq[-1]),
-            last_t_s=float(live_batch.t_s[-1]), state=new_state, now_s=now_s,
-        )  # fmt: skip
-        condition = new_state["rail"]["condition"]
-    return _Outcome(fresh=fresh, newer=newer, condition=condition, version=rail.version)
+    stored = _stored_state(session, rail_id, head, held)
+    condition = stored.get("rail", {}).get("condition") if stored is not None else None
+    outcome = _Outcome(fresh=fresh, newer=newer, condition=condition, version=rail.version)
+    if not live_batch.n:
+        return outcome
+    # A new definition keeps time order but restarts judgement from a fresh state.
+    same = stored is not None and head is not None and head.version == rail.version
+    if held is not None and same:
+        previous = held.state
+    elif same and stored is not None and head is not None:
+        previous = _restore(session, model, stored, head.replay, tuning.tolerances)
+    else:
+        previous = {}
+    new_state, findings = advance(model, live_batch, previous, tuning.tolerances)
+    events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
+    isolations = [
+        (float(live_batch.t_s[f.sample]), int(f.phase))
+        for f in findings
+        if f.kind == "phase.isolated" and f.phase is not None
+    ]
+    fault_class.settle(session, model, isolations)
+    last_seq = int(live_batch.seq[-1])
+    replay = (held.replay if held is not None and previous else []) + _replay_entries(live_batch)
+    if held is None or not previous or len(replay) >= tuning.checkpoint_samples:
+        state.put_checkpoint(
+            session, rail_id=rail_id, version=rail.version, seq=last_seq, state=new_state
+        )
+        replay = []
+    stamp = secrets.randbits(63)
+    state.put(
+        session, rail_id=rail_id, version=rail.version, last_seq=last_seq,
+        last_t_s=float(live_batch.t_s[-1]), state=_without_covariance(new_state), now_s=now_s,
+        stamp=stamp, replay=replay,
+    )  # fmt: skip
+    return replace(
+        outcome,
+        condition=new_state["rail"]["condition"],
+        rail_id=rail_id,
+        resident=Resident(
+            stamp=stamp, version=rail.version, model=model, state=new_state, replay=replay
+        ),
+    )
+
+
+def _stored_state(
+    session: Session, rail_id: str, head: state.Head | None, held: Resident | None
+) -> dict[str, Any] | None:
+    """The live state as stored (without its covariance unless held in memory)."""
+    if held is not None:
+        return held.state
+    if head is None:
+        return None
+    row = state.get(session, rail_id)
+    return None if row is None else row.state
+
+
+def _without_covariance(full: dict[str, Any]) -> dict[str, Any]:
+    estimate = {k: v for k, v in full["estimate"].items() if k != "cov_k2"}
+    return full | {"estimate": estimate}
+
+
+def _replay_entries(batch: SampleBatch) -> list[Any]:
+    """Per judged sample: [seq], or [seq, phases] where some current came from a sense
+    voltage (the one thing judged that the stored sample does not say)."""
+    return [
+        [int(seq)] if not sensed.any() else [int(seq), np.flatnonzero(sensed).tolist()]
+        for seq, sensed in zip(batch.seq, batch.sensed, strict=True)
+    ]
+
+
+def _restore(
+    session: Session,
+    model: RailModel,
+    stored: dict[str, Any],
+    replay: list[Any] | None,
+    tolerances: Tolerances,
+) -> dict[str, Any]:
+    """The whole live state from the row: its covariance is the checkpoint's, carried forward
+    over the samples judged since (stored in order in ``replay``) by the same recurrence. The
+    samples are stored exactly as they were judged; events are a pure function of them, so the
+    replay ends in the state the uninterrupted passes reached (to rounding)."""
+    if "cov_k2" in stored.get("estimate", {}) or replay is None:
+        return stored  # written whole (before checkpoints existed)
+    checkpoint = state.checkpoint(session, model.rail_id)
+    if checkpoint is None or checkpoint.version != model.version:
+        raise RuntimeError(f"rail '{model.rail_id}' has no checkpoint of version {model.version}")
+    covariance = checkpoint.state["estimate"]["cov_k2"]
+    if replay:
+        found = samples.existing(session, model.rail_id, [int(e[0]) for e in replay])
+        batch = _stored_batch(model, [found[int(e[0])] for e in replay], replay)
+        replayed, _ = advance(model, batch, checkpoint.state, tolerances)
+        covariance = replayed["estimate"]["cov_k2"]
+    return stored | {"estimate": stored["estimate"] | {"cov_k2": covariance}}
+
+
+def _stored_batch(model: RailModel, rows: Sequence[Sample], replay: list[Any]) -> SampleBatch:
+    """Stored samples as the batch they were judged as (rows as :func:`_rows` wrote them: a
+    phase was reported where its current is a number)."""
+
+    def col(name: str) -> F64:
+        values = [getattr(r, name) for r in rows]
+        return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
+
+    current = np.stack([np.frombuffer(r.current_a, dtype="<f8") for r in rows])
+    sensed = np.zeros(current.shape, dtype=bool)
+    for k, entry in enumerate(replay):
+        if len(entry) > 1:
+            sensed[k, entry[1]] = True
+    return SampleBatch(
+        seq=np.array([r.seq for r in rows], dtype=np.int64),
+        t_s=col("t_s"), vin_v=col("vin_v"), vout_v=col("vout_v"), iout_a=col("iout_a"),
+        iin_a=col("iin_a"), ambient_c=col("ambient_c"), present=np.isfinite(current),
+        current_a=current.astype(np.float64),
+        temp_c=np.stack([np.frombuffer(r.temp_c, dtype="<f8") for r in rows]).astype(np.float64),
+        flags=np.stack([np.frombuffer(r.flags, dtype=np.uint8) for r in rows]).astype(np.uint8),
+        sensed=sensed,
+    )  # fmt: skip
 
 
 _CONTENT = (

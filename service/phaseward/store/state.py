@@ -1,14 +1,25 @@
-"""The live per-rail state row."""
+"""The live per-rail state row and its checkpoint."""
 
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
-from phaseward.store.models import RailState
+from phaseward.store.models import RailCheckpoint, RailState
+
+
+@dataclass(frozen=True)
+class Head:
+    """What ingest reads of the state row under its lock: everything but the state itself."""
+
+    version: int
+    last_t_s: float | None
+    stamp: int
+    replay: list[Any] | None
 
 
 def get(session: Session, rail_id: str, *, for_update: bool = False) -> RailState | None:
@@ -20,6 +31,21 @@ def get(session: Session, rail_id: str, *, for_update: bool = False) -> RailStat
     return session.scalars(stmt).one_or_none()
 
 
+def head(session: Session, rail_id: str) -> Head | None:
+    """The row's small columns, with the row lock (see :func:`get`)."""
+    stmt = (
+        select(RailState.version, RailState.last_t_s, RailState.stamp, RailState.replay)
+        .where(RailState.rail_id == rail_id)
+        .with_for_update()
+    )
+    row = session.execute(stmt).one_or_none()
+    return None if row is None else Head(*row)
+
+
+def stamp_of(session: Session, rail_id: str) -> int | None:
+    return session.scalar(select(RailState.stamp).where(RailState.rail_id == rail_id))
+
+
 def put(
     session: Session,
     *,
@@ -29,16 +55,34 @@ def put(
     last_t_s: float | None,
     state: dict[str, Any],
     now_s: float,
+    stamp: int,
+    replay: list[Any] | None,
 ) -> None:
-    row = session.get(RailState, rail_id)
-    if row is None:
-        row = RailState(rail_id=rail_id)
-        session.add(row)
-    row.version = version
-    row.last_seq = last_seq
-    row.last_t_s = last_t_s
-    row.state = state
-    row.updated_s = now_s
+    values = {
+        "version": version, "last_seq": last_seq, "last_t_s": last_t_s, "state": state,
+        "updated_s": now_s, "stamp": stamp, "replay": replay,
+    }  # fmt: skip
+    done = session.execute(update(RailState).where(RailState.rail_id == rail_id).values(values))
+    if not done.rowcount:  # type: ignore[attr-defined]
+        session.add(RailState(rail_id=rail_id, **values))
+        session.flush()
+
+
+def checkpoint(session: Session, rail_id: str) -> RailCheckpoint | None:
+    stmt = select(RailCheckpoint).where(RailCheckpoint.rail_id == rail_id)
+    return session.scalars(stmt.execution_options(populate_existing=True)).one_or_none()
+
+
+def put_checkpoint(
+    session: Session, *, rail_id: str, version: int, seq: int, state: dict[str, Any]
+) -> None:
+    values = {"version": version, "seq": seq, "state": state}
+    done = session.execute(
+        update(RailCheckpoint).where(RailCheckpoint.rail_id == rail_id).values(values)
+    )
+    if not done.rowcount:  # type: ignore[attr-defined]
+        session.add(RailCheckpoint(rail_id=rail_id, **values))
+        session.flush()
 
 
 def all_states(session: Session) -> Sequence[RailState]:

@@ -6,7 +6,9 @@ is for another rail, so nothing per rail is warm unless the service keeps it. Pr
 per sample (process time; the client's share is small: one in-process httpx call) and, with
 ``--profile``, the top of a cProfile by cumulative time.
 
-    python bench/fleet_cpu.py --rails 200 --rounds 5 [--url postgresql+psycopg://...]
+    python bench/fleet_cpu.py --rails 200 --rounds 5 [--clients 8] [--url postgresql+psycopg://...]
+
+``--clients`` posts side by side (group commit then merges requests of many rails).
 """
 
 from __future__ import annotations
@@ -45,7 +47,7 @@ def _sample(seq: int, k: int) -> dict[str, Any]:
     return {"time": T0 + seq, "seq": seq, "vin_v": 12.0, "vout_v": 1.0, "phases": phases}
 
 
-async def _run(settings: Settings, rails: int, rounds: int, profile: bool) -> float:
+async def _run(settings: Settings, rails: int, rounds: int, profile: bool, clients: int) -> float:
     app = create_app(settings, clock=lambda: T0 + 1e6)
     transport = httpx.ASGITransport(app=app)
     async with httpx.AsyncClient(transport=transport, base_url="http://fleet") as client:
@@ -53,10 +55,13 @@ async def _run(settings: Settings, rails: int, rounds: int, profile: bool) -> fl
             answer = await client.post("/v1/rails", json=_spec(f"fleet-{r}"))
             assert answer.status_code == 201, answer.text
 
-        async def one_round(seq: int) -> None:
-            for r in range(rails):
+        async def some(seq: int, first: int) -> None:
+            for r in range(first, rails, clients):
                 answer = await client.post(f"/v1/rails/fleet-{r}/samples", json=_sample(seq, r))
                 assert answer.status_code == 200, answer.text
+
+        async def one_round(seq: int) -> None:  # ``clients`` posting side by side
+            await asyncio.gather(*(some(seq, c) for c in range(clients)))
 
         await one_round(0)  # each rail's first sample: its first verdict, a cold start
         profiler = cProfile.Profile() if profile else None
@@ -75,16 +80,16 @@ async def _run(settings: Settings, rails: int, rounds: int, profile: bool) -> fl
 def _profile_writer(profiler: cProfile.Profile) -> None:
     from phaseward.api import group_commit
 
-    real = group_commit.ingest_together
+    real = group_commit.ingest_rails
 
-    def profiled(*args: Any) -> Any:
+    def profiled(*args: Any, **kwargs: Any) -> Any:
         profiler.enable()
         try:
-            return real(*args)
+            return real(*args, **kwargs)
         finally:
             profiler.disable()
 
-    group_commit.ingest_together = profiled  # type: ignore[assignment]
+    group_commit.ingest_rails = profiled  # type: ignore[assignment]
 
 
 def main() -> None:
@@ -93,6 +98,7 @@ def main() -> None:
     parser.add_argument("--rounds", type=int, default=5)
     parser.add_argument("--url", default="", help="PostgreSQL URL (default: a SQLite file)")
     parser.add_argument("--profile", action="store_true")
+    parser.add_argument("--clients", type=int, default=1, help="concurrent posters")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         url = args.url
@@ -107,13 +113,18 @@ def main() -> None:
             rate_per_s=1e6, rate_burst=10**6,
         )  # fmt: skip
         try:
-            per_sample = asyncio.run(_run(settings, args.rails, args.rounds, args.profile))
+            per_sample = asyncio.run(
+                _run(settings, args.rails, args.rounds, args.profile, args.clients)
+            )
         finally:
             if args.url:
                 with admin.connect() as conn:
                     conn.execute(text(f"DROP SCHEMA {schema} CASCADE"))
                 admin.dispose()
-    print(f"{args.rails} rails, {args.rounds} rounds: {1e3 * per_sample:.2f} ms CPU per sample")
+    print(
+        f"{args.rails} rails, {args.rounds} rounds, {args.clients} clients: "
+        f"{1e3 * per_sample:.2f} ms CPU per sample"
+    )
 
 
 if __name__ == "__main__":

@@ -23,6 +23,7 @@ from tests.service.test_cut_invariance import assert_same_state
 
 from phaseward.monitor.ingest import Tuning, ingest
 from phaseward.monitor.resident import LiveStates
+from phaseward.monitor.status import rail_status
 from phaseward.store.db import transaction
 from phaseward.store.models import RailCheckpoint
 
@@ -113,3 +114,36 @@ async def test_the_covariance_is_written_at_checkpoints_only(
             assert "cov_k2" in row.state["estimate"]
     # The first sample starts the checkpoint; then one every EVERY judged samples.
     assert sorted(set(checkpoints)) == [0, *range(EVERY, 30, EVERY)]
+
+
+async def test_status_from_memory_is_the_status_of_the_stored_state(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """Status answers from the state this process holds when the row's stamp says it is the
+    stored one, and from the store once another process has written since."""
+    trace = TRACES["trip"]
+    answer = await client.post("/v1/rails", json=trace.spec | {"id": "st"})
+    assert answer.status_code == 201
+    for body in trace.samples[:40]:
+        assert (await client.post("/v1/rails/st/samples", json=body)).status_code == 200
+    held = app.state.live_states.get("st")
+    assert held is not None
+    assert held.state["sample"]["seq"] == 39
+
+    def both() -> tuple[dict[str, Any], dict[str, Any]]:
+        with transaction(app.state.read_sessions) as session:
+            memory = rail_status(session, "st", now_s=2e9, live_states=app.state.live_states)
+            store = rail_status(session, "st", now_s=2e9)
+        return memory, store
+
+    memory, store = both()
+    assert memory == store
+    assert memory["last_sample"]["seq"] == 39
+    # Another process writes the next samples: this one's copy is stale, the row is not.
+    other = Tuning(live=LiveStates(8))
+    for body in trace.samples[40:45]:
+        ingest(app.state.sessions, "st", incoming([body]), tuning=other)
+    memory, store = both()
+    assert memory == store
+    assert memory["last_sample"]["seq"] == 44
+    assert (await client.get("/v1/rails/st/status")).json()["last_sample"]["seq"] == 44

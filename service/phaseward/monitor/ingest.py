@@ -250,7 +250,7 @@ def _ingest(
     if held is None or head is None or head.stamp != held.stamp:
         held = None  # another process wrote since, or nothing is held: read the store
     if held is not None and held.version == rail.version:
-        model = held.model
+        spec, model = held.spec, held.model
     else:
         spec = rails.spec(session, rail.id, rail.version)
         model = rail_model.build(rail.id, rail.version, spec)
@@ -326,7 +326,12 @@ def _ingest(
         condition=new_state["rail"]["condition"],
         rail_id=rail_id,
         resident=Resident(
-            stamp=stamp, version=rail.version, model=model, state=new_state, replay=replay
+            stamp=stamp,
+            version=rail.version,
+            spec=spec,
+            model=model,
+            state=new_state,
+            replay=replay,
         ),
     )
 

@@ -23,10 +23,12 @@ from phaseward.monitor.rail_model import RailModel
 @dataclass(frozen=True)
 class Resident:
     """A rail's live state as its last write stored it. ``replay``: what was judged since the
-    checkpoint (the row's column of the same name); ``state`` is never changed in place."""
+    checkpoint (the row's column of the same name); ``state`` and ``spec`` are never changed
+    in place."""
 
     stamp: int
     version: int
+    spec: dict[str, Any]  # the definition of ``version``, as stored
     model: RailModel
     state: dict[str, Any]
     replay: list[Any]

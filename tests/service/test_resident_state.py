@@ -24,6 +24,7 @@ from tests.service.test_cut_invariance import assert_same_state
 from phaseward.monitor.ingest import Tuning, ingest
 from phaseward.monitor.resident import LiveStates
 from phaseward.monitor.status import rail_status
+from phaseward.store import summaries
 from phaseward.store.db import transaction
 from phaseward.store.models import RailCheckpoint
 
@@ -147,3 +148,25 @@ async def test_status_from_memory_is_the_status_of_the_stored_state(
     assert memory == store
     assert memory["last_sample"]["seq"] == 44
     assert (await client.get("/v1/rails/st/status")).json()["last_sample"]["seq"] == 44
+
+
+async def test_a_restart_after_retention_removed_the_replayed_samples_still_ingests(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """A rail idle past the raw-sample horizon: retention deleted the samples judged since its
+    checkpoint. The next sample after a restart resumes from the checkpoint's covariance."""
+    trace = TRACES["trip"]
+    answer = await client.post("/v1/rails", json=trace.spec | {"id": "idle"})
+    assert answer.status_code == 201
+    before = Tuning(checkpoint_samples=EVERY, live=LiveStates(8))
+    for body in trace.samples[:10]:
+        ingest(app.state.sessions, "idle", incoming([body]), tuning=before)
+    with transaction(app.state.sessions) as session:
+        gone = summaries.delete_samples_before(session, "idle", end_s=trace.samples[9]["time"] + 1)
+    assert gone == 10
+    after = Tuning(checkpoint_samples=EVERY, live=LiveStates(8))
+    result = ingest(app.state.sessions, "idle", incoming([trace.samples[10]]), tuning=after)
+    assert result.stored == 1
+    held = after.live.get("idle") if after.live is not None else None
+    assert held is not None
+    assert held.state["sample"]["seq"] == 10

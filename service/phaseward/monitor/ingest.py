@@ -379,8 +379,11 @@ def _restore(
     if checkpoint is None or checkpoint.version != model.version:
         raise RuntimeError(f"rail '{model.rail_id}' has no checkpoint of version {model.version}")
     covariance = checkpoint.state["estimate"]["cov_k2"]
-    if replay:
-        found = samples.existing(session, model.rail_id, [int(e[0]) for e in replay])
+    found = samples.existing(session, model.rail_id, [int(e[0]) for e in replay])
+    # Retention may have reduced the samples of a rail idle since (they are older than its
+    # raw horizon): the covariance then resumes from the checkpoint's, the filter's own
+    # uncertainty of some samples before, which the next readings correct.
+    if replay and len(found) == len(replay):
         batch = _stored_batch(model, [found[int(e[0])] for e in replay], replay)
         replayed, _ = advance(model, batch, checkpoint.state, tolerances)
         covariance = replayed["estimate"]["cov_k2"]

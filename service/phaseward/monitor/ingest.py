@@ -31,6 +31,11 @@ hold after that sample, and where the rail is assessed depends on the samples al
   reference.
 * an isolation's fault class is decided from a fixed window of stored samples around it,
   once the window is complete (``fault_class``), whichever request completes it.
+
+Because of that purity the estimator's covariance (most of the state's size) need not be
+written with every sample: the state row leaves it out and lists the samples judged since the
+last checkpoint; a process without the state in memory replays them over the checkpoint
+(:func:`_restore`) and reaches the state the uninterrupted passes did.
 """
 
 from __future__ import annotations

@@ -4,7 +4,7 @@ in process through the ASGI app, on SQLite or (with a URL) PostgreSQL.
 Single samples round-robin over many rails are the fleet's pattern (issue 16): every request
 is for another rail, so nothing per rail is warm unless the service keeps it. Prints CPU ms
 per sample (process time; the client's share is small: one in-process httpx call) and, with
-``--profile``, the top of a cProfile by cumulative time.
+``--profile``, the top of a cProfile by cumulative time. Then CPU per status read of each rail.
 
     python bench/fleet_cpu.py --rails 200 --rounds 5 [--clients 8] [--url postgresql+psycopg://...]
 
@@ -71,10 +71,15 @@ async def _run(settings: Settings, rails: int, rounds: int, profile: bool, clien
         for seq in range(1, rounds + 1):
             await one_round(seq)
         cpu = time.process_time() - start
+        start = time.process_time()
+        for r in range(rails):
+            answer = await client.get(f"/v1/rails/fleet-{r}/status")
+            assert answer.status_code == 200, answer.text
+        status_cpu = (time.process_time() - start) / rails
     close(app)
     if profiler:
         pstats.Stats(profiler).sort_stats("cumulative").print_stats(60)
-    return cpu / (rails * rounds)
+    return cpu / (rails * rounds), status_cpu
 
 
 def _profile_writer(profiler: cProfile.Profile) -> None:
@@ -113,7 +118,7 @@ def main() -> None:
             rate_per_s=1e6, rate_burst=10**6,
         )  # fmt: skip
         try:
-            per_sample = asyncio.run(
+            per_sample, per_status = asyncio.run(
                 _run(settings, args.rails, args.rounds, args.profile, args.clients)
             )
         finally:
@@ -123,7 +128,7 @@ def main() -> None:
                 admin.dispose()
     print(
         f"{args.rails} rails, {args.rounds} rounds, {args.clients} clients: "
-        f"{1e3 * per_sample:.2f} ms CPU per sample"
+        f"{1e3 * per_sample:.2f} ms CPU per sample, {1e3 * per_status:.2f} ms per status read"
     )
 
 

@@ -49,6 +49,7 @@ from typing import Any
 
 import numpy as np
 import numpy.typing as npt
+from sqlalchemy import Row
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.errors import Conflict, InvalidInput, NotFound
@@ -74,7 +75,6 @@ from phaseward.physics.plausibility import RULES
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c
 from phaseward.store import events, rails, samples, state
 from phaseward.store.db import transaction
-from phaseward.store.models import Sample
 
 F64 = npt.NDArray[np.float64]
 
@@ -247,22 +247,22 @@ def _ingest(
     sizes). A sample two requests of a group both carry (a resend racing its original) is
     stored once and judged once, as if the requests had come one after the other."""
     now_s = time.time()
-    rail = rails.get(session, rail_id, for_update=True)
-    if rail is None:
+    version = rails.version_for_update(session, rail_id)
+    if version is None:
         raise NotFound(f"no rail '{rail_id}'", field="rail_id")
     head = state.head(session, rail_id)
     held = tuning.live.get(rail_id) if tuning.live is not None else None
     if held is None or head is None or head.stamp != held.stamp:
         held = None  # another process wrote since, or nothing is held: read the store
-    if held is not None and held.version == rail.version:
+    if held is not None and held.version == version:
         spec, model = held.spec, held.model
     else:
-        spec = rails.spec(session, rail.id, rail.version)
-        model = rail_model.build(rail.id, rail.version, spec)
+        spec = rails.spec(session, rail_id, version)
+        model = rail_model.build(rail_id, version, spec)
     for part in np.split(incoming.seq, np.cumsum(parts or [incoming.n])[:-1]):
         _check_unique_seq(part)
     batch = to_batch(incoming, model)
-    rows = _rows(rail_id, rail.version, batch)
+    rows = _rows(rail_id, version, batch)
 
     stored_before = samples.existing(session, rail_id, [int(s) for s in batch.seq])
     fresh = np.ones(batch.n, dtype=bool)
@@ -294,11 +294,11 @@ def _ingest(
     live_batch = batch.take(np.nonzero(newer)[0][order])
     stored = _stored_state(session, rail_id, head, held)
     condition = stored.get("rail", {}).get("condition") if stored is not None else None
-    outcome = _Outcome(fresh=fresh, newer=newer, condition=condition, version=rail.version)
+    outcome = _Outcome(fresh=fresh, newer=newer, condition=condition, version=version)
     if not live_batch.n:
         return outcome
     # A new definition keeps time order but restarts judgement from a fresh state.
-    same = stored is not None and head is not None and head.version == rail.version
+    same = stored is not None and head is not None and head.version == version
     if held is not None and same:
         previous = held.state
     elif same and stored is not None and head is not None:
@@ -317,12 +317,12 @@ def _ingest(
     replay = (held.replay if held is not None and previous else []) + _replay_entries(live_batch)
     if held is None or not previous or len(replay) >= tuning.checkpoint_samples:
         state.put_checkpoint(
-            session, rail_id=rail_id, version=rail.version, seq=last_seq, state=new_state
+            session, rail_id=rail_id, version=version, seq=last_seq, state=new_state
         )
         replay = []
     stamp = secrets.randbits(63)
     state.put(
-        session, rail_id=rail_id, version=rail.version, last_seq=last_seq,
+        session, rail_id=rail_id, version=version, last_seq=last_seq,
         last_t_s=float(live_batch.t_s[-1]), state=_without_covariance(new_state), now_s=now_s,
         stamp=stamp, replay=replay,
     )  # fmt: skip
@@ -332,7 +332,7 @@ def _ingest(
         rail_id=rail_id,
         resident=Resident(
             stamp=stamp,
-            version=rail.version,
+            version=version,
             spec=spec,
             model=model,
             state=new_state,
@@ -395,7 +395,7 @@ def _restore(
     return stored | {"estimate": stored["estimate"] | {"cov_k2": covariance}}
 
 
-def _stored_batch(model: RailModel, rows: Sequence[Sample], replay: list[Any]) -> SampleBatch:
+def _stored_batch(model: RailModel, rows: Sequence[Row[Any]], replay: list[Any]) -> SampleBatch:
     """Stored samples as the batch they were judged as (rows as :func:`_rows` wrote them: a
     phase was reported where its current is a number)."""
 

@@ -22,17 +22,13 @@ class Head:
     replay: list[Any] | None
 
 
-def get(session: Session, rail_id: str, *, for_update: bool = False) -> RailState | None:
-    """Read the state; ``for_update`` takes the row lock on PostgreSQL (SQLite's BEGIN
-    IMMEDIATE already serialises writers) so concurrent ingest never interleaves updates."""
-    stmt = select(RailState).where(RailState.rail_id == rail_id)
-    if for_update:
-        stmt = stmt.with_for_update()
-    return session.scalars(stmt).one_or_none()
+def get(session: Session, rail_id: str) -> RailState | None:
+    return session.scalars(select(RailState).where(RailState.rail_id == rail_id)).one_or_none()
 
 
 def head(session: Session, rail_id: str) -> Head | None:
-    """The row's small columns, with the row lock (see :func:`get`)."""
+    """The row's small columns, with the row lock on PostgreSQL (SQLite's BEGIN IMMEDIATE
+    already serialises writers) so concurrent ingest never interleaves updates."""
     stmt = (
         select(RailState.version, RailState.last_t_s, RailState.stamp, RailState.replay)
         .where(RailState.rail_id == rail_id)

@@ -61,6 +61,21 @@ class Settings(BaseSettings):
     max_capture_bytes: int = Field(default=64 * 1024 * 1024, ge=1024)
     max_capture_samples: int = Field(default=2_000_000, ge=4)
 
+    # Where the monitor assesses a rail (capacity, N-1 screening, forecast) between changes of
+    # its phase conditions: at least once per grid cell of absolute time, and whenever what a
+    # verdict rests on moved beyond a tolerance since the last assessment (README, "Fleet").
+    assess_grid_s: float = Field(default=10.0, gt=0, le=3600)
+    assess_load_tolerance: float = Field(default=0.02, gt=0, le=0.2)  # of total rated current
+    assess_temp_tolerance_k: float = Field(default=1.0, gt=0, le=20)
+    assess_vout_tolerance: float = Field(default=0.02, gt=0, le=0.2)  # of nominal output
+    assess_weight_tolerance: float = Field(default=0.02, gt=0, le=0.5)  # 1.0 = an equal share
+    # Rails whose model (thermal network, arrays) and live state a process keeps in memory:
+    # the fleet's size.
+    rail_cache_size: int = Field(default=4096, ge=16)
+    # The whole live state (the estimator's covariance included) is checkpointed every this
+    # many judged samples of a rail; between checkpoints the state row is written without it.
+    state_checkpoint_samples: int = Field(default=60, ge=1, le=10_000)
+
     @model_validator(mode="after")
     def _default_database(self) -> Settings:
         if not self.database_url:

@@ -1,5 +1,6 @@
-"""Group commit: concurrent ingest requests for one rail share one transaction and one monitor
-pass, yet each keeps its own all-or-nothing outcome and its own answer."""
+"""Group commit: concurrent ingest requests share one transaction (across rails), the requests
+of one rail one monitor pass, yet each keeps its own all-or-nothing outcome and its own
+answer."""
 
 from __future__ import annotations
 
@@ -45,17 +46,21 @@ def requests() -> list[list[dict[str, Any]]]:
 
 
 @pytest.fixture
-def group_sizes(monkeypatch: pytest.MonkeyPatch) -> list[int]:
-    """The size of every group handed to the monitor (the real function still runs)."""
-    sizes: list[int] = []
-    real = ingest_module.ingest_together
+def transactions(monkeypatch: pytest.MonkeyPatch) -> list[dict[str, int]]:
+    """Every group handed to the monitor: requests per rail (the real function still runs)."""
+    groups: list[dict[str, int]] = []
+    real = ingest_module.ingest_rails
 
-    def spy(sessions: Any, rail_id: str, batches: list[IncomingSamples]) -> list[Any]:
-        sizes.append(len(batches))
-        return real(sessions, rail_id, batches)
+    def spy(sessions: Any, work: list[tuple[str, list[IncomingSamples]]], **kw: Any) -> list[Any]:
+        groups.append({rail_id: len(batches) for rail_id, batches in work})
+        return real(sessions, work, **kw)
 
-    monkeypatch.setattr("phaseward.api.group_commit.ingest_together", spy)
-    return sizes
+    monkeypatch.setattr("phaseward.api.group_commit.ingest_rails", spy)
+    return groups
+
+
+def sizes(transactions: list[dict[str, int]], rail_id: str = "bench-a") -> list[int]:
+    return [group[rail_id] for group in transactions if rail_id in group]
 
 
 async def submit_all(
@@ -91,12 +96,12 @@ def event_kinds(app: FastAPI) -> list[tuple[str, int | None]]:
 
 
 async def test_concurrent_requests_share_one_pass_and_match_one_by_one_ingest(
-    client: httpx.AsyncClient, app: FastAPI, group_sizes: list[int], tmp_path: Path
+    client: httpx.AsyncClient, app: FastAPI, transactions: list[dict[str, int]], tmp_path: Path
 ) -> None:
     assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
     writer = GroupCommit(app.state.sessions, max_samples=100)
     results = await submit_all(writer, requests())
-    assert group_sizes == [8]  # all eight queued behind the first drain: one transaction
+    assert sizes(transactions) == [8]  # all eight queued behind the first drain: one transaction
     assert all(isinstance(r, IngestResult) and r.stored == 1 for r in results)
     grouped_state, grouped_events = live_state(app), event_kinds(app)
 
@@ -123,7 +128,7 @@ async def test_concurrent_requests_share_one_pass_and_match_one_by_one_ingest(
 
 
 async def test_a_bad_request_in_a_group_fails_alone_and_the_others_are_stored(
-    client: httpx.AsyncClient, app: FastAPI, group_sizes: list[int]
+    client: httpx.AsyncClient, app: FastAPI, transactions: list[dict[str, int]]
 ) -> None:
     assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
     stored = await client.post("/v1/rails/bench-a/samples", json=sample(0, HEALTHY))
@@ -133,7 +138,7 @@ async def test_a_bad_request_in_a_group_fails_alone_and_the_others_are_stored(
     writer = GroupCommit(app.state.sessions, max_samples=100)
     results = await submit_all(writer, bodies)
 
-    assert group_sizes[-1] == 4  # the four requests went as one group
+    assert sizes(transactions)[-1] == 4  # the four requests went as one group
     first, bad, third, resend = results
     assert isinstance(first, IngestResult)
     assert first.stored == 1
@@ -151,7 +156,7 @@ async def test_a_bad_request_in_a_group_fails_alone_and_the_others_are_stored(
 
 
 async def test_a_group_is_capped_in_samples(
-    client: httpx.AsyncClient, app: FastAPI, group_sizes: list[int]
+    client: httpx.AsyncClient, app: FastAPI, transactions: list[dict[str, int]]
 ) -> None:
     assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
     writer = GroupCommit(app.state.sessions, max_samples=3)
@@ -160,7 +165,7 @@ async def test_a_group_is_capped_in_samples(
     assert all(isinstance(r, IngestResult) and r.stored == 2 for r in results)
     # Two samples each, at most three per group: every request goes alone, but the first only
     # as the rest queue up behind it.
-    assert group_sizes == [1, 1, 1, 1]
+    assert sizes(transactions) == [1, 1, 1, 1]
 
 
 async def test_a_database_failure_reaches_every_request_of_the_group(
@@ -168,10 +173,10 @@ async def test_a_database_failure_reaches_every_request_of_the_group(
 ) -> None:
     assert (await client.post("/v1/rails", json=rail_spec())).status_code == 201
 
-    def unreachable(*_: Any) -> list[Any]:
+    def unreachable(*_: Any, **__: Any) -> list[Any]:
         raise ConnectionError("database went away")
 
-    monkeypatch.setattr("phaseward.api.group_commit.ingest_together", unreachable)
+    monkeypatch.setattr("phaseward.api.group_commit.ingest_rails", unreachable)
     writer = GroupCommit(app.state.sessions, max_samples=100)
     outcomes: list[BaseException] = []
 
@@ -184,7 +189,7 @@ async def test_a_database_failure_reaches_every_request_of_the_group(
         for k in range(3):
             tg.start_soon(one, k)
     assert len(outcomes) == 3
-    assert writer._queues == {}  # nothing left waiting
+    assert (writer._queue, writer._task) == ([], None)  # nothing left waiting
 
 
 async def test_a_resend_racing_its_original_in_one_group_is_judged_once(
@@ -209,7 +214,10 @@ async def test_a_resend_racing_its_original_in_one_group_is_judged_once(
 
 
 async def test_an_unexpected_failure_on_one_requests_data_fails_that_request_alone(
-    client: httpx.AsyncClient, app: FastAPI, group_sizes: list[int], monkeypatch: pytest.MonkeyPatch
+    client: httpx.AsyncClient,
+    app: FastAPI,
+    transactions: list[dict[str, int]],
+    monkeypatch: pytest.MonkeyPatch,
 ) -> None:
     """Issue 17.5: one request's data that made the physics raise (not a refusal) failed the
     whole group, and other clients' good requests answered 500."""
@@ -240,8 +248,55 @@ async def test_an_unexpected_failure_on_one_requests_data_fails_that_request_alo
     async with anyio.create_task_group() as tg:
         for k in range(len(bodies)):
             tg.start_soon(one, k)
-    assert group_sizes == [4]  # the four went as one group, and the merged pass failed
+    assert sizes(transactions) == [4]  # the four went as one group, and the merged pass failed
     assert isinstance(outcomes[2], FloatingPointError)
     assert all(isinstance(outcomes[k], IngestResult) for k in (0, 1, 3))
     window = await client.get("/v1/rails/bench-a/samples", params={"since": 0, "until": 4e9})
     assert window.json()["seq"] == [0, 1, 2]
+
+
+async def test_requests_for_many_rails_share_one_transaction_and_a_bad_one_fails_alone(
+    client: httpx.AsyncClient, app: FastAPI, transactions: list[dict[str, int]]
+) -> None:
+    """A fleet posts single samples, each request for another rail: they go as one group
+    (one commit), each rail judged on its own; a refused request fails only its own rail's
+    request, and the rails beside it are stored and judged as if it had not been there."""
+    rails = [f"fleet-{k}" for k in range(6)]
+    for rail_id in rails:
+        assert (await client.post("/v1/rails", json=rail_spec(id=rail_id))).status_code == 201
+        assert (
+            await client.post(f"/v1/rails/{rail_id}/samples", json=sample(0, HEALTHY))
+        ).is_success
+    bodies = {rail_id: [sample(1, TRIPPED)] for rail_id in rails}
+    bodies["fleet-3"] = [sample(1, HEALTHY), sample(0, [21.0] * 4)]  # seq 0 with other content
+    for body in bodies.values():
+        body[0]["phases"][1]["breaker_tripped"] = True
+    writer = GroupCommit(app.state.sessions, max_samples=100)
+    outcomes: dict[str, IngestResult | PhasewardError] = {}
+
+    async def one(rail_id: str) -> None:
+        try:
+            outcomes[rail_id] = await writer.submit(rail_id, incoming(bodies[rail_id]))
+        except PhasewardError as err:
+            outcomes[rail_id] = err
+
+    async with anyio.create_task_group() as tg:
+        for rail_id in rails:
+            tg.start_soon(one, rail_id)
+    assert transactions[-1] == dict.fromkeys(rails, 1)  # one group, one request per rail
+    assert isinstance(outcomes["fleet-3"], Conflict)
+    assert outcomes["fleet-3"].field == "[1].seq"
+    for rail_id in rails:
+        window = await client.get(f"/v1/rails/{rail_id}/samples", params={"since": 0, "until": 4e9})
+        status = (await client.get(f"/v1/rails/{rail_id}/status")).json()
+        if rail_id == "fleet-3":
+            assert window.json()["seq"] == [0]
+            assert status["condition"] == "nominal"
+            continue
+        result = outcomes[rail_id]
+        assert isinstance(result, IngestResult)
+        assert (result.stored, result.condition) == (1, "degraded")
+        assert window.json()["seq"] == [0, 1]
+        assert status["phases"][1]["condition"] == "isolated"
+    rejected = (await client.get("/v1/events", params={"kind": "telemetry.rejected"})).json()
+    assert [e["rail_id"] for e in rejected["items"]] == ["fleet-3"]

@@ -34,9 +34,11 @@ from phaseward.api.routes import (
 )
 from phaseward.api.schemas.glossary import describe
 from phaseward.api.schemas.samples import BODY_COMPONENTS
+from phaseward.monitor import rail_model, retention
 from phaseward.monitor import rehearsals as rehearsal_jobs
-from phaseward.monitor import retention
+from phaseward.monitor.ingest import Tolerances, Tuning
 from phaseward.monitor.jobs import JobRunner
+from phaseward.monitor.resident import LiveStates
 from phaseward.settings import Settings
 from phaseward.store import partitions
 from phaseward.store.db import build_engine, build_sessionmaker, close_engine, migrate
@@ -113,7 +115,18 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     app.state.sessions = sessions
     app.state.read_sessions = read_sessions
     app.state.jobs = runner
-    app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples)
+    tolerances = Tolerances(
+        grid_s=settings.assess_grid_s, load=settings.assess_load_tolerance,
+        temp_k=settings.assess_temp_tolerance_k, vout=settings.assess_vout_tolerance,
+        weight=settings.assess_weight_tolerance,
+    )  # fmt: skip
+    app.state.live_states = LiveStates(settings.rail_cache_size)
+    tuning = Tuning(
+        tolerances=tolerances, checkpoint_samples=settings.state_checkpoint_samples,
+        live=app.state.live_states,
+    )  # fmt: skip
+    app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples, tuning=tuning)
+    rail_model.resize_cache(settings.rail_cache_size)
     app.state.rate_limiter = RateLimiter(settings.rate_per_s, settings.rate_burst)
     runner.resume()  # jobs whose server stopped run again here; leases renewed from now on
     app.state.metrics = observability.Metrics()

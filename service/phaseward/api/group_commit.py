@@ -1,77 +1,89 @@
-"""Group commit: concurrent ingest requests for one rail share one transaction.
+"""Group commit: concurrent ingest requests share one transaction, across rails.
 
 While one group is being stored, the requests that arrive queue up; when it commits, all of
-them go as the next group: one monitor pass and one durable commit for many requests. With
-no concurrency a request is its own group and waits for nothing. Every request is answered
-only after the commit that stored its samples, and keeps its own all-or-nothing outcome.
+them go as the next group: one durable commit for many requests, whichever rails they are
+for (a fleet of rails each posting single samples has every request for another rail). The
+requests of one rail in a group share that rail's monitor pass; each rail keeps its own.
+With no concurrency a request is its own group and waits for nothing. Every request is
+answered only after the commit that stored its samples, and keeps its own all-or-nothing
+outcome (:func:`~phaseward.monitor.ingest.ingest_rails`).
 """
 
 from __future__ import annotations
 
 import asyncio
+from functools import partial
 
 from fastapi.concurrency import run_in_threadpool
 from sqlalchemy.orm import Session, sessionmaker
 
-from phaseward.monitor.ingest import IngestResult, ingest_together
+from phaseward.monitor.ingest import TUNING, IngestResult, Tuning, ingest_rails
 from phaseward.monitor.telemetry import IncomingSamples
 
-_Waiting = list[tuple[IncomingSamples, "asyncio.Future[IngestResult]"]]
+_Waiting = list[tuple[str, IncomingSamples, "asyncio.Future[IngestResult]"]]
 
 
 class GroupCommit:
-    """Per rail, at most one group in flight and one forming; a group holds at most
-    ``max_samples`` samples (a larger single request still goes alone)."""
+    """At most one group in flight and one forming; a group holds at most ``max_samples``
+    samples (a larger single request still goes alone). Requests of one rail keep their
+    order: once one has to wait for the next group, every later request waits too."""
 
-    def __init__(self, sessions: sessionmaker[Session], max_samples: int) -> None:
+    def __init__(
+        self,
+        sessions: sessionmaker[Session],
+        max_samples: int,
+        *,
+        tuning: Tuning = TUNING,
+    ) -> None:
         self._sessions = sessions
         self._max = max_samples
-        self._queues: dict[str, _Waiting] = {}
-        self._tasks: set[asyncio.Task[None]] = set()
+        self._tuning = tuning
+        self._queue: _Waiting = []
+        self._task: asyncio.Task[None] | None = None
 
     async def submit(self, rail_id: str, incoming: IncomingSamples) -> IngestResult:
         done: asyncio.Future[IngestResult] = asyncio.get_running_loop().create_future()
-        queue = self._queues.get(rail_id)
-        if queue is None:  # nothing in flight for this rail: this request starts a drain
-            queue = self._queues[rail_id] = []
-            task = asyncio.create_task(self._drain(rail_id, queue))
-            self._tasks.add(task)  # held until done: the loop keeps only weak references
-            task.add_done_callback(self._tasks.discard)
-        queue.append((incoming, done))
+        self._queue.append((rail_id, incoming, done))
+        if self._task is None:  # nothing in flight: this request starts a drain
+            self._task = asyncio.create_task(self._drain())
         return await done
 
-    async def _drain(self, rail_id: str, queue: _Waiting) -> None:
+    async def _drain(self) -> None:
         group: _Waiting = []
         try:
-            while queue:
-                group = self._take(queue)
-                outcomes: list[IngestResult | Exception]
+            while self._queue:
+                group = self._take()
+                rails: dict[str, _Waiting] = {}
+                for entry in group:
+                    rails.setdefault(entry[0], []).append(entry)
+                work = [(rail_id, [b for _, b, _ in waiting]) for rail_id, waiting in rails.items()]
+                outcomes: list[list[IngestResult | Exception]]
                 try:
-                    outcomes = list(
-                        await run_in_threadpool(
-                            ingest_together, self._sessions, rail_id, [b for b, _ in group]
-                        )
+                    outcomes = await run_in_threadpool(
+                        partial(ingest_rails, tuning=self._tuning), self._sessions, work
                     )
                 except Exception as err:  # e.g. the database is unreachable: all of them hear
-                    outcomes = [err] * len(group)
-                for (_, done), outcome in zip(group, outcomes, strict=True):
-                    if done.done():  # the client went away; its samples are stored anyway
-                        continue
-                    if isinstance(outcome, Exception):
-                        done.set_exception(outcome)
-                    else:
-                        done.set_result(outcome)
+                    outcomes = [[err] * len(waiting) for waiting in rails.values()]
+                for waiting, answers in zip(rails.values(), outcomes, strict=True):
+                    for (_, _, done), outcome in zip(waiting, answers, strict=True):
+                        if done.done():  # the client went away; its samples are stored anyway
+                            continue
+                        if isinstance(outcome, Exception):
+                            done.set_exception(outcome)
+                        else:
+                            done.set_result(outcome)
                 group = []
         finally:  # left early only when cancelled (shutdown): nobody may wait forever
-            for _, done in [*group, *queue]:
+            for _, _, done in [*group, *self._queue]:
                 done.cancel()
-            del self._queues[rail_id]
+            self._queue.clear()
+            self._task = None
 
-    def _take(self, queue: _Waiting) -> _Waiting:
+    def _take(self) -> _Waiting:
         count, total = 0, 0
-        for incoming, _ in queue:
+        for _, incoming, _ in self._queue:
             if count and total + incoming.n > self._max:
                 break
             count, total = count + 1, total + incoming.n
-        group, queue[:] = queue[:count], queue[count:]
+        group, self._queue[:] = self._queue[:count], self._queue[count:]
         return group

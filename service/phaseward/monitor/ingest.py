@@ -20,7 +20,7 @@ assessed depends on the samples alone:
   grid (``_step_runs``), held at the loss and ambient of the sample that starts it;
 * the rail (capacity, N-1 screening, forecast, condition) is assessed at the rail's first
   sample; at every sample whose phase conditions differ from the sample before; at the first
-  sample in each ``ASSESS_GRID_S`` cell of absolute time; and at every sample where what a
+  sample in each ``Tolerances.grid_s`` cell of absolute time; and at every sample where what a
   verdict depends on moved beyond its tolerance since the last assessment (load and each phase
   current, each junction estimate, ambient, output voltage, each sharing weight; see
   ``_signature``: 2 % of the rail's total rated current, 1 K, 2 % of nominal output voltage,
@@ -32,18 +32,25 @@ assessed depends on the samples alone:
   reference.
 * an isolation's fault class is decided from a fixed window of stored samples around it,
   once the window is complete (``fault_class``), whichever request completes it.
+
+Because of that purity the estimator's covariance (most of the state's size) need not be
+written with every sample: the state row leaves it out and lists the samples judged since the
+last checkpoint; a process without the state in memory replays them over the checkpoint
+(:func:`_restore`) and reaches the state the uninterrupted passes did.
 """
 
 from __future__ import annotations
 
+import secrets
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from itertools import pairwise
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
+from sqlalchemy import Row
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.errors import Conflict, InvalidInput, NotFound
@@ -62,6 +69,7 @@ from phaseward.monitor.conditions import (
 )
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.rejections import record_rejection
+from phaseward.monitor.resident import LiveStates, Resident
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
 from phaseward.physics.drift import InnovationScale
 from phaseward.physics.estimator import EstimatorState, initial_from_readings, kalman_run
@@ -90,6 +98,13 @@ class _Outcome:
     newer: npt.NDArray[np.bool_]
     condition: str | None
     version: int
+    rail_id: str = ""
+    resident: Resident | None = None  # the live state this pass wrote
+
+    def publish(self, tuning: Tuning) -> None:
+        """Keep the written state in memory: only once its transaction has committed."""
+        if tuning.live is not None and self.resident is not None:
+            tuning.live.put(self.rail_id, self.resident)
 
     def split(self, sizes: Sequence[int]) -> list[IngestResult]:
         cuts = np.cumsum(sizes)[:-1]
@@ -104,19 +119,62 @@ class _Outcome:
         )  # fmt: skip
 
 
+@dataclass(frozen=True)
+class Tolerances:
+    """Where the rail is assessed (module docstring): a time grid, and tolerances on what moves
+    a verdict between the points where phase conditions change (common practice: well inside
+    the margins the verdicts are drawn with, and above sensor noise). Settings
+    ``PHASEWARD_ASSESS_*``; tests/service/test_assessment_tolerances.py bounds what they allow
+    against assessing every sample."""
+
+    grid_s: float = 10.0  # s, absolute time: one assessment at least in every grid cell
+    load: float = 0.02  # of the rail's total rated current, on the load and each phase current
+    temp_k: float = 1.0  # K, on each junction estimate and on ambient
+    vout: float = 0.02  # of nominal output voltage
+    weight: float = 0.02  # on each sharing weight (1.0 = an equal share)
+
+
+TOLERANCES = Tolerances()
+
+
+@dataclass(frozen=True)
+class Tuning:
+    """How the monitor runs, from the settings: where it assesses (``tolerances``), how often
+    it checkpoints the whole live state (every ``checkpoint_samples`` judged samples; between
+    checkpoints the state row is written without the estimator's covariance), and the live
+    states it keeps in memory (``live``; None: every pass reads the state from the store)."""
+
+    tolerances: Tolerances = TOLERANCES
+    checkpoint_samples: int = 60
+    live: LiveStates | None = None
+
+
+TUNING = Tuning()
+
+
 def ingest(
-    sessions: sessionmaker[Session], rail_id: str, incoming: IncomingSamples
+    sessions: sessionmaker[Session],
+    rail_id: str,
+    incoming: IncomingSamples,
+    *,
+    tuning: Tuning = TUNING,
 ) -> IngestResult:
     try:
         with transaction(sessions) as session:
-            return _ingest(session, rail_id, incoming).split([incoming.n])[0]
+            outcome = _ingest(session, rail_id, incoming, tuning=tuning)
+        outcome.publish(tuning)
+        return outcome.split([incoming.n])[0]
     except (InvalidInput, Conflict) as err:
         record_rejection(sessions, rail_id, samples=incoming.n, error=err)
         raise
 
 
 def ingest_together(
-    sessions: sessionmaker[Session], rail_id: str, batches: Sequence[IncomingSamples]
+    sessions: sessionmaker[Session],
+    rail_id: str,
+    batches: Sequence[IncomingSamples],
+    *,
+    tuning: Tuning = TUNING,
 ) -> list[IngestResult | Exception]:
     """Several requests' batches for one rail in one transaction and one monitor pass (group
     commit). Each batch stays all-or-nothing: if the merged batch fails, for a refusal or for
@@ -125,34 +183,88 @@ def ingest_together(
     if len(batches) > 1:
         try:
             with transaction(sessions) as session:
-                outcome = _ingest(session, rail_id, concat(batches), [b.n for b in batches])
+                outcome = _ingest(session, rail_id, concat(batches), [b.n for b in batches], tuning)
+            outcome.publish(tuning)
             return list(outcome.split([b.n for b in batches]))
         except Exception:  # retried one by one below, where each failure is reported
             pass
     results: list[IngestResult | Exception] = []
     for batch in batches:
         try:
-            results.append(ingest(sessions, rail_id, batch))
+            results.append(ingest(sessions, rail_id, batch, tuning=tuning))
         except Exception as err:  # handed to that request alone
             results.append(err)
     return results
 
 
+RailWork = tuple[str, Sequence[IncomingSamples]]
+
+
+def ingest_rails(
+    sessions: sessionmaker[Session],
+    work: Sequence[RailWork],
+    *,
+    tuning: Tuning = TUNING,
+) -> list[list[IngestResult | Exception]]:
+    """The groups of several rails (each: its requests' batches) in one transaction: one
+    durable commit for a fleet whose every request is for another rail. Each rail keeps its
+    own monitor pass, in a savepoint of its own; a rail whose pass fails is rolled back to its
+    savepoint and, after the commit, ingested on its own (:func:`ingest_together`), so one
+    rail's bad request fails only itself. If the transaction fails as a whole (the commit, a
+    lost connection), every rail is ingested on its own. Rails are locked in id order, so two
+    processes merging overlapping fleets on PostgreSQL never wait on each other in a cycle."""
+    results: list[list[IngestResult | Exception] | None] = [None] * len(work)
+    if len(work) > 1:
+        try:
+            done: dict[int, _Outcome] = {}
+            with transaction(sessions) as session:
+                for k in sorted(range(len(work)), key=lambda k: work[k][0]):
+                    rail_id, batches = work[k]
+                    sizes = [b.n for b in batches]
+                    try:
+                        with session.begin_nested():
+                            outcome = _ingest(session, rail_id, concat(batches), sizes, tuning)
+                    except Exception:  # retried alone below, where each failure is reported
+                        continue
+                    done[k] = outcome
+            for k, outcome in done.items():
+                outcome.publish(tuning)
+                results[k] = list(outcome.split([b.n for b in work[k][1]]))
+        except Exception:  # nothing of this transaction was stored: all retried alone
+            pass
+    return [
+        outcomes if outcomes is not None else ingest_together(sessions, *work[k], tuning=tuning)
+        for k, outcomes in enumerate(results)
+    ]
+
+
 def _ingest(
-    session: Session, rail_id: str, incoming: IncomingSamples, parts: Sequence[int] = ()
+    session: Session,
+    rail_id: str,
+    incoming: IncomingSamples,
+    parts: Sequence[int] = (),
+    tuning: Tuning = TUNING,
 ) -> _Outcome:
     """Store and judge ``incoming``: one request, or the requests of a group (``parts``: their
     sizes). A sample two requests of a group both carry (a resend racing its original) is
     stored once and judged once, as if the requests had come one after the other."""
     now_s = time.time()
-    rail = rails.get(session, rail_id, for_update=True)
-    if rail is None:
+    version = rails.version_for_update(session, rail_id)
+    if version is None:
         raise NotFound(f"no rail '{rail_id}'", field="rail_id")
-    model = rail_model.build(rail.id, rail.version, rails.spec(session, rail.id, rail.version))
+    head = state.head(session, rail_id)
+    held = tuning.live.get(rail_id) if tuning.live is not None else None
+    if held is None or head is None or head.stamp != held.stamp:
+        held = None  # another process wrote since, or nothing is held: read the store
+    if held is not None and held.version == version:
+        spec, model = held.spec, held.model
+    else:
+        spec = rails.spec(session, rail_id, version)
+        model = rail_model.build(rail_id, version, spec)
     for part in np.split(incoming.seq, np.cumsum(parts or [incoming.n])[:-1]):
         _check_unique_seq(part)
     batch = to_batch(incoming, model)
-    rows = _rows(rail_id, rail.version, batch)
+    rows = _rows(rail_id, version, batch)
 
     stored_before = samples.existing(session, rail_id, [int(s) for s in batch.seq])
     fresh = np.ones(batch.n, dtype=bool)
@@ -178,29 +290,135 @@ def _ingest(
         fresh[k] = False
     samples.insert_rows(session, [r for r, f in zip(rows, fresh, strict=True) if f])
 
-    live = state.get(session, rail_id, for_update=True)
-    last_t = live.last_t_s if live is not None else None
+    last_t = head.last_t_s if head is not None else None
     newer = fresh & (batch.t_s > (last_t if last_t is not None else -np.inf))
     order = np.argsort(batch.t_s[newer], kind="stable")
     live_batch = batch.take(np.nonzero(newer)[0][order])
-    condition = live.state.get("rail", {}).get("condition") if live is not None else None
-    if live_batch.n:
-        # A new definition keeps time order but restarts judgement from a fresh state.
-        previous = live.state if live is not None and live.version == rail.version else {}
-        new_state, findings = advance(model, live_batch, previous)
-        events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
-        isolations = [
-            (float(live_batch.t_s[f.sample]), int(f.phase))
-            for f in findings
-            if f.kind == "phase.isolated" and f.phase is not None
-        ]
-        fault_class.settle(session, model, isolations)
-        state.put(
-            session, rail_id=rail_id, version=rail.version, last_seq=int(live_batch.seq[-1]),
-            last_t_s=float(live_batch.t_s[-1]), state=new_state, now_s=now_s,
-        )  # fmt: skip
-        condition = new_state["rail"]["condition"]
-    return _Outcome(fresh=fresh, newer=newer, condition=condition, version=rail.version)
+    stored = _stored_state(session, rail_id, head, held)
+    condition = stored.get("rail", {}).get("condition") if stored is not None else None
+    outcome = _Outcome(fresh=fresh, newer=newer, condition=condition, version=version)
+    if not live_batch.n:
+        return outcome
+    # A new definition keeps time order but restarts judgement from a fresh state.
+    same = stored is not None and head is not None and head.version == version
+    if held is not None and same:
+        previous = held.state
+    elif same and stored is not None and head is not None:
+        previous = _restore(session, model, stored, head.replay, tuning.tolerances)
+    else:
+        previous = {}
+    new_state, findings = advance(model, live_batch, previous, tuning.tolerances)
+    events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
+    isolations = [
+        (float(live_batch.t_s[f.sample]), int(f.phase))
+        for f in findings
+        if f.kind == "phase.isolated" and f.phase is not None
+    ]
+    fault_class.settle(session, model, isolations)
+    last_seq = int(live_batch.seq[-1])
+    replay = (held.replay if held is not None and previous else []) + _replay_entries(live_batch)
+    if held is None or not previous or len(replay) >= tuning.checkpoint_samples:
+        state.put_checkpoint(
+            session, rail_id=rail_id, version=version, seq=last_seq, state=new_state
+        )
+        replay = []
+    stamp = secrets.randbits(63)
+    state.put(
+        session, rail_id=rail_id, version=version, last_seq=last_seq,
+        last_t_s=float(live_batch.t_s[-1]), state=_without_covariance(new_state), now_s=now_s,
+        stamp=stamp, replay=replay,
+    )  # fmt: skip
+    return replace(
+        outcome,
+        condition=new_state["rail"]["condition"],
+        rail_id=rail_id,
+        resident=Resident(
+            stamp=stamp,
+            version=version,
+            spec=spec,
+            model=model,
+            state=new_state,
+            replay=replay,
+        ),
+    )
+
+
+def _stored_state(
+    session: Session, rail_id: str, head: state.Head | None, held: Resident | None
+) -> dict[str, Any] | None:
+    """The live state as stored (without its covariance unless held in memory)."""
+    if held is not None:
+        return held.state
+    if head is None:
+        return None
+    row = state.get(session, rail_id)
+    return None if row is None else row.state
+
+
+def _without_covariance(full: dict[str, Any]) -> dict[str, Any]:
+    estimate = {k: v for k, v in full["estimate"].items() if k != "cov_k2"}
+    return full | {"estimate": estimate}
+
+
+def _replay_entries(batch: SampleBatch) -> list[Any]:
+    """Per judged sample: [seq], or [seq, phases] where some current came from a sense
+    voltage (the one thing judged that the stored sample does not say)."""
+    return [
+        [int(seq)] if not sensed.any() else [int(seq), np.flatnonzero(sensed).tolist()]
+        for seq, sensed in zip(batch.seq, batch.sensed, strict=True)
+    ]
+
+
+def _restore(
+    session: Session,
+    model: RailModel,
+    stored: dict[str, Any],
+    replay: list[Any] | None,
+    tolerances: Tolerances,
+) -> dict[str, Any]:
+    """The whole live state from the row: its covariance is the checkpoint's, carried forward
+    over the samples judged since (stored in order in ``replay``) by the same recurrence. The
+    samples are stored exactly as they were judged; events are a pure function of them, so the
+    replay ends in the state the uninterrupted passes reached (to rounding)."""
+    if "cov_k2" in stored.get("estimate", {}) or replay is None:
+        return stored  # written whole (before checkpoints existed)
+    checkpoint = state.checkpoint(session, model.rail_id)
+    if checkpoint is None or checkpoint.version != model.version:
+        raise RuntimeError(f"rail '{model.rail_id}' has no checkpoint of version {model.version}")
+    covariance = checkpoint.state["estimate"]["cov_k2"]
+    found = samples.existing(session, model.rail_id, [int(e[0]) for e in replay])
+    # Retention may have reduced the samples of a rail idle since (they are older than its
+    # raw horizon): the covariance then resumes from the checkpoint's, the filter's own
+    # uncertainty of some samples before, which the next readings correct.
+    if replay and len(found) == len(replay):
+        batch = _stored_batch(model, [found[int(e[0])] for e in replay], replay)
+        replayed, _ = advance(model, batch, checkpoint.state, tolerances)
+        covariance = replayed["estimate"]["cov_k2"]
+    return stored | {"estimate": stored["estimate"] | {"cov_k2": covariance}}
+
+
+def _stored_batch(model: RailModel, rows: Sequence[Row[Any]], replay: list[Any]) -> SampleBatch:
+    """Stored samples as the batch they were judged as (rows as :func:`_rows` wrote them: a
+    phase was reported where its current is a number)."""
+
+    def col(name: str) -> F64:
+        values = [getattr(r, name) for r in rows]
+        return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
+
+    current = np.stack([np.frombuffer(r.current_a, dtype="<f8") for r in rows])
+    sensed = np.zeros(current.shape, dtype=bool)
+    for k, entry in enumerate(replay):
+        if len(entry) > 1:
+            sensed[k, entry[1]] = True
+    return SampleBatch(
+        seq=np.array([r.seq for r in rows], dtype=np.int64),
+        t_s=col("t_s"), vin_v=col("vin_v"), vout_v=col("vout_v"), iout_a=col("iout_a"),
+        iin_a=col("iin_a"), ambient_c=col("ambient_c"), present=np.isfinite(current),
+        current_a=current.astype(np.float64),
+        temp_c=np.stack([np.frombuffer(r.temp_c, dtype="<f8") for r in rows]).astype(np.float64),
+        flags=np.stack([np.frombuffer(r.flags, dtype=np.uint8) for r in rows]).astype(np.uint8),
+        sensed=sensed,
+    )  # fmt: skip
 
 
 _CONTENT = (
@@ -242,7 +460,10 @@ def _rows(rail_id: str, version: int, batch: SampleBatch) -> list[dict[str, Any]
 
 
 def advance(
-    model: RailModel, batch: SampleBatch, previous: dict[str, Any]
+    model: RailModel,
+    batch: SampleBatch,
+    previous: dict[str, Any],
+    tolerances: Tolerances = TOLERANCES,
 ) -> tuple[dict[str, Any], list[Finding]]:
     """The live state after ``batch`` (in time order, newer than ``previous``) and its findings.
 
@@ -260,9 +481,9 @@ def advance(
     drift_state, drift_found = drift_watch.watch(model, drift_in, batch.t_s, previous)
 
     prior = previous.get("rail", {})
-    signature = _signature(model, judgement, current, nodes[1:], ambient, batch.vout_v)
+    signature = _signature(model, judgement, current, nodes[1:], ambient, batch.vout_v, tolerances)
     points, reference = _assessment_points(
-        model, batch, judgement.codes, signature, previous if prior else {}
+        model, batch, judgement.codes, signature, previous if prior else {}, tolerances.grid_s
     )
     findings = list(judgement.findings) + drift_found
     for k in points:
@@ -311,30 +532,28 @@ def advance(
     return new_state, findings
 
 
-# Where the rail is assessed (module docstring): a time grid, and tolerances on what moves a
-# verdict between the points where phase conditions change (common practice: well inside
-# the margins the verdicts are drawn with, and above sensor noise).
-ASSESS_GRID_S = 10.0  # s, absolute time: one assessment at least in every grid cell
-LOAD_TOLERANCE = 0.02  # of the rail's total rated current, on the load and each phase current
-TEMP_TOLERANCE_K = 1.0  # on each junction estimate and on ambient
-VOUT_TOLERANCE = 0.02  # of nominal output voltage
-WEIGHT_TOLERANCE = 0.02  # on each sharing weight (1.0 = an equal share)
 _LOOKAHEAD = 64  # samples scanned at a time for the next drift beyond tolerance
 
 
 def _signature(
-    model: RailModel, judgement: Judgement, current: F64, nodes: F64, ambient: F64, vout: F64
+    model: RailModel,
+    judgement: Judgement,
+    current: F64,
+    nodes: F64,
+    ambient: F64,
+    vout: F64,
+    tol: Tolerances,
 ) -> F64:
     """What a verdict depends on at each sample, in units of its tolerance. (n, m)."""
-    amps = LOAD_TOLERANCE * float(model.rated_current_a.sum())
+    amps = tol.load * float(model.rated_current_a.sum())
     return np.column_stack(
         [
             judgement.load_a / amps,
             current / amps,
-            nodes[:, model.network.junction_node] / TEMP_TOLERANCE_K,
-            ambient / TEMP_TOLERANCE_K,
-            vout / (VOUT_TOLERANCE * model.vout_v),
-            judgement.weights / WEIGHT_TOLERANCE,
+            nodes[:, model.network.junction_node] / tol.temp_k,
+            ambient / tol.temp_k,
+            vout / (tol.vout * model.vout_v),
+            judgement.weights / tol.weight,
         ]
     )
 
@@ -345,6 +564,7 @@ def _assessment_points(
     codes: npt.NDArray[np.int8],
     signature: F64,
     previous: dict[str, Any],
+    grid_s: float,
 ) -> tuple[list[int], F64]:
     """Samples of the batch at which the rail is assessed, and the signature of the last one.
 
@@ -353,9 +573,9 @@ def _assessment_points(
     known = bool(previous) and "assessed" in previous
     codes_before = np.asarray(previous["watch"]["codes"]) if known else codes[0]
     t_before = float(previous["sample"]["t_s"]) if known else batch.t_s[0]
-    cell = np.floor(batch.t_s / ASSESS_GRID_S)
+    cell = np.floor(batch.t_s / grid_s)
     forced = np.any(codes != np.concatenate([codes_before[None, :], codes[:-1]]), axis=1)
-    forced |= cell != np.concatenate([[np.floor(t_before / ASSESS_GRID_S)], cell[:-1]])
+    forced |= cell != np.concatenate([[np.floor(t_before / grid_s)], cell[:-1]])
     if known:
         reference = np.asarray(previous["assessed"]["signature"], dtype=np.float64)
     else:

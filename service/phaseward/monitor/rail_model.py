@@ -111,11 +111,19 @@ def phase_specs(spec: Mapping[str, Any]) -> list[dict[str, Any]]:
 def build(rail_id: str, version: int, spec: Mapping[str, Any]) -> RailModel:
     """Cached on the canonical JSON of the definition: a rail version never changes, but a
     deleted and re-created rail may reuse an id and version number with a new definition."""
-    return _build_cached(rail_id, version, json.dumps(spec, sort_keys=True))
+    return _cached(rail_id, version, json.dumps(spec, sort_keys=True))
 
 
-@lru_cache(maxsize=256)
-def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
+def resize_cache(size: int) -> None:
+    """Keep the models of ``size`` rail versions built (setting ``rail_cache_size``): a fleet
+    posting round-robin over more rails than the cache holds would rebuild every rail's
+    thermal network on every sample. Least recently used go first."""
+    global _cached
+    if _cached.cache_info().maxsize != size:
+        _cached = lru_cache(maxsize=size)(_build)
+
+
+def _build(rail_id: str, version: int, spec_json: str) -> RailModel:
     spec: dict[str, Any] = json.loads(spec_json)
     phases = phase_specs(spec)
 
@@ -165,6 +173,9 @@ def _build_cached(rail_id: str, version: int, spec_json: str) -> RailModel:
         evidence=_evidence_rules(spec.get("fault_evidence") or {}),
         vout_mode=spec.get("vout_mode"),
     )
+
+
+_cached = lru_cache(maxsize=4096)(_build)  # resized from the settings by create_app
 
 
 def _evidence_rules(section: Mapping[str, Any]) -> EvidenceRules:

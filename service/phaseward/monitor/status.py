@@ -8,22 +8,53 @@ import numpy as np
 import numpy.typing as npt
 from sqlalchemy.orm import Session
 
+from phaseward.errors import NotFound
 from phaseward.monitor import drift_watch, rail_model
-from phaseward.monitor import rails as rail_service
 from phaseward.monitor.assess import hottest_margin
+from phaseward.monitor.rail_model import RailModel
+from phaseward.monitor.resident import LiveStates, Resident
 from phaseward.monitor.ripple_view import ripple_view
 from phaseward.monitor.telemetry import FLAG_NAMES
-from phaseward.store import state
+from phaseward.store import rails, state
 
 
-def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, Any]:
-    """``now_s``: the service's clock, which the newest sample's age is measured on."""
-    rail, spec = rail_service.get(session, rail_id)
+def rail_status(
+    session: Session, rail_id: str, *, now_s: float, live_states: LiveStates | None = None
+) -> dict[str, Any]:
+    """``now_s``: the service's clock, which the newest sample's age is measured on.
+
+    A rail whose live state this process holds in memory (``live_states``) with the stamp the
+    row carries is answered from memory: the same committed state, without reading the
+    definition or the state document back (:mod:`resident`)."""
+    rail = rails.get(session, rail_id)
+    if rail is None:
+        raise NotFound(f"no rail '{rail_id}'", field="rail_id")
+    held = live_states.get(rail_id) if live_states is not None else None
+    if held is not None and held.version == rail.version and _current(session, held):
+        return _status(rail.id, rail.version, held.spec, held.model, held.state, now_s=now_s)
+    spec = rails.spec(session, rail.id, rail.version)
     model = rail_model.build(rail.id, rail.version, spec)
-    live = state.get(session, rail_id)
+    row = state.get(session, rail_id)
+    shown = row.state if row is not None and row.version == rail.version else None
+    return _status(rail.id, rail.version, spec, model, shown, now_s=now_s)
+
+
+def _current(session: Session, held: Resident) -> bool:
+    return state.stamp_of(session, held.model.rail_id) == held.stamp
+
+
+def _status(
+    rail_id: str,
+    version: int,
+    spec: dict[str, Any],
+    model: RailModel,
+    s: dict[str, Any] | None,
+    *,
+    now_s: float,
+) -> dict[str, Any]:
     out: dict[str, Any] = {
-        "rail_id": rail.id,
-        "version": rail.version,
+        "rail_id": rail_id,
+        "version": version,
         "rated_load_a": model.load_a,
         "condition": None,
         "last_sample": None,
@@ -33,9 +64,8 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
         "screening": None,
         "ripple": None,
     }
-    if live is None or live.version != rail.version:
+    if s is None:
         return out  # no sample judged under the present definition yet
-    s = live.state
     verdict, sample = s["rail"], s["sample"]
     watch = s["watch"]
     active = np.array([p["condition"] == "active" for p in s["phases"]])
@@ -50,7 +80,7 @@ def rail_status(session: Session, rail_id: str, *, now_s: float) -> dict[str, An
     drift = drift_watch.view(model, s.get("drift"))
     out.update(
         condition=verdict["condition"],
-        state_version=live.version,
+        state_version=version,
         last_sample={
             "seq": sample["seq"],
             "time_s": sample["t_s"],

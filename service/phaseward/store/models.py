@@ -140,8 +140,30 @@ class RailState(Base):
     version: Mapped[int] = mapped_column(Integer)
     last_seq: Mapped[int | None] = mapped_column(BigInteger)
     last_t_s: Mapped[float | None] = mapped_column(Float)
-    state: Mapped[dict[str, Any]] = mapped_column(JSON)
+    state: Mapped[dict[str, Any]] = mapped_column(JSON)  # without the estimate's covariance
     updated_s: Mapped[float] = mapped_column(Float)
+    # A random token of the last write: a process whose copy in memory carries the same stamp
+    # holds the state as stored, without re-reading it (monitor/resident.py).
+    stamp: Mapped[int] = mapped_column(BigInteger, server_default="0")
+    # What was judged since the checkpoint: [seq] or [seq, [phases whose current came from a
+    # sense voltage]] per sample, in the order judged; replayed over the checkpoint to restore
+    # the covariance (None: the checkpoint is this very state).
+    replay: Mapped[list[Any] | None] = mapped_column(JSON)
+
+
+class RailCheckpoint(Base):
+    """A rail's whole live state, covariance included, as of a sample: written every
+    ``state_checkpoint_samples`` judged samples instead of on every one (the covariance is
+    most of the state's size)."""
+
+    __tablename__ = "rail_checkpoints"
+
+    rail_id: Mapped[str] = mapped_column(
+        ForeignKey("rails.id", ondelete="CASCADE"), primary_key=True
+    )
+    version: Mapped[int] = mapped_column(Integer)
+    seq: Mapped[int | None] = mapped_column(BigInteger)
+    state: Mapped[dict[str, Any]] = mapped_column(JSON)
 
 
 class Trace(Base):

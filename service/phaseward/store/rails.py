@@ -18,6 +18,12 @@ def get(session: Session, rail_id: str, *, for_update: bool = False) -> Rail | N
     return session.scalars(stmt).one_or_none()
 
 
+def version_for_update(session: Session, rail_id: str) -> int | None:
+    """The rail's current version, with the rail's row lock (ingest's first step)."""
+    stmt = select(Rail.version).where(Rail.id == rail_id).with_for_update()
+    return session.connection().execute(stmt).scalar_one_or_none()
+
+
 def list_page(
     session: Session, *, after: str | None, limit: int, allowed: frozenset[str] | None = None
 ) -> Sequence[Rail]:

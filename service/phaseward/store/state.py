@@ -1,23 +1,45 @@
-"""The live per-rail state row."""
+"""The live per-rail state row and its checkpoint."""
 
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import bindparam, insert, select, update
 from sqlalchemy.orm import Session
 
-from phaseward.store.models import RailState
+from phaseward.store.models import RailCheckpoint, RailState
 
 
-def get(session: Session, rail_id: str, *, for_update: bool = False) -> RailState | None:
-    """Read the state; ``for_update`` takes the row lock on PostgreSQL (SQLite's BEGIN
-    IMMEDIATE already serialises writers) so concurrent ingest never interleaves updates."""
-    stmt = select(RailState).where(RailState.rail_id == rail_id)
-    if for_update:
-        stmt = stmt.with_for_update()
-    return session.scalars(stmt).one_or_none()
+@dataclass(frozen=True)
+class Head:
+    """What ingest reads of the state row under its lock: everything but the state itself."""
+
+    version: int
+    last_t_s: float | None
+    stamp: int
+    replay: list[Any] | None
+
+
+def get(session: Session, rail_id: str) -> RailState | None:
+    return session.scalars(select(RailState).where(RailState.rail_id == rail_id)).one_or_none()
+
+
+def head(session: Session, rail_id: str) -> Head | None:
+    """The row's small columns, with the row lock on PostgreSQL (SQLite's BEGIN IMMEDIATE
+    already serialises writers) so concurrent ingest never interleaves updates."""
+    stmt = (
+        select(RailState.version, RailState.last_t_s, RailState.stamp, RailState.replay)
+        .where(RailState.rail_id == rail_id)
+        .with_for_update()
+    )
+    row = session.execute(stmt).one_or_none()
+    return None if row is None else Head(*row)
+
+
+def stamp_of(session: Session, rail_id: str) -> int | None:
+    return session.scalar(select(RailState.stamp).where(RailState.rail_id == rail_id))
 
 
 def put(
@@ -29,16 +51,36 @@ def put(
     last_t_s: float | None,
     state: dict[str, Any],
     now_s: float,
+    stamp: int,
+    replay: list[Any] | None,
 ) -> None:
-    row = session.get(RailState, rail_id)
-    if row is None:
-        row = RailState(rail_id=rail_id)
-        session.add(row)
-    row.version = version
-    row.last_seq = last_seq
-    row.last_t_s = last_t_s
-    row.state = state
-    row.updated_s = now_s
+    values = {
+        "version": version, "last_seq": last_seq, "last_t_s": last_t_s, "state": state,
+        "updated_s": now_s, "stamp": stamp, "replay": replay,
+    }  # fmt: skip
+    _upsert(session, RailState, rail_id, values)
+
+
+def checkpoint(session: Session, rail_id: str) -> RailCheckpoint | None:
+    stmt = select(RailCheckpoint).where(RailCheckpoint.rail_id == rail_id)
+    return session.scalars(stmt.execution_options(populate_existing=True)).one_or_none()
+
+
+def put_checkpoint(
+    session: Session, *, rail_id: str, version: int, seq: int, state: dict[str, Any]
+) -> None:
+    _upsert(session, RailCheckpoint, rail_id, {"version": version, "seq": seq, "state": state})
+
+
+def _upsert(
+    session: Session, table: type[RailState | RailCheckpoint], rail_id: str, values: dict[str, Any]
+) -> None:
+    """Update the rail's row, or insert it. Core statements on the session's connection: the
+    ORM's unit of work cost several times the write itself on the ingest path."""
+    conn = session.connection()
+    stmt = update(table).where(table.rail_id == bindparam("key"))
+    if not conn.execute(stmt, {"key": rail_id, **values}).rowcount:
+        conn.execute(insert(table), {"rail_id": rail_id, **values})
 
 
 def all_states(session: Session) -> Sequence[RailState]:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Annotated
 
-from fastapi import APIRouter, Path, Query, Response, status
+from fastapi import APIRouter, Path, Query, Request, Response, status
 
 from phaseward.api.auth import Admin, RailAdmin, RailReader, Reader
 from phaseward.api.deps import ClockDep, ReadSessionDep, SessionsDep, SettingsDep
@@ -100,6 +100,7 @@ def delete_rail(rail_id: RailId, sessions: SessionsDep, _: RailAdmin) -> None:
 
 @router.get("/{rail_id}/status")
 def get_status(
-    rail_id: RailId, session: ReadSessionDep, clock: ClockDep, _: RailReader
+    rail_id: RailId, request: Request, session: ReadSessionDep, clock: ClockDep, _: RailReader
 ) -> RailStatus:
-    return RailStatus.model_validate(rail_status(session, rail_id, now_s=clock()))
+    live = request.app.state.live_states
+    return RailStatus.model_validate(rail_status(session, rail_id, now_s=clock(), live_states=live))

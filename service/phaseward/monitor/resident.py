@@ -1,0 +1,61 @@
+"""Live states kept in memory between requests, so the hot path writes the state row but does
+not read it back.
+
+A process holds, per recently active rail, the whole live state after its last write (the
+estimator's covariance included, which the row leaves out), the rail model it was computed
+with and the row's stamp: a random token each write stores. Ingest reads the row's stamp
+under the rail's lock; if it is this copy's, nobody else wrote since and the copy is the state
+as stored. Otherwise (another process wrote, a restart, a new definition) the state is read
+from the row and its covariance restored from the checkpoint (``monitor.ingest``). Copies are
+published only after their transaction commits, so readers see committed states only.
+"""
+
+from __future__ import annotations
+
+import threading
+from collections import OrderedDict
+from dataclasses import dataclass
+from typing import Any
+
+from phaseward.monitor.rail_model import RailModel
+
+
+@dataclass(frozen=True)
+class Resident:
+    """A rail's live state as its last write stored it. ``replay``: what was judged since the
+    checkpoint (the row's column of the same name); ``state`` and ``spec`` are never changed
+    in place."""
+
+    stamp: int
+    version: int
+    spec: dict[str, Any]  # the definition of ``version``, as stored
+    model: RailModel
+    state: dict[str, Any]
+    replay: list[Any]
+
+
+class LiveStates:
+    """The residents of up to ``size`` rails, least recently used dropped first."""
+
+    def __init__(self, size: int) -> None:
+        self._size = size
+        self._held: OrderedDict[str, Resident] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get(self, rail_id: str) -> Resident | None:
+        with self._lock:
+            found = self._held.get(rail_id)
+            if found is not None:
+                self._held.move_to_end(rail_id)
+            return found
+
+    def put(self, rail_id: str, resident: Resident) -> None:
+        with self._lock:
+            self._held[rail_id] = resident
+            self._held.move_to_end(rail_id)
+            while len(self._held) > self._size:
+                self._held.popitem(last=False)
+
+    def drop(self, rail_id: str) -> None:
+        with self._lock:
+            self._held.pop(rail_id, None)

@@ -171,13 +171,22 @@ def forecast(
         if requested[k] < horizon_s and active[k]
     ]
     out_at = np.where(active, requested, -np.inf)  # a phase already out never carries load
-    for _ in range(n + 2):  # each pass drops a phase or ends
+    # Each pass moves one or more phases' out time strictly earlier, or ends the cascade; a
+    # phase may move more than once (a later trip found earlier), hence the generous bound.
+    for _ in range(4 * n + 8):
         extra = out_at[np.isfinite(out_at) & (out_at > 0.0) & (out_at < horizon_s)]
         starts = np.unique(np.r_[base_starts, extra])
         duration = np.diff(np.r_[starts, horizon_s])
         load = base_load[np.searchsorted(base_starts, starts, side="right") - 1]
         alive = out_at[None, :] > starts[:, None]
         current = share_a(load, alive, weights)
+        p0, slope = phase_power(model, current, alive)
+        # Whichever pass is the last, what is judged below belongs to one phase set.
+        ends = piecewise_c(net, nodes_c, duration, p0, slope, ambient_c)
+        # A runaway may pass float range within a long stretch: every later start is then
+        # beyond any limit, which a huge finite temperature says on the hot side.
+        ends = np.nan_to_num(ends, nan=PAST_ANY_LIMIT_C, posinf=PAST_ANY_LIMIT_C,
+                             neginf=PAST_ANY_LIMIT_C)  # fmt: skip
         over = alive & (current > model.overcurrent_limit_a)
         if over.any():  # one round of the instant cascade; the next pass re-shares
             k = int(np.argmax(over.any(axis=1)))
@@ -185,18 +194,14 @@ def forecast(
                 out_at[p] = starts[k]
                 losses.append(Loss(float(starts[k]), int(p), "trip_current", float(current[k, p])))
             continue
-        p0, slope = phase_power(model, current, alive)
-        ends = piecewise_c(net, nodes_c, duration, p0, slope, ambient_c)
-        # A runaway may pass float range within a long stretch: every later start is then
-        # beyond any limit, which a huge finite temperature says on the hot side.
-        ends = np.nan_to_num(ends, nan=PAST_ANY_LIMIT_C, posinf=PAST_ANY_LIMIT_C,
-                             neginf=PAST_ANY_LIMIT_C)  # fmt: skip
         limit = np.where(alive, model.junction_limit_c, np.inf)
         hot = time_to_limit_batch_s(
             net, ends[:-1], p0, slope, ambient_c, limit, horizon_s=np.maximum(duration, 1e-300)
         )
-        # A crossing at a stretch's very end is the next stretch's start (found there).
-        hit = hot.time_s < duration
+        # A crossing at a stretch's very end is the next stretch's start (found there): judged
+        # on the absolute time, as the drop is stamped, so rounding cannot drop a phase again
+        # at the time it is already out (that looped until the bound, found by the fuzz).
+        hit = starts + hot.time_s < np.r_[starts[1:], horizon_s]
         if not hit.any():
             break
         k = int(np.argmax(hit))

@@ -79,8 +79,10 @@ async def test_healthz_answers_during_a_large_upload_and_calibration(
     worst, took, answer = await worst_latency_during(big, upload)
     assert answer.status_code == 201, answer.text
     assert answer.json()["n_samples"] == ROWS
-    # Parsed on the event loop, /healthz waited for most of the upload.
-    assert worst < max(50 * idle, 0.25 * took), (worst, took, idle)
+    # Parsed on the event loop, /healthz waited for the whole upload. Off the loop it still
+    # waits its turn for the interpreter lock on a busy machine (a stall of a third of the
+    # upload was seen under CI load), so the line is drawn at half.
+    assert worst < max(50 * idle, 0.5 * took), (worst, took, idle)
 
     assert (await big.post("/v1/rails", json=SMALL_RAIL)).status_code == 201
     t = np.linspace(0.0, 300.0, 1_500)
@@ -93,4 +95,4 @@ async def test_healthz_answers_during_a_large_upload_and_calibration(
 
     worst, took, answer = await worst_latency_during(big, calibrate)
     assert answer.status_code == 200, answer.text
-    assert worst < max(50 * idle, 0.25 * took), (worst, took, idle)
+    assert worst < max(50 * idle, 0.5 * took), (worst, took, idle)

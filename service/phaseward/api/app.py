@@ -12,6 +12,7 @@ from typing import Any
 from fastapi import FastAPI
 from fastapi.concurrency import run_in_threadpool
 from sqlalchemy import Engine
+from sqlalchemy.exc import DBAPIError
 from sqlalchemy.orm import Session, sessionmaker
 from threadpoolctl import threadpool_limits
 
@@ -83,7 +84,10 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     threadpool_limits(limits=settings.blas_threads, user_api="blas")  # for the whole process
     engine = build_engine(settings)
     migrate(engine)
-    roll_partitions(engine, settings)
+    try:
+        roll_partitions(engine, settings)
+    except DBAPIError:  # a read-only database still serves reads; the hourly roll tries again
+        logging.getLogger(__name__).exception("partition roll at start failed")
     sessions = build_sessionmaker(engine)
     read_sessions = build_sessionmaker(engine, read_only=True)
     runner = JobRunner(

@@ -127,3 +127,11 @@ async def test_acknowledge(
 
 async def test_unknown_rail_events_is_404(client: httpx.AsyncClient) -> None:
     assert (await client.get("/v1/rails/none/events")).status_code == 404
+
+
+async def test_an_event_kind_that_cannot_be_one_is_refused(client: httpx.AsyncClient) -> None:
+    """A NUL byte in a kind filter answered 500 on PostgreSQL (found by the schema fuzz)."""
+    for path in ("/v1/events", "/v1/rails/bench-a/events"):
+        answer = await client.get(path, params={"kind": ["phase.isolated", "\x00x"]})
+        assert answer.status_code == 422, answer.text
+        assert answer.json()["field"] == "kind[1]"

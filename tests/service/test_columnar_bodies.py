@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import csv
 import io
-import itertools
 import json
 from typing import Any
 
@@ -21,8 +20,7 @@ from fastapi import FastAPI
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from phaseward_client.columns import to_columns, to_csv
-from tests.factories import rail_spec
-from tests.service.test_ingest_properties import T0, telemetry
+from tests.service.test_ingest_properties import T0, new_rail, telemetry
 
 from phaseward.api.schemas.columns import PHASE_COLUMNS, SAMPLE_COLUMNS, Refusal, parse_columns
 from phaseward.api.schemas.columns_csv import parse_csv
@@ -36,16 +34,7 @@ EXAMPLES = settings(
     max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
 )
 COLUMNS = "application/vnd.phaseward.columns+json"
-RAILS = itertools.count()
 Json = dict[str, Any]
-
-
-async def new_rail(client: httpx.AsyncClient, phase_count: int, debounce: int) -> str:
-    rail_id = f"col-{next(RAILS)}"
-    spec = rail_spec(id=rail_id, phase_count=phase_count, monitor={"debounce_samples": debounce})
-    answer = await client.post("/v1/rails", json=spec)
-    assert answer.status_code == 201, answer.text
-    return rail_id
 
 
 async def post_as(

@@ -132,20 +132,15 @@ def _build(rail_id: str, version: int, spec_json: str) -> RailModel:
 
     losses = _loss_params(spec, phases)
     target = arr(lambda p: p.get("share_target", 1.0))
-    chains = [
-        foster_to_cauer(
-            FosterStages(
-                r_k_per_w=np.array([s["r_k_per_w"] for s in p["thermal"]], dtype=np.float64),
-                tau_s=np.array([s["tau_s"] for s in p["thermal"]], dtype=np.float64),
-            )
-        )
-        for p in phases
-    ]
-    network = build_coupled_network(
-        chains,
-        board_to_ambient_k_per_w=float(spec["board"]["to_ambient_k_per_w"]),
-        board_c_j_per_k=float(spec["board"]["capacitance_j_per_k"]),
-    )
+    network = _network(
+        tuple(
+            (tuple(float(s["r_k_per_w"]) for s in p["thermal"]),
+             tuple(float(s["tau_s"]) for s in p["thermal"]))
+            for p in phases
+        ),
+        float(spec["board"]["to_ambient_k_per_w"]),
+        float(spec["board"]["capacitance_j_per_k"]),
+    )  # fmt: skip
     rated = arr(lambda p: p["rated_current_a"])
     trip = arr(lambda p: p["overcurrent_limit_a"])
     junction_limit = arr(lambda p: p["junction_limit_c"])
@@ -176,6 +171,25 @@ def _build(rail_id: str, version: int, spec_json: str) -> RailModel:
 
 
 _cached = lru_cache(maxsize=4096)(_build)  # resized from the settings by create_app
+
+
+@lru_cache(maxsize=256)
+def _network(
+    fosters: tuple[tuple[tuple[float, ...], tuple[float, ...]], ...],
+    board_r_k_per_w: float,
+    board_c_j_per_k: float,
+) -> ThermalNetwork:
+    """One network object for every rail of the same thermal design: the physics caches
+    (discretisation, steady gains) key on the network's identity, so a fleet of identical
+    boards shares them instead of recomputing a matrix exponential and a Riccati solution
+    for every rail's sample once the fleet outgrows those caches."""
+    chains = [
+        foster_to_cauer(FosterStages(r_k_per_w=np.array(r), tau_s=np.array(tau)))
+        for r, tau in fosters
+    ]
+    return build_coupled_network(
+        chains, board_to_ambient_k_per_w=board_r_k_per_w, board_c_j_per_k=board_c_j_per_k
+    )
 
 
 def _evidence_rules(section: Mapping[str, Any]) -> EvidenceRules:

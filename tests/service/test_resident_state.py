@@ -21,10 +21,11 @@ from sqlalchemy import select
 from tests.service.cuts import TRACES, Ingestor, Json, Trace, incoming
 from tests.service.test_cut_invariance import assert_same_state
 
+from phaseward.errors import Conflict
 from phaseward.monitor.ingest import Tuning, ingest
 from phaseward.monitor.resident import LiveStates
 from phaseward.monitor.status import rail_status
-from phaseward.store import summaries
+from phaseward.store import samples, summaries
 from phaseward.store.db import transaction
 from phaseward.store.models import RailCheckpoint
 
@@ -170,3 +171,32 @@ async def test_a_restart_after_retention_removed_the_replayed_samples_still_inge
     held = after.live.get("idle") if after.live is not None else None
     assert held is not None
     assert held.state["sample"]["seq"] == 10
+
+
+async def test_a_late_sample_another_process_stored_is_still_a_resend_here(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """A process skips the resend look-up for seqs above the highest it knows stored. A late
+    sample (older than the live state, so judged by nobody) stored by another process must
+    void that knowledge: its resend here is a duplicate, stored once, and other content under
+    its seq is a conflict."""
+    trace = TRACES["trip"]
+    answer = await client.post("/v1/rails", json=trace.spec | {"id": "late"})
+    assert answer.status_code == 201
+    here, there = (Tuning(live=LiveStates(8)) for _ in range(2))
+    for body in trace.samples[:10]:
+        ingest(app.state.sessions, "late", incoming([body]), tuning=here)
+    late = trace.samples[3] | {"seq": 100, "time": trace.samples[3]["time"] + 0.5}
+    first = ingest(app.state.sessions, "late", incoming([late]), tuning=there)
+    assert (first.stored, first.late) == (1, 1)
+    again = ingest(app.state.sessions, "late", incoming([late]), tuning=here)
+    assert (again.stored, again.duplicates) == (0, 1)
+    with pytest.raises(Conflict):
+        ingest(app.state.sessions, "late", incoming([late | {"vin_v": 11.0}]), tuning=here)
+    # The process that stored it knows too, and the next samples still go through both.
+    assert ingest(app.state.sessions, "late", incoming([late]), tuning=there).duplicates == 1
+    nxt = ingest(app.state.sessions, "late", incoming([trace.samples[10]]), tuning=here)
+    assert nxt.stored == 1
+    with transaction(app.state.sessions) as session:
+        assert samples.count(session, "late") == 12
+        assert samples.highest_seq(session, "late") == 100

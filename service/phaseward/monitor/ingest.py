@@ -266,7 +266,11 @@ def _ingest(
     batch = to_batch(incoming, model)
     rows = _rows(rail_id, version, batch)
 
-    stored_before = samples.existing(session, rail_id, [int(s) for s in batch.seq])
+    seqs = [int(s) for s in batch.seq]
+    ceiling = held.seq_ceiling if held is not None else samples.highest_seq(session, rail_id)
+    # A rail's seqs mostly rise: above the highest stored, no sample can be a resend.
+    stored_before = {} if min(seqs) > ceiling else samples.existing(session, rail_id, seqs)
+    ceiling = max(ceiling, max(seqs))
     fresh = np.ones(batch.n, dtype=bool)
     first: dict[int, dict[str, Any]] = {}
     for k, row in enumerate(rows):
@@ -298,7 +302,12 @@ def _ingest(
     condition = stored.get("rail", {}).get("condition") if stored is not None else None
     outcome = _Outcome(fresh=fresh, newer=newer, condition=condition, version=version)
     if not live_batch.n:
-        return outcome
+        if not fresh.any() or head is None:
+            return outcome
+        stamp = secrets.randbits(63)  # late samples stored: held ceilings elsewhere are void
+        state.restamp(session, rail_id, stamp)
+        kept = None if held is None else replace(held, stamp=stamp, seq_ceiling=ceiling)
+        return replace(outcome, rail_id=rail_id, resident=kept)
     # A new definition keeps time order but restarts judgement from a fresh state.
     same = stored is not None and head is not None and head.version == version
     if held is not None and same:
@@ -339,6 +348,7 @@ def _ingest(
             model=model,
             state=new_state,
             replay=replay,
+            seq_ceiling=ceiling,
         ),
     )
 

@@ -23,7 +23,9 @@ from phaseward.monitor.rail_model import RailModel
 @dataclass(frozen=True)
 class Resident:
     """A rail's live state as its last write stored it. ``replay``: what was judged since the
-    checkpoint (the row's column of the same name); ``state`` and ``spec`` are never changed
+    checkpoint (the row's column of the same name); ``seq_ceiling``: the highest seq of the
+    rail stored when it was written (every pass that stores a sample writes a new stamp), so
+    a batch of higher seqs needs no resend look-up; ``state`` and ``spec`` are never changed
     in place."""
 
     stamp: int
@@ -32,6 +34,7 @@ class Resident:
     model: RailModel
     state: dict[str, Any]
     replay: list[Any]
+    seq_ceiling: int
 
 
 class LiveStates:

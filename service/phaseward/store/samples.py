@@ -58,9 +58,19 @@ def existing(session: Session, rail_id: str, seqs: Sequence[int]) -> dict[int, R
     return found
 
 
+def highest_seq(session: Session, rail_id: str) -> int:
+    """The rail's highest stored seq (-1 when none): one probe of the (rail, seq) key per
+    partition, asked once per rail and process (:mod:`phaseward.monitor.resident`)."""
+    stmt = select(func.max(Sample.seq)).where(Sample.rail_id == rail_id)
+    found = session.connection().execute(stmt).scalar()
+    return -1 if found is None else int(found)
+
+
 def insert_rows(session: Session, rows: list[dict[str, Any]]) -> None:
+    """A Core executemany on the session's connection (the ORM's bulk path cost more than the
+    insert on the ingest path)."""
     if rows:
-        session.execute(insert(Sample), rows)
+        session.connection().execute(insert(Sample), rows)
 
 
 def count(session: Session, rail_id: str) -> int:

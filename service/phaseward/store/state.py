@@ -61,6 +61,13 @@ def put(
     _upsert(session, RailState, rail_id, values)
 
 
+def restamp(session: Session, rail_id: str, stamp: int) -> None:
+    """A new stamp on the row: samples were stored without a state change, and copies held
+    elsewhere must not vouch for the rail's stored seqs any more."""
+    stmt = update(RailState).where(RailState.rail_id == rail_id).values(stamp=stamp)
+    session.connection().execute(stmt)
+
+
 def checkpoint(session: Session, rail_id: str) -> RailCheckpoint | None:
     stmt = select(RailCheckpoint).where(RailCheckpoint.rail_id == rail_id)
     return session.scalars(stmt.execution_options(populate_existing=True)).one_or_none()

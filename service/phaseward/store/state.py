@@ -28,7 +28,9 @@ def get(session: Session, rail_id: str) -> RailState | None:
 
 def head(session: Session, rail_id: str) -> Head | None:
     """The row's small columns, with the row lock on PostgreSQL (SQLite's BEGIN IMMEDIATE
-    already serialises writers) so concurrent ingest never interleaves updates."""
+    already serialises writers) so concurrent ingest never interleaves updates. A statement
+    of its own, after the rail's lock: joined to the locking statement, PostgreSQL (read
+    committed) would return this row as it was before the wait for the lock."""
     stmt = (
         select(RailState.version, RailState.last_t_s, RailState.stamp, RailState.replay)
         .where(RailState.rail_id == rail_id)

@@ -22,7 +22,7 @@ they check, and FastAPI must see those annotations as objects, not strings to re
 
 import threading
 import time
-from collections.abc import Callable, Hashable
+from collections.abc import Awaitable, Callable, Hashable
 from typing import Annotated
 
 from fastapi import Depends, Path, Request
@@ -176,8 +176,8 @@ async def principal(
     return who
 
 
-def role(needed: str) -> Callable[[Principal], Principal]:
-    def check(who: Annotated[Principal, Depends(principal)]) -> Principal:
+def role(needed: str) -> Callable[[Principal], Awaitable[Principal]]:
+    async def check(who: Annotated[Principal, Depends(principal)]) -> Principal:
         if not who.grants(needed):
             raise Forbidden(f"a '{who.role}' key may not {needed}", field="authorization")
         return who
@@ -185,8 +185,8 @@ def role(needed: str) -> Callable[[Principal], Principal]:
     return check
 
 
-def rail_role(needed: str) -> Callable[[str, Principal], Principal]:
-    def check(
+def rail_role(needed: str) -> Callable[[str, Principal], Awaitable[Principal]]:
+    async def check(
         rail_id: Annotated[str, Path()],
         who: Annotated[Principal, Depends(role(needed))],
     ) -> Principal:
@@ -197,10 +197,10 @@ def rail_role(needed: str) -> Callable[[str, Principal], Principal]:
     return check
 
 
-def rail_either(first: str, second: str) -> Callable[[str, Principal], Principal]:
+def rail_either(first: str, second: str) -> Callable[[str, Principal], Awaitable[Principal]]:
     """A key whose role grants ``first`` or ``second``, limited to the path's rail."""
 
-    def check(
+    async def check(
         rail_id: Annotated[str, Path()],
         who: Annotated[Principal, Depends(principal)],
     ) -> Principal:

@@ -1,4 +1,7 @@
-"""Dependencies as ``Annotated`` aliases; everything comes from ``app.state``."""
+"""Dependencies as ``Annotated`` aliases; everything comes from ``app.state``.
+
+Those that only look something up are ``async``: FastAPI runs a plain ``def`` dependency in
+its thread pool, a hand-off per dependency per request that cost more than the look-up."""
 
 from __future__ import annotations
 
@@ -11,7 +14,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from phaseward.settings import Settings
 
 
-def _settings(request: Request) -> Settings:
+async def _settings(request: Request) -> Settings:
     settings: Settings = request.app.state.settings
     return settings
 
@@ -19,17 +22,17 @@ def _settings(request: Request) -> Settings:
 Clock = Callable[[], float]  # epoch seconds now; time.time in service, a fixed one in tests
 
 
-def _clock(request: Request) -> Clock:
+async def _clock(request: Request) -> Clock:
     clock: Clock = request.app.state.clock
     return clock
 
 
-def _sessions(request: Request) -> sessionmaker[Session]:
+async def _sessions(request: Request) -> sessionmaker[Session]:
     sessions: sessionmaker[Session] = request.app.state.sessions
     return sessions
 
 
-def _read_sessions(request: Request) -> sessionmaker[Session]:
+async def _read_sessions(request: Request) -> sessionmaker[Session]:
     sessions: sessionmaker[Session] = request.app.state.read_sessions
     return sessions
 

@@ -141,6 +141,11 @@ async def test_status_from_memory_is_the_status_of_the_stored_state(
     memory, store = both()
     assert memory == store
     assert memory["last_sample"]["seq"] == 39
+    # The view of a held state is built once per write; the sample's age follows the clock.
+    with transaction(app.state.read_sessions) as session:
+        later = rail_status(session, "st", now_s=2e9 + 30.0, live_states=app.state.live_states)
+    assert later["last_sample"]["age_s"] == memory["last_sample"]["age_s"] + 30.0
+    assert later | {"last_sample": None} == memory | {"last_sample": None}
     # Another process writes the next samples: this one's copy is stale, the row is not.
     other = Tuning(live=LiveStates(8))
     for body in trace.samples[40:45]:

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import threading
+from collections import OrderedDict
 from typing import Any
 
 import numpy as np
@@ -26,21 +28,49 @@ def rail_status(
     A rail whose live state this process holds in memory (``live_states``) with the stamp the
     row carries is answered from memory: the same committed state, without reading the
     definition or the state document back (:mod:`resident`)."""
-    rail = rails.get(session, rail_id)
-    if rail is None:
+    found = state.version_and_stamp(session, rail_id)
+    if found is None:
         raise NotFound(f"no rail '{rail_id}'", field="rail_id")
+    version, stamp = found
     held = live_states.get(rail_id) if live_states is not None else None
-    if held is not None and held.version == rail.version and _current(session, held):
-        return _status(rail.id, rail.version, held.spec, held.model, held.state, now_s=now_s)
-    spec = rails.spec(session, rail.id, rail.version)
-    model = rail_model.build(rail.id, rail.version, spec)
+    if held is not None and held.version == version and held.stamp == stamp:
+        return _aged(_held_view(rail_id, held), now_s)
+    spec = rails.spec(session, rail_id, version)
+    model = rail_model.build(rail_id, version, spec)
     row = state.get(session, rail_id)
-    shown = row.state if row is not None and row.version == rail.version else None
-    return _status(rail.id, rail.version, spec, model, shown, now_s=now_s)
+    shown = row.state if row is not None and row.version == version else None
+    return _status(rail_id, version, spec, model, shown, now_s=now_s)
 
 
-def _current(session: Session, held: Resident) -> bool:
-    return state.stamp_of(session, held.model.rail_id) == held.stamp
+_VIEWS: OrderedDict[str, tuple[int, dict[str, Any]]] = OrderedDict()  # rail: (stamp, view)
+_VIEWS_LOCK = threading.Lock()
+_VIEWS_KEPT = 1024  # rails whose last view is kept; a status read of another builds it again
+
+
+def _held_view(rail_id: str, held: Resident) -> dict[str, Any]:
+    """The status of a held state, built once per write (its stamp): operators polling a
+    fleet read the same state many times between two of its samples. Only the newest
+    sample's age depends on the clock (:func:`_aged`)."""
+    with _VIEWS_LOCK:
+        kept = _VIEWS.get(rail_id)
+    if kept is not None and kept[0] == held.stamp:
+        return kept[1]
+    view = _status(rail_id, held.version, held.spec, held.model, held.state, now_s=0.0)
+    with _VIEWS_LOCK:
+        _VIEWS[rail_id] = (held.stamp, view)
+        _VIEWS.move_to_end(rail_id)
+        while len(_VIEWS) > _VIEWS_KEPT:
+            _VIEWS.popitem(last=False)
+    return view
+
+
+def _aged(view: dict[str, Any], now_s: float) -> dict[str, Any]:
+    """``view`` with the newest sample's age on the clock ``now_s`` (a copy: views are shared)."""
+    last = view["last_sample"]
+    if last is None:
+        return view
+    aged = last | {"age_s": now_s - last["time_s"], "ahead_of_clock": last["time_s"] > now_s}
+    return view | {"last_sample": aged}
 
 
 def _status(

@@ -9,7 +9,7 @@ from typing import Any
 from sqlalchemy import bindparam, insert, select, update
 from sqlalchemy.orm import Session
 
-from phaseward.store.models import RailCheckpoint, RailState
+from phaseward.store.models import Rail, RailCheckpoint, RailState
 
 
 @dataclass(frozen=True)
@@ -40,8 +40,16 @@ def head(session: Session, rail_id: str) -> Head | None:
     return None if row is None else Head(*row)
 
 
-def stamp_of(session: Session, rail_id: str) -> int | None:
-    return session.scalar(select(RailState.stamp).where(RailState.rail_id == rail_id))
+def version_and_stamp(session: Session, rail_id: str) -> tuple[int, int | None] | None:
+    """The rail's current version and its state row's stamp (None: no state yet), in one
+    Core statement, without locks (status asks on every read); None: no such rail."""
+    stmt = (
+        select(Rail.version, RailState.stamp)
+        .outerjoin(RailState, RailState.rail_id == Rail.id)
+        .where(Rail.id == rail_id)
+    )
+    row = session.connection().execute(stmt).one_or_none()
+    return None if row is None else (row[0], row[1])
 
 
 def put(

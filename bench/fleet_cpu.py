@@ -104,6 +104,9 @@ def main() -> None:
     parser.add_argument("--url", default="", help="PostgreSQL URL (default: a SQLite file)")
     parser.add_argument("--profile", action="store_true")
     parser.add_argument("--clients", type=int, default=1, help="concurrent posters")
+    parser.add_argument(
+        "--judge-within", type=float, default=0.0, help="PHASEWARD_JUDGE_WITHIN_S (default 0)"
+    )
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         url = args.url
@@ -115,7 +118,7 @@ def main() -> None:
             url = f"{url}?options=-csearch_path%3D{schema}"
         settings = Settings(
             data_dir=Path(tmp), database_url=url, auth_mode="open", future_skew_s=1e8,
-            rate_per_s=1e6, rate_burst=10**6,
+            rate_per_s=1e6, rate_burst=10**6, judge_within_s=args.judge_within,
         )  # fmt: skip
         try:
             per_sample, per_status = asyncio.run(
@@ -127,7 +130,8 @@ def main() -> None:
                     conn.execute(text(f"DROP SCHEMA {schema} CASCADE"))
                 admin.dispose()
     print(
-        f"{args.rails} rails, {args.rounds} rounds, {args.clients} clients: "
+        f"{args.rails} rails, {args.rounds} rounds, {args.clients} clients, "
+        f"judged within {args.judge_within:g} s: "
         f"{1e3 * per_sample:.2f} ms CPU per sample, {1e3 * per_status:.2f} ms per status read"
     )
 

@@ -75,6 +75,11 @@ class Settings(BaseSettings):
     # The whole live state (the estimator's covariance included) is checkpointed every this
     # many judged samples of a rail; between checkpoints the state row is written without it.
     state_checkpoint_samples: int = Field(default=60, ge=1, le=10_000)
+    # Routine samples (every phase active and reported within its limits, no flag, the rail
+    # nominal) may wait up to this long to be judged in one monitor pass with the rail's next
+    # ones: a fleet of rails posting single samples then costs one pass per rail per interval
+    # instead of one per sample. 0: every sample is judged before its request is answered.
+    judge_within_s: float = Field(default=0.0, ge=0, le=60)
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

@@ -68,6 +68,7 @@ async def test_resend_is_absorbed(client: httpx.AsyncClient, rail: str) -> None:
     assert again.status_code == 200
     assert again.json() | {"condition": None} == {
         "stored": 1, "duplicates": 1, "late": 0, "rejected": [], "condition": None, "version": 1,
+        "waiting": 0,
     }  # fmt: skip
     assert await stored(client) == [0, 1, 2]
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import math
 import time
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
@@ -39,10 +40,11 @@ from phaseward.monitor import rail_model, retention
 from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor.ingest import Tolerances, Tuning
 from phaseward.monitor.jobs import JobRunner
-from phaseward.monitor.resident import LiveStates
+from phaseward.monitor.resident import LiveStates, Waiting
 from phaseward.settings import Settings
 from phaseward.store import partitions
-from phaseward.store.db import build_engine, build_sessionmaker, close_engine, migrate
+from phaseward.store import samples as stored_samples
+from phaseward.store.db import build_engine, build_sessionmaker, close_engine, migrate, transaction
 
 
 async def _retention_loop(settings: Settings, sessions: sessionmaker[Session]) -> None:
@@ -58,6 +60,31 @@ async def _retention_loop(settings: Settings, sessions: sessionmaker[Session]) -
         except Exception:  # a failed pass is logged and tried again next time
             logging.getLogger(__name__).exception("retention pass failed")
         await asyncio.sleep(settings.retention_every_s)
+
+
+def _unjudged(sessions: sessionmaker[Session]) -> list[str]:
+    """Rails with samples left waiting by a stop; none when the database cannot say (the
+    server starts anyway, and a rail's next sample judges them)."""
+    try:
+        with transaction(sessions) as session:
+            return stored_samples.rails_not_judged(session)
+    except DBAPIError:
+        logging.getLogger(__name__).exception("looking for samples left unjudged failed")
+        return []
+
+
+async def _settle_loop(group_commit: GroupCommit, tuning: Tuning) -> None:
+    """Judge the samples rails have had waiting for ``judge_within_s`` (a rail that went
+    quiet still has its last samples judged); every quarter of it, and at once at start for
+    samples stored and not judged before a restart."""
+    waiting = tuning.waiting
+    if waiting is None:
+        return
+    while True:
+        due = waiting.due(tuning.monotonic(), tuning.judge_within_s)
+        if due:
+            await group_commit.settle(due)
+        await asyncio.sleep(max(0.05, tuning.judge_within_s / 4))
 
 
 async def _partition_loop(settings: Settings, engine: Engine) -> None:
@@ -96,13 +123,21 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        tuning: Tuning = app.state.tuning
+        unjudged = await run_in_threadpool(_unjudged, sessions)
+        if tuning.waiting is not None:
+            for rail_id in unjudged:  # stored before a restart and never judged: due now
+                tuning.waiting.mark(rail_id, -math.inf)
         keepers = [
             asyncio.create_task(_retention_loop(settings, sessions)),
             asyncio.create_task(_partition_loop(settings, engine)),
+            asyncio.create_task(_settle_loop(app.state.group_commit, tuning)),
         ]
         yield
         for keeper in keepers:
             keeper.cancel()
+        if tuning.waiting is not None:  # nothing left waiting: judged before the stop
+            await app.state.group_commit.settle(tuning.waiting.due(math.inf, 0.0))
         await run_in_threadpool(close, app)
 
     app = FastAPI(
@@ -125,9 +160,9 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
         weight=settings.assess_weight_tolerance,
     )  # fmt: skip
     app.state.live_states = LiveStates(settings.rail_cache_size)
-    tuning = Tuning(
+    app.state.tuning = tuning = Tuning(
         tolerances=tolerances, checkpoint_samples=settings.state_checkpoint_samples,
-        live=app.state.live_states,
+        live=app.state.live_states, judge_within_s=settings.judge_within_s, waiting=Waiting(),
     )  # fmt: skip
     app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples, tuning=tuning)
     rail_model.resize_cache(settings.rail_cache_size)

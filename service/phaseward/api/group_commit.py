@@ -12,15 +12,19 @@ outcome (:func:`~phaseward.monitor.ingest.ingest_rails`).
 from __future__ import annotations
 
 import asyncio
+import logging
+from collections.abc import Sequence
 from functools import partial
 
 from fastapi.concurrency import run_in_threadpool
 from sqlalchemy.orm import Session, sessionmaker
 
+from phaseward.errors import NotFound
 from phaseward.monitor.ingest import TUNING, IngestResult, Tuning, ingest_rails
 from phaseward.monitor.telemetry import IncomingSamples
 
-_Waiting = list[tuple[str, IncomingSamples, "asyncio.Future[IngestResult]"]]
+_log = logging.getLogger(__name__)
+_Queued = list[tuple[str, IncomingSamples, "asyncio.Future[IngestResult]"]]
 
 
 class GroupCommit:
@@ -38,7 +42,7 @@ class GroupCommit:
         self._sessions = sessions
         self._max = max_samples
         self._tuning = tuning
-        self._queue: _Waiting = []
+        self._queue: _Queued = []
         self._task: asyncio.Task[None] | None = None
 
     async def submit(self, rail_id: str, incoming: IncomingSamples) -> IngestResult:
@@ -48,12 +52,22 @@ class GroupCommit:
             self._task = asyncio.create_task(self._drain())
         return await done
 
+    async def settle(self, rail_ids: Sequence[str]) -> None:
+        """Judge what these rails have waiting, in the queue like any request (one writer);
+        a rail that fails is logged and stays waiting for the next call."""
+        answers = await asyncio.gather(
+            *(self.submit(r, IncomingSamples.none()) for r in rail_ids), return_exceptions=True
+        )
+        for rail_id, answer in zip(rail_ids, answers, strict=True):
+            if isinstance(answer, Exception) and not isinstance(answer, NotFound):
+                _log.error("judging the samples waiting on rail '%s' failed: %r", rail_id, answer)
+
     async def _drain(self) -> None:
-        group: _Waiting = []
+        group: _Queued = []
         try:
             while self._queue:
                 group = self._take()
-                rails: dict[str, _Waiting] = {}
+                rails: dict[str, _Queued] = {}
                 for entry in group:
                     rails.setdefault(entry[0], []).append(entry)
                 work = [(rail_id, [b for _, b, _ in waiting]) for rail_id, waiting in rails.items()]
@@ -79,7 +93,7 @@ class GroupCommit:
             self._queue.clear()
             self._task = None
 
-    def _take(self) -> _Waiting:
+    def _take(self) -> _Queued:
         count, total = 0, 0
         for _, incoming, _ in self._queue:
             if count and total + incoming.n > self._max:

@@ -33,6 +33,12 @@ assessed depends on the samples alone:
 * an isolation's fault class is decided from a fixed window of stored samples around it,
   once the window is complete (``fault_class``), whichever request completes it.
 
+Routine samples may wait (``Tuning.judge_within_s``): stored and answered, but judged in one
+pass with the rail's next ones, at the latest once the first of them has waited that long
+(the server's settling loop). That is batching, so events and the live state are the same.
+The samples waiting are those stored after the live state (the state row is only restamped):
+held in memory by the process that stored them, read back from the store by any other.
+
 Because of that purity the estimator's covariance (most of the state's size) need not be
 written with every sample: the state row leaves it out and lists the samples judged since the
 last checkpoint; a process without the state in memory replays them over the checkpoint
@@ -43,7 +49,7 @@ from __future__ import annotations
 
 import secrets
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from itertools import pairwise
 from typing import Any
@@ -69,8 +75,8 @@ from phaseward.monitor.conditions import (
 )
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.rejections import record_rejection
-from phaseward.monitor.resident import LiveStates, Resident
-from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, to_batch
+from phaseward.monitor.resident import LiveStates, Resident, Waiting
+from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, join, to_batch
 from phaseward.physics.drift import InnovationScale
 from phaseward.physics.estimator import EstimatorState, initial_from_readings, kalman_run
 from phaseward.physics.plausibility import RULES
@@ -88,6 +94,7 @@ class IngestResult:
     late: int
     condition: str | None
     version: int
+    waiting: int = 0  # the rail's samples stored and not judged yet, these included
 
 
 @dataclass(frozen=True)
@@ -105,6 +112,12 @@ class _Outcome:
         """Keep the written state in memory: only once its transaction has committed."""
         if tuning.live is not None and self.resident is not None:
             tuning.live.put(self.rail_id, self.resident)
+        if tuning.waiting is not None and self.resident is not None:
+            since = self.resident.waiting_since
+            if since is None:
+                tuning.waiting.clear(self.rail_id)
+            else:
+                tuning.waiting.mark(self.rail_id, since)
 
     def split(self, sizes: Sequence[int]) -> list[IngestResult]:
         cuts = np.cumsum(sizes)[:-1]
@@ -113,9 +126,11 @@ class _Outcome:
 
     def _result(self, fresh: npt.NDArray[np.bool_], newer: npt.NDArray[np.bool_]) -> IngestResult:
         stored = int(fresh.sum())
+        waiting = self.resident.waiting if self.resident is not None else None
         return IngestResult(
             stored=stored, duplicates=int((~fresh).sum()), late=stored - int(newer.sum()),
             condition=self.condition, version=self.version,
+            waiting=0 if waiting is None else waiting.n,
         )  # fmt: skip
 
 
@@ -141,12 +156,18 @@ TOLERANCES = Tolerances()
 class Tuning:
     """How the monitor runs, from the settings: where it assesses (``tolerances``), how often
     it checkpoints the whole live state (every ``checkpoint_samples`` judged samples; between
-    checkpoints the state row is written without the estimator's covariance), and the live
-    states it keeps in memory (``live``; None: every pass reads the state from the store)."""
+    checkpoints the state row is written without the estimator's covariance), the live
+    states it keeps in memory (``live``; None: every pass reads the state from the store),
+    and how long routine samples may wait to be judged with a rail's next ones
+    (``judge_within_s``, 0: never; ``waiting`` lists the rails that have some, on the clock
+    ``monotonic``; module docstring)."""
 
     tolerances: Tolerances = TOLERANCES
     checkpoint_samples: int = 60
     live: LiveStates | None = None
+    judge_within_s: float = 0.0
+    waiting: Waiting | None = None
+    monotonic: Callable[[], float] = time.monotonic
 
 
 TUNING = Tuning()
@@ -269,8 +290,9 @@ def _ingest(
     seqs = [int(s) for s in batch.seq]
     ceiling = held.seq_ceiling if held is not None else samples.highest_seq(session, rail_id)
     # A rail's seqs mostly rise: above the highest stored, no sample can be a resend.
-    stored_before = {} if min(seqs) > ceiling else samples.existing(session, rail_id, seqs)
-    ceiling = max(ceiling, max(seqs))
+    above = not seqs or min(seqs) > ceiling
+    stored_before = {} if above else samples.existing(session, rail_id, seqs)
+    ceiling = max([ceiling, *seqs])
     fresh = np.ones(batch.n, dtype=bool)
     first: dict[int, dict[str, Any]] = {}
     for k, row in enumerate(rows):
@@ -297,10 +319,14 @@ def _ingest(
     last_t = head.last_t_s if head is not None else None
     newer = fresh & (batch.t_s > (last_t if last_t is not None else -np.inf))
     order = np.argsort(batch.t_s[newer], kind="stable")
-    live_batch = batch.take(np.nonzero(newer)[0][order])
+    arrived = batch.take(np.nonzero(newer)[0][order])
     stored = _stored_state(session, rail_id, head, held)
     condition = stored.get("rail", {}).get("condition") if stored is not None else None
     outcome = _Outcome(fresh=fresh, newer=newer, condition=condition, version=version)
+    # A new definition keeps time order but restarts judgement from a fresh state.
+    same = stored is not None and head is not None and head.version == version
+    waiting = _waiting(session, model, head, held, batch.seq[fresh]) if same else None
+    live_batch = arrived if waiting is None else _in_time_order(waiting, arrived)
     if not live_batch.n:
         if not fresh.any() or head is None:
             return outcome
@@ -308,8 +334,15 @@ def _ingest(
         state.restamp(session, rail_id, stamp)
         kept = None if held is None else replace(held, stamp=stamp, seq_ceiling=ceiling)
         return replace(outcome, rail_id=rail_id, resident=kept)
-    # A new definition keeps time order but restarts judgement from a fresh state.
-    same = stored is not None and head is not None and head.version == version
+    now_mono = tuning.monotonic()
+    if held is not None and same and _may_wait(tuning, model, held, arrived, live_batch, now_mono):
+        stamp = secrets.randbits(63)  # samples stored: held ceilings elsewhere are void
+        state.restamp(session, rail_id, stamp)
+        since = now_mono if held.waiting_since is None else held.waiting_since
+        kept = replace(
+            held, stamp=stamp, seq_ceiling=ceiling, waiting=live_batch, waiting_since=since
+        )
+        return replace(outcome, rail_id=rail_id, resident=kept)
     if held is not None and same:
         previous = held.state
     elif same and stored is not None and head is not None:
@@ -363,6 +396,73 @@ def _stored_state(
         return None
     row = state.get(session, rail_id)
     return None if row is None else row.state
+
+
+def _waiting(
+    session: Session,
+    model: RailModel,
+    head: state.Head | None,
+    held: Resident | None,
+    arrived_seqs: npt.NDArray[np.int64],
+) -> SampleBatch | None:
+    """The rail's samples stored and not yet judged (newer than the live state): held in
+    memory, or else read from the store (written by another process, or before a restart),
+    this request's own left out. A current the store has from a sense voltage is judged as
+    reported there (the one thing judged that a stored sample does not record)."""
+    if held is not None:
+        return held.waiting
+    if head is None or head.last_t_s is None:
+        return None
+    found = samples.newer_than(session, model.rail_id, t_s=head.last_t_s, version=model.version)
+    own = set(arrived_seqs.tolist())
+    rows = [r for r in found if r.seq not in own]
+    return _stored_batch(model, rows, [[r.seq] for r in rows]) if rows else None
+
+
+def _in_time_order(first: SampleBatch, then: SampleBatch) -> SampleBatch:
+    """Two batches as one, in time order (stable: arrival order among equal times)."""
+    both = join(first, then)
+    return both.take(np.argsort(both.t_s, kind="stable"))
+
+
+_MAX_WAITING = 600  # samples of one rail held back at most (memory; a pass judges them all)
+
+
+def _may_wait(
+    tuning: Tuning,
+    model: RailModel,
+    held: Resident,
+    arrived: SampleBatch,
+    waiting: SampleBatch,
+    now: float,
+) -> bool:
+    """Whether the samples that arrived may wait to be judged with the rail's next ones: only
+    when waiting is allowed and the rail's first waiting sample is younger than
+    ``judge_within_s``, and only routine samples of a rail in routine state (every phase
+    active, the rail nominal, every phase reported with a finite current and temperature, no
+    flag, current within rating, temperature below the warning line by the hysteresis,
+    output voltage within its excursion band). Anything else is judged at once, with the
+    samples that waited before it."""
+    if tuning.judge_within_s <= 0 or not arrived.n or waiting.n > _MAX_WAITING:
+        return False
+    if held.waiting_since is not None and now - held.waiting_since >= tuning.judge_within_s:
+        return False
+    live = held.state
+    if live.get("rail", {}).get("condition") != "nominal":
+        return False
+    if any(p["condition"] != PHASE_CONDITIONS[ACTIVE] for p in live["phases"]):
+        return False
+    rules = model.rules
+    band = rules.excursion_fraction * model.vout_v
+    return bool(
+        arrived.present.all()
+        and not arrived.flags.any()
+        and np.isfinite(arrived.current_a).all()
+        and np.isfinite(arrived.temp_c).all()
+        and (np.abs(arrived.current_a) <= model.rated_current_a).all()
+        and (arrived.temp_c < model.temp_limit_c - rules.hysteresis_k).all()
+        and (np.abs(arrived.vout_v - model.vout_v) <= band).all()
+    )
 
 
 def _without_covariance(full: dict[str, Any]) -> dict[str, Any]:

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from phaseward.monitor.rail_model import RailModel
+from phaseward.monitor.telemetry import SampleBatch
 
 
 @dataclass(frozen=True)
@@ -25,8 +26,9 @@ class Resident:
     """A rail's live state as its last write stored it. ``replay``: what was judged since the
     checkpoint (the row's column of the same name); ``seq_ceiling``: the highest seq of the
     rail stored when it was written (every pass that stores a sample writes a new stamp), so
-    a batch of higher seqs needs no resend look-up; ``state`` and ``spec`` are never changed
-    in place."""
+    a batch of higher seqs needs no resend look-up; ``waiting``: routine samples stored and
+    left to be judged with the rail's next ones (setting ``judge_within_s``); ``state`` and
+    ``spec`` are never changed in place."""
 
     stamp: int
     version: int
@@ -35,6 +37,8 @@ class Resident:
     state: dict[str, Any]
     replay: list[Any]
     seq_ceiling: int
+    waiting: SampleBatch | None = None  # stored, newer than ``state``, not judged yet
+    waiting_since: float | None = None  # when the first of them arrived (monotonic s)
 
 
 class LiveStates:
@@ -62,3 +66,25 @@ class LiveStates:
     def drop(self, rail_id: str) -> None:
         with self._lock:
             self._held.pop(rail_id, None)
+
+
+class Waiting:
+    """The rails with samples stored and not yet judged, and since when (monotonic s): what
+    the settling loop judges once they have waited ``judge_within_s``."""
+
+    def __init__(self) -> None:
+        self._since: dict[str, float] = {}
+        self._lock = threading.Lock()
+
+    def mark(self, rail_id: str, since: float) -> None:
+        with self._lock:
+            self._since[rail_id] = since
+
+    def clear(self, rail_id: str) -> None:
+        with self._lock:
+            self._since.pop(rail_id, None)
+
+    def due(self, now: float, within_s: float) -> list[str]:
+        """The rails whose first waiting sample arrived ``within_s`` or more before ``now``."""
+        with self._lock:
+            return [r for r, since in self._since.items() if now - since >= within_s]

@@ -83,6 +83,21 @@ class IncomingSamples:
     def n(self) -> int:
         return int(self.seq.shape[0])
 
+    @classmethod
+    def none(cls) -> IncomingSamples:
+        """No samples: a pass that judges what a rail has waiting (``GroupCommit.settle``)."""
+
+        def empty(dtype: type[Any]) -> Any:
+            return np.zeros(0, dtype=dtype)
+
+        ints, floats = empty(np.int64), empty(np.float64)
+        return cls(
+            seq=ints, t_s=floats, vin_v=floats, vout_v=floats, iout_a=floats, iin_a=floats,
+            ambient_c=floats, item=ints, slot=ints, phase=ints, current_a=floats,
+            sense_v=floats, iout_word=ints, vin_word=ints, iin_word=ints, vout_word=ints,
+            temp_word=ints, temp_c=floats, flags=empty(np.uint8),
+        )  # fmt: skip
+
 
 def concat(parts: Sequence[IncomingSamples]) -> IncomingSamples:
     """Several requests' samples as one batch (readings renumbered to their merged sample)."""
@@ -122,6 +137,16 @@ class SampleBatch:
 
     def take(self, rows: npt.NDArray[np.intp] | npt.NDArray[np.bool_]) -> SampleBatch:
         return SampleBatch(**{f: getattr(self, f)[rows] for f in self.__dataclass_fields__})
+
+
+def join(first: SampleBatch, then: SampleBatch) -> SampleBatch:
+    """Two batches of one rail as one, ``first``'s samples first."""
+    return SampleBatch(
+        **{
+            f: np.concatenate([getattr(first, f), getattr(then, f)])
+            for f in SampleBatch.__dataclass_fields__
+        }
+    )
 
 
 def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:

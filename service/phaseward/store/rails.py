@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from typing import Any
 
-from sqlalchemy import delete, select
+from sqlalchemy import bindparam, delete, select
 from sqlalchemy.orm import Session
 
 from phaseward.store.models import Rail, RailVersion
@@ -18,10 +18,13 @@ def get(session: Session, rail_id: str, *, for_update: bool = False) -> Rail | N
     return session.scalars(stmt).one_or_none()
 
 
+# Built once: building a statement cost several times executing it (store/state.py).
+_VERSION = select(Rail.version).where(Rail.id == bindparam("rail_id")).with_for_update()
+
+
 def version_for_update(session: Session, rail_id: str) -> int | None:
     """The rail's current version, with the rail's row lock (ingest's first step)."""
-    stmt = select(Rail.version).where(Rail.id == rail_id).with_for_update()
-    return session.connection().execute(stmt).scalar_one_or_none()
+    return session.connection().execute(_VERSION, {"rail_id": rail_id}).scalar_one_or_none()
 
 
 def list_page(

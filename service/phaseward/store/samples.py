@@ -8,10 +8,10 @@ from typing import Any, cast
 
 import numpy as np
 import numpy.typing as npt
-from sqlalchemy import Row, func, insert, select
+from sqlalchemy import BindParameter, Row, bindparam, func, insert, select
 from sqlalchemy.orm import Session
 
-from phaseward.store.models import Sample
+from phaseward.store.models import RailState, Sample
 
 F64 = npt.NDArray[np.float64]
 
@@ -43,6 +43,19 @@ def pack(values: npt.NDArray[Any], dtype: str) -> bytes:
 
 
 _STORED = [c for c in Sample.__table__.c if c.name not in ("id", "rail_id", "version")]
+# The statements of the ingest path, built once (building one cost several times executing
+# it: store/state.py).
+_RAIL: BindParameter[str] = bindparam("rail_id")
+_EXISTING = select(*_STORED).where(
+    Sample.rail_id == _RAIL, Sample.seq.in_(bindparam("seqs", expanding=True))
+)
+_NEWER = (
+    select(*_STORED)
+    .where(Sample.rail_id == _RAIL, Sample.t_s > bindparam("t_s"), Sample.version == bindparam("v"))
+    .order_by(Sample.t_s, Sample.seq)
+)
+_HIGHEST = select(func.max(Sample.seq)).where(Sample.rail_id == _RAIL)
+_INSERT = insert(Sample)
 
 
 def existing(session: Session, rail_id: str, seqs: Sequence[int]) -> dict[int, Row[Any]]:
@@ -52,17 +65,35 @@ def existing(session: Session, rail_id: str, seqs: Sequence[int]) -> dict[int, R
     found: dict[int, Row[Any]] = {}
     conn = session.connection()
     for start in range(0, len(seqs), 500):  # stay under bound-parameter limits
-        chunk = seqs[start : start + 500]
-        stmt = select(*_STORED).where(Sample.rail_id == rail_id, Sample.seq.in_(chunk))
-        found.update((row.seq, row) for row in conn.execute(stmt))
+        chunk = list(seqs[start : start + 500])
+        rows = conn.execute(_EXISTING, {"rail_id": rail_id, "seqs": chunk})
+        found.update((row.seq, row) for row in rows)
     return found
+
+
+def newer_than(session: Session, rail_id: str, *, t_s: float, version: int) -> list[Row[Any]]:
+    """The rail's stored samples of ``version`` dated after ``t_s``, oldest first (one range
+    scan of the rail's time index): those not judged yet, when ``t_s`` is the live state's."""
+    params = {"rail_id": rail_id, "t_s": t_s, "v": version}
+    return list(session.connection().execute(_NEWER, params))
+
+
+def rails_not_judged(session: Session) -> list[str]:
+    """Rails with samples of their live state's version stored after it: samples that waited
+    to be judged when the server stopped (one index probe per rail)."""
+    later = select(Sample.seq).where(
+        Sample.rail_id == RailState.rail_id,
+        Sample.version == RailState.version,
+        Sample.t_s > RailState.last_t_s,
+    )
+    stmt = select(RailState.rail_id).where(later.exists()).order_by(RailState.rail_id)
+    return list(session.scalars(stmt))
 
 
 def highest_seq(session: Session, rail_id: str) -> int:
     """The rail's highest stored seq (-1 when none): one probe of the (rail, seq) key per
     partition, asked once per rail and process (:mod:`phaseward.monitor.resident`)."""
-    stmt = select(func.max(Sample.seq)).where(Sample.rail_id == rail_id)
-    found = session.connection().execute(stmt).scalar()
+    found = session.connection().execute(_HIGHEST, {"rail_id": rail_id}).scalar()
     return -1 if found is None else int(found)
 
 
@@ -70,7 +101,7 @@ def insert_rows(session: Session, rows: list[dict[str, Any]]) -> None:
     """A Core executemany on the session's connection (the ORM's bulk path cost more than the
     insert on the ingest path)."""
     if rows:
-        session.connection().execute(insert(Sample), rows)
+        session.connection().execute(_INSERT, rows)
 
 
 def count(session: Session, rail_id: str) -> int:

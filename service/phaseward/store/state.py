@@ -6,7 +6,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import bindparam, insert, select, update
+from sqlalchemy import BindParameter, bindparam, insert, select, update
 from sqlalchemy.orm import Session
 
 from phaseward.store.models import Rail, RailCheckpoint, RailState
@@ -22,6 +22,25 @@ class Head:
     replay: list[Any] | None
 
 
+# The statements of the ingest and status paths, built once: building a statement and its
+# cache key cost several times executing it (about 150 against 25 microseconds on SQLite).
+_RAIL: BindParameter[str] = bindparam("rail_id")
+_HEAD = (
+    select(RailState.version, RailState.last_t_s, RailState.stamp, RailState.replay)
+    .where(RailState.rail_id == _RAIL)
+    .with_for_update()
+)
+_VERSION_AND_STAMP = (
+    select(Rail.version, RailState.stamp)
+    .outerjoin(RailState, RailState.rail_id == Rail.id)
+    .where(Rail.id == _RAIL)
+)
+_KEY: BindParameter[str] = bindparam("key")  # not "rail_id": a column an update may set
+_RESTAMP = update(RailState).where(RailState.rail_id == _KEY)
+_UPDATE = {t: update(t).where(t.rail_id == _KEY) for t in (RailState, RailCheckpoint)}
+_INSERT = {t: insert(t) for t in (RailState, RailCheckpoint)}
+
+
 def get(session: Session, rail_id: str) -> RailState | None:
     return session.scalars(select(RailState).where(RailState.rail_id == rail_id)).one_or_none()
 
@@ -31,24 +50,14 @@ def head(session: Session, rail_id: str) -> Head | None:
     already serialises writers) so concurrent ingest never interleaves updates. A statement
     of its own, after the rail's lock: joined to the locking statement, PostgreSQL (read
     committed) would return this row as it was before the wait for the lock."""
-    stmt = (
-        select(RailState.version, RailState.last_t_s, RailState.stamp, RailState.replay)
-        .where(RailState.rail_id == rail_id)
-        .with_for_update()
-    )
-    row = session.execute(stmt).one_or_none()
+    row = session.connection().execute(_HEAD, {"rail_id": rail_id}).one_or_none()
     return None if row is None else Head(*row)
 
 
 def version_and_stamp(session: Session, rail_id: str) -> tuple[int, int | None] | None:
     """The rail's current version and its state row's stamp (None: no state yet), in one
     Core statement, without locks (status asks on every read); None: no such rail."""
-    stmt = (
-        select(Rail.version, RailState.stamp)
-        .outerjoin(RailState, RailState.rail_id == Rail.id)
-        .where(Rail.id == rail_id)
-    )
-    row = session.connection().execute(stmt).one_or_none()
+    row = session.connection().execute(_VERSION_AND_STAMP, {"rail_id": rail_id}).one_or_none()
     return None if row is None else (row[0], row[1])
 
 
@@ -74,8 +83,7 @@ def put(
 def restamp(session: Session, rail_id: str, stamp: int) -> None:
     """A new stamp on the row: samples were stored without a state change, and copies held
     elsewhere must not vouch for the rail's stored seqs any more."""
-    stmt = update(RailState).where(RailState.rail_id == rail_id).values(stamp=stamp)
-    session.connection().execute(stmt)
+    session.connection().execute(_RESTAMP, {"key": rail_id, "stamp": stamp})
 
 
 def checkpoint(session: Session, rail_id: str) -> RailCheckpoint | None:
@@ -95,9 +103,8 @@ def _upsert(
     """Update the rail's row, or insert it. Core statements on the session's connection: the
     ORM's unit of work cost several times the write itself on the ingest path."""
     conn = session.connection()
-    stmt = update(table).where(table.rail_id == bindparam("key"))
-    if not conn.execute(stmt, {"key": rail_id, **values}).rowcount:
-        conn.execute(insert(table), {"rail_id": rail_id, **values})
+    if not conn.execute(_UPDATE[table], {"key": rail_id, **values}).rowcount:
+        conn.execute(_INSERT[table], {"rail_id": rail_id, **values})
 
 
 def all_states(session: Session) -> Sequence[RailState]:

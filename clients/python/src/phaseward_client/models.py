@@ -123,7 +123,10 @@ class Rail(Model):
 @dataclass(frozen=True)
 class IngestResult(Model):
     """The answer to a post of samples: how many were new, resent (``duplicates``, absorbed)
-    or older than the live state (``late``, stored but not judged), and the rail condition."""
+    or older than the live state (``late``, stored but not judged), and the rail condition.
+    ``waiting``: the rail's routine samples stored and left to be judged with its next ones
+    (a server with ``PHASEWARD_JUDGE_WITHIN_S`` set); the condition is then that of the
+    last judged sample."""
 
     stored: int
     duplicates: int
@@ -131,6 +134,7 @@ class IngestResult(Model):
     condition: str | None
     version: int
     rejected: list[dict[str, Any]] = field(default_factory=list)
+    waiting: int = 0
 
 
 @dataclass(frozen=True)

@@ -169,6 +169,9 @@ async def post_samples(
     _: RailIngester,
 ) -> IngestOut:
     """Store samples and advance the rail's live state. The answer comes after the commit.
+    On a server with ``PHASEWARD_JUDGE_WITHIN_S`` set, routine samples may be stored and left
+    to be judged with the rail's next ones (``waiting`` counts them; ``condition`` is then the
+    last judged sample's); anything out of the routine is judged before the answer.
     A batch with a bad item or cell, or a sample dated beyond the allowed clock skew, is
     refused whole (422 naming the first bad one). Send sample objects (``application/json``,
     ``application/x-ndjson``), or for bulk the columnar JSON
@@ -198,7 +201,7 @@ async def post_samples(
     metrics.count_samples(accepted=result.stored)
     return IngestOut(
         stored=result.stored, duplicates=result.duplicates, late=result.late,
-        condition=result.condition, version=result.version,
+        condition=result.condition, version=result.version, waiting=result.waiting,
     )  # fmt: skip
 
 

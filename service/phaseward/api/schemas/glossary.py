@@ -204,6 +204,8 @@ BY_NAME: Final[dict[str, str]] = {
     "stored": "samples stored",
     "duplicates": "samples already stored (same seq and content): absorbed",
     "late": "samples older than the newest: stored, live state not rolled back",
+    "waiting": "the rail's routine samples stored and waiting to be judged with its next ones "
+    "(within PHASEWARD_JUDGE_WITHIN_S); 0: every sample is judged and condition is theirs",
     # history and traces
     "t_start_s": "start of the interval, epoch s",
     "t_end_s": "end of the interval, epoch s",

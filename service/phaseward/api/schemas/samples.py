@@ -258,6 +258,7 @@ class IngestOut(Contract):
     )
     condition: str | None
     version: int
+    waiting: int = 0
 
 
 class SampleWindow(Contract):

@@ -1,0 +1,220 @@
+"""Routine samples judged later, in one pass with the rail's next ones (``judge_within_s``).
+
+Waiting is batching: events and the live state are a pure function of the sample sequence,
+so a rail whose samples wait and are judged together ends with the same events (each with
+the time and seq of the sample that caused it) and the same live state as judging every
+sample on arrival. The property below posts the invented traces one sample per request with
+waiting allowed, the clock moving by random steps, the settling pass run at random points,
+and the requests spread over two processes (each with its own memory, so the one that did
+not hold the waiting samples reads them from the store), and compares with the reference.
+"""
+
+from __future__ import annotations
+
+import asyncio
+
+import httpx
+import pytest
+from fastapi import FastAPI
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from tests.conftest import MakeSettings
+from tests.service.cuts import TRACES, Ingestor, incoming
+from tests.service.test_cut_invariance import assert_same_state, new_rail, reference
+
+from phaseward.api.app import _settle_loop, close, create_app
+from phaseward.api.group_commit import GroupCommit
+from phaseward.monitor.ingest import IngestResult, Tuning, ingest, ingest_rails
+from phaseward.monitor.resident import LiveStates, Waiting
+from phaseward.monitor.telemetry import IncomingSamples
+
+pytestmark = pytest.mark.anyio
+
+WITHIN_S = 5.0
+
+
+class Clock:
+    def __init__(self) -> None:
+        self.now = 0.0
+
+    def __call__(self) -> float:
+        return self.now
+
+
+def process(clock: Clock) -> Tuning:
+    """One server process's monitor: its own memory, waiting allowed."""
+    return Tuning(live=LiveStates(64), judge_within_s=WITHIN_S, waiting=Waiting(), monotonic=clock)
+
+
+def settle(rail: Ingestor, tuning: Tuning) -> None:
+    """What the settling loop does for the rails that are due (here: the one rail)."""
+    assert tuning.waiting is not None
+    due = tuning.waiting.due(tuning.monotonic(), tuning.judge_within_s)
+    work = [(r, [IncomingSamples.none()]) for r in due]
+    for outcomes in ingest_rails(rail.sessions, work, tuning=tuning):
+        assert not any(isinstance(o, Exception) for o in outcomes), outcomes
+
+
+def post(rail: Ingestor, k: int, tuning: Tuning) -> IngestResult:
+    return ingest(
+        rail.sessions, rail.rail_id, incoming(rail.trace.samples[k : k + 1]), tuning=tuning
+    )
+
+
+@st.composite
+def schedules(draw: st.DrawFn) -> tuple[str, list[tuple[float, int, bool]]]:
+    """A trace, and per sample: the clock's step before it (s), the process it goes to (0/1),
+    and whether the due rails are settled after it."""
+    name = draw(st.sampled_from(sorted(TRACES)))
+    n = len(TRACES[name].samples)
+    steps = draw(st.lists(st.sampled_from([0.0, 0.5, 1.0, 1.0, 2.0, 7.0]), min_size=n, max_size=n))
+    to = draw(st.lists(st.sampled_from([0, 0, 0, 0, 1]), min_size=n, max_size=n))
+    settles = draw(st.lists(st.booleans(), min_size=n, max_size=n))
+    return name, list(zip(steps, to, settles, strict=True))
+
+
+@settings(
+    max_examples=12, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(case=schedules())
+async def test_waiting_samples_leave_the_same_events_and_state(
+    client: httpx.AsyncClient, app: FastAPI, case: tuple[str, list[tuple[float, int, bool]]]
+) -> None:
+    name, schedule = case
+    trace = TRACES[name]
+    want_events, want_state = await reference(client, app, trace)
+    rail = await new_rail(client, app, trace)
+    clock = Clock()
+    processes = [process(clock), process(clock)]
+    for k, (step, to, settles) in enumerate(schedule):
+        clock.now += step
+        post(rail, k, processes[to])
+        if settles:
+            settle(rail, processes[to])
+    clock.now += WITHIN_S  # the last ones wait at most that long
+    for tuning in processes:
+        settle(rail, tuning)
+    assert rail.events() == want_events
+    assert_same_state(rail.live(), want_state)
+
+
+async def test_routine_samples_wait_and_a_flag_is_judged_at_once(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """The trip trace: phase 2's breaker flag at sample 30. Routine samples before it wait
+    (up to the window), the flagged one is judged at once with those waiting, and its event
+    carries its own time and seq."""
+    trace = TRACES["trip"]
+    rail = await new_rail(client, app, trace)
+    clock = Clock()
+    tuning = process(clock)
+    counts = []
+    for k in range(31):
+        clock.now += 1.0
+        counts.append(post(rail, k, tuning).waiting)
+        if k == 29:  # nothing but the first sample's verdict so far
+            assert [e[0] for e in rail.events()] == ["rail.condition"]
+    assert counts[0] == 0  # the first sample of a rail is judged at once
+    assert max(counts) >= 4  # routine samples waited: up to the window at one a second
+    assert all(c <= WITHIN_S + 1 for c in counts)  # and never longer
+    assert counts[-1] == 0  # the flag: judged at once, with everything waiting
+    isolated = [e for e in rail.events() if e[0] == "phase.isolated"]
+    assert [(e[1], e[3], e[2]) for e in isolated] == [(2, 30, trace.samples[30]["time"])]
+
+
+async def test_a_quiet_rail_is_judged_by_the_settling_loop(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """A rail that stops posting: its waiting samples are judged once they are due, by the
+    server's loop through the group commit (one writer), and nothing is left waiting."""
+    trace = TRACES["trip"]
+    rail = await new_rail(client, app, trace)
+    clock = Clock()
+    tuning = process(clock)
+    for k in range(4):
+        clock.now += 1.0
+        post(rail, k, tuning)
+    assert tuning.live is not None
+    assert tuning.waiting is not None
+    held = tuning.live.get(rail.rail_id)
+    assert held is not None
+    assert held.waiting is not None
+    assert held.waiting.n == 3
+    group = GroupCommit(rail.sessions, 1000, tuning=tuning)
+    clock.now += WITHIN_S
+    task = asyncio.create_task(_settle_loop(group, tuning))
+    for _ in range(100):
+        await asyncio.sleep(0.05)
+        if not tuning.waiting.due(clock.now, 0.0):
+            break
+    task.cancel()
+    assert not tuning.waiting.due(clock.now, 0.0)
+    assert rail.live()["sample"]["seq"] == 3
+    held = tuning.live.get(rail.rail_id)
+    assert held is not None
+    assert held.waiting is None
+
+
+@pytest.mark.parametrize("name", sorted(TRACES))
+async def test_every_trace_waits_somewhere_and_ends_the_same(
+    client: httpx.AsyncClient, app: FastAPI, name: str
+) -> None:
+    """The property is only as good as the waiting it sees: posted at one sample a second,
+    every fifth request to another process, each trace has samples that wait, some read back
+    from the store by the other process, and ends as the reference does."""
+    trace = TRACES[name]
+    want_events, want_state = await reference(client, app, trace)
+    rail = await new_rail(client, app, trace)
+    clock = Clock()
+    processes = [process(clock), process(clock)]
+    waited = 0
+    for k in range(len(trace.samples)):
+        clock.now += 1.0
+        waited += post(rail, k, processes[int(k % 5 == 4)]).waiting > 0
+    clock.now += WITHIN_S
+    for tuning in processes:
+        settle(rail, tuning)
+    assert waited >= 5
+    assert rail.events() == want_events
+    assert_same_state(rail.live(), want_state)
+
+
+async def test_samples_left_waiting_by_a_stop_are_judged_when_the_server_starts(
+    make_settings: MakeSettings,
+) -> None:
+    """A server stops (killed: no shutdown) with routine samples waiting. The next server on
+    the same database finds them at start (stored after their rail's live state) and judges
+    them; a server shut down cleanly judges what waits before it stops."""
+    trace = TRACES["trip"]
+    settings = make_settings(judge_within_s=30.0)
+
+    async def posted(app: FastAPI, rail_id: str, ks: range) -> list[int]:
+        transport = httpx.ASGITransport(app=app)
+        async with httpx.AsyncClient(transport=transport, base_url="http://t") as client:
+            if ks.start == 0:
+                created = await client.post("/v1/rails", json=trace.spec | {"id": rail_id})
+                assert created.status_code == 201, created.text
+            answers = [await client.post(f"/v1/rails/{rail_id}/samples", json=trace.samples[k])
+                       for k in ks]  # fmt: skip
+            assert all(a.status_code == 200 for a in answers)
+            return [a.json()["waiting"] for a in answers]
+
+    def judged_seq(app: FastAPI, rail_id: str) -> int:
+        return int(Ingestor(app.state.sessions, rail_id, trace).live()["sample"]["seq"])
+
+    killed = create_app(settings)
+    assert (await posted(killed, "left", range(5)))[-1] == 4
+    assert judged_seq(killed, "left") == 0
+    close(killed)  # no shutdown: the waiting samples are stored, not judged
+
+    clean = create_app(settings)
+    async with clean.router.lifespan_context(clean):
+        for _ in range(100):
+            await asyncio.sleep(0.05)
+            if judged_seq(clean, "left") == 4:
+                break
+        assert judged_seq(clean, "left") == 4
+        assert await posted(clean, "right", range(4)) == [0, 1, 2, 3]
+        assert judged_seq(clean, "right") == 0
+    assert judged_seq(clean, "right") == 3  # judged on the way out
+    close(clean)

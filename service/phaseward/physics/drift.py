@@ -48,6 +48,7 @@ simplification, small for real slopes).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import numpy.typing as npt
@@ -99,10 +100,15 @@ class SteadyInnovation:
     correlation: FloatArray
     dc_gain: FloatArray
 
-    @property
+    @cached_property
     def scale(self) -> InnovationScale:
         """What :func:`channels` needs of it."""
         return InnovationScale(self.std_k, np.diag(self.dc_gain), self.dc_gain.sum(axis=1))
+
+    @cached_property
+    def scale_rows(self) -> FloatArray:
+        """:attr:`scale` as rows (3, n_phases): std_k, own_gain, row_gain."""
+        return np.stack([self.scale.std_k, self.scale.own_gain, self.scale.row_gain])
 
 
 @dataclass(frozen=True)

@@ -601,11 +601,63 @@ def kalman_run(
         _tuple(process_noise_w, shape[1]),
         _tuple(sensor_noise_k, shape[1]),
     )
+    return filter_run(Filter(model, key), state.mean_c, state.cov_k2, p0, slope, ambient, reading)
+
+
+class Filter(NamedTuple):
+    """A filter model and the key its steady gains are cached under (:func:`filter_for`)."""
+
+    model: DiscreteModel
+    steady_key: tuple[
+        ThermalNetwork, float, tuple[float, ...] | None, tuple[float, ...], tuple[float, ...]
+    ]
+
+
+@lru_cache(maxsize=64)
+def filter_for(
+    net: ThermalNetwork,
+    dt_s: float,
+    *,
+    process_noise_w: float,
+    sensor_noise_k: float,
+    sensor_tau_s: float | None,
+    sensor_offset_k: float,
+) -> Filter:
+    """The filter :func:`kalman_run` builds for scalar noise and sensor arguments, built (and
+    its arguments checked) once per set: for callers that filter every sample of a rail."""
+    model = discrete_model(
+        net,
+        dt_s,
+        process_noise_w=process_noise_w,
+        sensor_noise_k=sensor_noise_k,
+        sensor_tau_s=sensor_tau_s,
+        sensor_offset_k=sensor_offset_k,
+    )
+    n_ph = net.n_phases
+    tau = None if sensor_tau_s is None else (float(sensor_tau_s),) * n_ph
+    noise = ((float(process_noise_w),) * n_ph, (float(sensor_noise_k),) * n_ph)
+    return Filter(model, (net, model.dt_s, tau, *noise))
+
+
+def filter_run(
+    filt: Filter,
+    mean_c: FloatArray,
+    cov_k2: FloatArray,
+    p0: FloatArray,
+    slope: FloatArray,
+    ambient: FloatArray,
+    reading: FloatArray,
+) -> KalmanTrace:
+    """:func:`kalman_run` on arguments it has checked, or that are known good: the starting
+    mean (n_states,) and symmetric covariance, and float64 arrays p0, slope, reading
+    (n_steps, n_phases) and ambient (n_steps,), finite except NaN readings."""
+    model = filt.model
+    shape = p0.shape
     stretch_end = _stretch_ends(slope, np.all(np.isfinite(reading), axis=1))
     means = np.empty((shape[0] + 1, model.n_states))
     variances = np.empty((shape[0] + 1, model.n_states))
     innovation_z = np.empty(shape)
-    mean, cov = np.array(state.mean_c), np.array(state.cov_k2)
+    mean, cov = np.array(mean_c), np.array(cov_k2)
     means[0], variances[0] = mean, np.diag(cov)
     steady: SteadyGain | None = None  # the gain in use; ``cov`` is its covariance while it is
     steady_slope = np.full(shape[1], np.nan)  # the slope row it was solved for
@@ -632,7 +684,7 @@ def kalman_run(
         next_mean, next_cov, innovation_z[k] = _update(model, *predicted, reading[k])
         tol = STEADY_RTOL * np.max(np.diag(cov), initial=0.0)
         if stop - k >= MIN_STEADY_STEPS and np.max(np.abs(next_cov - cov)) <= 2.0 * tol:
-            found = _steady(*key, tuple(slope[k].tolist()))
+            found = _steady(*filt.steady_key, tuple(slope[k].tolist()))
             if found is not None and np.max(np.abs(cov - found.post_cov)) <= tol:
                 steady, steady_slope, cov = found, slope[k], found.post_cov  # converged: fast
                 continue

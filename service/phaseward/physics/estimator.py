@@ -428,7 +428,7 @@ def _condition(
         return mean, cov, z
     rows = sensor_state[seen]
     var = sensor_var_k2[seen]
-    innovation_cov = cov[np.ix_(rows, rows)] + np.diag(var)
+    innovation_cov = cov[rows[:, None], rows] + np.diag(var)
     # K = P H^T S^-1 with H picking ``rows``: P H^T = P[:, rows], and S is symmetric. numpy's
     # LU solve, not scipy's: this runs once per sample and scipy's checks cost twice the solve.
     gain = np.linalg.solve(innovation_cov, cov[rows]).T
@@ -653,7 +653,12 @@ def filter_run(
     (n_steps, n_phases) and ambient (n_steps,), finite except NaN readings."""
     model = filt.model
     shape = p0.shape
-    stretch_end = _stretch_ends(slope, np.all(np.isfinite(reading), axis=1))
+    # A trace shorter than MIN_STEADY_STEPS never takes the fast path: every stretch empty.
+    stretch_end = (
+        _stretch_ends(slope, np.all(np.isfinite(reading), axis=1))
+        if shape[0] >= MIN_STEADY_STEPS
+        else np.arange(shape[0])
+    )
     means = np.empty((shape[0] + 1, model.n_states))
     variances = np.empty((shape[0] + 1, model.n_states))
     innovation_z = np.empty(shape)
@@ -682,12 +687,13 @@ def filter_run(
         drive = model.loss_input_k_per_w @ p0[k] + model.ambient_input * ambient[k]
         predicted = _predict(model, mean, cov, slope[k], drive)
         next_mean, next_cov, innovation_z[k] = _update(model, *predicted, reading[k])
-        tol = STEADY_RTOL * np.max(np.diag(cov), initial=0.0)
-        if stop - k >= MIN_STEADY_STEPS and np.max(np.abs(next_cov - cov)) <= 2.0 * tol:
-            found = _steady(*filt.steady_key, tuple(slope[k].tolist()))
-            if found is not None and np.max(np.abs(cov - found.post_cov)) <= tol:
-                steady, steady_slope, cov = found, slope[k], found.post_cov  # converged: fast
-                continue
+        if stop - k >= MIN_STEADY_STEPS:
+            tol = STEADY_RTOL * np.max(np.diag(cov), initial=0.0)
+            if np.max(np.abs(next_cov - cov)) <= 2.0 * tol:
+                found = _steady(*filt.steady_key, tuple(slope[k].tolist()))
+                if found is not None and np.max(np.abs(cov - found.post_cov)) <= tol:
+                    steady, steady_slope, cov = found, slope[k], found.post_cov  # fast now
+                    continue
         mean, cov = next_mean, next_cov
         means[k + 1], variances[k + 1] = mean, np.diag(cov)
         k += 1

@@ -656,6 +656,7 @@ def _estimate(
     rules = model.rules
     powered = codes != ISOLATED  # a suspect or silent phase may still carry its current
     readings = batch.temp_c  # the gate has left out every implausible one
+    estimate: EstimatorState | None = None  # the previous one is rebuilt only if it is kept
     if "estimate" in previous:
         mean = np.asarray(previous["estimate"]["mean_c"], dtype=np.float64)
         cov = np.asarray(previous["estimate"]["cov_k2"], dtype=np.float64)
@@ -674,12 +675,12 @@ def _estimate(
             steady = steady_state_c(model.network, p0[0], slope[0], float(ambient[0]))
         except ThermalRunaway:
             steady = np.full(model.network.n_nodes, float(ambient[0]))
-        first = initial_from_readings(
+        estimate = initial_from_readings(
             model.network, float(ambient[0]), steady, readings[0],
             sensor_noise_k=rules.sensor_noise_k, sensor_offset_k=rules.sensor_offset_k,
             sensor_lag=rules.sensor_tau_s is not None,
         )  # fmt: skip
-        mean, cov = first.mean_c, first.cov_k2
+        mean, cov = estimate.mean_c, estimate.cov_k2
         p0, slope = np.vstack([p0[:1], p0]), np.vstack([slope[:1], slope])
         t_prev, ambient_prev = float(batch.t_s[0]), float(ambient[0])
     # Row k of power0, power_slope (p0, slope less the last row) is held over interval k.
@@ -693,7 +694,6 @@ def _estimate(
     z = np.full((batch.n, model.n_phases), np.nan)  # normalised innovations (none: NaN)
     scale = np.ones((3, batch.n, model.n_phases))  # InnovationScale of each sample's step
     held_w = np.zeros((batch.n, model.n_phases))  # loss held over each interval
-    final: EstimatorState | None = None
     try:
         for lo, hi, step in _step_runs(dt):
             if step <= 0.0:  # samples at one instant: nothing to propagate
@@ -709,8 +709,8 @@ def _estimate(
                 filt, mean, cov, power0[lo:hi], power_slope[lo:hi], held_ambient[lo:hi],
                 readings[lo:hi],
             )  # fmt: skip
-            final = trace.final
-            mean, cov = final.mean_c, final.cov_k2
+            estimate = trace.final
+            mean, cov = estimate.mean_c, estimate.cov_k2
             means.extend(trace.means_c[1:])
             stds.extend(trace.junction_std_k[1:])
             held_w[lo:hi] = power0[lo:hi] + power_slope[lo:hi] * trace.means_c[:-1, junction]
@@ -724,7 +724,8 @@ def _estimate(
         means.extend([means[-1]] * (batch.n + 1 - len(means)))
         stds.extend([stds[-1]] * (batch.n + 1 - len(stds)))
     drift_in = drift_watch.DriftInput(z, InnovationScale(*scale), held_w)
-    estimate = final if final is not None else EstimatorState(mean, cov)
+    if estimate is None:
+        estimate = EstimatorState(mean, cov)
     return np.asarray(means)[:, :n_nodes], np.asarray(stds), estimate, drift_in
 
 

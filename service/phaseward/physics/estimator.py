@@ -111,10 +111,11 @@ def _array(
 ) -> FloatArray:
     """``value`` broadcast to ``shape`` as a float64 copy; ValueError naming ``name``."""
     arr = np.array(value, dtype=np.float64)
-    try:
-        arr = np.array(np.broadcast_to(arr, shape))
-    except ValueError:
-        raise ValueError(f"{name} must broadcast to shape {shape}") from None
+    if arr.shape != shape:
+        try:
+            arr = np.array(np.broadcast_to(arr, shape))
+        except ValueError:
+            raise ValueError(f"{name} must broadcast to shape {shape}") from None
     bad = np.isinf(arr) if allow_nan else ~np.isfinite(arr)
     if np.any(bad):
         note = " (NaN marks a missing value)" if allow_nan else ""

@@ -31,7 +31,7 @@ A phase at zero current still switches, so it has gate, core and ripple losses; 
 zeroes the loss of an isolated phase itself.
 """
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import cached_property
 from typing import NamedTuple
 
@@ -354,7 +354,12 @@ def phase_losses(
         ) from None
     current, temp = np.broadcast_to(current, shape), np.broadcast_to(temp, shape)
     copper = copper_resistance_ohm(1.0, temp, ref_temp_c=params.dcr_ref_c)
-    return _breakdown(params, current, temp, copper)
+    terms = _breakdown(params, current, temp, copper)
+    return replace(
+        terms,
+        gate_w=np.broadcast_to(terms.gate_w, shape).copy(),
+        core_w=np.broadcast_to(terms.core_w, shape).copy(),
+    )
 
 
 def _breakdown(
@@ -362,9 +367,9 @@ def _breakdown(
 ) -> LossBreakdown:
     """The terms of :func:`phase_losses` from checked arrays: ``current`` and ``temp``
     broadcast against (n_phases,) and each other, ``copper`` the winding's DCR(T) / DCR_ref
-    at ``temp``. Terms that do not depend on temperature keep the shape of ``current``."""
+    at ``temp``. Terms that do not depend on temperature keep the shape of ``current``, and
+    the gate and core terms, which depend on neither, the shape (n_phases,)."""
     fixed = p._fixed
-    shape = np.broadcast_shapes(current.shape, temp.shape, copper.shape)
     rms_sq = triangle_rms_a(current, fixed.ripple_sq_12) ** 2
     mag = np.abs(current)
     formula = fixed.formula
@@ -374,10 +379,10 @@ def _breakdown(
         high_side_w=np.where(formula, fixed.duty * rds * p.rds_high_ohm, 0.0),
         low_side_w=np.where(formula, fixed.off_duty * rds * p.rds_low_ohm, 0.0),
         switching_w=np.where(formula, half_vin * mag * rise_fall * p.fsw_hz, 0.0),
-        gate_w=np.broadcast_to(fixed.gate_w, shape).copy(),
+        gate_w=fixed.gate_w,
         dead_time_w=np.where(formula, fixed.dead_v * mag * p.dead_time_s * p.fsw_hz, 0.0),
         inductor_copper_w=rms_sq * p.dcr_ohm * copper,
-        core_w=np.broadcast_to(p.core_loss_w, shape).copy(),
+        core_w=p.core_loss_w,
         stage_table_w=_table_loss_w(p, current) * _tempco(temp, p.table_ref_c, p.table_tc_per_k),
     )
 

@@ -400,10 +400,8 @@ def drift_watch(
     # whose episode the carry holds open, and one run over every channel gives the result.
     carried = np.broadcast_to(carry.raised[:n_ph], z.shape)
     board_in = channels(z, scale, power_w, excluded=carried)
-    run = drift_run(
-        *(np.hstack(pair) for pair in zip(phase_in, board_in, strict=True)), t_s, carry,
-        reference=reference, threshold=threshold,
-    )  # fmt: skip
+    every_z, every_u, every_p = (np.hstack(pair) for pair in zip(phase_in, board_in, strict=True))
+    run = drift_run(every_z, every_u, every_p, t_s, carry, reference=reference, threshold=threshold)
     if all(c == n_ph for _, c, _ in run.changes):
         return run
 

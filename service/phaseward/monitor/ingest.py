@@ -78,7 +78,12 @@ from phaseward.monitor.rejections import record_rejection
 from phaseward.monitor.resident import LiveStates, Resident, Waiting
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, join, to_batch
 from phaseward.physics.drift import InnovationScale
-from phaseward.physics.estimator import EstimatorState, initial_from_readings, kalman_run
+from phaseward.physics.estimator import (
+    EstimatorState,
+    filter_for,
+    filter_run,
+    initial_from_readings,
+)
 from phaseward.physics.plausibility import RULES
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c
 from phaseward.store import events, rails, samples, state
@@ -759,42 +764,43 @@ def _estimate(
     (:func:`~phaseward.physics.estimator.initial_from_readings`).
     """
     rules = model.rules
-    lagged = rules.sensor_tau_s is not None
     powered = codes != ISOLATED  # a suspect or silent phase may still carry its current
-    p0, slope = phase_power(model, current, powered)
+    readings = batch.temp_c  # the gate has left out every implausible one
+    estimate: EstimatorState | None = None  # the previous one is rebuilt only if it is kept
     if "estimate" in previous:
-        state = EstimatorState(
-            mean_c=np.asarray(previous["estimate"]["mean_c"], dtype=np.float64),
-            cov_k2=np.asarray(previous["estimate"]["cov_k2"], dtype=np.float64),
-        )
+        mean = np.asarray(previous["estimate"]["mean_c"], dtype=np.float64)
+        cov = np.asarray(previous["estimate"]["cov_k2"], dtype=np.float64)
         last = previous["phases"]
-        q0, qs = phase_power(
+        # The previous sample's losses with the batch's, in one evaluation: row 0.
+        p0, slope = phase_power(
             model,
-            np.asarray([p["current_a"] or 0.0 for p in last], dtype=np.float64),
-            np.asarray([p["condition"] != "isolated" for p in last]),
+            np.vstack([[p["current_a"] or 0.0 for p in last], current]),
+            np.vstack([[p["condition"] != "isolated" for p in last], powered]),
         )
         t_prev = float(previous["sample"]["t_s"])
         ambient_prev = float(previous["sample"]["ambient_c"])
-    readings = batch.temp_c  # the gate has left out every implausible one
-    if "estimate" not in previous:
+    else:
+        p0, slope = phase_power(model, current, powered)
         try:
             steady = steady_state_c(model.network, p0[0], slope[0], float(ambient[0]))
         except ThermalRunaway:
             steady = np.full(model.network.n_nodes, float(ambient[0]))
-        state = initial_from_readings(
+        estimate = initial_from_readings(
             model.network, float(ambient[0]), steady, readings[0],
             sensor_noise_k=rules.sensor_noise_k, sensor_offset_k=rules.sensor_offset_k,
-            sensor_lag=lagged,
+            sensor_lag=rules.sensor_tau_s is not None,
         )  # fmt: skip
-        q0, qs, t_prev, ambient_prev = p0[0], slope[0], float(batch.t_s[0]), float(ambient[0])
+        mean, cov = estimate.mean_c, estimate.cov_k2
+        p0, slope = np.vstack([p0[:1], p0]), np.vstack([slope[:1], slope])
+        t_prev, ambient_prev = float(batch.t_s[0]), float(ambient[0])
+    # Row k of power0, power_slope (p0, slope less the last row) is held over interval k.
     dt = np.diff(np.concatenate([[t_prev], batch.t_s]))
-    power0 = np.concatenate([q0[None, :], p0[:-1]])
-    power_slope = np.concatenate([qs[None, :], slope[:-1]])
+    power0, power_slope = p0[:-1], slope[:-1]
     held_ambient = np.concatenate([[ambient_prev], ambient[:-1]])
     n_nodes = model.network.n_nodes
-    means = [state.mean_c]
-    stds = [np.sqrt(np.diag(state.cov_k2))[model.network.junction_node]]
     junction = model.network.junction_node
+    means = [mean]
+    stds = [np.sqrt(np.diag(cov))[junction]]
     z = np.full((batch.n, model.n_phases), np.nan)  # normalised innovations (none: NaN)
     scale = np.ones((3, batch.n, model.n_phases))  # InnovationScale of each sample's step
     held_w = np.zeros((batch.n, model.n_phases))  # loss held over each interval
@@ -804,28 +810,33 @@ def _estimate(
                 means.extend([means[-1]] * (hi - lo))
                 stds.extend([stds[-1]] * (hi - lo))
                 continue
-            trace = kalman_run(
-                model.network, state, step, power0[lo:hi], power_slope[lo:hi],
-                held_ambient[lo:hi], readings[lo:hi], process_noise_w=rules.process_noise_w,
+            filt = filter_for(
+                model.network, step, process_noise_w=rules.process_noise_w,
                 sensor_noise_k=rules.sensor_noise_k, sensor_tau_s=rules.sensor_tau_s,
                 sensor_offset_k=rules.sensor_offset_k,
             )  # fmt: skip
-            state = trace.final
+            trace = filter_run(
+                filt, mean, cov, power0[lo:hi], power_slope[lo:hi], held_ambient[lo:hi],
+                readings[lo:hi],
+            )  # fmt: skip
+            estimate = trace.final
+            mean, cov = estimate.mean_c, estimate.cov_k2
             means.extend(trace.means_c[1:])
             stds.extend(trace.junction_std_k[1:])
             held_w[lo:hi] = power0[lo:hi] + power_slope[lo:hi] * trace.means_c[:-1, junction]
             innovation = drift_watch.steady(model, step)
             if innovation is not None:
                 z[lo:hi] = trace.innovation_z
-                sc = innovation.scale
-                scale[:, lo:hi] = np.stack([sc.std_k, sc.own_gain, sc.row_gain])[:, None, :]
+                scale[:, lo:hi] = innovation.scale_rows[:, None, :]
     except ThermalRunaway:
         # The losses outgrow the network's conductance: the assessment reports runaway;
         # keep the last finite estimate rather than numbers that mean nothing.
         means.extend([means[-1]] * (batch.n + 1 - len(means)))
         stds.extend([stds[-1]] * (batch.n + 1 - len(stds)))
     drift_in = drift_watch.DriftInput(z, InnovationScale(*scale), held_w)
-    return np.asarray(means)[:, :n_nodes], np.asarray(stds), state, drift_in
+    if estimate is None:
+        estimate = EstimatorState(mean, cov)
+    return np.asarray(means)[:, :n_nodes], np.asarray(stds), estimate, drift_in
 
 
 STEP_GRID = 0.005  # relative: each interval is propagated with its length on this grid

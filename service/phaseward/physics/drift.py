@@ -48,6 +48,7 @@ simplification, small for real slopes).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import numpy.typing as npt
@@ -99,10 +100,15 @@ class SteadyInnovation:
     correlation: FloatArray
     dc_gain: FloatArray
 
-    @property
+    @cached_property
     def scale(self) -> InnovationScale:
         """What :func:`channels` needs of it."""
         return InnovationScale(self.std_k, np.diag(self.dc_gain), self.dc_gain.sum(axis=1))
+
+    @cached_property
+    def scale_rows(self) -> FloatArray:
+        """:attr:`scale` as rows (3, n_phases): std_k, own_gain, row_gain."""
+        return np.stack([self.scale.std_k, self.scale.own_gain, self.scale.row_gain])
 
 
 @dataclass(frozen=True)
@@ -332,6 +338,8 @@ def _discounted(x: FloatArray, seen: BoolArray) -> FloatArray:
     sample is not seen: (q, n, m). scipy.signal.lfilter runs the recursion; channels read at
     every sample go in one call."""
     q, n, m = x.shape
+    if n == 1:  # one step from zero, exactly as lfilter takes it (1 x + 0: -0.0 becomes 0.0)
+        return np.where(seen, x, 0.0) + 0.0
     out = np.empty((q, n, m))
     whole = seen.all(axis=0)
     if whole.any():
@@ -387,6 +395,15 @@ def drift_watch(
     ``carry`` of n_phases + 1 channels.
     """
     n_ph = z.shape[1]
+    phase_in = channels(z, scale, power_w)
+    # Most batches open or close no phase's episode: the board then leaves out the phases
+    # whose episode the carry holds open, and one run over every channel gives the result.
+    carried = np.broadcast_to(carry.raised[:n_ph], z.shape)
+    board_in = channels(z, scale, power_w, excluded=carried)
+    every_z, every_u, every_p = (np.hstack(pair) for pair in zip(phase_in, board_in, strict=True))
+    run = drift_run(every_z, every_u, every_p, t_s, carry, reference=reference, threshold=threshold)
+    if all(c == n_ph for _, c, _ in run.changes):
+        return run
 
     def part(cols: slice) -> DriftCarry:
         return DriftCarry(
@@ -394,7 +411,6 @@ def drift_watch(
             carry.start_t_s[cols], carry.recent[:, cols],
         )  # fmt: skip
 
-    phase_in = channels(z, scale, power_w)
     phases = drift_run(
         *phase_in, t_s, part(slice(0, n_ph)), reference=reference, threshold=threshold
     )

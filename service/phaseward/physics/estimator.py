@@ -111,10 +111,11 @@ def _array(
 ) -> FloatArray:
     """``value`` broadcast to ``shape`` as a float64 copy; ValueError naming ``name``."""
     arr = np.array(value, dtype=np.float64)
-    try:
-        arr = np.array(np.broadcast_to(arr, shape))
-    except ValueError:
-        raise ValueError(f"{name} must broadcast to shape {shape}") from None
+    if arr.shape != shape:
+        try:
+            arr = np.array(np.broadcast_to(arr, shape))
+        except ValueError:
+            raise ValueError(f"{name} must broadcast to shape {shape}") from None
     bad = np.isinf(arr) if allow_nan else ~np.isfinite(arr)
     if np.any(bad):
         note = " (NaN marks a missing value)" if allow_nan else ""
@@ -428,7 +429,7 @@ def _condition(
         return mean, cov, z
     rows = sensor_state[seen]
     var = sensor_var_k2[seen]
-    innovation_cov = cov[np.ix_(rows, rows)] + np.diag(var)
+    innovation_cov = cov[rows[:, None], rows] + np.diag(var)
     # K = P H^T S^-1 with H picking ``rows``: P H^T = P[:, rows], and S is symmetric. numpy's
     # LU solve, not scipy's: this runs once per sample and scipy's checks cost twice the solve.
     gain = np.linalg.solve(innovation_cov, cov[rows]).T
@@ -601,11 +602,68 @@ def kalman_run(
         _tuple(process_noise_w, shape[1]),
         _tuple(sensor_noise_k, shape[1]),
     )
-    stretch_end = _stretch_ends(slope, np.all(np.isfinite(reading), axis=1))
+    return filter_run(Filter(model, key), state.mean_c, state.cov_k2, p0, slope, ambient, reading)
+
+
+class Filter(NamedTuple):
+    """A filter model and the key its steady gains are cached under (:func:`filter_for`)."""
+
+    model: DiscreteModel
+    steady_key: tuple[
+        ThermalNetwork, float, tuple[float, ...] | None, tuple[float, ...], tuple[float, ...]
+    ]
+
+
+@lru_cache(maxsize=64)
+def filter_for(
+    net: ThermalNetwork,
+    dt_s: float,
+    *,
+    process_noise_w: float,
+    sensor_noise_k: float,
+    sensor_tau_s: float | None,
+    sensor_offset_k: float,
+) -> Filter:
+    """The filter :func:`kalman_run` builds for scalar noise and sensor arguments, built (and
+    its arguments checked) once per set: for callers that filter every sample of a rail."""
+    model = discrete_model(
+        net,
+        dt_s,
+        process_noise_w=process_noise_w,
+        sensor_noise_k=sensor_noise_k,
+        sensor_tau_s=sensor_tau_s,
+        sensor_offset_k=sensor_offset_k,
+    )
+    n_ph = net.n_phases
+    tau = None if sensor_tau_s is None else (float(sensor_tau_s),) * n_ph
+    noise = ((float(process_noise_w),) * n_ph, (float(sensor_noise_k),) * n_ph)
+    return Filter(model, (net, model.dt_s, tau, *noise))
+
+
+def filter_run(
+    filt: Filter,
+    mean_c: FloatArray,
+    cov_k2: FloatArray,
+    p0: FloatArray,
+    slope: FloatArray,
+    ambient: FloatArray,
+    reading: FloatArray,
+) -> KalmanTrace:
+    """:func:`kalman_run` on arguments it has checked, or that are known good: the starting
+    mean (n_states,) and symmetric covariance, and float64 arrays p0, slope, reading
+    (n_steps, n_phases) and ambient (n_steps,), finite except NaN readings."""
+    model = filt.model
+    shape = p0.shape
+    # A trace shorter than MIN_STEADY_STEPS never takes the fast path: every stretch empty.
+    stretch_end = (
+        _stretch_ends(slope, np.all(np.isfinite(reading), axis=1))
+        if shape[0] >= MIN_STEADY_STEPS
+        else np.arange(shape[0])
+    )
     means = np.empty((shape[0] + 1, model.n_states))
     variances = np.empty((shape[0] + 1, model.n_states))
     innovation_z = np.empty(shape)
-    mean, cov = np.array(state.mean_c), np.array(state.cov_k2)
+    mean, cov = np.array(mean_c), np.array(cov_k2)
     means[0], variances[0] = mean, np.diag(cov)
     steady: SteadyGain | None = None  # the gain in use; ``cov`` is its covariance while it is
     steady_slope = np.full(shape[1], np.nan)  # the slope row it was solved for
@@ -630,12 +688,13 @@ def kalman_run(
         drive = model.loss_input_k_per_w @ p0[k] + model.ambient_input * ambient[k]
         predicted = _predict(model, mean, cov, slope[k], drive)
         next_mean, next_cov, innovation_z[k] = _update(model, *predicted, reading[k])
-        tol = STEADY_RTOL * np.max(np.diag(cov), initial=0.0)
-        if stop - k >= MIN_STEADY_STEPS and np.max(np.abs(next_cov - cov)) <= 2.0 * tol:
-            found = _steady(*key, tuple(slope[k].tolist()))
-            if found is not None and np.max(np.abs(cov - found.post_cov)) <= tol:
-                steady, steady_slope, cov = found, slope[k], found.post_cov  # converged: fast
-                continue
+        if stop - k >= MIN_STEADY_STEPS:
+            tol = STEADY_RTOL * np.max(np.diag(cov), initial=0.0)
+            if np.max(np.abs(next_cov - cov)) <= 2.0 * tol:
+                found = _steady(*filt.steady_key, tuple(slope[k].tolist()))
+                if found is not None and np.max(np.abs(cov - found.post_cov)) <= tol:
+                    steady, steady_slope, cov = found, slope[k], found.post_cov  # fast now
+                    continue
         mean, cov = next_mean, next_cov
         means[k + 1], variances[k + 1] = mean, np.diag(cov)
         k += 1

@@ -31,19 +31,22 @@ A phase at zero current still switches, so it has gate, core and ripple losses; 
 zeroes the loss of an isolated phase itself.
 """
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from functools import cached_property
+from typing import NamedTuple
 
 import numpy as np
 import numpy.typing as npt
 
 from phaseward.physics.constants import T_REF_CU_C
-from phaseward.physics.ripple import duty_cycle, inductor_ripple_pp_a, rms_current_a
+from phaseward.physics.ripple import duty_cycle, inductor_ripple_pp_a, triangle_rms_a
 from phaseward.physics.sensing import copper_resistance_ohm
 
 FloatArray = npt.NDArray[np.float64]
 BoolArray = npt.NDArray[np.bool_]
 
 _PROBE_C = 100.0  # degC, second temperature at which the affine loss is sampled
+_PROBES_C = np.array([0.0, _PROBE_C])  # where loss_coefficients samples the affine loss
 _DATASHEET_REF_C = 25.0  # degC, where datasheets state Rds(on) and loss curves (common practice)
 _POSITIVE = ("vin_v", "vout_v", "fsw_hz", "inductance_h")
 _NONNEGATIVE = (
@@ -144,6 +147,26 @@ class PhaseLossParams:
         arr.setflags(write=False)
         object.__setattr__(self, name, arr)
 
+    @cached_property
+    def _fixed(self) -> "_Fixed":
+        """What the loss terms take of the parameters alone, computed once (the parameters
+        are immutable): the same operations :func:`phase_losses` applied on every call."""
+        ripple = inductor_ripple_pp_a(self.vin_v, self.vout_v, self.inductance_h, self.fsw_hz)
+        duty = duty_cycle(self.vin_v, self.vout_v)
+        formula = ~self.uses_table
+        return _Fixed(
+            duty=duty,
+            off_duty=1.0 - duty,
+            ripple_sq_12=ripple**2 / 12.0,
+            formula=formula,
+            switching_v_s=(0.5 * self.vin_v, self.rise_time_s + self.fall_time_s),
+            dead_v=2.0 * self.diode_drop_v,
+            gate_w=np.where(formula, self.gate_charge_c * self.drive_v * self.fsw_hz, 0.0),
+            copper_at_probes=copper_resistance_ohm(
+                1.0, _PROBES_C[:, None], ref_temp_c=self.dcr_ref_c
+            ),
+        )
+
     @property
     def n_phases(self) -> int:
         """Number of phases."""
@@ -228,6 +251,17 @@ class PhaseLossParams:
             table_tc_per_k=each("table_tc_per_k", table_tc_per_k),
             uses_table=each("uses_table", uses_table).astype(np.bool_),
         )
+
+
+class _Fixed(NamedTuple):
+    duty: FloatArray  # D
+    off_duty: FloatArray  # 1 - D
+    ripple_sq_12: FloatArray  # dI^2 / 12, A^2
+    formula: BoolArray  # phases on the switch formulas (no table)
+    switching_v_s: tuple[FloatArray, FloatArray]  # 0.5 Vin, t_r + t_f
+    dead_v: FloatArray  # 2 V_d
+    gate_w: FloatArray  # Q_g V_drv fsw on formula phases, else 0
+    copper_at_probes: FloatArray  # (2, n_phases) DCR(T) / DCR_ref at 0 and _PROBE_C degC
 
 
 @dataclass(frozen=True, eq=False)
@@ -319,28 +353,36 @@ def phase_losses(
             f"current_a and temp_c must broadcast to (..., {params.n_phases}) (n_phases)"
         ) from None
     current, temp = np.broadcast_to(current, shape), np.broadcast_to(temp, shape)
-    p = params
-    duty = duty_cycle(p.vin_v, p.vout_v)
-    rms_sq = (
-        rms_current_a(current, inductor_ripple_pp_a(p.vin_v, p.vout_v, p.inductance_h, p.fsw_hz))
-        ** 2
+    copper = copper_resistance_ohm(1.0, temp, ref_temp_c=params.dcr_ref_c)
+    terms = _breakdown(params, current, temp, copper)
+    return replace(
+        terms,
+        gate_w=np.broadcast_to(terms.gate_w, shape).copy(),
+        core_w=np.broadcast_to(terms.core_w, shape).copy(),
     )
+
+
+def _breakdown(
+    p: PhaseLossParams, current: FloatArray, temp: FloatArray, copper: FloatArray
+) -> LossBreakdown:
+    """The terms of :func:`phase_losses` from checked arrays: ``current`` and ``temp``
+    broadcast against (n_phases,) and each other, ``copper`` the winding's DCR(T) / DCR_ref
+    at ``temp``. Terms that do not depend on temperature keep the shape of ``current``, and
+    the gate and core terms, which depend on neither, the shape (n_phases,)."""
+    fixed = p._fixed
+    rms_sq = triangle_rms_a(current, fixed.ripple_sq_12) ** 2
     mag = np.abs(current)
-    formula = ~p.uses_table
+    formula = fixed.formula
     rds = rms_sq * _tempco(temp, p.rds_ref_c, p.rds_tc_per_k)
-    zero = np.zeros(shape)
+    half_vin, rise_fall = fixed.switching_v_s
     return LossBreakdown(
-        high_side_w=np.where(formula, duty * rds * p.rds_high_ohm, 0.0),
-        low_side_w=np.where(formula, (1.0 - duty) * rds * p.rds_low_ohm, 0.0),
-        switching_w=np.where(
-            formula, 0.5 * p.vin_v * mag * (p.rise_time_s + p.fall_time_s) * p.fsw_hz, 0.0
-        ),
-        gate_w=np.where(formula, p.gate_charge_c * p.drive_v * p.fsw_hz, zero),
-        dead_time_w=np.where(formula, 2.0 * p.diode_drop_v * mag * p.dead_time_s * p.fsw_hz, 0.0),
-        inductor_copper_w=rms_sq
-        * p.dcr_ohm
-        * copper_resistance_ohm(1.0, temp, ref_temp_c=p.dcr_ref_c),
-        core_w=np.broadcast_to(p.core_loss_w, shape).copy(),
+        high_side_w=np.where(formula, fixed.duty * rds * p.rds_high_ohm, 0.0),
+        low_side_w=np.where(formula, fixed.off_duty * rds * p.rds_low_ohm, 0.0),
+        switching_w=np.where(formula, half_vin * mag * rise_fall * p.fsw_hz, 0.0),
+        gate_w=fixed.gate_w,
+        dead_time_w=np.where(formula, fixed.dead_v * mag * p.dead_time_s * p.fsw_hz, 0.0),
+        inductor_copper_w=rms_sq * p.dcr_ohm * copper,
+        core_w=p.core_loss_w,
         stage_table_w=_table_loss_w(p, current) * _tempco(temp, p.table_ref_c, p.table_tc_per_k),
     )
 
@@ -360,6 +402,21 @@ def loss_coefficients(
     >>> print(f"{p0[0]:.4f} W + {slope[0] * 1e3:.4f} mW/K x T")
     0.9209 W + 4.0628 mW/K x T
     """
-    at_zero = phase_losses(params, current_a, 0.0).total_w
-    at_probe = phase_losses(params, current_a, _PROBE_C).total_w
+    current = np.asarray(current_a, dtype=np.float64)
+    if not np.all(np.isfinite(current)):
+        raise ValueError("current_a must be finite")
+    if current.ndim == 0 or current.shape[-1] != params.n_phases:
+        try:
+            current = np.broadcast_to(
+                current, np.broadcast_shapes(current.shape, (params.n_phases,))
+            )
+        except ValueError:
+            raise ValueError(
+                f"current_a and temp_c must broadcast to (..., {params.n_phases}) (n_phases)"
+            ) from None
+    # Both temperatures in one evaluation: stacked on a leading axis of two.
+    lead = (2,) + (1,) * (current.ndim - 1)
+    copper = params._fixed.copper_at_probes.reshape(*lead, params.n_phases)
+    total = _breakdown(params, current, _PROBES_C.reshape(*lead, 1), copper).total_w
+    at_zero, at_probe = total[0], total[1]
     return at_zero, (at_probe - at_zero) / _PROBE_C

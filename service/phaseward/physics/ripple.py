@@ -80,7 +80,13 @@ def rms_current_a(dc_current_a: npt.ArrayLike, ripple_pp_a: npt.ArrayLike) -> Fl
     if not np.all(np.isfinite(dc)):
         raise ValueError("dc_current_a must be finite")
     ripple = _checked(ripple_pp_a, "ripple_pp_a", allow_zero=True)
-    return np.asarray(np.sqrt(dc**2 + ripple**2 / 12.0), dtype=np.float64)
+    return np.asarray(triangle_rms_a(dc, ripple**2 / 12.0), dtype=np.float64)
+
+
+def triangle_rms_a(dc_current_a: FloatArray, ripple_sq_12_a2: FloatArray) -> FloatArray:
+    """:func:`rms_current_a` from checked float arrays and dI^2 / 12 (A^2), for hot paths that
+    compute the ripple term once."""
+    return np.sqrt(dc_current_a**2 + ripple_sq_12_a2)
 
 
 def _angles(phase_angles_deg: npt.ArrayLike) -> FloatArray:

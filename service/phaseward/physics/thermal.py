@@ -790,6 +790,27 @@ def _cases(
     return _Cases(lam, phi, z0, u, net.junction_node), offset
 
 
+def _never_reaches(cases: _Cases, line_c: FloatArray) -> BoolArray:
+    """Cases (n_cases,) whose junctions stay below their lines (np.inf: ignored) for ever.
+
+    With every lam > 0 the exact solution is T_j(t) = sum_k Phi_jk [s_k + exp(-lam_k t)
+    (z0_k - s_k)] with s = u / lam (the steady state in modal form), and 0 < exp(-lam_k t)
+    <= 1 bounds it by sum_k Phi_jk s_k + |Phi_jk (z0_k - s_k)| at every t >= 0. The bound is
+    taken 1e-9 of sum_k |Phi_jk| (|z0_k| + |s_k|) short of the line: the exact solution as
+    evaluated on a grid errs by a few float64 epsilons (2.2e-16) of that sum, so a case
+    passed here is one a scan would find below its lines at every point (the hot side kept).
+    """
+    stable = cases.lam[:, 0] > 0.0
+    settled = cases.u / np.where(stable[:, None], cases.lam, 1.0)
+    phi = cases.phi_j
+    steady = np.matmul(phi, settled[..., None])[..., 0]
+    swing = np.matmul(np.abs(phi), np.abs(cases.z0 - settled)[..., None])[..., 0]
+    scale = np.matmul(np.abs(phi), (np.abs(cases.z0) + np.abs(settled))[..., None])[..., 0]
+    bound = steady + swing + 1e-9 * scale
+    below = np.isfinite(bound) & (bound < line_c)
+    return np.asarray(stable & np.all(below | np.isposinf(line_c), axis=1))
+
+
 def _horizon(value: npt.ArrayLike | None, n_cases: int) -> FloatArray:
     if value is None:
         return np.full(n_cases, np.inf)
@@ -832,24 +853,29 @@ def time_to_limit_batch_s(
     cases, limit = _cases(net, initial_c, p0_w, slope_w_per_k, ambient_c, limit_c)
     n_cases = limit.shape[0]
     horizon = _horizon(horizon_s, n_cases)
-    every = np.arange(n_cases)
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
         return np.asarray(np.max(_above(cases.at_c(rows, t), limit[rows, None, :]), axis=-1))
 
-    grid = cases.grid(horizon)
-    values = excess(every, grid)
+    # Only the cases that may reach a line are scanned; the grid is that of every case (its
+    # size is set by the widest span of time constants among them).
+    scan = np.flatnonzero(~_never_reaches(cases, limit))
+    grid = cases.grid(horizon)[scan]
+    values = excess(scan, grid)
     # Touching the line counts as reaching it; a sign change past it is refined.
     touched = values >= 0.0
-    first_touch = np.where(touched.any(axis=1), grid[every, np.argmax(touched, axis=1)], np.inf)
+    at = np.arange(scan.size)
+    first_touch = np.where(touched.any(axis=1), grid[at, np.argmax(touched, axis=1)], np.inf)
     above = values > 0.0
     first = np.argmax(above, axis=1)
-    time = np.where(touched[:, 0], 0.0, first_touch)
-    rows = np.flatnonzero(~touched[:, 0] & above.any(axis=1))
+    time = np.full(n_cases, np.inf)
+    time[scan] = np.where(touched[:, 0], 0.0, first_touch)
+    crossing = np.flatnonzero(~touched[:, 0] & above.any(axis=1))
+    rows = scan[crossing]
     past = time.copy()  # a time at which the crossing phase is at or past its line
     # Evaluated alone a grid point may round to the other side of the line: such a crossing is
     # taken at the bracket's early end (lo) or, past it only by rounding, at its late end.
-    lo, hi = grid[rows, first[rows] - 1], grid[rows, first[rows]]
+    lo, hi = grid[crossing, first[crossing] - 1], grid[crossing, first[crossing]]
     f_lo, f_hi = excess(rows, lo[:, None])[:, 0], excess(rows, hi[:, None])[:, 0]
     time[rows] = np.where(f_lo > 0.0, lo, np.where(f_hi <= 0.0, hi, time[rows]))
     past[rows] = np.where(f_lo > 0.0, lo, hi)
@@ -861,11 +887,11 @@ def time_to_limit_batch_s(
         past[rows] = np.where(early, late, time[rows])
         time[rows] = np.where(early, root, time[rows])
     time = np.where(time <= horizon, time, np.inf)
-    hit = np.isfinite(time)
+    hit = np.flatnonzero(np.isfinite(time))
     # The phase that is past its line at the late end of the bracket (the early end, which is
     # reported, may still be just short of it).
-    margin = _above(cases.at_c(every, np.where(hit, past, 0.0)[:, None])[:, 0], limit)
-    phase = np.where(hit, np.argmax(margin, axis=1), -1).astype(np.intp)
+    phase = np.full(n_cases, -1, dtype=np.intp)
+    phase[hit] = np.argmax(_above(cases.at_c(hit, past[hit, None])[:, 0], limit[hit]), axis=1)
     return LimitCrossings(time_s=time, phase=phase, runaway=cases.lam[:, 0] <= 0.0)
 
 

@@ -790,24 +790,27 @@ def _cases(
     return _Cases(lam, phi, z0, u, net.junction_node), offset
 
 
-def _never_reaches(cases: _Cases, line_c: FloatArray) -> BoolArray:
-    """Cases (n_cases,) whose junctions stay below their lines (np.inf: ignored) for ever.
+def _never_reaches(cases: _Cases, line_c: FloatArray, until_s: FloatArray) -> BoolArray:
+    """Cases (n_cases,) whose junctions stay below their lines (np.inf: ignored) over
+    0 <= t <= until_s (n_cases,).
 
-    With every lam > 0 the exact solution is T_j(t) = sum_k Phi_jk [s_k + exp(-lam_k t)
-    (z0_k - s_k)] with s = u / lam (the steady state in modal form), and 0 < exp(-lam_k t)
-    <= 1 bounds it by sum_k Phi_jk s_k + |Phi_jk (z0_k - s_k)| at every t >= 0. The bound is
-    taken 1e-9 of sum_k |Phi_jk| (|z0_k| + |s_k|) short of the line: the exact solution as
-    evaluated on a grid errs by a few float64 epsilons (2.2e-16) of that sum, so a case
-    passed here is one a scan would find below its lines at every point (the hot side kept).
+    With every lam > 0 the exact solution is T_j(t) = sum_k Phi_jk s_k + a_jk exp(-lam_k t)
+    with s = u / lam (the steady state in modal form) and a_jk = Phi_jk (z0_k - s_k); over
+    the window each term is at most max(a_jk, a_jk exp(-lam_k until_s)), which bounds T_j.
+    The bound is taken 1e-9 of sum_k |Phi_jk| (|z0_k| + |s_k|) short of the line: the exact
+    solution as evaluated on a grid errs by a few float64 epsilons (2.2e-16) of that sum, so
+    a case passed here is one a scan of the window would find below its lines at every
+    point (the hot side kept).
     """
     stable = cases.lam[:, 0] > 0.0
-    settled = cases.u / np.where(stable[:, None], cases.lam, 1.0)
+    lam = np.where(stable[:, None], cases.lam, 1.0)
+    settled = cases.u / lam
     phi = cases.phi_j
-    steady = np.matmul(phi, settled[..., None])[..., 0]
-    swing = np.matmul(np.abs(phi), np.abs(cases.z0 - settled)[..., None])[..., 0]
-    scale = np.matmul(np.abs(phi), (np.abs(cases.z0) + np.abs(settled))[..., None])[..., 0]
-    bound = steady + swing + 1e-9 * scale
-    below = np.isfinite(bound) & (bound < line_c)
+    swing = phi * (cases.z0 - settled)[:, None, :]
+    fade = np.exp(-lam * until_s[:, None])[:, None, :]
+    bound = np.sum(phi * settled[:, None, :] + np.maximum(swing, swing * fade), axis=-1)
+    scale = np.sum(np.abs(phi) * (np.abs(cases.z0) + np.abs(settled))[:, None, :], axis=-1)
+    below = np.isfinite(bound) & (bound + 1e-9 * scale < line_c)
     return np.asarray(stable & np.all(below | np.isposinf(line_c), axis=1))
 
 
@@ -859,8 +862,9 @@ def time_to_limit_batch_s(
 
     # Only the cases that may reach a line are scanned; the grid is that of every case (its
     # size is set by the widest span of time constants among them).
-    scan = np.flatnonzero(~_never_reaches(cases, limit))
-    grid = cases.grid(horizon)[scan]
+    grid = cases.grid(horizon)
+    scan = np.flatnonzero(~_never_reaches(cases, limit, grid[:, -1]))
+    grid = grid[scan]
     values = excess(scan, grid)
     # Touching the line counts as reaching it; a sign change past it is refined.
     touched = values >= 0.0

@@ -741,11 +741,16 @@ def _time_basis(lam: FloatArray, t: FloatArray) -> tuple[FloatArray, FloatArray]
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         # A settled mode (exp below -_UNDERFLOW, < 1e-260) is set to 0: tinier values would
         # make subnormal numbers, on which arithmetic takes a slow path (25 times slower).
-        settled = x < -_UNDERFLOW
-        decay = np.where(settled, 0.0, np.exp(np.maximum(x, -_UNDERFLOW)))
+        decay = np.exp(np.maximum(x, -_UNDERFLOW))
+        decay[x < -_UNDERFLOW] = 0.0
         # t exprel(x) from the same exponential; its series where (e - 1) / x would cancel.
-        rel = np.where(np.abs(x) > 1e-4, (decay - 1.0) / x, 1.0 + x * (0.5 + x / 6.0))
-    return decay, t[..., None] * rel
+        gain = np.subtract(decay, 1.0)
+        gain /= x
+        series = ~(np.abs(x) > 1e-4)
+        near = x[series]
+        gain[series] = 1.0 + near * (0.5 + near / 6.0)
+        gain *= t[..., None]
+    return decay, gain
 
 
 def _above(temps_c: FloatArray, line_c: FloatArray) -> FloatArray:

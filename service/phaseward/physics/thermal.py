@@ -869,6 +869,9 @@ def time_to_limit_batch_s(
     # size is set by the widest span of time constants among them).
     grid = cases.grid(horizon)
     scan = np.flatnonzero(~_never_reaches(cases, limit, grid[:, -1]))
+    runaway = cases.lam[:, 0] <= 0.0
+    if not scan.size:
+        return LimitCrossings(np.full(n_cases, np.inf), np.full(n_cases, -1, np.intp), runaway)
     grid = grid[scan]
     values = excess(scan, grid)
     # Touching the line counts as reaching it; a sign change past it is refined.
@@ -901,7 +904,7 @@ def time_to_limit_batch_s(
     # reported, may still be just short of it).
     phase = np.full(n_cases, -1, dtype=np.intp)
     phase[hit] = np.argmax(_above(cases.at_c(hit, past[hit, None])[:, 0], limit[hit]), axis=1)
-    return LimitCrossings(time_s=time, phase=phase, runaway=cases.lam[:, 0] <= 0.0)
+    return LimitCrossings(time_s=time, phase=phase, runaway=runaway)
 
 
 @dataclass(frozen=True, eq=False)

@@ -11,7 +11,8 @@ import numpy.typing as npt
 
 from phaseward.monitor.conditions import ACTIVE
 from phaseward.monitor.rail_model import RailModel, phase_power
-from phaseward.monitor.screening import capacity_and_n1
+from phaseward.monitor.screening import screen
+from phaseward.physics.capacity import remaining_capacity
 from phaseward.physics.thermal import ThermalRunaway, steady_state_c, time_to_limit_s
 
 F64 = npt.NDArray[np.float64]
@@ -56,12 +57,19 @@ def assess(
     active = codes == ACTIVE
     limit = model.temp_limit_c
     load = float(load_a) if np.isfinite(load_a) else 0.0
-    cap, n1 = capacity_and_n1(
-        model, active=active, weights=weights, load_a=load, nodes_c=nodes_c, ambient_c=ambient_c
-    )
+    cap = remaining_capacity(
+        model.network, model.losses,
+        active=active[None, :], weights=weights, rated_current_a=model.rated_current_a,
+        trip_current_a=model.overcurrent_limit_a, temp_limit_c=limit, ambient_c=ambient_c,
+    )  # fmt: skip
     capacity = float(cap.capacity_a[0])
     kind = str(cap.binding_kind[0])
     binding_phase = int(cap.binding_phase[0]) if kind != "none" else None
+
+    n1 = screen(
+        model, active=active, weights=weights, load_a=load, nodes_c=nodes_c,
+        ambient_c=ambient_c, depth=1,
+    )  # fmt: skip
 
     cases = n1.rows()
 

@@ -10,7 +10,7 @@ import numpy.typing as npt
 
 from phaseward.monitor.forecast import share_a, shed
 from phaseward.monitor.rail_model import RailModel, phase_power
-from phaseward.physics.capacity import CapacityResult, loss_cases, remaining_capacity
+from phaseward.physics.capacity import loss_cases, remaining_capacity
 from phaseward.physics.thermal import propagate_c, steady_state_c, time_to_limit_batch_s
 
 F64 = npt.NDArray[np.float64]
@@ -85,52 +85,6 @@ def screen(
     from one batched call of each kernel.
     """
     masks, lost = loss_cases(model.n_phases, depth, active=active)
-    cap = _capacity(model, masks, weights, ambient_c)
-    return _screen(model, masks, lost, cap, weights, load_a, nodes_c, ambient_c)
-
-
-def capacity_and_n1(
-    model: RailModel,
-    *,
-    active: npt.NDArray[np.bool_],
-    weights: F64,
-    load_a: float,
-    nodes_c: F64,
-    ambient_c: float,
-) -> tuple[CapacityResult, Screening]:
-    """The remaining capacity of the rail as it is (one case) and its N-1 :func:`screen`.
-
-    One capacity call for both: each case's search depends on its own row only, so the
-    answers are those of separate calls, and the fixed cost of a call is paid once.
-    """
-    masks, lost = loss_cases(model.n_phases, 1, active=active)
-    cap = _capacity(model, np.vstack([active[None, :], masks]), weights, ambient_c)
-    n1 = _screen(model, masks, lost, cap.take(slice(1, None)), weights, load_a, nodes_c, ambient_c)
-    return cap.take(slice(0, 1)), n1
-
-
-def _capacity(
-    model: RailModel, masks: npt.NDArray[np.bool_], weights: F64, ambient_c: float
-) -> CapacityResult:
-    return remaining_capacity(
-        model.network, model.losses, active=masks, weights=weights,
-        rated_current_a=model.rated_current_a, trip_current_a=model.overcurrent_limit_a,
-        temp_limit_c=model.temp_limit_c, ambient_c=ambient_c,
-    )  # fmt: skip
-
-
-def _screen(
-    model: RailModel,
-    masks: npt.NDArray[np.bool_],
-    lost: npt.NDArray[np.intp],
-    cap: CapacityResult,
-    weights: F64,
-    load_a: float,
-    nodes_c: F64,
-    ambient_c: float,
-) -> Screening:
-    """:func:`screen` of the cases ``masks`` whose capacity is ``cap``."""
-    depth = lost.shape[1]
     if masks.shape[0] == 0:  # fewer active phases than the depth asks to lose
         none = np.empty(0)
         return Screening(
@@ -139,6 +93,12 @@ def _screen(
             steady_hottest_c=none, runaway=none.astype(bool), time_to_warning_s=none,
             warning_phase=none.astype(np.intp),
         )  # fmt: skip
+    cap = remaining_capacity(
+        model.network, model.losses, active=masks, weights=weights,
+        rated_current_a=model.rated_current_a, trip_current_a=model.overcurrent_limit_a,
+        temp_limit_c=model.temp_limit_c,
+        ambient_c=ambient_c,
+    )  # fmt: skip
     share = np.where(masks, weights, 0.0)
     total = share.sum(axis=1, keepdims=True)
     with np.errstate(invalid="ignore", divide="ignore"):

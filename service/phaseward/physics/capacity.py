@@ -56,13 +56,6 @@ class CapacityResult:
     binding_kind: StrArray
     junction_c_at_capacity: FloatArray
 
-    def take(self, rows: slice) -> "CapacityResult":
-        """The result of the cases ``rows`` only."""
-        return CapacityResult(
-            self.capacity_a[rows], self.binding_phase[rows], self.binding_kind[rows],
-            self.junction_c_at_capacity[rows],
-        )  # fmt: skip
-
 
 def remaining_capacity(
     net: ThermalNetwork,

@@ -116,18 +116,27 @@ def remaining_capacity(
         raise ValueError("weights must be positive for at least one active phase of each case")
     share /= np.where(total > 0.0, total, 1.0)[:, None]
 
-    def junction_c(rows: IntArray, current_a: FloatArray) -> FloatArray:
-        """Steady junction temperatures (len(rows), n_phases) at rail currents (len(rows),)."""
+    n_cases = act.shape[0]
+
+    def evaluate(rows: IntArray, current_a: FloatArray) -> tuple[FloatArray, FloatArray]:
+        """Steady junction temperatures (len(rows), n_phases) at rail currents (len(rows),)
+        and their largest excess over the limit among the active phases."""
         p0, slope = loss_coefficients(params, share[rows] * current_a[:, None])
         on = act[rows]
         temps, runaway = steady_state_c(net, p0 * on, slope * on, ambient, runaway="flag")
-        return np.where(runaway[:, None], np.inf, temps[:, net.junction_node])
+        junction = np.where(runaway[:, None], np.inf, temps[:, net.junction_node])
+        return np.asarray(np.where(on, junction - limit, -np.inf).max(axis=1)), junction
+
+    # The answer is a current evaluated on the way (no load, the current limit, or the low
+    # end of the root's bracket): its temperatures are kept, not solved again.
+    held = np.empty((n_cases, n))
 
     def excess(rows: IntArray, current_a: FloatArray) -> FloatArray:
-        over = np.where(act[rows], junction_c(rows, current_a) - limit, -np.inf)
-        return np.asarray(over.max(axis=1))
+        over, junction = evaluate(rows, current_a)
+        holds = ~(over > 0.0)  # what bracketed_root takes as its new low end
+        held[rows[holds]] = junction[holds]
+        return over
 
-    n_cases = act.shape[0]
     every = np.arange(n_cases)
     some = act.any(axis=1)
     with np.errstate(divide="ignore"):
@@ -135,17 +144,20 @@ def remaining_capacity(
     current_limit = np.where(some, per_phase_limit.min(axis=1), 0.0)
     current_phase = np.argmin(per_phase_limit, axis=1)
     current_kind = np.where(rated <= trip, "rating", "trip_current")[current_phase]
-    cold = excess(every, np.zeros(n_cases)) > 0.0
-    at_rating = excess(every, current_limit) <= 0.0
-    kind = np.where(~some, "none", np.where(at_rating & ~cold, current_kind, "warning_line"))
+    ends, junction = evaluate(np.r_[every, every], np.r_[np.zeros(n_cases), current_limit])
+    f_zero, f_limit = ends[:n_cases], ends[n_cases:]
+    cold = f_zero > 0.0
+    kind = np.where(~some, "none", np.where((f_limit <= 0.0) & ~cold, current_kind, "warning_line"))
     by_current = (kind == "rating") | (kind == "trip_current")
     capacity = np.where(by_current, current_limit, 0.0)
+    held[:] = np.where(by_current[:, None], junction[n_cases:], junction[:n_cases])
     rows = np.flatnonzero((kind == "warning_line") & ~cold)
     if rows.size:
         capacity[rows], _ = bracketed_root(
-            lambda i: excess(rows, i), np.zeros(rows.size), current_limit[rows], rtol=rtol
-        )
-    temps = np.where(act, junction_c(every, capacity), np.nan)
+            lambda i: excess(rows, i), np.zeros(rows.size), current_limit[rows], rtol=rtol,
+            f_lo=f_zero[rows], f_hi=f_limit[rows],
+        )  # fmt: skip
+    temps = np.where(act, held, np.nan)
     hottest = np.argmax(np.where(act, temps - limit, -np.inf), axis=1)
     phase = np.where(by_current, current_phase, np.where(kind == "warning_line", hottest, -1))
     return CapacityResult(

@@ -388,7 +388,9 @@ def _injection(net: ThermalNetwork, p0_w: FloatArray, ambient_c: FloatArray) -> 
 MAX_CONDITION = 1e12
 
 
-def _solve_stable(a: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArray]:
+def _solve_stable(
+    a: FloatArray, rhs: FloatArray
+) -> tuple[FloatArray, BoolArray, FloatArray, FloatArray]:
     """Solve A x = rhs for a stack of symmetric Z-matrices, flagging those not positive definite.
 
     A symmetric matrix with non-positive off-diagonal entries is positive definite iff it is
@@ -398,7 +400,8 @@ def _solve_stable(a: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArray
     For such a matrix max(y) is also ||A^-1||_inf, so ||A||_inf max(y) is its condition
     number: a matrix singular but for rounding (no path to ambient) gives y > 0 too, of order
     1/eps, and is told apart by a condition number past ``MAX_CONDITION``.
-    Returns x (NaN where unstable) and the stable mask (batch shape).
+    Returns x (NaN where unstable), the stable mask and the condition number (batch shape),
+    and the probe y.
     """
     both = np.stack(np.broadcast_arrays(rhs, np.ones_like(rhs)), axis=-1)
     try:
@@ -418,7 +421,7 @@ def _solve_stable(a: FloatArray, rhs: FloatArray) -> tuple[FloatArray, BoolArray
         & (condition < MAX_CONDITION)
         & np.all(np.isfinite(sol[..., 0]), axis=-1)
     )
-    return np.where(stable[..., None], sol[..., 0], np.nan), stable
+    return np.where(stable[..., None], sol[..., 0], np.nan), stable, condition, probe
 
 
 @overload
@@ -470,7 +473,7 @@ def steady_state_c(
     p0 = _phase_values(net, "p0_w", p0_w)
     slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
     p0, slope = np.broadcast_arrays(p0, slope)
-    temps, stable = _solve_stable(
+    temps, stable, _, _ = _solve_stable(
         _system_matrix(net, slope), _injection(net, p0, _finite("ambient_c", ambient_c))
     )
     if runaway == "flag":
@@ -741,11 +744,16 @@ def _time_basis(lam: FloatArray, t: FloatArray) -> tuple[FloatArray, FloatArray]
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         # A settled mode (exp below -_UNDERFLOW, < 1e-260) is set to 0: tinier values would
         # make subnormal numbers, on which arithmetic takes a slow path (25 times slower).
-        settled = x < -_UNDERFLOW
-        decay = np.where(settled, 0.0, np.exp(np.maximum(x, -_UNDERFLOW)))
+        decay = np.exp(np.maximum(x, -_UNDERFLOW))
+        decay[x < -_UNDERFLOW] = 0.0
         # t exprel(x) from the same exponential; its series where (e - 1) / x would cancel.
-        rel = np.where(np.abs(x) > 1e-4, (decay - 1.0) / x, 1.0 + x * (0.5 + x / 6.0))
-    return decay, t[..., None] * rel
+        gain = np.subtract(decay, 1.0)
+        gain /= x
+        series = ~(np.abs(x) > 1e-4)
+        near = x[series]
+        gain[series] = 1.0 + near * (0.5 + near / 6.0)
+        gain *= t[..., None]
+    return decay, gain
 
 
 def _above(temps_c: FloatArray, line_c: FloatArray) -> FloatArray:
@@ -756,15 +764,15 @@ def _above(temps_c: FloatArray, line_c: FloatArray) -> FloatArray:
     return np.asarray(np.where(np.isposinf(line_c), -np.inf, over))
 
 
-def _cases(
+def _batch(
     net: ThermalNetwork,
     initial_c: npt.ArrayLike,
     p0_w: npt.ArrayLike,
     slope_w_per_k: npt.ArrayLike,
-    ambient_c: float,
     offset_c: npt.ArrayLike,
-) -> tuple[_Cases, FloatArray]:
-    """Modal solution of every case and the per-phase offsets, both broadcast to n_cases."""
+) -> tuple[FloatArray, FloatArray, FloatArray, FloatArray]:
+    """initial_c, p0_w, slope_w_per_k and the per-phase offsets checked and broadcast to
+    n_cases: (n_cases, n_nodes) and three (n_cases, n_phases)."""
     p0 = _phase_values(net, "p0_w", p0_w)
     slope = _phase_values(net, "slope_w_per_k", slope_w_per_k)
     offset = np.array(offset_c, dtype=np.float64)
@@ -779,15 +787,101 @@ def _cases(
         raise ValueError("thermal crossings and peaks take at most one batch axis (n_cases)")
     n_cases = batch[0] if batch else 1
     p0, slope, offset = (np.broadcast_to(x, (n_cases, net.n_phases)) for x in (p0, slope, offset))
-    temp0 = np.broadcast_to(temp0, (n_cases, net.n_nodes))
+    return np.broadcast_to(temp0, (n_cases, net.n_nodes)), p0, slope, offset
+
+
+def _cases(
+    net: ThermalNetwork,
+    initial_c: npt.ArrayLike,
+    p0_w: npt.ArrayLike,
+    slope_w_per_k: npt.ArrayLike,
+    ambient_c: float,
+    offset_c: npt.ArrayLike,
+) -> tuple[_Cases, FloatArray]:
+    """Modal solution of every case and the per-phase offsets, both broadcast to n_cases."""
+    temp0, p0, slope, offset = _batch(net, initial_c, p0_w, slope_w_per_k, offset_c)
+    return _modal(net, temp0, p0, slope, _finite("ambient_c", ambient_c)), offset
+
+
+def _modal(
+    net: ThermalNetwork, temp0: FloatArray, p0: FloatArray, slope: FloatArray, ambient: FloatArray
+) -> _Cases:
+    """:class:`_Cases` of the cases as :func:`_batch` gives them."""
     # Cases that share their slopes share their modes (e.g. one rail state at several
     # durations): one eigen-decomposition each.
     distinct, which = np.unique(slope, axis=0, return_inverse=True)
     lam, phi = _modes(_system_matrix(net, distinct), net.capacitance_j_per_k)
     lam, phi = lam[which.reshape(-1)], phi[which.reshape(-1)]
     z0 = np.einsum("bnm,bn->bm", phi, net.capacitance_j_per_k * temp0)
-    u = np.einsum("bnm,bn->bm", phi, _injection(net, p0, _finite("ambient_c", ambient_c)))
-    return _Cases(lam, phi, z0, u, net.junction_node), offset
+    u = np.einsum("bnm,bn->bm", phi, _injection(net, p0, ambient))
+    return _Cases(lam, phi, z0, u, net.junction_node)
+
+
+# What a shortcut below may leave between a bound and a line, relative to the temperatures
+# involved; and the largest condition of the modal problem, C^-1/2 A C^-1/2, for which it
+# holds (see :func:`_settles_below`).
+_CLEARANCE = 1e-3
+_MAX_MODAL_CONDITION = 1e8
+
+
+def _settles_below(
+    net: ThermalNetwork,
+    temp0: FloatArray,
+    p0: FloatArray,
+    slope: FloatArray,
+    ambient: FloatArray,
+    line_c: FloatArray,
+) -> bool:
+    """Whether every case provably stays below its lines (np.inf: ignored) for ever, from
+    one LU solve per case and no eigen-decomposition.
+
+    The deviation from the steady state x, d = T - x, obeys C d' = -A d; A has no positive
+    off-diagonal entry, so exp(-C^-1 A t) >= 0, and with y = A^-1 1 > 0 (stable), w(t) =
+    exp(-C^-1 A t) y starts with C w' = -1 < 0 and keeps falling: w(t) <= y (Berman and
+    Plemmons, ch. 6). With d(0) <= a y, a = max(0, max_i d_i(0) / y_i), it follows that
+    T(t) <= x + a y for all t >= 0. Where that bound is ``_CLEARANCE`` of the temperatures
+    short of every line, the modal solution as computed stays below too: its eigen-
+    decomposition is exact for a matrix within about n eps ||M|| of M (backward stable), which
+    moves the solution by about n eps cond(M) sqrt(n C_max / C_min) of the temperatures,
+    3e-6 at the cap on that product, and its slowest decay rate stays positive (runaway
+    False). The answer is "never" for every case, as the scan would find.
+    """
+    a = _system_matrix(net, slope)
+    steady, stable, condition, probe = _solve_stable(a, _injection(net, p0, ambient))
+    cap = net.capacitance_j_per_k
+    # cond(M) <= cond(A) C_max / C_min, and the modal rounding grows with sqrt(C_max / C_min)
+    spread = (cap.max() / cap.min()) ** 1.5
+    with np.errstate(invalid="ignore", divide="ignore"):
+        lift = np.max(np.maximum(temp0 - steady, 0.0) / probe, axis=-1)
+        bound = (steady + lift[:, None] * probe)[:, net.junction_node]
+        scale = np.abs(temp0).max(axis=-1) + np.abs(steady).max(axis=-1) + lift * probe.max(-1)
+        clear = (bound + _CLEARANCE * scale[:, None] < line_c) | np.isposinf(line_c)
+    sound = stable & (condition * spread < _MAX_MODAL_CONDITION)
+    return bool(np.all(sound & np.all(clear, axis=1)))
+
+
+def _never_reaches(cases: _Cases, line_c: FloatArray, until_s: FloatArray) -> BoolArray:
+    """Cases (n_cases,) whose junctions stay below their lines (np.inf: ignored) over
+    0 <= t <= until_s (n_cases,).
+
+    With every lam > 0 the exact solution is T_j(t) = sum_k Phi_jk s_k + a_jk exp(-lam_k t)
+    with s = u / lam (the steady state in modal form) and a_jk = Phi_jk (z0_k - s_k); over
+    the window each term is at most max(a_jk, a_jk exp(-lam_k until_s)), which bounds T_j.
+    The bound is taken 1e-9 of sum_k |Phi_jk| (|z0_k| + |s_k|) short of the line: the exact
+    solution as evaluated on a grid errs by a few float64 epsilons (2.2e-16) of that sum, so
+    a case passed here is one a scan of the window would find below its lines at every
+    point (the hot side kept).
+    """
+    stable = cases.lam[:, 0] > 0.0
+    lam = np.where(stable[:, None], cases.lam, 1.0)
+    settled = cases.u / lam
+    phi = cases.phi_j
+    swing = phi * (cases.z0 - settled)[:, None, :]
+    fade = np.exp(-lam * until_s[:, None])[:, None, :]
+    bound = np.sum(phi * settled[:, None, :] + np.maximum(swing, swing * fade), axis=-1)
+    scale = np.sum(np.abs(phi) * (np.abs(cases.z0) + np.abs(settled))[:, None, :], axis=-1)
+    below = np.isfinite(bound) & (bound + 1e-9 * scale < line_c)
+    return np.asarray(stable & np.all(below | np.isposinf(line_c), axis=1))
 
 
 def _horizon(value: npt.ArrayLike | None, n_cases: int) -> FloatArray:
@@ -829,27 +923,41 @@ def time_to_limit_batch_s(
     >>> np.round(hits.time_s, 3), hits.phase.tolist()  # phase 0 lost: the board runs cooler
     (array([7.933,   inf]), [1, -1])
     """
-    cases, limit = _cases(net, initial_c, p0_w, slope_w_per_k, ambient_c, limit_c)
+    temp0, p0, slope, limit = _batch(net, initial_c, p0_w, slope_w_per_k, limit_c)
+    ambient = _finite("ambient_c", ambient_c)
     n_cases = limit.shape[0]
     horizon = _horizon(horizon_s, n_cases)
-    every = np.arange(n_cases)
+    if _settles_below(net, temp0, p0, slope, ambient, limit):
+        never = np.full(n_cases, np.inf)
+        return LimitCrossings(never, np.full(n_cases, -1, np.intp), np.zeros(n_cases, bool))
+    cases = _modal(net, temp0, p0, slope, ambient)
 
     def excess(rows: IntArray, t: FloatArray) -> FloatArray:
         return np.asarray(np.max(_above(cases.at_c(rows, t), limit[rows, None, :]), axis=-1))
 
+    # Only the cases that may reach a line are scanned; the grid is that of every case (its
+    # size is set by the widest span of time constants among them).
     grid = cases.grid(horizon)
-    values = excess(every, grid)
+    scan = np.flatnonzero(~_never_reaches(cases, limit, grid[:, -1]))
+    runaway = cases.lam[:, 0] <= 0.0
+    if not scan.size:
+        return LimitCrossings(np.full(n_cases, np.inf), np.full(n_cases, -1, np.intp), runaway)
+    grid = grid[scan]
+    values = excess(scan, grid)
     # Touching the line counts as reaching it; a sign change past it is refined.
     touched = values >= 0.0
-    first_touch = np.where(touched.any(axis=1), grid[every, np.argmax(touched, axis=1)], np.inf)
+    at = np.arange(scan.size)
+    first_touch = np.where(touched.any(axis=1), grid[at, np.argmax(touched, axis=1)], np.inf)
     above = values > 0.0
     first = np.argmax(above, axis=1)
-    time = np.where(touched[:, 0], 0.0, first_touch)
-    rows = np.flatnonzero(~touched[:, 0] & above.any(axis=1))
+    time = np.full(n_cases, np.inf)
+    time[scan] = np.where(touched[:, 0], 0.0, first_touch)
+    crossing = np.flatnonzero(~touched[:, 0] & above.any(axis=1))
+    rows = scan[crossing]
     past = time.copy()  # a time at which the crossing phase is at or past its line
     # Evaluated alone a grid point may round to the other side of the line: such a crossing is
     # taken at the bracket's early end (lo) or, past it only by rounding, at its late end.
-    lo, hi = grid[rows, first[rows] - 1], grid[rows, first[rows]]
+    lo, hi = grid[crossing, first[crossing] - 1], grid[crossing, first[crossing]]
     f_lo, f_hi = excess(rows, lo[:, None])[:, 0], excess(rows, hi[:, None])[:, 0]
     time[rows] = np.where(f_lo > 0.0, lo, np.where(f_hi <= 0.0, hi, time[rows]))
     past[rows] = np.where(f_lo > 0.0, lo, hi)
@@ -861,12 +969,12 @@ def time_to_limit_batch_s(
         past[rows] = np.where(early, late, time[rows])
         time[rows] = np.where(early, root, time[rows])
     time = np.where(time <= horizon, time, np.inf)
-    hit = np.isfinite(time)
+    hit = np.flatnonzero(np.isfinite(time))
     # The phase that is past its line at the late end of the bracket (the early end, which is
     # reported, may still be just short of it).
-    margin = _above(cases.at_c(every, np.where(hit, past, 0.0)[:, None])[:, 0], limit)
-    phase = np.where(hit, np.argmax(margin, axis=1), -1).astype(np.intp)
-    return LimitCrossings(time_s=time, phase=phase, runaway=cases.lam[:, 0] <= 0.0)
+    phase = np.full(n_cases, -1, dtype=np.intp)
+    phase[hit] = np.argmax(_above(cases.at_c(hit, past[hit, None])[:, 0], limit[hit]), axis=1)
+    return LimitCrossings(time_s=time, phase=phase, runaway=runaway)
 
 
 @dataclass(frozen=True, eq=False)

@@ -196,17 +196,56 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         var=np.asarray(prev.share_var or [SHARE_NOISE_FLOOR**2] * model.n_phases),
     )  # fmt: skip
     imbalance_pct, worst = sharing.imbalance_pct, sharing.worst
-    imbalance, found = _watch(
-        imbalance_pct > rules.imbalance_pct, imbalance_pct < 0.8 * rules.imbalance_pct,
-        prev.imbalance, "sharing.imbalance",
-        lambda k, on: (
-            f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from its declared share"
-            if on else "current sharing back within limits",
-            {"deviation_pct": _r(imbalance_pct[k]), "worst_phase": int(worst[k])},
-            int(worst[k]) if on else None,
-        ),
+    volts, _ = _hold(
+        np.column_stack([batch.vin_v, batch.vout_v]),
+        np.column_stack([verdict.vin == 0, verdict.vout == 0]), batch.t_s,
+        np.array([prev.good_vin_v, prev.good_vout_v], dtype=np.float64), np.zeros(2),
     )  # fmt: skip
-    findings += found
+    vin_v, vout_v = np.where(np.isfinite(volts), volts, [model.vin_v, model.vout_v]).T
+    uv_frac = vin_v / model.vin_v
+    deviation = np.abs(vout_v / model.vout_v - 1.0)
+    # The rail-wide watches (keyed by their Watch fields), latched together; an implausible
+    # episode per rail-wide reading.
+    rail_wide: dict[str, _RailWatch] = {
+        "imbalance": (
+            imbalance_pct > rules.imbalance_pct, imbalance_pct < 0.8 * rules.imbalance_pct,
+            "sharing.imbalance",
+            lambda k, on: (
+                f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from its declared "
+                "share" if on else "current sharing back within limits",
+                {"deviation_pct": _r(imbalance_pct[k]), "worst_phase": int(worst[k])},
+                int(worst[k]) if on else None,
+            ),
+        ),
+        "undervoltage": (
+            uv_frac < rules.undervoltage_fraction, uv_frac > rules.undervoltage_fraction + 0.02,
+            "input.undervoltage",
+            lambda k, on: (
+                f"input at {vin_v[k]:.2f} V, nominal {model.vin_v:.2f} V"
+                if on else "input voltage recovered",
+                {"vin_v": _r(vin_v[k])}, None,
+            ),
+        ),
+        "excursion": (
+            deviation > rules.excursion_fraction, deviation < 0.8 * rules.excursion_fraction,
+            "output.excursion",
+            lambda k, on: (
+                f"output at {vout_v[k]:.4f} V, {100 * deviation[k]:.1f} % off nominal"
+                if on else "output voltage back within its band",
+                {"vout_v": _r(vout_v[k]), "deviation_pct": _r(100 * deviation[k])}, None,
+            ),
+        ),
+    }  # fmt: skip
+    for name, rules_hit, values in (
+        ("vin_v", verdict.vin, batch.vin_v), ("vout_v", verdict.vout, batch.vout_v),
+        ("iout_a", verdict.iout, batch.iout_a), ("ambient_c", verdict.ambient, batch.ambient_c),
+    ):  # fmt: skip
+        rail_wide[f"{name[:-2]}_implausible"] = (
+            rules_hit != 0, rules_hit == 0, "telemetry.implausible",
+            partial(_rail_wide_finding, name, values, rules_hit),
+        )  # fmt: skip
+    watched = _watch(rail_wide, prev)
+    findings += watched["imbalance"][1]
 
     warn_at = model.junction_limit_c - model.warning_margin_k
     was_hot = np.array(prev.thermal, dtype=bool)
@@ -221,50 +260,13 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
                 {"temp_c": _r(temp[k, i]), "warning_c": _r(warn_at[i]), "cleared": not on},
             )
         )  # fmt: skip
-
-    volts, _ = _hold(
-        np.column_stack([batch.vin_v, batch.vout_v]),
-        np.column_stack([verdict.vin == 0, verdict.vout == 0]), batch.t_s,
-        np.array([prev.good_vin_v, prev.good_vout_v], dtype=np.float64), np.zeros(2),
-    )  # fmt: skip
-    vin_v, vout_v = np.where(np.isfinite(volts), volts, [model.vin_v, model.vout_v]).T
-    uv_frac = vin_v / model.vin_v
-    undervoltage, found = _watch(
-        uv_frac < rules.undervoltage_fraction, uv_frac > rules.undervoltage_fraction + 0.02,
-        prev.undervoltage, "input.undervoltage",
-        lambda k, on: (
-            f"input at {vin_v[k]:.2f} V, nominal {model.vin_v:.2f} V"
-            if on else "input voltage recovered",
-            {"vin_v": _r(vin_v[k])}, None,
-        ),
-    )  # fmt: skip
-    findings += found
-    deviation = np.abs(vout_v / model.vout_v - 1.0)
-    excursion, found = _watch(
-        deviation > rules.excursion_fraction, deviation < 0.8 * rules.excursion_fraction,
-        prev.excursion, "output.excursion",
-        lambda k, on: (
-            f"output at {vout_v[k]:.4f} V, {100 * deviation[k]:.1f} % off nominal"
-            if on else "output voltage back within its band",
-            {"vout_v": _r(vout_v[k]), "deviation_pct": _r(100 * deviation[k])}, None,
-        ),
-    )  # fmt: skip
-    findings += found
+    findings += watched["undervoltage"][1] + watched["excursion"][1]
 
     was_open = np.asarray(prev.implausible or [False] * n_phases, dtype=bool)
     episodes = latch(bad, (codes != SUSPECT) & ~bad, was_open)
     findings += _implausible_findings(model, episodes, was_open, verdict, batch)
-    rail_wide: dict[str, npt.NDArray[np.bool_]] = {}  # an episode per rail-wide reading
-    for name, rules_hit, values in (
-        ("vin_v", verdict.vin, batch.vin_v), ("vout_v", verdict.vout, batch.vout_v),
-        ("iout_a", verdict.iout, batch.iout_a), ("ambient_c", verdict.ambient, batch.ambient_c),
-    ):  # fmt: skip
-        rail_wide[name], found = _watch(
-            rules_hit != 0, rules_hit == 0, getattr(prev, f"{name[:-2]}_implausible"),
-            "telemetry.implausible",
-            partial(_rail_wide_finding, name, values, rules_hit),
-        )  # fmt: skip
-        findings += found
+    for name in ("vin_implausible", "vout_implausible", "iout_implausible", "ambient_implausible"):
+        findings += watched[name][1]
 
     history = np.concatenate([tail, raw])[-width:] if width else raw[:0]
     good_vin_v, good_vout_v = _nones(volts[-1])
@@ -273,9 +275,6 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         tail=history.tolist(),
         weights=sharing.weights.tolist(),
         thermal=hot[-1].tolist(),
-        imbalance=bool(imbalance[-1]),
-        undervoltage=bool(undervoltage[-1]),
-        excursion=bool(excursion[-1]),
         last_t_s=float(batch.t_s[-1]),
         good_current_a=_nones(held_cur[-1]),
         good_current_t_s=_nones(cur_t[-1]),
@@ -286,10 +285,7 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         implausible=episodes[-1].tolist(),
         good_vin_v=good_vin_v,
         good_vout_v=good_vout_v,
-        vin_implausible=bool(rail_wide["vin_v"][-1]),
-        vout_implausible=bool(rail_wide["vout_v"][-1]),
-        iout_implausible=bool(rail_wide["iout_a"][-1]),
-        ambient_implausible=bool(rail_wide["ambient_c"][-1]),
+        **{name: on for name, (on, _) in watched.items()},
         share_learned=sharing.learned.tolist(),
         share_var=sharing.var.tolist(),
     )
@@ -457,23 +453,29 @@ def _gap_findings(t_s: F64, last_t_s: float | None, gap_s: float) -> list[Findin
     ]  # fmt: skip
 
 
-def _watch(
-    set_mask: npt.NDArray[np.bool_],
-    reset_mask: npt.NDArray[np.bool_],
-    prev: bool,
-    kind: str,
-    describe: Callable[[int, bool], tuple[str, dict[str, Any], int | None]],
-) -> tuple[npt.NDArray[np.bool_], list[Finding]]:
-    """A rail-wide watch with hysteresis over the batch: its state per sample, and a finding
-    (warning when raised, info when cleared) at every change."""
-    before = np.array([prev])
-    states = latch(set_mask[:, None], reset_mask[:, None], before)
-    out = []
-    for k in changes(states, before)[0]:
-        on = bool(states[k, 0])
-        message, details, phase = describe(int(k), on)
-        out.append(
-            Finding(int(k), kind, "warning" if on else "info", phase, message,
+# A rail-wide watch: when it is raised and cleared (n,), its event kind, and what a change at
+# sample k (raised or not) says: message, details, phase.
+Describe = Callable[[int, bool], tuple[str, dict[str, Any], int | None]]
+_RailWatch = tuple[npt.NDArray[np.bool_], npt.NDArray[np.bool_], str, Describe]
+
+
+def _watch(watches: dict[str, _RailWatch], prev: Watch) -> dict[str, tuple[bool, list[Finding]]]:
+    """Rail-wide watches with hysteresis over the batch, latched together from their states
+    in ``prev`` (the Watch fields they are named by): per watch, its state after the batch
+    and a finding (warning when raised, info when cleared) at every change."""
+    before = np.array([getattr(prev, name) for name in watches], dtype=bool)
+    cases = list(watches.values())
+    states = latch(
+        np.column_stack([c[0] for c in cases]), np.column_stack([c[1] for c in cases]), before
+    )
+    found: list[list[Finding]] = [[] for _ in watches]
+    rows, cols = changes(states, before)
+    for k, j in zip(rows.tolist(), cols.tolist(), strict=True):
+        on = bool(states[k, j])
+        _, _, kind, describe = cases[j]
+        message, details, phase = describe(k, on)
+        found[j].append(
+            Finding(k, kind, "warning" if on else "info", phase, message,
                     {**details, "cleared": not on})
         )  # fmt: skip
-    return states[:, 0], out
+    return {name: (on, f) for name, on, f in zip(watches, states[-1].tolist(), found, strict=True)}

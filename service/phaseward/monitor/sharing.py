@@ -88,14 +88,15 @@ def learn(
     # Each phase's EWMAs step only at its teaching samples: gather those to the top of its
     # column (in order), filter all columns at once, and read each sample's value back as
     # that of the phase's latest teaching sample so far (the carried one before the first).
-    order = np.argsort(~teach, axis=0, kind="stable")
-    x = np.take_along_axis(taught, order, axis=0)
-    latest = np.cumsum(teach, axis=0) - 1
+    phases = np.arange(model.n_phases)
+    x = taught[np.argsort(~teach, axis=0, kind="stable"), phases]
     zc = _ewma(x, learned, rate)
     innovation = x - np.concatenate([learned[None, :], zc[:-1]])
     vc = _ewma(innovation**2 * (2.0 - rate) / 2.0, var, rate)
-    z = np.where(latest >= 0, np.take_along_axis(zc, np.maximum(latest, 0), axis=0), learned)
-    v = np.where(latest >= 0, np.take_along_axis(vc, np.maximum(latest, 0), axis=0), var)
+    latest = np.cumsum(teach, axis=0) - 1
+    at = np.maximum(latest, 0), phases
+    z = np.where(latest >= 0, zc[at], learned)
+    v = np.where(latest >= 0, vc[at], var)
 
     sigma = np.sqrt(np.maximum(v, SHARE_NOISE_FLOOR**2))
     limit = n_sigma * np.sqrt(2.0) * ewma_std(sigma, rate)

@@ -5,6 +5,7 @@ Codes (stored in the live state as words, in arrays as int8): see ``PHASE_CONDIT
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from functools import partial
@@ -17,7 +18,7 @@ from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.sequences import changes, debounce, latch
 from phaseward.monitor.sharing import SHARE_NOISE_FLOOR, learn
 from phaseward.monitor.telemetry import ISOLATING_FLAGS, SampleBatch
-from phaseward.physics.plausibility import RULES, GateVerdict, gate
+from phaseward.physics.plausibility import RULES, GateVerdict, first_code, gate
 
 F64 = npt.NDArray[np.float64]
 
@@ -87,7 +88,7 @@ class Watch:
         values = getattr(self, name)
         if len(values) != n_phases:
             return np.full(n_phases, np.nan)
-        return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
+        return np.array(values, dtype=np.float64)  # None converts to NaN
 
 
 @dataclass(frozen=True)
@@ -157,27 +158,27 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         temp_within = batch.t_s[:, None] - temp_t <= rules.stale_s
     cur_used = np.where(cur_within, held_cur, np.nan)
     temp_used = np.where(temp_within, held_temp, np.nan)
-    reading = np.select([good_cur, cur_within], [FRESH, HELD], MISSING).astype(np.int8)
+    reading = first_code((good_cur, FRESH), (cur_within, HELD), default=MISSING)
 
     usable = ~(flagged | bad) & np.isfinite(cur_used)
     others_mean = _mean_of_others(np.where(usable, np.abs(cur_used), np.nan))
     collapsed = (np.abs(cur_used) < rules.collapse_fraction * others_mean) & (
         others_mean > rules.collapse_fraction * model.rated_current_a
     )
-    raw = np.select(
-        [flagged & batch.present, bad, ~cur_within, collapsed],
-        [ISOLATED, SUSPECT, SILENT, ISOLATED],
-        ACTIVE,
-    ).astype(np.int8)
+    raw = first_code(
+        (flagged & batch.present, ISOLATED), (bad, SUSPECT), (~cur_within, SILENT),
+        (collapsed, ISOLATED), default=ACTIVE,
+    )  # fmt: skip
     width = rules.debounce_samples - 1
     tail = np.full((width, model.n_phases), -1, dtype=np.int8)
     if width and prev.tail:
         known = np.asarray(prev.tail, dtype=np.int8)[-width:]
         tail[width - known.shape[0] :] = known
+    prev_codes = np.array(prev.codes, dtype=np.int8)
     codes = debounce(
         raw,
         tail=tail,
-        prev=np.asarray(prev.codes, dtype=np.int8),
+        prev=prev_codes,
         length=rules.debounce_samples,
         immediate=(batch.present & (flagged | bad)) | ~cur_within,  # the window was the wait
     )
@@ -186,9 +187,7 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
     cur, temp = cur_used, temp_used  # what the watches below judge by
 
     findings: list[Finding] = []
-    findings += _phase_findings(
-        codes, np.asarray(prev.codes, np.int8), batch.current_a, batch.temp_c, batch.flags
-    )
+    findings += _phase_findings(codes, prev_codes, batch.current_a, batch.temp_c, batch.flags)
     findings += _gap_findings(batch.t_s, prev.last_t_s, rules.gap_s)
 
     sharing = learn(
@@ -197,25 +196,61 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         var=np.asarray(prev.share_var or [SHARE_NOISE_FLOOR**2] * model.n_phases),
     )  # fmt: skip
     imbalance_pct, worst = sharing.imbalance_pct, sharing.worst
-    imbalance, found = _watch(
-        imbalance_pct > rules.imbalance_pct, imbalance_pct < 0.8 * rules.imbalance_pct,
-        prev.imbalance, "sharing.imbalance",
-        lambda k, on: (
-            f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from its declared share"
-            if on else "current sharing back within limits",
-            {"deviation_pct": _r(imbalance_pct[k]), "worst_phase": int(worst[k])},
-            int(worst[k]) if on else None,
-        ),
+    volts, _ = _hold(
+        np.column_stack([batch.vin_v, batch.vout_v]),
+        np.column_stack([verdict.vin == 0, verdict.vout == 0]), batch.t_s,
+        np.array([prev.good_vin_v, prev.good_vout_v], dtype=np.float64), np.zeros(2),
     )  # fmt: skip
-    findings += found
+    vin_v, vout_v = np.where(np.isfinite(volts), volts, [model.vin_v, model.vout_v]).T
+    uv_frac = vin_v / model.vin_v
+    deviation = np.abs(vout_v / model.vout_v - 1.0)
+    # The rail-wide watches (keyed by their Watch fields), latched together; an implausible
+    # episode per rail-wide reading.
+    rail_wide: dict[str, _RailWatch] = {
+        "imbalance": (
+            imbalance_pct > rules.imbalance_pct, imbalance_pct < 0.8 * rules.imbalance_pct,
+            "sharing.imbalance",
+            lambda k, on: (
+                f"phase {int(worst[k])} deviates {imbalance_pct[k]:.0f} % from its declared "
+                "share" if on else "current sharing back within limits",
+                {"deviation_pct": _r(imbalance_pct[k]), "worst_phase": int(worst[k])},
+                int(worst[k]) if on else None,
+            ),
+        ),
+        "undervoltage": (
+            uv_frac < rules.undervoltage_fraction, uv_frac > rules.undervoltage_fraction + 0.02,
+            "input.undervoltage",
+            lambda k, on: (
+                f"input at {vin_v[k]:.2f} V, nominal {model.vin_v:.2f} V"
+                if on else "input voltage recovered",
+                {"vin_v": _r(vin_v[k])}, None,
+            ),
+        ),
+        "excursion": (
+            deviation > rules.excursion_fraction, deviation < 0.8 * rules.excursion_fraction,
+            "output.excursion",
+            lambda k, on: (
+                f"output at {vout_v[k]:.4f} V, {100 * deviation[k]:.1f} % off nominal"
+                if on else "output voltage back within its band",
+                {"vout_v": _r(vout_v[k]), "deviation_pct": _r(100 * deviation[k])}, None,
+            ),
+        ),
+    }  # fmt: skip
+    for name, rules_hit, values in (
+        ("vin_v", verdict.vin, batch.vin_v), ("vout_v", verdict.vout, batch.vout_v),
+        ("iout_a", verdict.iout, batch.iout_a), ("ambient_c", verdict.ambient, batch.ambient_c),
+    ):  # fmt: skip
+        rail_wide[f"{name[:-2]}_implausible"] = (
+            rules_hit != 0, rules_hit == 0, "telemetry.implausible",
+            partial(_rail_wide_finding, name, values, rules_hit),
+        )  # fmt: skip
+    watched = _watch(rail_wide, prev)
+    findings += watched["imbalance"][1]
 
     warn_at = model.junction_limit_c - model.warning_margin_k
-    hot = latch(
-        (temp > warn_at) & (codes == ACTIVE),
-        temp < warn_at - rules.hysteresis_k,
-        np.asarray(prev.thermal, dtype=bool),
-    )
-    for k, i in zip(*changes(hot, np.asarray(prev.thermal, dtype=bool)), strict=True):
+    was_hot = np.array(prev.thermal, dtype=bool)
+    hot = latch((temp > warn_at) & (codes == ACTIVE), temp < warn_at - rules.hysteresis_k, was_hot)
+    for k, i in zip(*changes(hot, was_hot), strict=True):
         on = bool(hot[k, i])
         findings.append(
             Finding(
@@ -225,64 +260,21 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
                 {"temp_c": _r(temp[k, i]), "warning_c": _r(warn_at[i]), "cleared": not on},
             )
         )  # fmt: skip
-
-    vin, _ = _hold(
-        batch.vin_v[:, None], verdict.vin[:, None] == 0, batch.t_s,
-        np.array([np.nan if prev.good_vin_v is None else prev.good_vin_v]), np.zeros(1),
-    )  # fmt: skip
-    vout, _ = _hold(
-        batch.vout_v[:, None], verdict.vout[:, None] == 0, batch.t_s,
-        np.array([np.nan if prev.good_vout_v is None else prev.good_vout_v]), np.zeros(1),
-    )  # fmt: skip
-    vin_v = np.where(np.isfinite(vin[:, 0]), vin[:, 0], model.vin_v)
-    vout_v = np.where(np.isfinite(vout[:, 0]), vout[:, 0], model.vout_v)
-    uv_frac = vin_v / model.vin_v
-    undervoltage, found = _watch(
-        uv_frac < rules.undervoltage_fraction, uv_frac > rules.undervoltage_fraction + 0.02,
-        prev.undervoltage, "input.undervoltage",
-        lambda k, on: (
-            f"input at {vin_v[k]:.2f} V, nominal {model.vin_v:.2f} V"
-            if on else "input voltage recovered",
-            {"vin_v": _r(vin_v[k])}, None,
-        ),
-    )  # fmt: skip
-    findings += found
-    deviation = np.abs(vout_v / model.vout_v - 1.0)
-    excursion, found = _watch(
-        deviation > rules.excursion_fraction, deviation < 0.8 * rules.excursion_fraction,
-        prev.excursion, "output.excursion",
-        lambda k, on: (
-            f"output at {vout_v[k]:.4f} V, {100 * deviation[k]:.1f} % off nominal"
-            if on else "output voltage back within its band",
-            {"vout_v": _r(vout_v[k]), "deviation_pct": _r(100 * deviation[k])}, None,
-        ),
-    )  # fmt: skip
-    findings += found
+    findings += watched["undervoltage"][1] + watched["excursion"][1]
 
     was_open = np.asarray(prev.implausible or [False] * n_phases, dtype=bool)
     episodes = latch(bad, (codes != SUSPECT) & ~bad, was_open)
     findings += _implausible_findings(model, episodes, was_open, verdict, batch)
-    rail_wide: dict[str, npt.NDArray[np.bool_]] = {}  # an episode per rail-wide reading
-    for name, rules_hit, values in (
-        ("vin_v", verdict.vin, batch.vin_v), ("vout_v", verdict.vout, batch.vout_v),
-        ("iout_a", verdict.iout, batch.iout_a), ("ambient_c", verdict.ambient, batch.ambient_c),
-    ):  # fmt: skip
-        rail_wide[name], found = _watch(
-            rules_hit != 0, rules_hit == 0, getattr(prev, f"{name[:-2]}_implausible"),
-            "telemetry.implausible",
-            partial(_rail_wide_finding, name, values, rules_hit),
-        )  # fmt: skip
-        findings += found
+    for name in ("vin_implausible", "vout_implausible", "iout_implausible", "ambient_implausible"):
+        findings += watched[name][1]
 
     history = np.concatenate([tail, raw])[-width:] if width else raw[:0]
+    good_vin_v, good_vout_v = _nones(volts[-1])
     watch = Watch(
-        codes=[int(c) for c in codes[-1]],
-        tail=history.astype(int).tolist(),
-        weights=[float(w) for w in sharing.weights],
-        thermal=[bool(h) for h in hot[-1]],
-        imbalance=bool(imbalance[-1]),
-        undervoltage=bool(undervoltage[-1]),
-        excursion=bool(excursion[-1]),
+        codes=codes[-1].tolist(),
+        tail=history.tolist(),
+        weights=sharing.weights.tolist(),
+        thermal=hot[-1].tolist(),
         last_t_s=float(batch.t_s[-1]),
         good_current_a=_nones(held_cur[-1]),
         good_current_t_s=_nones(cur_t[-1]),
@@ -290,15 +282,12 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
         good_temp_t_s=_nones(temp_t[-1]),
         ref_temp_c=_nones(verdict.ref_temp_c),
         ref_t_s=_nones(verdict.ref_t_s),
-        implausible=[bool(e) for e in episodes[-1]],
-        good_vin_v=_nones(vin[-1])[0],
-        good_vout_v=_nones(vout[-1])[0],
-        vin_implausible=bool(rail_wide["vin_v"][-1]),
-        vout_implausible=bool(rail_wide["vout_v"][-1]),
-        iout_implausible=bool(rail_wide["iout_a"][-1]),
-        ambient_implausible=bool(rail_wide["ambient_c"][-1]),
-        share_learned=[float(w) for w in sharing.learned],
-        share_var=[float(v) for v in sharing.var],
+        implausible=episodes[-1].tolist(),
+        good_vin_v=good_vin_v,
+        good_vout_v=good_vout_v,
+        **{name: on for name, (on, _) in watched.items()},
+        share_learned=sharing.learned.tolist(),
+        share_var=sharing.var.tolist(),
     )
     findings.sort(key=lambda f: f.sample)
     clean = replace(
@@ -314,7 +303,7 @@ def judge(model: RailModel, batch: SampleBatch, prev: Watch) -> Judgement:
 
 
 def _nones(values: F64) -> list[float | None]:
-    return [float(v) if np.isfinite(v) else None for v in values]
+    return [v if math.isfinite(v) else None for v in values.tolist()]
 
 
 def _hold(
@@ -407,7 +396,7 @@ def _implausible_findings(
 
 def _r(x: Any) -> float | None:
     value = float(x)
-    return round(value, 6) if np.isfinite(value) else None
+    return round(value, 6) if math.isfinite(value) else None
 
 
 def _mean_of_others(values: F64) -> F64:
@@ -464,22 +453,29 @@ def _gap_findings(t_s: F64, last_t_s: float | None, gap_s: float) -> list[Findin
     ]  # fmt: skip
 
 
-def _watch(
-    set_mask: npt.NDArray[np.bool_],
-    reset_mask: npt.NDArray[np.bool_],
-    prev: bool,
-    kind: str,
-    describe: Callable[[int, bool], tuple[str, dict[str, Any], int | None]],
-) -> tuple[npt.NDArray[np.bool_], list[Finding]]:
-    """A rail-wide watch with hysteresis over the batch: its state per sample, and a finding
-    (warning when raised, info when cleared) at every change."""
-    states = latch(set_mask[:, None], reset_mask[:, None], np.array([prev]))[:, 0]
-    out = []
-    for k in changes(states[:, None], np.array([prev]))[0]:
-        on = bool(states[k])
-        message, details, phase = describe(int(k), on)
-        out.append(
-            Finding(int(k), kind, "warning" if on else "info", phase, message,
+# A rail-wide watch: when it is raised and cleared (n,), its event kind, and what a change at
+# sample k (raised or not) says: message, details, phase.
+Describe = Callable[[int, bool], tuple[str, dict[str, Any], int | None]]
+_RailWatch = tuple[npt.NDArray[np.bool_], npt.NDArray[np.bool_], str, Describe]
+
+
+def _watch(watches: dict[str, _RailWatch], prev: Watch) -> dict[str, tuple[bool, list[Finding]]]:
+    """Rail-wide watches with hysteresis over the batch, latched together from their states
+    in ``prev`` (the Watch fields they are named by): per watch, its state after the batch
+    and a finding (warning when raised, info when cleared) at every change."""
+    before = np.array([getattr(prev, name) for name in watches], dtype=bool)
+    cases = list(watches.values())
+    states = latch(
+        np.column_stack([c[0] for c in cases]), np.column_stack([c[1] for c in cases]), before
+    )
+    found: list[list[Finding]] = [[] for _ in watches]
+    rows, cols = changes(states, before)
+    for k, j in zip(rows.tolist(), cols.tolist(), strict=True):
+        on = bool(states[k, j])
+        _, _, kind, describe = cases[j]
+        message, details, phase = describe(k, on)
+        found[j].append(
+            Finding(k, kind, "warning" if on else "info", phase, message,
                     {**details, "cleared": not on})
         )  # fmt: skip
-    return states, out
+    return {name: (on, f) for name, on, f in zip(watches, states[-1].tolist(), found, strict=True)}

@@ -6,23 +6,22 @@ last deciding sample, so a batch of any length is processed without a loop per s
 
 from __future__ import annotations
 
+from typing import TypeVar
+
 import numpy as np
 import numpy.typing as npt
 
 Codes = npt.NDArray[np.int8]
 Mask = npt.NDArray[np.bool_]
+_Cells = TypeVar("_Cells", Codes, Mask)
 
 
-def _forward_fill(
-    decided: Mask, values: npt.NDArray[np.int8], initial: npt.NDArray[np.int8]
-) -> Codes:
+def _forward_fill(decided: Mask, values: _Cells, initial: _Cells) -> _Cells:
     """values where decided, else the last decided value above, else ``initial``. (n, m)."""
-    n = decided.shape[0]
-    rows = np.where(decided, np.arange(n)[:, None], -1)
+    rows = np.where(decided, np.arange(decided.shape[0])[:, None], -1)
     last = np.maximum.accumulate(rows, axis=0)
-    cols = np.broadcast_to(np.arange(decided.shape[1]), decided.shape)
-    filled = values[np.clip(last, 0, None), cols]
-    return np.where(last >= 0, filled, initial[None, :]).astype(np.int8)
+    filled = values[np.maximum(last, 0), np.arange(decided.shape[1])]
+    return np.where(last >= 0, filled, initial)
 
 
 def debounce(raw: Codes, *, tail: Codes, prev: Codes, length: int, immediate: Mask) -> Codes:
@@ -55,14 +54,13 @@ def latch(set_mask: Mask, reset_mask: Mask, prev: Mask) -> Mask:
     >>> latch(s, r, np.array([False])).ravel().tolist()
     [False, True, True, False]
     """
-    decided = set_mask | reset_mask
-    return _forward_fill(decided, set_mask.astype(np.int8), prev.astype(np.int8)).astype(bool)
+    return _forward_fill(set_mask | reset_mask, set_mask, prev)
 
 
 def changes(
     states: Codes | Mask, prev: Codes | Mask
 ) -> tuple[npt.NDArray[np.intp], npt.NDArray[np.intp]]:
     """(sample, column) positions where the state differs from the one before it."""
-    before = np.concatenate([np.asarray(prev)[None, :], np.asarray(states)[:-1]])
-    rows, cols = np.nonzero(np.asarray(states) != before)
+    before = np.concatenate([prev[None, :], states[:-1]])
+    rows, cols = np.nonzero(states != before)
     return rows, cols

@@ -85,21 +85,18 @@ def learn(
     # no share of the load: it teaches a share of 0, never a negative one.
     taught = np.maximum(np.where(teach, relative, 0.0), 0.0)
 
-    z = np.tile(learned, (current_a.shape[0], 1))  # learned share after each sample
-    v = np.tile(var, (current_a.shape[0], 1))
-    keep = 1.0 - rate
-    for i in range(model.n_phases):  # per phase over its teaching samples, not per sample
-        rows = np.flatnonzero(teach[:, i])
-        if not rows.size:
-            continue
-        x = taught[rows, i]
-        zi, _ = lfilter([rate], [1.0, -keep], x, zi=[keep * learned[i]])
-        innovation = x - np.concatenate([[learned[i]], zi[:-1]])
-        sq = innovation**2 * (2.0 - rate) / 2.0
-        vi, _ = lfilter([rate], [1.0, -keep], sq, zi=[keep * var[i]])
-        z[rows, i], v[rows, i] = zi, vi
-        z[:, i] = _hold(z[:, i], rows, learned[i])
-        v[:, i] = _hold(v[:, i], rows, var[i])
+    # Each phase's EWMAs step only at its teaching samples: gather those to the top of its
+    # column (in order), filter all columns at once, and read each sample's value back as
+    # that of the phase's latest teaching sample so far (the carried one before the first).
+    phases = np.arange(model.n_phases)
+    x = taught[np.argsort(~teach, axis=0, kind="stable"), phases]
+    zc = _ewma(x, learned, rate)
+    innovation = x - np.concatenate([learned[None, :], zc[:-1]])
+    vc = _ewma(innovation**2 * (2.0 - rate) / 2.0, var, rate)
+    latest = np.cumsum(teach, axis=0) - 1
+    at = np.maximum(latest, 0), phases
+    z = np.where(latest >= 0, zc[at], learned)
+    v = np.where(latest >= 0, vc[at], var)
 
     sigma = np.sqrt(np.maximum(v, SHARE_NOISE_FLOOR**2))
     limit = n_sigma * np.sqrt(2.0) * ewma_std(sigma, rate)
@@ -131,9 +128,12 @@ def ewma_std(sigma: F64, rate: float) -> F64:
     return np.asarray(sigma * np.sqrt(rate / (2.0 - rate)))
 
 
-def _hold(values: F64, rows: npt.NDArray[np.intp], before: float) -> F64:
-    """``values`` set at ``rows``, held forward in between (``before`` until the first)."""
-    marks = np.full(values.size, -1)
-    marks[rows] = rows
-    at = np.maximum.accumulate(marks)
-    return np.where(at >= 0, values[np.maximum(at, 0)], before)
+def _ewma(x: F64, start: F64, rate: float) -> F64:
+    """EWMA down each column of ``x`` from ``start`` (n_columns,): y_k = (1 - rate) y_(k-1)
+    + rate x_k, with scipy.signal.lfilter (b = [rate], a = [1, rate - 1]). A single row is
+    that recurrence written out, the same arithmetic lfilter does, without its set-up cost."""
+    keep = 1.0 - rate
+    if x.shape[0] == 1:
+        return keep * start + rate * x
+    filtered: F64 = lfilter([rate], [1.0, -keep], x, axis=0, zi=keep * start[None, :])[0]
+    return filtered

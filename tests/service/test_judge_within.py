@@ -22,7 +22,7 @@ from tests.conftest import MakeSettings
 from tests.service.cuts import TRACES, Ingestor, incoming
 from tests.service.test_cut_invariance import assert_same_state, new_rail, reference
 
-from phaseward.api.app import _settle_loop, close, create_app
+from phaseward.api.app import QUIET_GRACE_S, _settle_loop, close, create_app
 from phaseward.api.group_commit import GroupCommit
 from phaseward.monitor.ingest import IngestResult, Tuning, ingest, ingest_rails
 from phaseward.monitor.resident import LiveStates, Waiting
@@ -141,7 +141,7 @@ async def test_a_quiet_rail_is_judged_by_the_settling_loop(
     assert held.waiting is not None
     assert held.waiting.n == 3
     group = GroupCommit(rail.sessions, 1000, tuning=tuning)
-    clock.now += WITHIN_S
+    clock.now += WITHIN_S + QUIET_GRACE_S
     task = asyncio.create_task(_settle_loop(group, tuning))
     for _ in range(100):
         await asyncio.sleep(0.05)

@@ -73,17 +73,23 @@ def _unjudged(sessions: sessionmaker[Session]) -> list[str]:
         return []
 
 
+QUIET_GRACE_S = 1.0  # a rail posting once a second judges its own waiting samples by then
+SETTLE_RAILS = 16  # rails a settling group holds: requests queued meanwhile go between groups
+
+
 async def _settle_loop(group_commit: GroupCommit, tuning: Tuning) -> None:
-    """Judge the samples rails have had waiting for ``judge_within_s`` (a rail that went
-    quiet still has its last samples judged); every quarter of it, and at once at start for
-    samples stored and not judged before a restart."""
+    """Judge the samples of rails that went quiet: waiting for ``judge_within_s`` and
+    ``QUIET_GRACE_S`` more (a rail that keeps posting has them judged by its next sample, so
+    the work stays spread as the rails' posts are, instead of falling due for a whole fleet
+    at once); checked every quarter of the interval, and at once at start for samples stored
+    and not judged before a restart. Settled a few rails a group, so ingest waits little."""
     waiting = tuning.waiting
     if waiting is None:
         return
     while True:
-        due = waiting.due(tuning.monotonic(), tuning.judge_within_s)
-        if due:
-            await group_commit.settle(due)
+        due = waiting.due(tuning.monotonic(), tuning.judge_within_s + QUIET_GRACE_S)
+        for start in range(0, len(due), SETTLE_RAILS):
+            await group_commit.settle(due[start : start + SETTLE_RAILS])
         await asyncio.sleep(max(0.05, tuning.judge_within_s / 4))
 
 

@@ -218,3 +218,27 @@ async def test_samples_left_waiting_by_a_stop_are_judged_when_the_server_starts(
         assert judged_seq(clean, "right") == 0
     assert judged_seq(clean, "right") == 3  # judged on the way out
     close(clean)
+
+
+async def test_a_rail_judged_elsewhere_is_no_longer_due_here(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """Samples waiting in one process are judged by another (it reads them from the store);
+    the first process's settling pass then finds nothing to judge and stops listing the
+    rail, rather than trying it again forever."""
+    trace = TRACES["trip"]
+    rail = await new_rail(client, app, trace)
+    clock = Clock()
+    here, there = process(clock), process(clock)
+    for k in range(4):
+        clock.now += 1.0
+        post(rail, k, here)
+    assert here.waiting is not None
+    assert here.waiting.due(clock.now, 0.0) == [rail.rail_id]
+    clock.now += 1.0
+    assert post(rail, 4, there).waiting == 0  # the first sample there: judged, with 1..3
+    assert rail.live()["sample"]["seq"] == 4
+    clock.now += WITHIN_S
+    settle(rail, here)
+    assert here.waiting.due(clock.now, 0.0) == []
+    assert rail.live()["sample"]["seq"] == 4

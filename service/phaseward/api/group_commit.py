@@ -59,7 +59,9 @@ class GroupCommit:
             *(self.submit(r, IncomingSamples.none()) for r in rail_ids), return_exceptions=True
         )
         for rail_id, answer in zip(rail_ids, answers, strict=True):
-            if isinstance(answer, Exception) and not isinstance(answer, NotFound):
+            if isinstance(answer, NotFound) and self._tuning.waiting is not None:
+                self._tuning.waiting.clear(rail_id)  # deleted: nothing left to judge
+            elif isinstance(answer, Exception):
                 _log.error("judging the samples waiting on rail '%s' failed: %r", rail_id, answer)
 
     async def _drain(self) -> None:

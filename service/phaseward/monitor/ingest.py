@@ -117,9 +117,9 @@ class _Outcome:
         """Keep the written state in memory: only once its transaction has committed."""
         if tuning.live is not None and self.resident is not None:
             tuning.live.put(self.rail_id, self.resident)
-        if tuning.waiting is not None and self.resident is not None:
-            since = self.resident.waiting_since
-            if since is None:
+        if tuning.waiting is not None and self.rail_id:  # in the writer's order of passes
+            since = None if self.resident is None else self.resident.waiting_since
+            if since is None:  # judged, or judged elsewhere: nothing of it waits here
                 tuning.waiting.clear(self.rail_id)
             else:
                 tuning.waiting.mark(self.rail_id, since)
@@ -332,9 +332,9 @@ def _ingest(
     same = stored is not None and head is not None and head.version == version
     waiting = _waiting(session, model, head, held, batch.seq[fresh]) if same else None
     live_batch = arrived if waiting is None else _in_time_order(waiting, arrived)
-    if not live_batch.n:
+    if not live_batch.n:  # nothing waits: the samples are resends or late
         if not fresh.any() or head is None:
-            return outcome
+            return replace(outcome, rail_id=rail_id)
         stamp = secrets.randbits(63)  # late samples stored: held ceilings elsewhere are void
         state.restamp(session, rail_id, stamp)
         kept = None if held is None else replace(held, stamp=stamp, seq_ceiling=ceiling)

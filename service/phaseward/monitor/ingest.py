@@ -330,7 +330,12 @@ def _ingest(
     outcome = _Outcome(fresh=fresh, newer=newer, condition=condition, version=version)
     # A new definition keeps time order but restarts judgement from a fresh state.
     same = stored is not None and head is not None and head.version == version
-    waiting = _waiting(session, model, head, held, batch.seq[fresh]) if same else None
+    # Only a setting that lets samples wait, or a rail marked at start (a stop left some),
+    # can have any: else the look-up in the store is skipped.
+    may_have = tuning.judge_within_s > 0 or (
+        tuning.waiting is not None and rail_id in tuning.waiting
+    )
+    waiting = _waiting(session, model, head, held, batch.seq[fresh]) if same and may_have else None
     live_batch = arrived if waiting is None else _in_time_order(waiting, arrived)
     if not live_batch.n:  # nothing waits: the samples are resends or late
         if not fresh.any() or head is None:

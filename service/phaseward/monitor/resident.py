@@ -80,6 +80,10 @@ class Waiting:
         with self._lock:
             self._since[rail_id] = since
 
+    def __contains__(self, rail_id: object) -> bool:
+        with self._lock:
+            return rail_id in self._since
+
     def clear(self, rail_id: str) -> None:
         with self._lock:
             self._since.pop(rail_id, None)

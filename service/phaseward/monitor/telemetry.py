@@ -167,12 +167,10 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
             field=incoming.cell(int(incoming.item[k]), int(incoming.slot[k]), "index"),
         )
     seen = np.zeros((n, p), dtype=bool)
-    dup = np.zeros(incoming.item.shape, dtype=bool)
     flat = incoming.item * p + incoming.phase
-    _, first = np.unique(flat, return_index=True)
-    dup[:] = True
-    dup[first] = False
-    if dup.any():
+    if flat.size and np.bincount(flat, minlength=n * p).max() > 1:  # then find the first
+        dup = np.ones(flat.shape, dtype=bool)
+        dup[np.unique(flat, return_index=True)[1]] = False
         k = int(np.nonzero(dup)[0][0])
         raise InvalidInput(
             f"phase {int(incoming.phase[k])} appears twice in one sample",
@@ -182,11 +180,15 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
     ambient = np.where(np.isfinite(incoming.ambient_c), incoming.ambient_c, model.ambient_c)
     temp_for_dcr = np.where(np.isfinite(incoming.temp_c), incoming.temp_c, ambient[incoming.item])
     _check_dcr_temperature(incoming, temp_for_dcr)
-    from_sense = dcr_sense_to_current_a(
-        incoming.sense_v,
-        model.dcr_ohm[incoming.phase],
-        np.where(np.isfinite(incoming.sense_v), temp_for_dcr, T_REF_CU_C),  # only these convert
-        ref_temp_c=model.dcr_ref_c[incoming.phase],
+    from_sense = (
+        dcr_sense_to_current_a(
+            incoming.sense_v,
+            model.dcr_ohm[incoming.phase],
+            np.where(np.isfinite(incoming.sense_v), temp_for_dcr, T_REF_CU_C),  # only these
+            ref_temp_c=model.dcr_ref_c[incoming.phase],
+        )
+        if np.isfinite(incoming.sense_v).any()
+        else incoming.sense_v  # no sense voltage: all NaN, and never picked below
     )
     from_word = _decoded(incoming.iout_word, linear11_decode)
     read = np.where(
@@ -243,6 +245,8 @@ def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:
 def _decoded(words: I64, decode: Callable[[I64], F64]) -> F64:
     """Decoded PMBus words, NaN where none was given."""
     given = words != NO_WORD
+    if not given.any():  # the usual body: values, no words
+        return np.full(words.shape, np.nan)
     return np.where(given, decode(np.where(given, words, 0)), np.nan)
 
 
@@ -266,6 +270,8 @@ def _or_phases(
 ) -> F64:
     """A per-sample value as given, else the mean (or, with ``sum_of``, the sum) of its
     readings' decoded words, taken only where every reading of the sample has one."""
+    if np.isfinite(given).all():  # given for every sample: the words are not looked at
+        return given.copy()
     n = incoming.n
     have = np.isfinite(per_reading)
     count = np.bincount(incoming.item, minlength=n)

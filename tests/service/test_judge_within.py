@@ -98,6 +98,62 @@ async def test_waiting_samples_leave_the_same_events_and_state(
     assert_same_state(rail.live(), want_state)
 
 
+@st.composite
+def fleet_schedules(draw: st.DrawFn) -> tuple[list[str], list[tuple[float, list[int], int]]]:
+    """Two or three rails (traces, repeats allowed), and per step: the clock's step (s), how
+    many samples each rail posts in the step's one group (0 to 2: rails that post nothing
+    stay out of it), and the process the group goes to (0/1)."""
+    names = draw(st.lists(st.sampled_from(sorted(TRACES)), min_size=2, max_size=3))
+    longest = max(len(TRACES[name].samples) for name in names)
+    steps = []
+    for _ in range(longest + 4):  # enough steps to post most of every trace
+        counts = draw(st.lists(st.sampled_from([0, 1, 1, 1, 2]), min_size=len(names),
+                               max_size=len(names)))  # fmt: skip
+        step = draw(st.sampled_from([0.0, 1.0, 1.0, 2.0, 7.0]))
+        steps.append((step, counts, draw(st.sampled_from([0, 0, 0, 1]))))
+    return names, steps
+
+
+@settings(
+    max_examples=10, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(case=fleet_schedules())
+async def test_rails_posting_in_shared_groups_end_as_judged_on_arrival(
+    client: httpx.AsyncClient,
+    app: FastAPI,
+    case: tuple[list[str], list[tuple[float, list[int], int]]],
+) -> None:
+    """A fleet's group holds requests of several rails: the rails whose samples only wait
+    share one insert and one restamp, the others are judged in savepoints of their own;
+    every rail ends with the events and state of its trace judged on arrival."""
+    names, schedule = case
+    rails = [await new_rail(client, app, TRACES[name]) for name in names]
+    clock = Clock()
+    processes = [process(clock), process(clock)]
+    sent = [0] * len(rails)
+    for step, counts, to in schedule:
+        clock.now += step
+        work = []
+        for r, (rail, count) in enumerate(zip(rails, counts, strict=True)):
+            hi = min(sent[r] + count, len(rail.trace.samples))
+            if hi > sent[r]:
+                work.append((rail.rail_id, [incoming(rail.trace.samples[sent[r] : hi])]))
+                sent[r] = hi
+        for outcomes in ingest_rails(rails[0].sessions, work, tuning=processes[to]):
+            assert not any(isinstance(o, Exception) for o in outcomes), outcomes
+    for r, rail in enumerate(rails):  # the rest of each trace, one request each
+        for k in range(sent[r], len(rail.trace.samples)):
+            post(rail, k, processes[0])
+    clock.now += WITHIN_S
+    for tuning in processes:
+        for rail in rails:
+            settle(rail, tuning)
+    for rail in rails:
+        want_events, want_state = await reference(client, app, rail.trace)
+        assert rail.events() == want_events
+        assert_same_state(rail.live(), want_state)
+
+
 async def test_routine_samples_wait_and_a_flag_is_judged_at_once(
     client: httpx.AsyncClient, app: FastAPI
 ) -> None:

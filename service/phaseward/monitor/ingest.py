@@ -36,7 +36,7 @@ assessed depends on the samples alone:
 Routine samples may wait (``Tuning.judge_within_s``): stored and answered, but judged in one
 pass with the rail's next ones, at the latest once the first of them has waited that long
 (the server's settling loop). That is batching, so events and the live state are the same.
-The samples waiting are those stored after the live state (the state row is only restamped):
+The samples waiting are those stored after the live state (the state row is not written):
 held in memory by the process that stored them, read back from the store by any other.
 
 Because of that purity the estimator's covariance (most of the state's size) need not be
@@ -238,21 +238,35 @@ def ingest_rails(
     savepoint and, after the commit, ingested on its own (:func:`ingest_together`), so one
     rail's bad request fails only itself. If the transaction fails as a whole (the commit, a
     lost connection), every rail is ingested on its own. Rails are locked in id order, so two
-    processes merging overlapping fleets on PostgreSQL never wait on each other in a cycle."""
+    processes merging overlapping fleets on PostgreSQL never wait on each other in a cycle.
+    A rail whose samples only wait (:func:`_only_waits`) needs no pass and no savepoint: its
+    rows join one insert for all such rails of the group."""
     results: list[list[IngestResult | Exception] | None] = [None] * len(work)
     if len(work) > 1:
         try:
             done: dict[int, _Outcome] = {}
             with transaction(sessions) as session:
-                for k in sorted(range(len(work)), key=lambda k: work[k][0]):
+                order = sorted(range(len(work)), key=lambda k: work[k][0])
+                locks = _lock(session, [work[k][0] for k in order])
+                waiting_rows: list[dict[str, Any]] = []  # of the rails whose samples only wait
+                for k in order:
                     rail_id, batches = work[k]
                     sizes = [b.n for b in batches]
                     try:
-                        with session.begin_nested():
-                            outcome = _ingest(session, rail_id, concat(batches), sizes, tuning)
+                        incoming = concat(batches)
+                        waits = _only_waits(rail_id, incoming, locks[rail_id], tuning)
+                        if waits is None:
+                            with session.begin_nested():
+                                outcome = _ingest(
+                                    session, rail_id, incoming, sizes, tuning, locks[rail_id]
+                                )
+                        else:
+                            outcome, rows = waits
+                            waiting_rows += rows
                     except Exception:  # retried alone below, where each failure is reported
                         continue
                     done[k] = outcome
+                samples.insert_rows(session, waiting_rows)  # one insert for all of them
             for k, outcome in done.items():
                 outcome.publish(tuning)
                 results[k] = list(outcome.split([b.n for b in work[k][1]]))
@@ -264,24 +278,80 @@ def ingest_rails(
     ]
 
 
+Locked = tuple[int | None, state.Head | None]  # a rail's version and state head, locked
+
+
+def _lock(session: Session, rail_ids: Sequence[str]) -> dict[str, Locked]:
+    """Lock the rails' rows (in id order, one statement) and then their state rows, and read
+    what ingest needs of both (a version None: no such rail; a head None: no state yet)."""
+    versions = rails.versions_for_update(session, rail_ids)
+    heads = state.heads(session, rail_ids) if versions else {}
+    return {rail_id: (versions.get(rail_id), heads.get(rail_id)) for rail_id in rail_ids}
+
+
+def _held(rail_id: str, head: state.Head | None, tuning: Tuning) -> Resident | None:
+    """The live state held in memory, if it is the one stored: nobody wrote since."""
+    held = tuning.live.get(rail_id) if tuning.live is not None else None
+    if held is None or head is None or head.stamp != held.stamp:
+        return None  # another process wrote since, or nothing is held: read the store
+    return held
+
+
+def _only_waits(
+    rail_id: str,
+    incoming: IncomingSamples,
+    locked: Locked,
+    tuning: Tuning,
+) -> tuple[_Outcome, list[dict[str, Any]]] | None:
+    """The outcome and the rows to store when all of ``incoming`` simply waits: the rail's
+    state is held and current, every sample is new (a seq above any stored, none twice),
+    newer than the live state and routine (:func:`_may_wait`). Then nothing need be read,
+    judged or written but the rows (the stamp is this process's alone, resident.py), which
+    the caller stores with other rails'. None: anything else, for :func:`_ingest`."""
+    version, head = locked
+    held = _held(rail_id, head, tuning)
+    if tuning.judge_within_s <= 0 or held is None or held.version != version or not incoming.n:
+        return None
+    seqs = incoming.seq
+    if int(seqs.min()) <= held.seq_ceiling or np.unique(seqs).size != seqs.size:
+        return None
+    batch = to_batch(incoming, held.model)
+    if head is not None and head.last_t_s is not None and not (batch.t_s > head.last_t_s).all():
+        return None
+    arrived = batch.take(np.argsort(batch.t_s, kind="stable"))
+    live_batch = arrived if held.waiting is None else _in_time_order(held.waiting, arrived)
+    now = tuning.monotonic()
+    if not _may_wait(tuning, held.model, held, arrived, live_batch, now):
+        return None
+    kept = replace(
+        held,
+        seq_ceiling=int(seqs.max()),
+        waiting=live_batch,
+        waiting_since=now if held.waiting_since is None else held.waiting_since,
+    )
+    every = np.ones(batch.n, dtype=bool)
+    condition = held.state.get("rail", {}).get("condition")
+    outcome = _Outcome(every, every, condition, version, rail_id=rail_id, resident=kept)
+    return outcome, _rows(rail_id, version, batch)
+
+
 def _ingest(
     session: Session,
     rail_id: str,
     incoming: IncomingSamples,
     parts: Sequence[int] = (),
     tuning: Tuning = TUNING,
+    locked: Locked | None = None,
 ) -> _Outcome:
     """Store and judge ``incoming``: one request, or the requests of a group (``parts``: their
     sizes). A sample two requests of a group both carry (a resend racing its original) is
-    stored once and judged once, as if the requests had come one after the other."""
+    stored once and judged once, as if the requests had come one after the other.
+    ``locked``: what :func:`_lock` found for the rail, if the caller locked it already."""
     now_s = time.time()
-    version = rails.version_for_update(session, rail_id)
+    version, head = locked if locked is not None else _lock(session, [rail_id])[rail_id]
     if version is None:
         raise NotFound(f"no rail '{rail_id}'", field="rail_id")
-    head = state.head(session, rail_id)
-    held = tuning.live.get(rail_id) if tuning.live is not None else None
-    if held is None or head is None or head.stamp != held.stamp:
-        held = None  # another process wrote since, or nothing is held: read the store
+    held = _held(rail_id, head, tuning)
     if held is not None and held.version == version:
         spec, model = held.spec, held.model
     else:
@@ -340,18 +410,15 @@ def _ingest(
     if not live_batch.n:  # nothing waits: the samples are resends or late
         if not fresh.any() or head is None:
             return replace(outcome, rail_id=rail_id)
-        stamp = secrets.randbits(63)  # late samples stored: held ceilings elsewhere are void
-        state.restamp(session, rail_id, stamp)
-        kept = None if held is None else replace(held, stamp=stamp, seq_ceiling=ceiling)
-        return replace(outcome, rail_id=rail_id, resident=kept)
+        if held is not None:  # the stamp is ours alone (resident.py): it stays
+            return replace(outcome, rail_id=rail_id, resident=replace(held, seq_ceiling=ceiling))
+        # Late samples stored: a copy held elsewhere must not vouch for the stored seqs.
+        state.restamp(session, rail_id, secrets.randbits(63))
+        return replace(outcome, rail_id=rail_id)
     now_mono = tuning.monotonic()
     if held is not None and same and _may_wait(tuning, model, held, arrived, live_batch, now_mono):
-        stamp = secrets.randbits(63)  # samples stored: held ceilings elsewhere are void
-        state.restamp(session, rail_id, stamp)
         since = now_mono if held.waiting_since is None else held.waiting_since
-        kept = replace(
-            held, stamp=stamp, seq_ceiling=ceiling, waiting=live_batch, waiting_since=since
-        )
+        kept = replace(held, seq_ceiling=ceiling, waiting=live_batch, waiting_since=since)
         return replace(outcome, rail_id=rail_id, resident=kept)
     if held is not None and same:
         previous = held.state

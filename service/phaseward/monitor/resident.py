@@ -23,12 +23,19 @@ from phaseward.monitor.telemetry import SampleBatch
 
 @dataclass(frozen=True)
 class Resident:
-    """A rail's live state as its last write stored it. ``replay``: what was judged since the
-    checkpoint (the row's column of the same name); ``seq_ceiling``: the highest seq of the
-    rail stored when it was written (every pass that stores a sample writes a new stamp), so
-    a batch of higher seqs needs no resend look-up; ``waiting``: routine samples stored and
-    left to be judged with the rail's next ones (setting ``judge_within_s``); ``state`` and
-    ``spec`` are never changed in place."""
+    """A rail's live state as its last write stored it.
+
+    A stamp is held by the one process that wrote it (stamps are random, and a copy is only
+    made by writing). So a process whose copy has the row's stamp may store samples without
+    writing the row: no copy elsewhere can vouch for the rail's stored seqs or its waiting
+    samples, and its own copy, updated, stays current. A pass that stores samples without
+    such a copy writes a new stamp, which voids any copy held elsewhere.
+
+    ``replay``: what was judged since the checkpoint (the row's column of the same name);
+    ``seq_ceiling``: the highest seq of the rail stored, so a batch of higher seqs needs no
+    resend look-up; ``waiting``: routine samples stored and left to be judged with the rail's
+    next ones (setting ``judge_within_s``); ``state`` and ``spec`` are never changed in
+    place."""
 
     stamp: int
     version: int

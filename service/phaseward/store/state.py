@@ -25,9 +25,12 @@ class Head:
 # The statements of the ingest and status paths, built once: building a statement and its
 # cache key cost several times executing it (about 150 against 25 microseconds on SQLite).
 _RAIL: BindParameter[str] = bindparam("rail_id")
-_HEAD = (
-    select(RailState.version, RailState.last_t_s, RailState.stamp, RailState.replay)
-    .where(RailState.rail_id == _RAIL)
+_HEADS = (
+    select(
+        RailState.rail_id, RailState.version, RailState.last_t_s, RailState.stamp, RailState.replay
+    )
+    .where(RailState.rail_id.in_(bindparam("ids", expanding=True)))
+    .order_by(RailState.rail_id)
     .with_for_update()
 )
 _VERSION_AND_STAMP = (
@@ -45,13 +48,14 @@ def get(session: Session, rail_id: str) -> RailState | None:
     return session.scalars(select(RailState).where(RailState.rail_id == rail_id)).one_or_none()
 
 
-def head(session: Session, rail_id: str) -> Head | None:
-    """The row's small columns, with the row lock on PostgreSQL (SQLite's BEGIN IMMEDIATE
-    already serialises writers) so concurrent ingest never interleaves updates. A statement
-    of its own, after the rail's lock: joined to the locking statement, PostgreSQL (read
-    committed) would return this row as it was before the wait for the lock."""
-    row = session.connection().execute(_HEAD, {"rail_id": rail_id}).one_or_none()
-    return None if row is None else Head(*row)
+def heads(session: Session, rail_ids: Sequence[str]) -> dict[str, Head]:
+    """The rows' small columns (a rail missing: no state yet), with their row locks on
+    PostgreSQL (SQLite's BEGIN IMMEDIATE already serialises writers) so concurrent ingest
+    never interleaves updates. A statement of its own, after the rails' locks: joined to the
+    locking statement, PostgreSQL (read committed) would return these rows as they were
+    before the wait for the lock."""
+    found = session.connection().execute(_HEADS, {"ids": list(rail_ids)})
+    return {row[0]: Head(*row[1:]) for row in found}
 
 
 def version_and_stamp(session: Session, rail_id: str) -> tuple[int, int | None] | None:

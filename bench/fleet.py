@@ -16,7 +16,9 @@ The row's ratio is the worst of achieved/offered, 250 ms / ingest p99 and 50 ms 
 (0 with any error), so it reaches 1 only when every target is met.
 
 Run: ``python -m bench.fleet [--rails N] [--seconds S] [--db sqlite|postgres|both]``; with
-``PHASEWARD_BENCH_QUICK=1`` the defaults shrink to 100 rails for 20 s (development only).
+``PHASEWARD_BENCH_QUICK=1`` the defaults shrink to 100 rails for 20 s (development only);
+with ``PHASEWARD_BENCH_WORKERS=N`` the PostgreSQL server runs ``serve --workers N`` (the row
+says so; the server CPU is summed over its processes).
 PostgreSQL from ``PHASEWARD_BENCH_DATABASE_URL`` (default the local test database), in a
 schema of its own that is dropped afterwards.
 """
@@ -61,6 +63,9 @@ CONNECTIONS = 50  # racks posting side by side, each for its share of the fleet
 # The fleet's setting (README, "Fleet"): routine samples judged together within this, s;
 # ``PHASEWARD_JUDGE_WITHIN_S`` in the environment overrides it (0: each sample on arrival).
 JUDGE_WITHIN_S = os.environ.get("PHASEWARD_JUDGE_WITHIN_S", "5")
+# ``serve --workers N`` on PostgreSQL (``PHASEWARD_BENCH_WORKERS``, default 1: the target is
+# one process); SQLite always runs one.
+WORKERS = int(os.environ.get("PHASEWARD_BENCH_WORKERS", "1"))
 STATUS_RATE = 10.0  # status reads of a random rail per second (operator screens)
 RAW_TX_ROWS = 1000
 INGEST_P99_S, STATUS_P99_S, SUSTAINED = 0.25, 0.05, 0.98
@@ -145,7 +150,10 @@ def server(data_dir: Path, url: str) -> Iterator[tuple[int, int]]:
         "PHASEWARD_AUTH_MODE": "open", "PHASEWARD_RATE_PER_S": "1e6",
         "PHASEWARD_RATE_BURST": "1000000", "PHASEWARD_JUDGE_WITHIN_S": JUDGE_WITHIN_S,
     }  # fmt: skip
-    proc = subprocess.Popen([sys.executable, "-m", "phaseward.cli", "serve"], env=env)
+    workers = str(WORKERS if "postgresql" in url else 1)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "phaseward.cli", "serve", "--workers", workers], env=env
+    )
     try:
         wait_until_healthy(proc, port)
         yield port, proc.pid
@@ -326,9 +334,10 @@ def rows(
         m = measure(kind, rails, seconds, search_seconds)
         fleet: Fleet = m["fleet"]
         raw = "COPY" if kind == "postgres" else "executemany"
+        processes = "one process" if kind == "sqlite" or WORKERS == 1 else f"{WORKERS} workers"
         out.append(Row(
-            f"fleet on {kind}: {rails} rails x 1 sample/s, 12 phases, {seconds:.0f} s, one "
-            f"process, routine samples judged within {JUDGE_WITHIN_S} s (worst of rate, ingest "
+            f"fleet on {kind}: {rails} rails x 1 sample/s, 12 phases, {seconds:.0f} s, "
+            f"{processes}, routine samples judged within {JUDGE_WITHIN_S} s (worst of rate, ingest "
             "p99 <= 250 ms, status p99 <= 50 ms)",
             fleet.text(), f"raw {raw} {m['raw_rate']:.0f} rows/s", fleet.score, 1.0,
             note=(

@@ -51,9 +51,15 @@ PATH = f"/v1/rails/{RAIL}/samples"
 
 
 def cpu_seconds(pid: int) -> float:
-    """User + system CPU time of a process so far (/proc/<pid>/stat, Linux)."""
-    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
-    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    """User + system CPU time so far of a process and its live descendants (a server with
+    worker processes), from /proc (Linux). A process that ended meanwhile counts nothing."""
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+        children = Path(f"/proc/{pid}/task/{pid}/children").read_text().split()
+    except FileNotFoundError:
+        return 0.0
+    own = (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    return own + sum(cpu_seconds(int(child)) for child in children)
 
 
 def as_columns(body: str) -> str:

@@ -572,15 +572,8 @@ def kalman_run(
     >>> z.shape, bool(abs(z[-1, 0]) < 0.1)  # settled on the readings: nothing unexpected
     ((400, 1), True)
     """
-    model = discrete_model(
-        net,
-        dt_s,
-        process_noise_w=process_noise_w,
-        sensor_noise_k=sensor_noise_k,
-        sensor_tau_s=sensor_tau_s,
-        sensor_offset_k=sensor_offset_k,
-    )
-    _check_state(model, state)
+    filt = _filter(net, dt_s, process_noise_w, sensor_noise_k, sensor_tau_s, sensor_offset_k)
+    _check_state(filt.model, state)
     if np.ndim(p0_w) != 2 or np.shape(p0_w)[0] == 0:
         raise ValueError("p0_w must have shape (n_steps, n_phases) with n_steps >= 1")
     shape = (np.shape(p0_w)[0], net.n_phases)
@@ -595,14 +588,7 @@ def kalman_run(
     if np.ndim(ambient_c) not in (0, 1):
         raise ValueError("ambient_c must be a float or have shape (n_steps,)")
     ambient = _array("ambient_c", ambient_c, shape[:1])
-    key = (
-        net,
-        model.dt_s,
-        None if sensor_tau_s is None else _tuple(sensor_tau_s, shape[1]),
-        _tuple(process_noise_w, shape[1]),
-        _tuple(sensor_noise_k, shape[1]),
-    )
-    return filter_run(Filter(model, key), state.mean_c, state.cov_k2, p0, slope, ambient, reading)
+    return filter_run(filt, state.mean_c, state.cov_k2, p0, slope, ambient, reading)
 
 
 class Filter(NamedTuple):
@@ -626,6 +612,18 @@ def filter_for(
 ) -> Filter:
     """The filter :func:`kalman_run` builds for scalar noise and sensor arguments, built (and
     its arguments checked) once per set: for callers that filter every sample of a rail."""
+    return _filter(net, dt_s, process_noise_w, sensor_noise_k, sensor_tau_s, sensor_offset_k)
+
+
+def _filter(
+    net: ThermalNetwork,
+    dt_s: float,
+    process_noise_w: npt.ArrayLike,
+    sensor_noise_k: npt.ArrayLike,
+    sensor_tau_s: npt.ArrayLike | None,
+    sensor_offset_k: npt.ArrayLike,
+) -> Filter:
+    """The discrete model for these arguments, and its key for the steady gains."""
     model = discrete_model(
         net,
         dt_s,
@@ -635,8 +633,8 @@ def filter_for(
         sensor_offset_k=sensor_offset_k,
     )
     n_ph = net.n_phases
-    tau = None if sensor_tau_s is None else (float(sensor_tau_s),) * n_ph
-    noise = ((float(process_noise_w),) * n_ph, (float(sensor_noise_k),) * n_ph)
+    tau = None if sensor_tau_s is None else _tuple(sensor_tau_s, n_ph)
+    noise = (_tuple(process_noise_w, n_ph), _tuple(sensor_noise_k, n_ph))
     return Filter(model, (net, model.dt_s, tau, *noise))
 
 

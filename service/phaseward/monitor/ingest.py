@@ -34,10 +34,8 @@ assessed depends on the samples alone:
   once the window is complete (``fault_class``), whichever request completes it.
 
 Routine samples may wait (``Tuning.judge_within_s``): stored and answered, but judged in one
-pass with the rail's next ones: the first sample of the rail's next waiting window (each at
-most that long, shifted per rail so that a fleet's passes spread) judges them, or, for a
-rail gone quiet, the server's settling loop. That is batching, so events and the live state
-are the same.
+pass with the rail's next ones, at the latest once the first of them has waited that long
+(the server's settling loop). That is batching, so events and the live state are the same.
 The samples waiting are those stored after the live state (the state row is not written):
 held in memory by the process that stored them, read back from the store by any other.
 
@@ -49,10 +47,8 @@ last checkpoint; a process without the state in memory replays them over the che
 
 from __future__ import annotations
 
-import math
 import secrets
 import time
-import zlib
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from itertools import pairwise
@@ -518,17 +514,15 @@ def _may_wait(
     now: float,
 ) -> bool:
     """Whether the samples that arrived may wait to be judged with the rail's next ones: only
-    when waiting is allowed and the rail's first waiting sample arrived in the rail's current
-    waiting window (:func:`_window`, at most ``judge_within_s``), and only routine samples of
-    a rail in routine state (every phase active, the rail nominal, every phase reported with
-    a finite current and temperature, no flag, current within rating, temperature below the
-    warning line by the hysteresis, output voltage within its excursion band). Anything else
-    is judged at once, with the samples that waited before it."""
+    when waiting is allowed and the rail's first waiting sample is younger than
+    ``judge_within_s``, and only routine samples of a rail in routine state (every phase
+    active, the rail nominal, every phase reported with a finite current and temperature, no
+    flag, current within rating, temperature below the warning line by the hysteresis,
+    output voltage within its excursion band). Anything else is judged at once, with the
+    samples that waited before it."""
     if tuning.judge_within_s <= 0 or not arrived.n or waiting.n > _MAX_WAITING:
         return False
-    since = held.waiting_since
-    window = _window(model.rail_id, now, tuning)
-    if since is not None and window != _window(model.rail_id, since, tuning):
+    if held.waiting_since is not None and now - held.waiting_since >= tuning.judge_within_s:
         return False
     live = held.state
     if live.get("rail", {}).get("condition") != "nominal":
@@ -546,17 +540,6 @@ def _may_wait(
         and (arrived.temp_c < model.temp_limit_c - rules.hysteresis_k).all()
         and (np.abs(arrived.vout_v - model.vout_v) <= band).all()
     )
-
-
-def _window(rail_id: str, t: float, tuning: Tuning) -> int:
-    """The rail's waiting window holding monotonic time ``t``: windows ``judge_within_s`` long,
-    shifted by a fraction of that fixed per rail (from its id's CRC-32). Samples wait within
-    one window at most, so never longer than the setting; and a fleet's rails fall due spread
-    over the interval, not all at once (rails started together would stay in step, their
-    passes one burst that holds up every request; 200-360 ms every 6 s at 43 rails)."""
-    width = tuning.judge_within_s
-    shift = width * zlib.crc32(rail_id.encode()) / 2**32
-    return math.floor((t + shift) / width)
 
 
 def _without_covariance(full: dict[str, Any]) -> dict[str, Any]:

@@ -56,12 +56,12 @@ class Stream:
 
 
 async def _connection(
-    port: int, stream: Stream, stop_at: float, interval_s: float | None,
+    port: int, stream: Stream, stop_at: float, interval_s: float | None, first_at: float,
     latencies: list[float], statuses: dict[int, int],
 ) -> None:  # fmt: skip
     reader, writer = await asyncio.open_connection("127.0.0.1", port)
     k = 0
-    next_at = time.perf_counter()
+    next_at = first_at
     try:
         while time.perf_counter() < stop_at and (stream.bodies is None or k < len(stream.bodies)):
             if interval_s is not None:  # open loop: keep the schedule, do not wait for replies
@@ -109,9 +109,13 @@ async def _main(config: dict[str, Any]) -> dict[str, Any]:
     statuses: dict[int, int] = {}
     started = time.perf_counter()
     stop_at = started + duration
+    # Paced connections start evenly spread over one interval, as independent senders (racks
+    # on clocks of their own) are: the offered load is even in time, not one burst of every
+    # connection at the same instant each interval.
+    offset = (interval or 0.0) / len(streams)
     await asyncio.gather(*(
-        _connection(port, s, stop_at, interval, lat, statuses)
-        for s, lat in zip(streams, latencies, strict=True)
+        _connection(port, s, stop_at, interval, started + c * offset, lat, statuses)
+        for c, (s, lat) in enumerate(zip(streams, latencies, strict=True))
     ))  # fmt: skip
     return {
         "elapsed_s": time.perf_counter() - started,

@@ -73,24 +73,23 @@ def _unjudged(sessions: sessionmaker[Session]) -> list[str]:
         return []
 
 
-QUIET_GRACE_S = 1.0  # a rail posting once a second judges its own waiting samples by then
-SETTLE_RAILS = 16  # rails a settling group holds: requests queued meanwhile go between groups
+SETTLE_EVERY_S = 0.1  # the settling loop looks for due rails this often (at most)
+SETTLE_RAILS = 4  # rails a settling group holds: requests queued meanwhile go between groups
 
 
 async def _settle_loop(group_commit: GroupCommit, tuning: Tuning) -> None:
-    """Judge the samples of rails that went quiet: waiting for ``judge_within_s`` and
-    ``QUIET_GRACE_S`` more (a rail that keeps posting has them judged by its next sample, so
-    the work stays spread as the rails' posts are, instead of falling due for a whole fleet
-    at once); checked every quarter of the interval, and at once at start for samples stored
-    and not judged before a restart. Settled a few rails a group, so ingest waits little."""
+    """Judge the samples of rails whose first waiting sample has waited ``judge_within_s``,
+    a few rails a group through the group commit (one writer), so that requests queued
+    meanwhile wait for one small group of passes, not for a whole fleet's falling due at
+    once; at once at start for samples stored and not judged before a restart."""
     waiting = tuning.waiting
     if waiting is None:
         return
     while True:
-        due = waiting.due(tuning.monotonic(), tuning.judge_within_s + QUIET_GRACE_S)
+        due = waiting.due(tuning.monotonic(), tuning.judge_within_s)
         for start in range(0, len(due), SETTLE_RAILS):
             await group_commit.settle(due[start : start + SETTLE_RAILS])
-        await asyncio.sleep(max(0.05, tuning.judge_within_s / 4))
+        await asyncio.sleep(min(SETTLE_EVERY_S, tuning.judge_within_s / 4))
 
 
 async def _partition_loop(settings: Settings, engine: Engine) -> None:

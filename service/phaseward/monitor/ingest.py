@@ -34,8 +34,12 @@ assessed depends on the samples alone:
   once the window is complete (``fault_class``), whichever request completes it.
 
 Routine samples may wait (``Tuning.judge_within_s``): stored and answered, but judged in one
-pass with the rail's next ones, at the latest once the first of them has waited that long
-(the server's settling loop). That is batching, so events and the live state are the same.
+pass with the rail's next ones, once the first of them has waited that long, by the server's
+settling loop, a few rails at a time between the groups of requests: a fleet's rails fall due
+together (their windows start with the same second's samples), and judging them in the
+requests that arrive then held every request of that second behind a burst of passes. When
+the loop falls behind, a rail's samples wait at most ``OVERDUE`` times the setting; past that
+its next request judges them. That is batching, so events and the live state are the same.
 The samples waiting are those stored after the live state (the state row is not written):
 held in memory by the process that stored them, read back from the store by any other.
 
@@ -503,6 +507,9 @@ def _in_time_order(first: SampleBatch, then: SampleBatch) -> SampleBatch:
 
 
 _MAX_WAITING = 600  # samples of one rail held back at most (memory; a pass judges them all)
+# Past this many times ``judge_within_s`` a rail's next request judges its waiting samples
+# itself: the backstop for a settling loop that has fallen behind (module docstring).
+OVERDUE = 2.0
 
 
 def _may_wait(
@@ -514,15 +521,15 @@ def _may_wait(
     now: float,
 ) -> bool:
     """Whether the samples that arrived may wait to be judged with the rail's next ones: only
-    when waiting is allowed and the rail's first waiting sample is younger than
-    ``judge_within_s``, and only routine samples of a rail in routine state (every phase
+    when waiting is allowed and the rail's first waiting sample is younger than ``OVERDUE``
+    times ``judge_within_s`` (the settling loop judges them once due), and only routine samples of a rail in routine state (every phase
     active, the rail nominal, every phase reported with a finite current and temperature, no
     flag, current within rating, temperature below the warning line by the hysteresis,
     output voltage within its excursion band). Anything else is judged at once, with the
     samples that waited before it."""
     if tuning.judge_within_s <= 0 or not arrived.n or waiting.n > _MAX_WAITING:
         return False
-    if held.waiting_since is not None and now - held.waiting_since >= tuning.judge_within_s:
+    if held.waiting_since is not None and now - held.waiting_since >= OVERDUE * tuning.judge_within_s:
         return False
     live = held.state
     if live.get("rail", {}).get("condition") != "nominal":

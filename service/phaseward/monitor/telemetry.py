@@ -101,6 +101,8 @@ class IncomingSamples:
 
 def concat(parts: Sequence[IncomingSamples]) -> IncomingSamples:
     """Several requests' samples as one batch (readings renumbered to their merged sample)."""
+    if len(parts) == 1:  # a lone request, the most common group of a fleet
+        return parts[0]
     offsets = np.cumsum([0, *(p.n for p in parts[:-1])])
     fields: dict[str, Any] = {
         f: np.concatenate([getattr(p, f) for p in parts])

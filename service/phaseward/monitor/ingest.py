@@ -328,12 +328,7 @@ def _only_waits(
     now = tuning.monotonic()
     if not _may_wait(tuning, held.model, held, arrived, live_batch, now):
         return None
-    kept = replace(
-        held,
-        seq_ceiling=int(seqs.max()),
-        waiting=live_batch,
-        waiting_since=now if held.waiting_since is None else held.waiting_since,
-    )
+    kept = _left_waiting(held, int(seqs.max()), live_batch, now)
     every = np.ones(batch.n, dtype=bool)
     condition = held.state.get("rail", {}).get("condition")
     outcome = _Outcome(every, every, condition, version, rail_id=rail_id, resident=kept)
@@ -422,8 +417,7 @@ def _ingest(
         return replace(outcome, rail_id=rail_id)
     now_mono = tuning.monotonic()
     if held is not None and same and _may_wait(tuning, model, held, arrived, live_batch, now_mono):
-        since = now_mono if held.waiting_since is None else held.waiting_since
-        kept = replace(held, seq_ceiling=ceiling, waiting=live_batch, waiting_since=since)
+        kept = _left_waiting(held, ceiling, live_batch, now_mono)
         return replace(outcome, rail_id=rail_id, resident=kept)
     if held is not None and same:
         previous = held.state
@@ -466,6 +460,12 @@ def _ingest(
             seq_ceiling=ceiling,
         ),
     )
+
+
+def _left_waiting(held: Resident, ceiling: int, waiting: SampleBatch, now: float) -> Resident:
+    """``held`` with ``waiting`` stored and not judged; the wait dates from its first sample."""
+    since = now if held.waiting_since is None else held.waiting_since
+    return replace(held, seq_ceiling=ceiling, waiting=waiting, waiting_since=since)
 
 
 def _stored_state(
@@ -523,14 +523,15 @@ def _may_wait(
 ) -> bool:
     """Whether the samples that arrived may wait to be judged with the rail's next ones: only
     when waiting is allowed and the rail's first waiting sample is younger than ``OVERDUE``
-    times ``judge_within_s`` (the settling loop judges them once due), and only routine samples of a rail in routine state (every phase
-    active, the rail nominal, every phase reported with a finite current and temperature, no
-    flag, current within rating, temperature below the warning line by the hysteresis,
-    output voltage within its excursion band). Anything else is judged at once, with the
-    samples that waited before it."""
+    times ``judge_within_s`` (the settling loop judges them once due), and only routine
+    samples of a rail in routine state (every phase active, the rail nominal, every phase
+    reported with a finite current and temperature, no flag, current within rating,
+    temperature below the warning line by the hysteresis, output voltage within its excursion
+    band). Anything else is judged at once, with the samples that waited before it."""
     if tuning.judge_within_s <= 0 or not arrived.n or waiting.n > _MAX_WAITING:
         return False
-    if held.waiting_since is not None and now - held.waiting_since >= OVERDUE * tuning.judge_within_s:
+    since = held.waiting_since
+    if since is not None and now - since >= OVERDUE * tuning.judge_within_s:
         return False
     live = held.state
     if live.get("rail", {}).get("condition") != "nominal":

@@ -11,9 +11,10 @@ import numpy.typing as npt
 from fastapi import APIRouter, Query, Request
 from fastapi.concurrency import run_in_threadpool
 from pydantic import ValidationError
+from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.api.auth import RailIngester, RailReader
-from phaseward.api.deps import ClockDep, ReadSessionDep, SessionsDep, SettingsDep
+from phaseward.api.deps import Clock, ReadSessionDep, SettingsDep
 from phaseward.api.errors import ERROR_RESPONSES, field_path
 from phaseward.api.group_commit import GroupCommit
 from phaseward.api.observability import Metrics
@@ -45,6 +46,7 @@ from phaseward.monitor import rails as rail_service
 from phaseward.monitor import retention
 from phaseward.monitor.rejections import record_rejection
 from phaseward.monitor.telemetry import IncomingSamples
+from phaseward.settings import Settings
 from phaseward.store import samples as sample_store
 
 router = APIRouter(prefix="/v1/rails", tags=["telemetry"], responses=ERROR_RESPONSES)
@@ -160,14 +162,7 @@ def read_samples(body: bytes, content_type: str, *, max_items: int) -> IncomingS
 
 
 @router.post("/{rail_id}/samples", openapi_extra=_BODY_DOC)
-async def post_samples(
-    rail_id: RailId,
-    request: Request,
-    sessions: SessionsDep,
-    settings: SettingsDep,
-    clock: ClockDep,
-    _: RailIngester,
-) -> IngestOut:
+async def post_samples(rail_id: RailId, request: Request, _: RailIngester) -> IngestOut:
     """Store samples and advance the rail's live state. The answer comes after the commit.
     On a server with ``PHASEWARD_JUDGE_WITHIN_S`` set, routine samples may be stored and left
     to be judged with the rail's next ones (``waiting`` counts them; ``condition`` is then the
@@ -177,6 +172,12 @@ async def post_samples(
     ``application/x-ndjson``), or for bulk the columnar JSON
     (``application/vnd.phaseward.columns+json``) or CSV (``text/csv``) forms, which are
     checked as arrays: the same rules and bounds, a fraction of the cost per sample."""
+    # Looked up here, not as dependencies: FastAPI solves each dependency per request, and
+    # this route takes a fleet's every sample (three fewer: about a third of its solving).
+    state = request.app.state
+    settings: Settings = state.settings
+    sessions: sessionmaker[Session] = state.sessions
+    clock: Clock = state.clock
     body = await read_limited(request, settings.max_body_bytes)
     metrics: Metrics = request.app.state.metrics
     try:

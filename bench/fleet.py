@@ -3,8 +3,10 @@ to one ``phaseward serve`` process, on PostgreSQL and on SQLite (issue 16).
 
 Per database: the fleet runs for ``seconds`` (default 120) with single-sample requests from
 ``CONNECTIONS`` keep-alive connections paced to N samples/s in total, each connection taking
-its rails in turn, while a reader asks for the status of a random rail ``STATUS_RATE`` times a
-second. Reported: the achieved rate, ingest p50/p99, status p99 and every non-2xx answer.
+its rails in turn (the connections' schedules spread evenly over one interval, as
+independent racks post, not every connection at one instant), while a reader asks for the
+status of a random rail ``STATUS_RATE`` times a second. Reported: the achieved rate, ingest
+p50/p99, status p99 and every non-2xx answer.
 Beside it, in the same run, raw inserts of the same rows as the service packs them (SQLite:
 ``executemany``; PostgreSQL: ``COPY``; 1,000 rows a transaction, the most a cross-rail commit
 could merge) into a fresh database with the service's schema, and that table's size per
@@ -221,18 +223,32 @@ def run_fleet(
     )  # fmt: skip
 
 
+def quiet(pid: int, busy: float = 0.05, longest_s: float = 120.0) -> None:
+    """Wait until the server uses less than ``busy`` of a core over a second (at most
+    ``longest_s``): the samples a finished load left waiting are judged by then, and their
+    passes do not run into the next probe (a thousand rails going quiet at once is another
+    benchmark)."""
+    deadline = time.monotonic() + longest_s
+    while time.monotonic() < deadline:
+        before = cpu_seconds(pid)
+        time.sleep(1.0)
+        if cpu_seconds(pid) - before < busy:
+            return
+
+
 def search(
     server: tuple[int, int], rails: int, first: Fleet, seconds: float, t0: float, seq: int
 ) -> tuple[int, str]:
     """Largest sustained fleet by bisection between 0 and ``rails`` (at most 4 probes, the
-    first near what the full fleet achieved), seqs from ``seq``. Returns it and the probes
-    as text."""
+    first near what the full fleet achieved, each once the server is quiet), seqs from
+    ``seq``. Returns it and the probes as text."""
     lo, hi = 0, rails
     if first.sustained:
         return rails, "the full fleet is sustained"
     probe = max(1, min(rails - 1, int(first.achieved * 0.8)))
     notes = []
     for _ in range(4):
+        quiet(server[1])
         got = run_fleet(server, probe, seconds, seq, t0)
         seq += 2 * int(seconds) + 10  # past every seq a rail of the probe was sent
         notes.append(f"{probe} rails: {got.text()}")

@@ -80,16 +80,20 @@ def simulate(
         hi = min(n, lo + chunk)
         net = nominal if scale is None else network(n_ph, scale(lo))
         m = discrete_model(net, dt_s, process_noise_w=0.0, sensor_noise_k=1.0)
-        lam, vec = np.linalg.eig(m.transition)
-        lam, vec = lam.real, vec.real  # a passive RC network: real modes
+        # An RC network's transition is similar to a symmetric matrix: with D = diag(sqrt(C)),
+        # D F D^-1 = expm(-D^-1 G D^-1 dt). Its eigh modes are orthonormal even where identical
+        # phases repeat an eigenvalue, where eig's eigenvectors can come out singular (it did
+        # on one LAPACK build of the same numpy).
+        root_c = np.sqrt(net.capacitance_j_per_k)
+        lam, q = np.linalg.eigh(root_c[:, None] * m.transition / root_c[None, :])
         drive = (power_w[lo:hi] + noise[lo:hi]) @ m.loss_input_k_per_w.T
         drive += ambient_c * m.ambient_input
-        modal_in = np.linalg.solve(vec, drive.T)  # (n_states, steps)
-        y0 = np.linalg.solve(vec, x)
+        modal_in = q.T @ (root_c[:, None] * drive.T)  # (n_states, steps)
+        y0 = q.T @ (root_c * x)
         modes = np.empty_like(modal_in)
         for j in range(lam.size):  # y_{k+1} = lam y_k + u_k, from y0
             modes[j], _ = signal.lfilter([1.0], [1.0, -lam[j]], modal_in[j], zi=[lam[j] * y0[j]])
-        states = vec @ modes
+        states = (q @ modes) / root_c[:, None]
         junction[lo:hi] = states[net.junction_node].T
         x = states[:, -1]
     readings = junction + SENSOR_NOISE_K * rng.standard_normal((n, n_ph))

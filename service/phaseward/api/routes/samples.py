@@ -178,8 +178,8 @@ async def post_samples(rail_id: RailId, request: Request, _: RailIngester) -> In
     settings: Settings = state.settings
     sessions: sessionmaker[Session] = state.sessions
     clock: Clock = state.clock
+    metrics: Metrics = state.metrics
     body = await read_limited(request, settings.max_body_bytes)
-    metrics: Metrics = request.app.state.metrics
     try:
         incoming = read_samples(
             body, request.headers.get("content-type", ""), max_items=settings.max_batch_samples
@@ -193,7 +193,7 @@ async def post_samples(rail_id: RailId, request: Request, _: RailIngester) -> In
         )
         metrics.count_samples(rejected=refused.samples)
         raise refused.answer from None
-    group_commit: GroupCommit = request.app.state.group_commit
+    group_commit: GroupCommit = state.group_commit
     try:
         result = await group_commit.submit(rail_id, incoming)
     except PhasewardError:

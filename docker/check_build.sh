@@ -32,8 +32,12 @@ PHASEWARD_HOST=127.0.0.1 PHASEWARD_PORT="$port" PHASEWARD_DATA_DIR="$work/data" 
 server=$!
 for _ in $(seq 1 100); do
     if PHASEWARD_PORT="$port" "$work/venv/bin/python" "$root/docker/healthcheck.py"; then
-        curl -fsS "http://127.0.0.1:$port/" | grep -q "phaseward" || { echo "page missing"; exit 1; }
-        curl -fsS "http://127.0.0.1:$port/docs" | grep -q "swagger" || { echo "API docs missing"; exit 1; }
+        # Fetched whole into a file first: piped, grep -q stops reading at its first match and
+        # curl, still writing the rest of the page, fails (23), which pipefail reports.
+        curl -fsS "http://127.0.0.1:$port/" -o "$work/page.html"
+        grep -q "phaseward" "$work/page.html" || { echo "page missing"; exit 1; }
+        curl -fsS "http://127.0.0.1:$port/docs" -o "$work/docs.html"
+        grep -q "swagger" "$work/docs.html" || { echo "API docs missing"; exit 1; }
         # The operator commands work in this install too (they import the bundled client):
         # the service asks for a key, so the command must say so in one line and exit 1.
         set +e

@@ -10,11 +10,13 @@ that cell, and nothing is stored.
 from __future__ import annotations
 
 import csv
+import dataclasses
 import io
 import json
 from typing import Any
 
 import httpx
+import numpy as np
 import pytest
 from fastapi import FastAPI
 from hypothesis import HealthCheck, given, settings
@@ -24,8 +26,9 @@ from tests.service.test_ingest_properties import T0, new_rail, telemetry
 
 from phaseward.api.schemas.columns import PHASE_COLUMNS, SAMPLE_COLUMNS, Refusal, parse_columns
 from phaseward.api.schemas.columns_csv import parse_csv
-from phaseward.api.schemas.samples import PhaseReading, SampleIn
+from phaseward.api.schemas.samples import SAMPLES, PhaseReading, SampleIn, to_incoming
 from phaseward.errors import BadRequest, PayloadTooLarge
+from phaseward.monitor.telemetry import IncomingSamples
 from phaseward.store import state
 from phaseward.store.db import transaction
 
@@ -94,6 +97,36 @@ async def test_objects_columns_and_csv_store_and_judge_alike(
         got[form] = {"answers": answers, **await outcome(client, app, rail_id)}
     assert got["columns"] == got["objects"]
     assert got["csv"] == got["objects"]
+
+
+PER_SAMPLE = ("seq", "t_s", "vin_v", "vout_v", "iout_a", "iin_a", "ambient_c")
+
+
+@settings(max_examples=300, deadline=None)
+@given(case=telemetry())
+def test_objects_and_columns_give_the_same_arrays(
+    case: tuple[int, int, list[Json], list[list[int]]],
+) -> None:
+    """The two readers the monitor is fed by (sample objects through the schema, columns
+    through numpy) give the same long-form arrays, dtype and bit for bit, up to the order of
+    the readings within a sample (objects keep the body's, columns the phase index's)."""
+    samples = case[2]
+    columns = to_columns(samples)
+    assert columns is not None
+    from_objects = to_incoming(SAMPLES.validate_python(samples))
+    from_columns = parse_columns(json.dumps(columns).encode(), max_items=len(samples))
+    mine_order = np.lexsort((from_objects.phase, from_objects.item))
+    theirs_order = np.lexsort((from_columns.phase, from_columns.item))
+    for field in dataclasses.fields(IncomingSamples):
+        if field.name in ("cell", "slot"):  # how each names a bad cell: in its own body's terms
+            continue
+        mine, theirs = getattr(from_objects, field.name), getattr(from_columns, field.name)
+        assert mine.dtype == theirs.dtype, field.name
+        if field.name not in PER_SAMPLE:
+            mine, theirs = mine[mine_order], theirs[theirs_order]
+        np.testing.assert_array_equal(mine, theirs, err_msg=field.name)
+    positions = [j for sample in samples for j in range(len(sample["phases"]))]
+    np.testing.assert_array_equal(from_objects.slot, positions)
 
 
 def test_the_columns_are_the_sample_objects_fields() -> None:
@@ -366,6 +399,9 @@ _NEAR = st.fixed_dictionaries(
 )
 
 
+PER_SAMPLE = ("seq", "t_s", "vin_v", "vout_v", "iout_a", "iin_a", "ambient_c")
+
+
 @settings(max_examples=300, deadline=None)
 @given(doc=_NEAR | _JSON)
 def test_any_json_is_taken_or_refused_by_name_never_a_crash(doc: Any) -> None:
@@ -388,6 +424,9 @@ _CSV_CELL = st.sampled_from(
     ["", "0", "1", "-1", "1e999", "nan", "x", "12.5", "2027-01-15T08:30:00Z"]
 )
 _CSV_HEADER = st.sampled_from(["seq", "time", "vin_v", "current_a[0]", "temp_c[1]", "read_iout[0]"])
+
+
+PER_SAMPLE = ("seq", "t_s", "vin_v", "vout_v", "iout_a", "iin_a", "ambient_c")
 
 
 @settings(max_examples=300, deadline=None)

@@ -162,11 +162,11 @@ def _limited(receive: Receive, limit: int) -> Receive:
     return receive_limited
 
 
-async def principal(
-    request: Request,
-    # Declared for the OpenAPI document's security scheme; the gate has read the header.
-    _: Annotated[HTTPAuthorizationCredentials | None, Depends(bearer)],
-) -> Principal:
+# Declared by every check for the OpenAPI document's security scheme; the gate read the header.
+Bearer = Annotated[HTTPAuthorizationCredentials | None, Depends(bearer)]
+
+
+def _principal(request: Request) -> Principal:
     settings: Settings = request.app.state.settings
     if settings.auth_mode == "open":
         return OPEN
@@ -176,38 +176,30 @@ async def principal(
     return who
 
 
-def role(needed: str) -> Callable[[Principal], Awaitable[Principal]]:
-    async def check(who: Annotated[Principal, Depends(principal)]) -> Principal:
-        if not who.grants(needed):
-            raise Forbidden(f"a '{who.role}' key may not {needed}", field="authorization")
-        return who
+def _granted(who: Principal, needed: tuple[str, ...]) -> Principal:
+    if not any(who.grants(n) for n in needed):
+        raise Forbidden(f"a '{who.role}' key may not {' or '.join(needed)}", field="authorization")
+    return who
+
+
+# Each check is one dependency, not a chain: FastAPI solves every level of a chain on every
+# request, and ingest routes take a fleet's every sample.
+def role(
+    needed: str,
+) -> Callable[[Request, HTTPAuthorizationCredentials | None], Awaitable[Principal]]:
+    async def check(request: Request, _: Bearer) -> Principal:
+        return _granted(_principal(request), (needed,))
 
     return check
 
 
-def rail_role(needed: str) -> Callable[[str, Principal], Awaitable[Principal]]:
-    async def check(
-        rail_id: Annotated[str, Path()],
-        who: Annotated[Principal, Depends(role(needed))],
-    ) -> Principal:
-        if not who.may_use(rail_id):
-            raise Forbidden(f"this key may not use rail '{rail_id}'", field="rail_id")
-        return who
+def rail_role(
+    *needed: str,
+) -> Callable[[Request, str, HTTPAuthorizationCredentials | None], Awaitable[Principal]]:
+    """A key whose role grants one of ``needed``, limited to the path's rail."""
 
-    return check
-
-
-def rail_either(first: str, second: str) -> Callable[[str, Principal], Awaitable[Principal]]:
-    """A key whose role grants ``first`` or ``second``, limited to the path's rail."""
-
-    async def check(
-        rail_id: Annotated[str, Path()],
-        who: Annotated[Principal, Depends(principal)],
-    ) -> Principal:
-        if not (who.grants(first) or who.grants(second)):
-            raise Forbidden(
-                f"a '{who.role}' key may not {first} or {second}", field="authorization"
-            )
+    async def check(request: Request, rail_id: Annotated[str, Path()], _: Bearer) -> Principal:
+        who = _granted(_principal(request), needed)
         if not who.may_use(rail_id):
             raise Forbidden(f"this key may not use rail '{rail_id}'", field="rail_id")
         return who
@@ -223,4 +215,4 @@ RailIngester = Annotated[Principal, Depends(rail_role("ingest"))]
 RailOperator = Annotated[Principal, Depends(rail_role("operate"))]
 RailAdmin = Annotated[Principal, Depends(rail_role("admin"))]
 # Captures come from the rack that posts samples or from an operator at the bench.
-RailUploader = Annotated[Principal, Depends(rail_either("ingest", "operate"))]
+RailUploader = Annotated[Principal, Depends(rail_role("ingest", "operate"))]

@@ -215,8 +215,10 @@ def build(
         temp_word=reading["read_temperature_1"],
         temp_c=reading["temp_c"],
         flags=reading_flags(
-            {name: reading[name] for name in FLAG_NAMES},
-            {name: reading[name] for name in STATUS_WORDS},
+            np.column_stack([reading[name] for name in FLAG_NAMES]).reshape(-1, len(FLAG_NAMES)),
+            np.column_stack([reading[name] for name in STATUS_WORDS]).reshape(
+                -1, len(STATUS_WORDS)
+            ),
         ),
         cell=cell,
     )

@@ -19,6 +19,7 @@ from phaseward.api.group_commit import GroupCommit
 from phaseward.api.schemas.samples import SAMPLES, to_incoming
 from phaseward.errors import Conflict, PhasewardError
 from phaseward.monitor import ingest as ingest_module
+from phaseward.monitor import rejections
 from phaseward.monitor.ingest import IngestResult, ingest, ingest_together
 from phaseward.monitor.telemetry import IncomingSamples
 from phaseward.store import events
@@ -256,11 +257,16 @@ async def test_an_unexpected_failure_on_one_requests_data_fails_that_request_alo
 
 
 async def test_requests_for_many_rails_share_one_transaction_and_a_bad_one_fails_alone(
-    client: httpx.AsyncClient, app: FastAPI, transactions: list[dict[str, int]]
+    client: httpx.AsyncClient,
+    app: FastAPI,
+    transactions: list[dict[str, int]],
+    monkeypatch: pytest.MonkeyPatch,
 ) -> None:
     """A fleet posts single samples, each request for another rail: they go as one group
     (one commit), each rail judged on its own; a refused request fails only its own rail's
-    request, and the rails beside it are stored and judged as if it had not been there."""
+    request, and the rails beside it are stored and judged as if it had not been there.
+    The refusal, the lone request of its rail, is its answer: worked once (not again alone)
+    and counted once into the rail's rejection episode."""
     rails = [f"fleet-{k}" for k in range(6)]
     for rail_id in rails:
         assert (await client.post("/v1/rails", json=rail_spec(id=rail_id))).status_code == 201
@@ -273,6 +279,14 @@ async def test_requests_for_many_rails_share_one_transaction_and_a_bad_one_fails
         body[0]["phases"][1]["breaker_tripped"] = True
     writer = GroupCommit(app.state.sessions, max_samples=100)
     outcomes: dict[str, IngestResult | PhasewardError] = {}
+    passes: list[str] = []
+    real_pass = ingest_module._ingest
+
+    def counted(session: Any, rail_id: str, *args: Any, **kw: Any) -> Any:
+        passes.append(rail_id)
+        return real_pass(session, rail_id, *args, **kw)
+
+    monkeypatch.setattr(ingest_module, "_ingest", counted)
 
     async def one(rail_id: str) -> None:
         try:
@@ -286,6 +300,11 @@ async def test_requests_for_many_rails_share_one_transaction_and_a_bad_one_fails
     assert transactions[-1] == dict.fromkeys(rails, 1)  # one group, one request per rail
     assert isinstance(outcomes["fleet-3"], Conflict)
     assert outcomes["fleet-3"].field == "[1].seq"
+    assert passes.count("fleet-3") == 1
+    with transaction(app.state.sessions) as session:
+        refusals = events.newest_of_kind(session, "fleet-3", rejections.KIND)
+        assert refusals is not None
+        assert refusals.details["samples"] == 2
     for rail_id in rails:
         window = await client.get(f"/v1/rails/{rail_id}/samples", params={"since": 0, "until": 4e9})
         status = (await client.get(f"/v1/rails/{rail_id}/status")).json()

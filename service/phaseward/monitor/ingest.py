@@ -63,7 +63,7 @@ import numpy.typing as npt
 from sqlalchemy import Row
 from sqlalchemy.orm import Session, sessionmaker
 
-from phaseward.errors import Conflict, InvalidInput, NotFound
+from phaseward.errors import Conflict, InvalidInput, NotFound, PhasewardError
 from phaseward.monitor import drift_watch, fault_class, rail_model
 from phaseward.monitor.assess import Assessment, assess, hottest_margin
 from phaseward.monitor.conditions import (
@@ -247,6 +247,7 @@ def ingest_rails(
     rows join one insert for all such rails of the group; a lone request's too (a fleet that
     is not saturated has most requests go alone)."""
     results: list[list[IngestResult | Exception] | None] = [None] * len(work)
+    refused: dict[int, PhasewardError] = {}  # lone requests refused: answered as they are
     if work:
         try:
             done: dict[int, _Outcome] = {}
@@ -260,14 +261,21 @@ def ingest_rails(
                     try:
                         incoming = concat(batches)
                         waits = _only_waits(rail_id, incoming, locks[rail_id], tuning)
-                        if waits is None:
+                        if waits is None or isinstance(waits, SampleBatch):
                             with session.begin_nested():
                                 outcome = _ingest(
-                                    session, rail_id, incoming, sizes, tuning, locks[rail_id]
+                                    session, rail_id, incoming, sizes, tuning, locks[rail_id], waits
                                 )
                         else:
                             outcome, rows = waits
                             waiting_rows += rows
+                    except (InvalidInput, Conflict, NotFound) as err:
+                        # A refusal is decided by the request and the rail's locked rows alone:
+                        # a lone request's is its answer (a group's is retried alone below, to
+                        # find whose it is).
+                        if len(batches) == 1:
+                            refused[k] = err
+                        continue
                     except Exception:  # retried alone below, where each failure is reported
                         continue
                     done[k] = outcome
@@ -276,11 +284,25 @@ def ingest_rails(
                 outcome.publish(tuning)
                 results[k] = list(outcome.split([b.n for b in work[k][1]]))
         except Exception:  # nothing of this transaction was stored: all retried alone
-            pass
+            refused.clear()
+    for k, refusal in refused.items():
+        results[k] = [_recorded(sessions, work[k], refusal)]
     return [
         outcomes if outcomes is not None else ingest_together(sessions, *work[k], tuning=tuning)
         for k, outcomes in enumerate(results)
     ]
+
+
+def _recorded(sessions: sessionmaker[Session], work: RailWork, err: PhasewardError) -> Exception:
+    """``err``, a lone request's refusal, once counted into its rail's rejection episode (as
+    :func:`ingest` does); if that fails, the failure."""
+    if isinstance(err, NotFound):  # no rail to count it for
+        return err
+    try:
+        record_rejection(sessions, work[0], samples=work[1][0].n, error=err)
+    except Exception as failed:  # handed to that request
+        return failed
+    return err
 
 
 Locked = tuple[int | None, state.Head | None]  # a rail's version and state head, locked
@@ -307,12 +329,14 @@ def _only_waits(
     incoming: IncomingSamples,
     locked: Locked,
     tuning: Tuning,
-) -> tuple[_Outcome, list[dict[str, Any]]] | None:
+) -> tuple[_Outcome, list[dict[str, Any]]] | SampleBatch | None:
     """The outcome and the rows to store when all of ``incoming`` simply waits: the rail's
     state is held and current, every sample is new (a seq above any stored, none twice),
     newer than the live state and routine (:func:`_may_wait`). Then nothing need be read,
     judged or written but the rows (the stamp is this process's alone, resident.py), which
-    the caller stores with other rails'. None: anything else, for :func:`_ingest`."""
+    the caller stores with other rails'. Anything else is for :func:`_ingest`, handed the
+    samples as a batch if this built one (the held model is the one it would build it with),
+    else None."""
     version, head = locked
     held = _held(rail_id, head, tuning)
     if tuning.judge_within_s <= 0 or held is None or held.version != version or not incoming.n:
@@ -322,12 +346,12 @@ def _only_waits(
         return None
     batch = to_batch(incoming, held.model)
     if head is not None and head.last_t_s is not None and not (batch.t_s > head.last_t_s).all():
-        return None
+        return batch
     arrived = batch.take(np.argsort(batch.t_s, kind="stable"))
     live_batch = arrived if held.waiting is None else _in_time_order(held.waiting, arrived)
     now = tuning.monotonic()
     if not _may_wait(tuning, held.model, held, arrived, live_batch, now):
-        return None
+        return batch
     kept = _left_waiting(held, int(seqs.max()), live_batch, now)
     every = np.ones(batch.n, dtype=bool)
     condition = held.state.get("rail", {}).get("condition")
@@ -342,11 +366,13 @@ def _ingest(
     parts: Sequence[int] = (),
     tuning: Tuning = TUNING,
     locked: Locked | None = None,
+    built: SampleBatch | None = None,
 ) -> _Outcome:
     """Store and judge ``incoming``: one request, or the requests of a group (``parts``: their
     sizes). A sample two requests of a group both carry (a resend racing its original) is
     stored once and judged once, as if the requests had come one after the other.
-    ``locked``: what :func:`_lock` found for the rail, if the caller locked it already."""
+    ``locked``: what :func:`_lock` found for the rail, if the caller locked it already;
+    ``built``: ``incoming`` as a batch of the held model, if the caller built it."""
     now_s = time.time()
     version, head = locked if locked is not None else _lock(session, [rail_id])[rail_id]
     if version is None:
@@ -359,7 +385,7 @@ def _ingest(
         model = rail_model.build(rail_id, version, spec)
     for part in np.split(incoming.seq, np.cumsum(parts or [incoming.n])[:-1]):
         _check_unique_seq(part)
-    batch = to_batch(incoming, model)
+    batch = built if built is not None else to_batch(incoming, model)
     rows = _rows(rail_id, version, batch)
 
     seqs = [int(s) for s in batch.seq]

@@ -181,6 +181,7 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     app.include_router(observability.router)
     app.include_router(rails.router)
     app.include_router(samples.router)
+    app.router.routes.insert(0, samples.LANE)  # before the route it stands in for
     app.include_router(stream.router)
     app.include_router(events.router)
     app.include_router(captures.router)

@@ -21,7 +21,8 @@ from phaseward.store import rails as rail_store
 from phaseward.store.models import Rail
 
 router = APIRouter(prefix="/v1/rails", tags=["rails"], responses=ERROR_RESPONSES)
-RailId = Annotated[str, Path(pattern=r"^[a-z0-9][a-z0-9-]{0,63}$", max_length=64)]
+RAIL_ID_PATTERN = r"^[a-z0-9][a-z0-9-]{0,63}$"
+RailId = Annotated[str, Path(pattern=RAIL_ID_PATTERN, max_length=64)]
 RowId = Annotated[int, Path(ge=0, le=MAX_ROW_ID)]  # an event, trace or job id
 
 

@@ -237,12 +237,13 @@ def ingest_rails(
     tuning: Tuning = TUNING,
 ) -> list[list[IngestResult | Exception]]:
     """A group of rails (each: its requests' batches) in one transaction: one durable commit
-    for a fleet whose every request is for another rail. Each rail keeps its
-    own monitor pass, in a savepoint of its own; a rail whose pass fails is rolled back to its
-    savepoint and, after the commit, ingested on its own (:func:`ingest_together`), so one
-    rail's bad request fails only itself; a refusal of a rail's lone request is its answer at
-    once (counted into the rail's rejection episode after the commit), not worked again. If the transaction fails as a whole (the commit, a
-    lost connection), every rail is ingested on its own. Rails are locked in id order, so two
+    for a fleet whose every request is for another rail. Each rail keeps its own monitor
+    pass, in a savepoint of its own; a rail whose pass fails is rolled back to its savepoint
+    and, after the commit, ingested on its own (:func:`ingest_together`), so one rail's bad
+    request fails only itself; a refusal of a rail's lone request is its answer at once
+    (counted into the rail's rejection episode after the commit), not worked again. If the
+    transaction fails as a whole (the commit, a lost connection), every rail is ingested on
+    its own. Rails are locked in id order, so two
     processes merging overlapping fleets on PostgreSQL never wait on each other in a cycle.
     A rail whose samples only wait (:func:`_only_waits`) needs no pass and no savepoint: its
     rows join one insert for all such rails of the group; a lone request's too (a fleet that

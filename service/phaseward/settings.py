@@ -80,6 +80,9 @@ class Settings(BaseSettings):
     # ones: a fleet of rails posting single samples then costs one pass per rail per interval
     # instead of one per sample. 0: every sample is judged before its request is answered.
     judge_within_s: float = Field(default=0.0, ge=0, le=60)
+    # The monitor passes run in a helper process of their own: a server's requests and its
+    # passes then use two cores, not one interpreter's turns (for fleets).
+    judge_apart: bool = False
 
     @model_validator(mode="after")
     def _default_database(self) -> Settings:

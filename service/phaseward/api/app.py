@@ -40,6 +40,7 @@ from phaseward.monitor import rail_model, retention
 from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor.ingest import Tolerances, Tuning
 from phaseward.monitor.jobs import JobRunner
+from phaseward.monitor.judge_apart import JudgeApart
 from phaseward.monitor.resident import LiveStates, Waiting
 from phaseward.settings import Settings
 from phaseward.store import partitions
@@ -168,6 +169,8 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     app.state.tuning = tuning = Tuning(
         tolerances=tolerances, checkpoint_samples=settings.state_checkpoint_samples,
         live=app.state.live_states, judge_within_s=settings.judge_within_s, waiting=Waiting(),
+        monitor_pass=JudgeApart(settings.rail_cache_size, settings.blas_threads)
+        if settings.judge_apart else None,
     )  # fmt: skip
     app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples, tuning=tuning)
     rail_model.resize_cache(settings.rail_cache_size)
@@ -220,4 +223,6 @@ def close(app: FastAPI) -> None:
     A running job stops at its next progress report, unfinished: jobs are stored and run
     again on the next start."""
     app.state.jobs.shutdown()
+    if isinstance(app.state.tuning.monitor_pass, JudgeApart):
+        app.state.tuning.monitor_pass.close()
     close_engine(app.state.engine)

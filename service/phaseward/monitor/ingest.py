@@ -161,6 +161,13 @@ class Tolerances:
 TOLERANCES = Tolerances()
 
 
+# The monitor pass: the model, the samples, the previous live state and the tolerances in; the
+# new live state and the findings out (:func:`advance`).
+MonitorPass = Callable[
+    [RailModel, SampleBatch, dict[str, Any], Tolerances], tuple[dict[str, Any], list[Finding]]
+]
+
+
 @dataclass(frozen=True)
 class Tuning:
     """How the monitor runs, from the settings: where it assesses (``tolerances``), how often
@@ -169,7 +176,8 @@ class Tuning:
     states it keeps in memory (``live``; None: every pass reads the state from the store),
     and how long routine samples may wait to be judged with a rail's next ones
     (``judge_within_s``, 0: never; ``waiting`` lists the rails that have some, on the clock
-    ``monotonic``; module docstring)."""
+    ``monotonic``; module docstring). ``monitor_pass``: what runs the monitor pass in place of
+    :func:`advance` (:mod:`judge_apart`); None: :func:`advance`, in this thread."""
 
     tolerances: Tolerances = TOLERANCES
     checkpoint_samples: int = 60
@@ -177,6 +185,7 @@ class Tuning:
     judge_within_s: float = 0.0
     waiting: Waiting | None = None
     monotonic: Callable[[], float] = time.monotonic
+    monitor_pass: MonitorPass | None = None
 
 
 TUNING = Tuning()
@@ -453,7 +462,8 @@ def _ingest(
         previous = _restore(session, model, stored, head.replay, tuning.tolerances)
     else:
         previous = {}
-    new_state, findings = advance(model, live_batch, previous, tuning.tolerances)
+    run_pass = tuning.monitor_pass or advance
+    new_state, findings = run_pass(model, live_batch, previous, tuning.tolerances)
     events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
     isolations = [
         (float(live_batch.t_s[f.sample]), int(f.phase))

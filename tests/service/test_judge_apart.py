@@ -1,0 +1,116 @@
+"""The monitor pass run in a helper process (``PHASEWARD_JUDGE_APART``) judges as the pass in
+the server's own process does: every invented trace, posted one sample per request, ends with
+the same events and live state as the reference judged in process. A helper that dies costs
+nothing but its process (the pass is judged in the server, the next starts a new helper); a
+pass that fails in the helper fails in the server with the same exception."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+
+import httpx
+import pytest
+from fastapi import FastAPI
+from tests.conftest import MakeSettings
+from tests.factories import rail_spec, sample
+from tests.service.cuts import TRACES, Ingestor, incoming
+from tests.service.test_cut_invariance import assert_same_state, new_rail, reference
+
+from phaseward.api.app import close, create_app
+from phaseward.monitor import rail_model
+from phaseward.monitor.ingest import TOLERANCES, Tuning, advance, ingest
+from phaseward.monitor.judge_apart import JudgeApart
+from phaseward.monitor.telemetry import to_batch
+from phaseward.store import rails
+from phaseward.store.db import transaction
+
+pytestmark = pytest.mark.anyio
+
+
+@pytest.fixture(scope="module")
+def judge() -> Iterator[JudgeApart]:
+    apart = JudgeApart(kept_models=2, blas_threads=1)  # fewer models than rails: some resent
+    yield apart
+    apart.close()
+
+
+def post_all(rail: Ingestor, tuning: Tuning) -> None:
+    for k in range(len(rail.trace.samples)):
+        ingest(rail.sessions, rail.rail_id, incoming(rail.trace.samples[k : k + 1]), tuning=tuning)
+
+
+@pytest.mark.parametrize("name", sorted(TRACES))
+async def test_every_trace_ends_as_judged_in_process(
+    client: httpx.AsyncClient, app: FastAPI, judge: JudgeApart, name: str
+) -> None:
+    want_events, want_state = await reference(client, app, TRACES[name])
+    rail = await new_rail(client, app, TRACES[name])
+    post_all(rail, Tuning(monitor_pass=judge))
+    assert rail.events() == want_events
+    assert_same_state(rail.live(), want_state)
+
+
+async def test_a_dead_helper_is_replaced_and_loses_no_pass(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    trace = TRACES[sorted(TRACES)[0]]
+    want_events, want_state = await reference(client, app, trace)
+    rail = await new_rail(client, app, trace)
+    judge = JudgeApart(kept_models=8, blas_threads=1)
+    tuning = Tuning(monitor_pass=judge)
+    try:
+        killed = []
+        for k in range(len(trace.samples)):
+            if k in (3, 9):  # the helper dies between two passes
+                helper = judge._helper
+                assert helper is not None
+                helper[0].kill()
+                helper[0].join()
+                killed.append(helper[0].pid)
+            one = incoming(trace.samples[k : k + 1])
+            ingest(rail.sessions, rail.rail_id, one, tuning=tuning)
+        assert judge._helper is not None
+        assert judge._helper[0].pid not in killed
+    finally:
+        judge.close()
+    assert judge._helper is None
+    assert rail.events() == want_events
+    assert_same_state(rail.live(), want_state)
+
+
+async def test_a_pass_that_fails_in_the_helper_raises_its_exception(
+    client: httpx.AsyncClient, app: FastAPI, judge: JudgeApart
+) -> None:
+    assert (await client.post("/v1/rails", json=rail_spec(id="fails"))).status_code == 201
+    with transaction(app.state.sessions) as session:
+        model = rail_model.build("fails", 1, rails.spec(session, "fails", 1))
+    batch = to_batch(incoming([sample(0, [20.0] * 4)]), model)
+    broken = {"watch": {}}  # a live state without its fields
+    with pytest.raises(TypeError) as inline:
+        advance(model, batch, broken, TOLERANCES)
+    with pytest.raises(TypeError) as apart:
+        judge(model, batch, broken, TOLERANCES)
+    assert apart.value.args == inline.value.args
+    helper = judge._helper
+    assert helper is not None
+    assert helper[0].is_alive()
+    state, findings = judge(model, batch, {}, TOLERANCES)
+    assert (state, findings) == advance(model, batch, {}, TOLERANCES)
+
+
+async def test_the_setting_runs_the_passes_apart(make_settings: MakeSettings) -> None:
+    app = create_app(make_settings(judge_apart=True))
+    judge = app.state.tuning.monitor_pass
+    assert isinstance(judge, JudgeApart)
+    transport = httpx.ASGITransport(app=app)
+    async with httpx.AsyncClient(transport=transport, base_url="http://phaseward.test") as c:
+        assert (await c.post("/v1/rails", json=rail_spec(id="apart"))).status_code == 201
+        for seq in range(3):
+            answer = await c.post("/v1/rails/apart/samples", json=sample(seq, [20.0] * 4))
+            assert answer.status_code == 200, answer.text
+        status = (await c.get("/v1/rails/apart/status")).json()
+    assert status["last_sample"]["seq"] == 2
+    assert status["condition"] == "nominal"
+    assert judge._helper is not None  # the passes went to the helper
+    close(app)
+    assert judge._helper is None

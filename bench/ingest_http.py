@@ -52,14 +52,23 @@ PATH = f"/v1/rails/{RAIL}/samples"
 
 def cpu_seconds(pid: int) -> float:
     """User + system CPU time so far of a process and its live descendants (a server with
-    worker processes), from /proc (Linux). A process that ended meanwhile counts nothing."""
+    worker processes, or with its judging helper, which a thread of the server starts), from
+    /proc (Linux). A process that ended meanwhile counts nothing."""
     try:
         fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
-        children = Path(f"/proc/{pid}/task/{pid}/children").read_text().split()
+        tasks = list(Path(f"/proc/{pid}/task").iterdir())
     except FileNotFoundError:
         return 0.0
     own = (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
-    return own + sum(cpu_seconds(int(child)) for child in children)
+    return own + sum(cpu_seconds(child) for task in tasks for child in _children(task))
+
+
+def _children(task: Path) -> list[int]:
+    """The processes one thread started (a thread that ended meanwhile: none)."""
+    try:
+        return [int(child) for child in (task / "children").read_text().split()]
+    except FileNotFoundError:
+        return []
 
 
 def as_columns(body: str) -> str:

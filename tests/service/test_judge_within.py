@@ -5,7 +5,8 @@ so a rail whose samples wait and are judged together ends with the same events (
 the time and seq of the sample that caused it) and the same live state as judging every
 sample on arrival. The property below posts the invented traces one sample per request with
 waiting allowed, the clock moving by random steps, the settling pass run at random points,
-and the requests spread over two processes (each with its own memory, so the one that did
+its passes run ahead at other random points (a pass run ahead serves only if nothing arrived
+since), and the requests spread over two processes (each with its own memory, so the one that did
 not hold the waiting samples reads them from the store), and compares with the reference.
 """
 
@@ -24,8 +25,15 @@ from tests.service.test_cut_invariance import assert_same_state, new_rail, refer
 
 from phaseward.api.app import _settle_loop, close, create_app
 from phaseward.api.group_commit import GroupCommit
-from phaseward.monitor.ingest import OVERDUE, IngestResult, Tuning, ingest, ingest_rails
-from phaseward.monitor.resident import LiveStates, Waiting
+from phaseward.monitor.ingest import (
+    OVERDUE,
+    IngestResult,
+    Tuning,
+    ingest,
+    ingest_rails,
+    judge_ahead,
+)
+from phaseward.monitor.resident import Ahead, LiveStates, Waiting
 from phaseward.monitor.telemetry import IncomingSamples
 
 pytestmark = pytest.mark.anyio
@@ -43,14 +51,21 @@ class Clock:
 
 def process(clock: Clock) -> Tuning:
     """One server process's monitor: its own memory, waiting allowed."""
-    return Tuning(live=LiveStates(64), judge_within_s=WITHIN_S, waiting=Waiting(), monotonic=clock)
+    return Tuning(
+        live=LiveStates(64), judge_within_s=WITHIN_S, waiting=Waiting(), monotonic=clock,
+        ahead=Ahead(),
+    )  # fmt: skip
+
+
+def due(tuning: Tuning) -> list[str]:
+    assert tuning.waiting is not None
+    return tuning.waiting.due(tuning.monotonic(), tuning.judge_within_s)
 
 
 def settle(rail: Ingestor, tuning: Tuning) -> None:
-    """What the settling loop does for the rails that are due (here: the one rail)."""
-    assert tuning.waiting is not None
-    due = tuning.waiting.due(tuning.monotonic(), tuning.judge_within_s)
-    work = [(r, [IncomingSamples.none()]) for r in due]
+    """What the settling loop does for the rails that are due (here: the one rail), without
+    running their passes ahead (the property runs them ahead at points of its own)."""
+    work = [(r, [IncomingSamples.none()]) for r in due(tuning)]
     for outcomes in ingest_rails(rail.sessions, work, tuning=tuning):
         assert not any(isinstance(o, Exception) for o in outcomes), outcomes
 
@@ -62,15 +77,17 @@ def post(rail: Ingestor, k: int, tuning: Tuning) -> IngestResult:
 
 
 @st.composite
-def schedules(draw: st.DrawFn) -> tuple[str, list[tuple[float, int, bool]]]:
+def schedules(draw: st.DrawFn) -> tuple[str, list[tuple[float, int, bool, bool]]]:
     """A trace, and per sample: the clock's step before it (s), the process it goes to (0/1),
-    and whether the due rails are settled after it."""
+    whether the passes of that process's due rails are run ahead after it, and whether its
+    due rails are settled after it."""
     name = draw(st.sampled_from(sorted(TRACES)))
     n = len(TRACES[name].samples)
     steps = draw(st.lists(st.sampled_from([0.0, 0.5, 1.0, 1.0, 2.0, 7.0]), min_size=n, max_size=n))
     to = draw(st.lists(st.sampled_from([0, 0, 0, 0, 1]), min_size=n, max_size=n))
+    ahead = draw(st.lists(st.booleans(), min_size=n, max_size=n))
     settles = draw(st.lists(st.booleans(), min_size=n, max_size=n))
-    return name, list(zip(steps, to, settles, strict=True))
+    return name, list(zip(steps, to, ahead, settles, strict=True))
 
 
 @settings(
@@ -78,7 +95,7 @@ def schedules(draw: st.DrawFn) -> tuple[str, list[tuple[float, int, bool]]]:
 )
 @given(case=schedules())
 async def test_waiting_samples_leave_the_same_events_and_state(
-    client: httpx.AsyncClient, app: FastAPI, case: tuple[str, list[tuple[float, int, bool]]]
+    client: httpx.AsyncClient, app: FastAPI, case: tuple[str, list[tuple[float, int, bool, bool]]]
 ) -> None:
     name, schedule = case
     trace = TRACES[name]
@@ -86,9 +103,11 @@ async def test_waiting_samples_leave_the_same_events_and_state(
     rail = await new_rail(client, app, trace)
     clock = Clock()
     processes = [process(clock), process(clock)]
-    for k, (step, to, settles) in enumerate(schedule):
+    for k, (step, to, ahead, settles) in enumerate(schedule):
         clock.now += step
         post(rail, k, processes[to])
+        if ahead:
+            judge_ahead(due(processes[to]), processes[to])
         if settles:
             settle(rail, processes[to])
     clock.now += WITHIN_S  # the last ones wait at most that long

@@ -41,7 +41,7 @@ from phaseward.monitor import rehearsals as rehearsal_jobs
 from phaseward.monitor.ingest import Tolerances, Tuning
 from phaseward.monitor.jobs import JobRunner
 from phaseward.monitor.judge_apart import JudgeApart
-from phaseward.monitor.resident import LiveStates, Waiting
+from phaseward.monitor.resident import Ahead, LiveStates, Waiting
 from phaseward.settings import Settings
 from phaseward.store import partitions
 from phaseward.store import samples as stored_samples
@@ -169,7 +169,7 @@ def create_app(settings: Settings | None = None, *, clock: Clock = time.time) ->
     app.state.tuning = tuning = Tuning(
         tolerances=tolerances, checkpoint_samples=settings.state_checkpoint_samples,
         live=app.state.live_states, judge_within_s=settings.judge_within_s, waiting=Waiting(),
-        monitor_pass=JudgeApart(settings.rail_cache_size, settings.blas_threads)
+        ahead=Ahead(), monitor_pass=JudgeApart(settings.rail_cache_size, settings.blas_threads)
         if settings.judge_apart else None,
     )  # fmt: skip
     app.state.group_commit = GroupCommit(sessions, settings.max_batch_samples, tuning=tuning)

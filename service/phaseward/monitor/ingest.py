@@ -79,7 +79,7 @@ from phaseward.monitor.conditions import (
 )
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.rejections import record_rejection
-from phaseward.monitor.resident import LiveStates, Resident, Waiting
+from phaseward.monitor.resident import Ahead, LiveStates, Resident, Waiting
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, join, to_batch
 from phaseward.physics.drift import InnovationScale
 from phaseward.physics.estimator import (
@@ -176,7 +176,8 @@ class Tuning:
     states it keeps in memory (``live``; None: every pass reads the state from the store),
     and how long routine samples may wait to be judged with a rail's next ones
     (``judge_within_s``, 0: never; ``waiting`` lists the rails that have some, on the clock
-    ``monotonic``; module docstring). ``monitor_pass``: what runs the monitor pass in place of
+    ``monotonic``; module docstring; ``ahead`` holds their passes run before the write,
+    :func:`judge_ahead`). ``monitor_pass``: what runs the monitor pass in place of
     :func:`advance` (:mod:`judge_apart`); None: :func:`advance`, in this thread."""
 
     tolerances: Tolerances = TOLERANCES
@@ -185,6 +186,7 @@ class Tuning:
     judge_within_s: float = 0.0
     waiting: Waiting | None = None
     monotonic: Callable[[], float] = time.monotonic
+    ahead: Ahead | None = None
     monitor_pass: MonitorPass | None = None
 
 
@@ -462,8 +464,12 @@ def _ingest(
         previous = _restore(session, model, stored, head.replay, tuning.tolerances)
     else:
         previous = {}
-    run_pass = tuning.monitor_pass or advance
-    new_state, findings = run_pass(model, live_batch, previous, tuning.tolerances)
+    passed = None
+    if tuning.ahead is not None and held is not None and same and not arrived.n:
+        passed = tuning.ahead.take(rail_id, held)  # the waiting samples alone: judged already?
+    if passed is None:
+        passed = (tuning.monitor_pass or advance)(model, live_batch, previous, tuning.tolerances)
+    new_state, findings = passed
     events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
     isolations = [
         (float(live_batch.t_s[f.sample]), int(f.phase))
@@ -498,6 +504,25 @@ def _ingest(
             seq_ceiling=ceiling,
         ),
     )
+
+
+def judge_ahead(rail_ids: Sequence[str], tuning: Tuning) -> None:
+    """Run the passes over what these rails have waiting now, outside the writer, for the
+    write that judges them to take (:class:`~phaseward.monitor.resident.Ahead`): the same
+    pass on the same held copy, so the same outcome. A rail with nothing waiting in this
+    process's memory, or whose pass fails here, is left to the writer (which reports it)."""
+    if tuning.ahead is None or tuning.live is None:
+        return
+    run_pass = tuning.monitor_pass or advance
+    for rail_id in rail_ids:
+        held = tuning.live.get(rail_id)
+        if held is None or held.waiting is None or not held.waiting.n:
+            continue
+        try:
+            passed = run_pass(held.model, held.waiting, held.state, tuning.tolerances)
+        except Exception:  # the writer runs it again and reports the failure
+            continue
+        tuning.ahead.put(rail_id, held, passed)
 
 
 def _left_waiting(held: Resident, ceiling: int, waiting: SampleBatch, now: float) -> Resident:

@@ -17,6 +17,7 @@ from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any
 
+from phaseward.monitor.conditions import Finding
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.telemetry import SampleBatch
 
@@ -99,3 +100,26 @@ class Waiting:
         """The rails whose first waiting sample arrived ``within_s`` or more before ``now``."""
         with self._lock:
             return [r for r, since in self._since.items() if now - since >= within_s]
+
+
+class Ahead:
+    """Passes over rails' waiting samples run ahead of the write that stores their outcome: the
+    settling loop runs them outside the writer (``ingest.judge_ahead``), so the groups of
+    requests go on committing meanwhile. A pass serves only the copy it was run from: the
+    writer takes it if the rail's held copy is still that very object (no sample arrived and
+    nobody wrote since), and otherwise runs the pass itself."""
+
+    def __init__(self) -> None:
+        self._passes: dict[str, tuple[Resident, tuple[dict[str, Any], list[Finding]]]] = {}
+        self._lock = threading.Lock()
+
+    def put(
+        self, rail_id: str, basis: Resident, passed: tuple[dict[str, Any], list[Finding]]
+    ) -> None:
+        with self._lock:
+            self._passes[rail_id] = (basis, passed)
+
+    def take(self, rail_id: str, held: Resident) -> tuple[dict[str, Any], list[Finding]] | None:
+        with self._lock:
+            found = self._passes.pop(rail_id, None)
+        return found[1] if found is not None and found[0] is held else None

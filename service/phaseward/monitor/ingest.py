@@ -80,7 +80,13 @@ from phaseward.monitor.conditions import (
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.rejections import record_rejection
 from phaseward.monitor.resident import Ahead, LiveStates, Resident, Waiting
-from phaseward.monitor.telemetry import IncomingSamples, SampleBatch, concat, join, to_batch
+from phaseward.monitor.telemetry import (
+    IncomingSamples,
+    SampleBatch,
+    concat,
+    in_time_order,
+    to_batch,
+)
 from phaseward.physics.drift import InnovationScale
 from phaseward.physics.estimator import (
     EstimatorState,
@@ -135,11 +141,10 @@ class _Outcome:
 
     def _result(self, fresh: npt.NDArray[np.bool_], newer: npt.NDArray[np.bool_]) -> IngestResult:
         stored = int(fresh.sum())
-        waiting = self.resident.waiting if self.resident is not None else None
         return IngestResult(
             stored=stored, duplicates=int((~fresh).sum()), late=stored - int(newer.sum()),
             condition=self.condition, version=self.version,
-            waiting=0 if waiting is None else waiting.n,
+            waiting=self.resident.waiting_n if self.resident is not None else 0,
         )  # fmt: skip
 
 
@@ -361,11 +366,10 @@ def _only_waits(
     if head is not None and head.last_t_s is not None and not (batch.t_s > head.last_t_s).all():
         return batch
     arrived = batch.take(np.argsort(batch.t_s, kind="stable"))
-    live_batch = arrived if held.waiting is None else _in_time_order(held.waiting, arrived)
     now = tuning.monotonic()
-    if not _may_wait(tuning, held.model, held, arrived, live_batch, now):
+    if not _may_wait(tuning, held.model, held, arrived, held.waiting_n + arrived.n, now):
         return batch
-    kept = _left_waiting(held, int(seqs.max()), live_batch, now)
+    kept = _left_waiting(held, int(seqs.max()), (*held.waiting_parts, arrived), now)
     every = np.ones(batch.n, dtype=bool)
     condition = held.state.get("rail", {}).get("condition")
     outcome = _Outcome(every, every, condition, version, rail_id=rail_id, resident=kept)
@@ -434,7 +438,7 @@ def _ingest(
     newer = fresh & (batch.t_s > (last_t if last_t is not None else -np.inf))
     order = np.argsort(batch.t_s[newer], kind="stable")
     arrived = batch.take(np.nonzero(newer)[0][order])
-    stored = _stored_state(session, rail_id, head, held)
+    stored, replay_stored = _stored_state(session, rail_id, head, held)
     condition = stored.get("rail", {}).get("condition") if stored is not None else None
     outcome = _Outcome(fresh=fresh, newer=newer, condition=condition, version=version)
     # A new definition keeps time order but restarts judgement from a fresh state.
@@ -445,7 +449,7 @@ def _ingest(
         tuning.waiting is not None and rail_id in tuning.waiting
     )
     waiting = _waiting(session, model, head, held, batch.seq[fresh]) if same and may_have else None
-    live_batch = arrived if waiting is None else _in_time_order(waiting, arrived)
+    live_batch = arrived if waiting is None else in_time_order(waiting, arrived)
     if not live_batch.n:  # nothing waits: the samples are resends or late
         if not fresh.any() or head is None:
             return replace(outcome, rail_id=rail_id)
@@ -454,14 +458,14 @@ def _ingest(
         # Late samples stored: a copy held elsewhere must not vouch for the stored seqs.
         state.restamp(session, rail_id, secrets.randbits(63))
         return replace(outcome, rail_id=rail_id)
-    now_mono = tuning.monotonic()
-    if held is not None and same and _may_wait(tuning, model, held, arrived, live_batch, now_mono):
-        kept = _left_waiting(held, ceiling, live_batch, now_mono)
+    now = tuning.monotonic()
+    if held is not None and same and _may_wait(tuning, model, held, arrived, live_batch.n, now):
+        kept = _left_waiting(held, ceiling, (live_batch,), now)
         return replace(outcome, rail_id=rail_id, resident=kept)
     if held is not None and same:
         previous = held.state
     elif same and stored is not None and head is not None:
-        previous = _restore(session, model, stored, head.replay, tuning.tolerances)
+        previous = _restore(session, model, stored, replay_stored, tuning.tolerances)
     else:
         previous = {}
     passed = None
@@ -525,22 +529,25 @@ def judge_ahead(rail_ids: Sequence[str], tuning: Tuning) -> None:
         tuning.ahead.put(rail_id, held, passed)
 
 
-def _left_waiting(held: Resident, ceiling: int, waiting: SampleBatch, now: float) -> Resident:
-    """``held`` with ``waiting`` stored and not judged; the wait dates from its first sample."""
+def _left_waiting(
+    held: Resident, ceiling: int, parts: tuple[SampleBatch, ...], now: float
+) -> Resident:
+    """``held`` with ``parts`` stored and not judged; the wait dates from its first sample."""
     since = now if held.waiting_since is None else held.waiting_since
-    return replace(held, seq_ceiling=ceiling, waiting=waiting, waiting_since=since)
+    return replace(held, seq_ceiling=ceiling, waiting_parts=parts, waiting_since=since)
 
 
 def _stored_state(
     session: Session, rail_id: str, head: state.Head | None, held: Resident | None
-) -> dict[str, Any] | None:
-    """The live state as stored (without its covariance unless held in memory)."""
+) -> tuple[dict[str, Any] | None, list[Any] | None]:
+    """The live state as stored (without its covariance unless held in memory) and what was
+    judged since its checkpoint (``replay``)."""
     if held is not None:
-        return held.state
+        return held.state, held.replay
     if head is None:
-        return None
+        return None, None
     row = state.get(session, rail_id)
-    return None if row is None else row.state
+    return (None, None) if row is None else (row.state, row.replay)
 
 
 def _waiting(
@@ -564,12 +571,6 @@ def _waiting(
     return _stored_batch(model, rows, [[r.seq] for r in rows]) if rows else None
 
 
-def _in_time_order(first: SampleBatch, then: SampleBatch) -> SampleBatch:
-    """Two batches as one, in time order (stable: arrival order among equal times)."""
-    both = join(first, then)
-    return both.take(np.argsort(both.t_s, kind="stable"))
-
-
 _MAX_WAITING = 600  # samples of one rail held back at most (memory; a pass judges them all)
 # Past this many times ``judge_within_s`` a rail's next request judges its waiting samples
 # itself: the backstop for a settling loop that has fallen behind (module docstring).
@@ -581,7 +582,7 @@ def _may_wait(
     model: RailModel,
     held: Resident,
     arrived: SampleBatch,
-    waiting: SampleBatch,
+    waiting_n: int,
     now: float,
 ) -> bool:
     """Whether the samples that arrived may wait to be judged with the rail's next ones: only
@@ -591,7 +592,7 @@ def _may_wait(
     reported with a finite current and temperature, no flag, current within rating,
     temperature below the warning line by the hysteresis, output voltage within its excursion
     band). Anything else is judged at once, with the samples that waited before it."""
-    if tuning.judge_within_s <= 0 or not arrived.n or waiting.n > _MAX_WAITING:
+    if tuning.judge_within_s <= 0 or not arrived.n or waiting_n > _MAX_WAITING:
         return False
     since = held.waiting_since
     if since is not None and now - since >= OVERDUE * tuning.judge_within_s:

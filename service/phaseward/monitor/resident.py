@@ -15,11 +15,12 @@ from __future__ import annotations
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 from phaseward.monitor.conditions import Finding
 from phaseward.monitor.rail_model import RailModel
-from phaseward.monitor.telemetry import SampleBatch
+from phaseward.monitor.telemetry import SampleBatch, in_time_order
 
 
 @dataclass(frozen=True)
@@ -34,9 +35,9 @@ class Resident:
 
     ``replay``: what was judged since the checkpoint (the row's column of the same name);
     ``seq_ceiling``: the highest seq of the rail stored, so a batch of higher seqs needs no
-    resend look-up; ``waiting``: routine samples stored and left to be judged with the rail's
-    next ones (setting ``judge_within_s``); ``state`` and ``spec`` are never changed in
-    place."""
+    resend look-up; ``waiting_parts``: routine samples stored and left to be judged with the
+    rail's next ones (setting ``judge_within_s``), each arrival's in time order, joined only
+    when judged (:attr:`waiting`); ``state`` and ``spec`` are never changed in place."""
 
     stamp: int
     version: int
@@ -45,8 +46,18 @@ class Resident:
     state: dict[str, Any]
     replay: list[Any]
     seq_ceiling: int
-    waiting: SampleBatch | None = None  # stored, newer than ``state``, not judged yet
+    waiting_parts: tuple[SampleBatch, ...] = ()  # stored, newer than ``state``, not judged
     waiting_since: float | None = None  # when the first of them arrived (monotonic s)
+
+    @property
+    def waiting_n(self) -> int:
+        return sum(part.n for part in self.waiting_parts)
+
+    @cached_property
+    def waiting(self) -> SampleBatch | None:
+        """The waiting samples as one batch in time order (stable: arrival order among equal
+        times, as if each arrival had been merged in as it came)."""
+        return in_time_order(*self.waiting_parts) if self.waiting_parts else None
 
 
 class LiveStates:

@@ -141,14 +141,21 @@ class SampleBatch:
         return SampleBatch(**{f: getattr(self, f)[rows] for f in self.__dataclass_fields__})
 
 
-def join(first: SampleBatch, then: SampleBatch) -> SampleBatch:
-    """Two batches of one rail as one, ``first``'s samples first."""
+def join(*parts: SampleBatch) -> SampleBatch:
+    """Batches of one rail as one, in the order given."""
     return SampleBatch(
         **{
-            f: np.concatenate([getattr(first, f), getattr(then, f)])
+            f: np.concatenate([getattr(part, f) for part in parts])
             for f in SampleBatch.__dataclass_fields__
         }
     )
+
+
+def in_time_order(*parts: SampleBatch) -> SampleBatch:
+    """Batches of one rail as one, in time order (stable: the order given among equal times,
+    so parts each in time order come out as if merged in one after the other)."""
+    both = join(*parts)
+    return both.take(np.argsort(both.t_s, kind="stable"))
 
 
 def to_batch(incoming: IncomingSamples, model: RailModel) -> SampleBatch:

@@ -13,6 +13,8 @@ not hold the waiting samples reads them from the store), and compares with the r
 from __future__ import annotations
 
 import asyncio
+from dataclasses import replace
+from typing import Any
 
 import httpx
 import pytest
@@ -25,6 +27,7 @@ from tests.service.test_cut_invariance import assert_same_state, new_rail, refer
 
 from phaseward.api.app import _settle_loop, close, create_app
 from phaseward.api.group_commit import GroupCommit
+from phaseward.monitor.conditions import Finding
 from phaseward.monitor.ingest import (
     OVERDUE,
     IngestResult,
@@ -33,8 +36,8 @@ from phaseward.monitor.ingest import (
     ingest_rails,
     judge_ahead,
 )
-from phaseward.monitor.resident import Ahead, LiveStates, Waiting
-from phaseward.monitor.telemetry import IncomingSamples
+from phaseward.monitor.resident import Ahead, LiveStates, Resident, Waiting
+from phaseward.monitor.telemetry import IncomingSamples, SampleBatch
 
 pytestmark = pytest.mark.anyio
 
@@ -228,6 +231,42 @@ async def test_a_quiet_rail_is_judged_by_the_settling_loop(
     held = tuning.live.get(rail.rail_id)
     assert held is not None
     assert held.waiting is None
+
+
+async def test_a_pass_run_ahead_serves_its_copy_and_what_waits_after_it_only(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """The writer takes a pass run ahead for the copy it was run from, or for that copy grown
+    by later, newer samples that wait (it judges the first parts, the rest go on waiting);
+    never for another live state, other parts, or parts older than the ones it judged."""
+    rail = await new_rail(client, app, TRACES["trip"])
+    tuning = process(Clock())
+    for k in range(3):
+        post(rail, k, tuning)
+    assert tuning.live is not None
+    held = tuning.live.get(rail.rail_id)
+    assert held is not None
+    assert len(held.waiting_parts) == 2
+    (t1, one), (t2, two) = held.waiting_parts
+    passed: tuple[dict[str, Any], list[Finding]] = ({"judged": True}, [])
+    newer = replace(two, t_s=two.t_s + 1.0, seq=two.seq + 1)
+
+    def waiting(*parts: tuple[float, SampleBatch]) -> Resident:
+        return replace(held, waiting_parts=parts)
+
+    copies = {
+        "the same copy": (held, (2, passed)),
+        "grown by newer samples": (waiting(*held.waiting_parts, (t2, newer)), (2, passed)),
+        "grown by an older sample": (waiting(*held.waiting_parts, (t2, one)), None),
+        "another live state": (replace(held, state=dict(held.state)), None),
+        "equal parts, not the same": (waiting((t1, one.take(slice(None))), (t2, two)), None),
+        "fewer parts": (waiting(held.waiting_parts[0]), None),
+    }
+    ahead = Ahead()
+    for what, (copy, want) in copies.items():
+        ahead.put(rail.rail_id, held, passed)
+        assert ahead.take(rail.rail_id, copy) == want, what
+        assert ahead.take(rail.rail_id, held) is None, what  # taken once, whatever it served
 
 
 @pytest.mark.parametrize("name", sorted(TRACES))

@@ -38,7 +38,7 @@ from phaseward.api.schemas.glossary import describe
 from phaseward.api.schemas.samples import BODY_COMPONENTS
 from phaseward.monitor import rail_model, retention
 from phaseward.monitor import rehearsals as rehearsal_jobs
-from phaseward.monitor.ingest import Tolerances, Tuning
+from phaseward.monitor.ingest import Tolerances, Tuning, judge_ahead
 from phaseward.monitor.jobs import JobRunner
 from phaseward.monitor.judge_apart import JudgeApart
 from phaseward.monitor.resident import Ahead, LiveStates, Waiting
@@ -81,15 +81,24 @@ SETTLE_RAILS = 4  # rails a settling group holds: requests queued meanwhile go b
 async def _settle_loop(group_commit: GroupCommit, tuning: Tuning) -> None:
     """Judge the samples of rails whose first waiting sample has waited ``judge_within_s``,
     a few rails a group through the group commit (one writer), so that requests queued
-    meanwhile wait for one small group of passes, not for a whole fleet's falling due at
-    once; at once at start for samples stored and not judged before a restart."""
+    meanwhile wait for one small group, not for a whole fleet's falling due at once; at once
+    at start for samples stored and not judged before a restart. Each group's passes run
+    ahead, outside the writer (:func:`judge_ahead`), while the group before is stored: the
+    writer only stores what they found, and the passes of a fleet keep pace with it."""
     waiting = tuning.waiting
     if waiting is None:
         return
     while True:
         due = waiting.due(tuning.monotonic(), tuning.judge_within_s)
+        storing: asyncio.Task[None] | None = None
         for start in range(0, len(due), SETTLE_RAILS):
-            await group_commit.settle(due[start : start + SETTLE_RAILS])
+            group = due[start : start + SETTLE_RAILS]
+            await run_in_threadpool(judge_ahead, group, tuning)
+            if storing is not None:
+                await storing
+            storing = asyncio.create_task(group_commit.settle(group))
+        if storing is not None:
+            await storing
         await asyncio.sleep(min(SETTLE_EVERY_S, tuning.judge_within_s / 4))
 
 

@@ -20,7 +20,7 @@ from fastapi.concurrency import run_in_threadpool
 from sqlalchemy.orm import Session, sessionmaker
 
 from phaseward.errors import NotFound
-from phaseward.monitor.ingest import TUNING, IngestResult, Tuning, ingest_rails, judge_ahead
+from phaseward.monitor.ingest import TUNING, IngestResult, Tuning, ingest_rails
 from phaseward.monitor.telemetry import IncomingSamples
 
 _log = logging.getLogger(__name__)
@@ -54,10 +54,8 @@ class GroupCommit:
 
     async def settle(self, rail_ids: Sequence[str]) -> None:
         """Judge what these rails have waiting, in the queue like any request (one writer);
-        a rail that fails is logged and stays waiting for the next call. Their passes run
-        first, outside the queue (:func:`judge_ahead`): the groups of requests go on
-        committing meanwhile, and the writer only stores what the passes found."""
-        await run_in_threadpool(judge_ahead, rail_ids, self._tuning)
+        a rail that fails is logged and stays waiting for the next call. Passes run ahead
+        (:func:`~phaseward.monitor.ingest.judge_ahead`) are taken by the writer."""
         answers = await asyncio.gather(
             *(self.submit(r, IncomingSamples.none()) for r in rail_ids), return_exceptions=True
         )

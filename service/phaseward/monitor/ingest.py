@@ -79,7 +79,7 @@ from phaseward.monitor.conditions import (
 )
 from phaseward.monitor.rail_model import RailModel, phase_power
 from phaseward.monitor.rejections import record_rejection
-from phaseward.monitor.resident import Ahead, LiveStates, Resident, Waiting
+from phaseward.monitor.resident import Ahead, LiveStates, Resident, Waiting, WaitingPart
 from phaseward.monitor.telemetry import (
     IncomingSamples,
     SampleBatch,
@@ -369,7 +369,7 @@ def _only_waits(
     now = tuning.monotonic()
     if not _may_wait(tuning, held.model, held, arrived, held.waiting_n + arrived.n, now):
         return batch
-    kept = _left_waiting(held, int(seqs.max()), (*held.waiting_parts, arrived), now)
+    kept = _left_waiting(held, int(seqs.max()), arrived, now)
     every = np.ones(batch.n, dtype=bool)
     condition = held.state.get("rail", {}).get("condition")
     outcome = _Outcome(every, every, condition, version, rail_id=rail_id, resident=kept)
@@ -460,7 +460,7 @@ def _ingest(
         return replace(outcome, rail_id=rail_id)
     now = tuning.monotonic()
     if held is not None and same and _may_wait(tuning, model, held, arrived, live_batch.n, now):
-        kept = _left_waiting(held, ceiling, (live_batch,), now)
+        kept = _left_waiting(held, ceiling, arrived, now)
         return replace(outcome, rail_id=rail_id, resident=kept)
     if held is not None and same:
         previous = held.state
@@ -469,8 +469,14 @@ def _ingest(
     else:
         previous = {}
     passed = None
+    later: tuple[WaitingPart, ...] = ()  # waiting parts a pass run ahead did not judge
     if tuning.ahead is not None and held is not None and same and not arrived.n:
-        passed = tuning.ahead.take(rail_id, held)  # the waiting samples alone: judged already?
+        ahead = tuning.ahead.take(rail_id, held)  # the waiting samples alone: judged already?
+        if ahead is not None:
+            judged, passed = ahead
+            later = held.waiting_parts[judged:]
+            if later:  # they arrived since: they go on waiting
+                live_batch = in_time_order(*(part for _, part in held.waiting_parts[:judged]))
     if passed is None:
         passed = (tuning.monitor_pass or advance)(model, live_batch, previous, tuning.tolerances)
     new_state, findings = passed
@@ -506,8 +512,14 @@ def _ingest(
             state=new_state,
             replay=replay,
             seq_ceiling=ceiling,
+            waiting_parts=later,
         ),
     )
+
+
+def _left_waiting(held: Resident, ceiling: int, arrived: SampleBatch, now: float) -> Resident:
+    """``held`` with ``arrived`` (in time order) stored and left to wait after what waits."""
+    return replace(held, seq_ceiling=ceiling, waiting_parts=(*held.waiting_parts, (now, arrived)))
 
 
 def judge_ahead(rail_ids: Sequence[str], tuning: Tuning) -> None:
@@ -527,14 +539,6 @@ def judge_ahead(rail_ids: Sequence[str], tuning: Tuning) -> None:
         except Exception:  # the writer runs it again and reports the failure
             continue
         tuning.ahead.put(rail_id, held, passed)
-
-
-def _left_waiting(
-    held: Resident, ceiling: int, parts: tuple[SampleBatch, ...], now: float
-) -> Resident:
-    """``held`` with ``parts`` stored and not judged; the wait dates from its first sample."""
-    since = now if held.waiting_since is None else held.waiting_since
-    return replace(held, seq_ceiling=ceiling, waiting_parts=parts, waiting_since=since)
 
 
 def _stored_state(

@@ -22,6 +22,8 @@ from phaseward.monitor.conditions import Finding
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.telemetry import SampleBatch, in_time_order
 
+WaitingPart = tuple[float, SampleBatch]  # samples that arrived together, and when (monotonic s)
+
 
 @dataclass(frozen=True)
 class Resident:
@@ -36,8 +38,9 @@ class Resident:
     ``replay``: what was judged since the checkpoint (the row's column of the same name);
     ``seq_ceiling``: the highest seq of the rail stored, so a batch of higher seqs needs no
     resend look-up; ``waiting_parts``: routine samples stored and left to be judged with the
-    rail's next ones (setting ``judge_within_s``), each arrival's in time order, joined only
-    when judged (:attr:`waiting`); ``state`` and ``spec`` are never changed in place."""
+    rail's next ones (setting ``judge_within_s``), each arrival's in time order with when it
+    arrived (monotonic s), joined only when judged (:attr:`waiting`); ``state`` and ``spec``
+    are never changed in place."""
 
     stamp: int
     version: int
@@ -46,18 +49,23 @@ class Resident:
     state: dict[str, Any]
     replay: list[Any]
     seq_ceiling: int
-    waiting_parts: tuple[SampleBatch, ...] = ()  # stored, newer than ``state``, not judged
-    waiting_since: float | None = None  # when the first of them arrived (monotonic s)
+    waiting_parts: tuple[WaitingPart, ...] = ()  # stored, newer than ``state``, not judged
+
+    @property
+    def waiting_since(self) -> float | None:
+        """When the first of the waiting samples arrived (monotonic s)."""
+        return self.waiting_parts[0][0] if self.waiting_parts else None
 
     @property
     def waiting_n(self) -> int:
-        return sum(part.n for part in self.waiting_parts)
+        return sum(part.n for _, part in self.waiting_parts)
 
     @cached_property
     def waiting(self) -> SampleBatch | None:
         """The waiting samples as one batch in time order (stable: arrival order among equal
         times, as if each arrival had been merged in as it came)."""
-        return in_time_order(*self.waiting_parts) if self.waiting_parts else None
+        parts = [part for _, part in self.waiting_parts]
+        return in_time_order(*parts) if parts else None
 
 
 class LiveStates:
@@ -116,9 +124,11 @@ class Waiting:
 class Ahead:
     """Passes over rails' waiting samples run ahead of the write that stores their outcome: the
     settling loop runs them outside the writer (``ingest.judge_ahead``), so the groups of
-    requests go on committing meanwhile. A pass serves only the copy it was run from: the
-    writer takes it if the rail's held copy is still that very object (no sample arrived and
-    nobody wrote since), and otherwise runs the pass itself."""
+    requests go on committing meanwhile. A pass serves the copy it was run from, and a copy
+    that grew from it by samples that only wait: the writer takes it if the rail's live state
+    is still that very object (nobody wrote since) and the waiting parts it judged are the
+    first of the copy's (the same objects), every later one newer than all of them (so
+    judging them later keeps time order). Otherwise the writer runs the pass itself."""
 
     def __init__(self) -> None:
         self._passes: dict[str, tuple[Resident, tuple[dict[str, Any], list[Finding]]]] = {}
@@ -130,7 +140,22 @@ class Ahead:
         with self._lock:
             self._passes[rail_id] = (basis, passed)
 
-    def take(self, rail_id: str, held: Resident) -> tuple[dict[str, Any], list[Finding]] | None:
+    def take(
+        self, rail_id: str, held: Resident
+    ) -> tuple[int, tuple[dict[str, Any], list[Finding]]] | None:
+        """How many of ``held``'s waiting parts the pass judged, and what it found; None if
+        there is no pass for ``held``."""
         with self._lock:
             found = self._passes.pop(rail_id, None)
-        return found[1] if found is not None and found[0] is held else None
+        if found is None:
+            return None
+        basis, passed = found
+        judged = basis.waiting_parts
+        if held.state is not basis.state or len(held.waiting_parts) < len(judged):
+            return None
+        if any(a is not b for a, b in zip(judged, held.waiting_parts, strict=False)):
+            return None
+        later = held.waiting_parts[len(judged) :]
+        if later and min(p.t_s.min() for _, p in later) <= max(p.t_s.max() for _, p in judged):
+            return None
+        return len(judged), passed

@@ -20,7 +20,9 @@ The row's ratio is the worst of achieved/offered, 250 ms / ingest p99 and 50 ms 
 Run: ``python -m bench.fleet [--rails N] [--seconds S] [--db sqlite|postgres|both]``; with
 ``PHASEWARD_BENCH_QUICK=1`` the defaults shrink to 100 rails for 20 s (development only);
 with ``PHASEWARD_BENCH_WORKERS=N`` the PostgreSQL server runs ``serve --workers N`` (the row
-says so; the server CPU is summed over its processes).
+says so; the server CPU is summed over its processes). The server runs with the fleet's
+settings (README, "Fleet"): routine samples judged within 5 s, and the monitor passes in its
+judging helper process (its CPU is counted in the server's).
 PostgreSQL from ``PHASEWARD_BENCH_DATABASE_URL`` (default the local test database), in a
 schema of its own that is dropped afterwards.
 """
@@ -65,6 +67,9 @@ CONNECTIONS = 50  # racks posting side by side, each for its share of the fleet
 # The fleet's setting (README, "Fleet"): routine samples judged together within this, s;
 # ``PHASEWARD_JUDGE_WITHIN_S`` in the environment overrides it (0: each sample on arrival).
 JUDGE_WITHIN_S = os.environ.get("PHASEWARD_JUDGE_WITHIN_S", "5")
+# The fleet's setting too: the monitor passes in the server's helper process (two cores, not
+# one interpreter's turns); ``PHASEWARD_JUDGE_APART=0`` in the environment runs them inline.
+JUDGE_APART = os.environ.get("PHASEWARD_JUDGE_APART", "1")
 # ``serve --workers N`` on PostgreSQL (``PHASEWARD_BENCH_WORKERS``, default 1: the target is
 # one process); SQLite always runs one.
 WORKERS = int(os.environ.get("PHASEWARD_BENCH_WORKERS", "1"))
@@ -151,6 +156,7 @@ def server(data_dir: Path, url: str) -> Iterator[tuple[int, int]]:
         "PHASEWARD_PORT": str(port), "PHASEWARD_LOG_LEVEL": "warning",
         "PHASEWARD_AUTH_MODE": "open", "PHASEWARD_RATE_PER_S": "1e6",
         "PHASEWARD_RATE_BURST": "1000000", "PHASEWARD_JUDGE_WITHIN_S": JUDGE_WITHIN_S,
+        "PHASEWARD_JUDGE_APART": JUDGE_APART,
     }  # fmt: skip
     workers = str(WORKERS if "postgresql" in url else 1)
     proc = subprocess.Popen(
@@ -351,6 +357,8 @@ def rows(
         fleet: Fleet = m["fleet"]
         raw = "COPY" if kind == "postgres" else "executemany"
         processes = "one process" if kind == "sqlite" or WORKERS == 1 else f"{WORKERS} workers"
+        if JUDGE_APART in ("1", "true", "True"):
+            processes += " and its judging helper"
         out.append(Row(
             f"fleet on {kind}: {rails} rails x 1 sample/s, 12 phases, {seconds:.0f} s, "
             f"{processes}, routine samples judged within {JUDGE_WITHIN_S} s (worst of rate, ingest "

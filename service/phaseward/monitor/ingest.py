@@ -211,8 +211,7 @@ def ingest(
         outcome.publish(tuning)
         return outcome.split([incoming.n])[0]
     except (InvalidInput, Conflict) as err:
-        record_rejection(sessions, rail_id, samples=incoming.n, error=err)
-        raise
+        raise _recorded(sessions, (rail_id, [incoming]), err)
 
 
 def ingest_together(
@@ -312,8 +311,8 @@ def ingest_rails(
 
 
 def _recorded(sessions: sessionmaker[Session], work: RailWork, err: PhasewardError) -> Exception:
-    """``err``, a lone request's refusal, once counted into its rail's rejection episode (as
-    :func:`ingest` does); if that fails, the failure."""
+    """``err``, a lone request's refusal, once counted into its rail's rejection episode; if
+    that fails, the failure."""
     if isinstance(err, NotFound):  # no rail to count it for
         return err
     try:

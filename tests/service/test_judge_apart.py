@@ -6,6 +6,7 @@ pass that fails in the helper fails in the server with the same exception."""
 
 from __future__ import annotations
 
+import multiprocessing
 from collections.abc import Iterator
 
 import httpx
@@ -20,7 +21,8 @@ from phaseward.api.app import close, create_app
 from phaseward.monitor import rail_model
 from phaseward.monitor.ingest import TOLERANCES, Tuning, advance, ingest
 from phaseward.monitor.judge_apart import JudgeApart
-from phaseward.monitor.telemetry import to_batch
+from phaseward.monitor.rail_model import RailModel
+from phaseward.monitor.telemetry import SampleBatch, to_batch
 from phaseward.store import rails
 from phaseward.store.db import transaction
 
@@ -78,13 +80,34 @@ async def test_a_dead_helper_is_replaced_and_loses_no_pass(
     assert_same_state(rail.live(), want_state)
 
 
+async def one_sample(
+    client: httpx.AsyncClient, app: FastAPI, rail_id: str
+) -> tuple[RailModel, SampleBatch]:
+    """A new rail's model and one sample of it as a batch."""
+    assert (await client.post("/v1/rails", json=rail_spec(id=rail_id))).status_code == 201
+    with transaction(app.state.sessions) as session:
+        model = rail_model.build(rail_id, 1, rails.spec(session, rail_id, 1))
+    return model, to_batch(incoming([sample(0, [20.0] * 4)]), model)
+
+
+async def test_a_helper_that_cannot_start_leaves_the_pass_to_the_server(
+    client: httpx.AsyncClient, app: FastAPI, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    model, batch = await one_sample(client, app, "no-helper")
+
+    def refuse(self: object) -> None:
+        raise AssertionError("daemonic processes are not allowed to have children")
+
+    monkeypatch.setattr(multiprocessing.get_context("spawn").Process, "start", refuse)
+    judge = JudgeApart(kept_models=8, blas_threads=1)
+    assert judge(model, batch, {}, TOLERANCES) == advance(model, batch, {}, TOLERANCES)
+    assert judge._helper is None
+
+
 async def test_a_pass_that_fails_in_the_helper_raises_its_exception(
     client: httpx.AsyncClient, app: FastAPI, judge: JudgeApart
 ) -> None:
-    assert (await client.post("/v1/rails", json=rail_spec(id="fails"))).status_code == 201
-    with transaction(app.state.sessions) as session:
-        model = rail_model.build("fails", 1, rails.spec(session, "fails", 1))
-    batch = to_batch(incoming([sample(0, [20.0] * 4)]), model)
+    model, batch = await one_sample(client, app, "fails")
     broken = {"watch": {}}  # a live state without its fields
     with pytest.raises(TypeError) as inline:
         advance(model, batch, broken, TOLERANCES)

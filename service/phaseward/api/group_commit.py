@@ -62,6 +62,8 @@ class GroupCommit:
         for rail_id, answer in zip(rail_ids, answers, strict=True):
             if isinstance(answer, NotFound) and self._tuning.waiting is not None:
                 self._tuning.waiting.clear(rail_id)  # deleted: nothing left to judge
+                if self._tuning.ahead is not None:
+                    self._tuning.ahead.drop(rail_id)
             elif isinstance(answer, Exception):
                 _log.error("judging the samples waiting on rail '%s' failed: %r", rail_id, answer)
 

@@ -211,7 +211,10 @@ def ingest(
         outcome.publish(tuning)
         return outcome.split([incoming.n])[0]
     except (InvalidInput, Conflict) as err:
-        raise _recorded(sessions, (rail_id, [incoming]), err)
+        answer = _recorded(sessions, (rail_id, [incoming]), err)
+        if answer is err:
+            raise
+        raise answer from err  # counting it failed
 
 
 def ingest_together(

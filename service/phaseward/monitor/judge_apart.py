@@ -105,8 +105,12 @@ class JudgeApart:
                 target=serve, args=(theirs, self._kept, self._blas), name="phaseward-judge",
                 daemon=True,
             )  # fmt: skip
-            process.start()
-            theirs.close()
+            try:
+                process.start()
+            except Exception as err:  # judged in the server meanwhile, as if the helper died
+                raise OSError("the judging process did not start") from err
+            finally:
+                theirs.close()
             self._helper = (process, ours)
         return self._helper[1]
 

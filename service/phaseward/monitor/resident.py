@@ -140,6 +140,10 @@ class Ahead:
         with self._lock:
             self._passes[rail_id] = (basis, passed)
 
+    def drop(self, rail_id: str) -> None:
+        with self._lock:
+            self._passes.pop(rail_id, None)
+
     def take(
         self, rail_id: str, held: Resident
     ) -> tuple[int, tuple[dict[str, Any], list[Finding]]] | None:

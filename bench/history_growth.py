@@ -89,7 +89,10 @@ def event_rows(first: int, end: int, t0: float) -> Iterator[tuple[Any, ...]]:
 
 def fill(db: Path, *, first: int, end: int, t0: float, rng: np.random.Generator) -> None:
     """Add samples first..end-1 and their events straight into the file (no server running).
-    Durability is off for this connection only: a crash loses nothing but benchmark data."""
+    Durability is off for this connection only: a crash loses nothing but benchmark data.
+    The live state is moved to the newest of them, as if the service had judged them: a
+    server starting on samples newer than its live state judges them first, as left waiting
+    by a stop, and a history of millions is not that."""
     conn = sqlite3.connect(db, isolation_level=None)
     try:
         conn.execute("PRAGMA synchronous=OFF")
@@ -99,6 +102,11 @@ def fill(db: Path, *, first: int, end: int, t0: float, rng: np.random.Generator)
             conn.executemany(SAMPLE_SQL, sample_rows(lo, hi, t0, rng))
             conn.executemany(EVENT_SQL, event_rows(lo, hi, t0))
             conn.execute("COMMIT")
+        if end > first:
+            conn.execute(
+                "UPDATE rail_state SET last_seq = ?, last_t_s = ? WHERE rail_id = ?",
+                (end - 1, t0 + (end - 1) * PERIOD_S, RAIL),
+            )
         conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
     finally:
         conn.close()

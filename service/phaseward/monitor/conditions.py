@@ -103,6 +103,10 @@ class Finding:
     details: dict[str, Any] = field(default_factory=dict)
 
 
+# A monitor pass's outcome: the rail's new live state and its findings.
+Passed = tuple[dict[str, Any], list[Finding]]
+
+
 @dataclass(frozen=True)
 class Judgement:
     codes: npt.NDArray[np.int8]  # (n, n_phases) debounced phase conditions

@@ -74,6 +74,7 @@ from phaseward.monitor.conditions import (
     READINGS,
     Finding,
     Judgement,
+    Passed,
     Watch,
     judge,
 )
@@ -168,9 +169,7 @@ TOLERANCES = Tolerances()
 
 # The monitor pass: the model, the samples, the previous live state and the tolerances in; the
 # new live state and the findings out (:func:`advance`).
-MonitorPass = Callable[
-    [RailModel, SampleBatch, dict[str, Any], Tolerances], tuple[dict[str, Any], list[Finding]]
-]
+MonitorPass = Callable[[RailModel, SampleBatch, dict[str, Any], Tolerances], Passed]
 
 
 @dataclass(frozen=True)
@@ -193,6 +192,10 @@ class Tuning:
     monotonic: Callable[[], float] = time.monotonic
     ahead: Ahead | None = None
     monitor_pass: MonitorPass | None = None
+
+    def run_pass(self, model: RailModel, batch: SampleBatch, previous: dict[str, Any]) -> Passed:
+        """The monitor pass over ``batch`` (:func:`advance`, or what stands in for it)."""
+        return (self.monitor_pass or advance)(model, batch, previous, self.tolerances)
 
 
 TUNING = Tuning()
@@ -480,7 +483,7 @@ def _ingest(
             if later:  # they arrived since: they go on waiting
                 live_batch = in_time_order(*(part for _, part in held.waiting_parts[:judged]))
     if passed is None:
-        passed = (tuning.monitor_pass or advance)(model, live_batch, previous, tuning.tolerances)
+        passed = tuning.run_pass(model, live_batch, previous)
     new_state, findings = passed
     events.add_many(session, [_event_row(model, live_batch, f) for f in findings])
     isolations = [
@@ -531,13 +534,12 @@ def judge_ahead(rail_ids: Sequence[str], tuning: Tuning) -> None:
     process's memory, or whose pass fails here, is left to the writer (which reports it)."""
     if tuning.ahead is None or tuning.live is None:
         return
-    run_pass = tuning.monitor_pass or advance
     for rail_id in rail_ids:
         held = tuning.live.get(rail_id)
         if held is None or held.waiting is None or not held.waiting.n:
             continue
         try:
-            passed = run_pass(held.model, held.waiting, held.state, tuning.tolerances)
+            passed = tuning.run_pass(held.model, held.waiting, held.state)
         except Exception:  # the writer runs it again and reports the failure
             continue
         tuning.ahead.put(rail_id, held, passed)
@@ -730,7 +732,7 @@ def advance(
     batch: SampleBatch,
     previous: dict[str, Any],
     tolerances: Tolerances = TOLERANCES,
-) -> tuple[dict[str, Any], list[Finding]]:
+) -> Passed:
     """The live state after ``batch`` (in time order, newer than ``previous``) and its findings.
 
     The rail is assessed at the points :func:`_assessment_points` picks, each judged against

@@ -26,7 +26,7 @@ from typing import Any
 
 from threadpoolctl import threadpool_limits
 
-from phaseward.monitor.conditions import Finding
+from phaseward.monitor.conditions import Passed
 from phaseward.monitor.ingest import Tolerances, advance
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.telemetry import SampleBatch
@@ -57,7 +57,7 @@ class JudgeApart:
         batch: SampleBatch,
         previous: dict[str, Any],
         tolerances: Tolerances,
-    ) -> tuple[dict[str, Any], list[Finding]]:
+    ) -> Passed:
         with self._lock:
             try:
                 kind, answer = self._ask(model, batch, previous, tolerances)

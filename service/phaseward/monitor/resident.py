@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from functools import cached_property
 from typing import Any
 
-from phaseward.monitor.conditions import Finding
+from phaseward.monitor.conditions import Passed
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.telemetry import SampleBatch, in_time_order
 
@@ -131,12 +131,10 @@ class Ahead:
     judging them later keeps time order). Otherwise the writer runs the pass itself."""
 
     def __init__(self) -> None:
-        self._passes: dict[str, tuple[Resident, tuple[dict[str, Any], list[Finding]]]] = {}
+        self._passes: dict[str, tuple[Resident, Passed]] = {}
         self._lock = threading.Lock()
 
-    def put(
-        self, rail_id: str, basis: Resident, passed: tuple[dict[str, Any], list[Finding]]
-    ) -> None:
+    def put(self, rail_id: str, basis: Resident, passed: Passed) -> None:
         with self._lock:
             self._passes[rail_id] = (basis, passed)
 
@@ -144,9 +142,7 @@ class Ahead:
         with self._lock:
             self._passes.pop(rail_id, None)
 
-    def take(
-        self, rail_id: str, held: Resident
-    ) -> tuple[int, tuple[dict[str, Any], list[Finding]]] | None:
+    def take(self, rail_id: str, held: Resident) -> tuple[int, Passed] | None:
         """How many of ``held``'s waiting parts the pass judged, and what it found; None if
         there is no pass for ``held``."""
         with self._lock:

@@ -25,7 +25,7 @@ from tests.conftest import MakeSettings
 from tests.service.cuts import TRACES, Ingestor, incoming
 from tests.service.test_cut_invariance import assert_same_state, new_rail, reference
 
-from phaseward.api.app import _settle_loop, close, create_app
+from phaseward.api.app import SETTLE_EVERY_S, _settle_loop, close, create_app, settle_pause_s
 from phaseward.api.group_commit import GroupCommit
 from phaseward.monitor.conditions import Finding
 from phaseward.monitor.ingest import (
@@ -332,6 +332,43 @@ async def test_samples_left_waiting_by_a_stop_are_judged_when_the_server_starts(
         assert judged_seq(clean, "right") == 0
     assert judged_seq(clean, "right") == 3  # judged on the way out
     close(clean)
+
+
+async def test_with_waiting_off_the_settling_loop_judges_what_a_stop_left_and_does_not_spin(
+    make_settings: MakeSettings, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Waiting turned off (``judge_within_s`` 0) after a stop left samples waiting: the next
+    server still judges them at start, and its settling loop then looks a few times a second
+    (a pause of 0 spun the event loop and took a core's share from every request)."""
+    trace = TRACES["trip"]
+    killed = create_app(make_settings(judge_within_s=30.0))
+    transport = httpx.ASGITransport(app=killed)
+    async with httpx.AsyncClient(transport=transport, base_url="http://t") as client:
+        assert (await client.post("/v1/rails", json=trace.spec | {"id": "left"})).status_code == 201
+        for k in range(4):
+            assert (
+                await client.post("/v1/rails/left/samples", json=trace.samples[k])
+            ).status_code == 200
+    close(killed)  # no shutdown: samples 1-3 stay waiting
+
+    looks = 0
+    look = Waiting.due
+
+    def counted(self: Waiting, now: float, within_s: float) -> list[str]:
+        nonlocal looks
+        looks += 1
+        return look(self, now, within_s)
+
+    monkeypatch.setattr(Waiting, "due", counted)
+    restarted = create_app(make_settings(judge_within_s=0.0))
+    async with restarted.router.lifespan_context(restarted):
+        await asyncio.sleep(0.5)
+        seq = Ingestor(restarted.state.sessions, "left", trace).live()["sample"]["seq"]
+    close(restarted)
+    assert seq == 3
+    assert 2 <= looks <= 10  # every 0.1 s; spinning made thousands
+    assert settle_pause_s(0.0) == SETTLE_EVERY_S
+    assert settle_pause_s(0.2) == pytest.approx(0.05)
 
 
 async def test_a_rail_judged_elsewhere_is_no_longer_due_here(

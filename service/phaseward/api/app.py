@@ -78,6 +78,16 @@ SETTLE_EVERY_S = 0.1  # the settling loop looks for due rails this often (at mos
 SETTLE_RAILS = 4  # rails a settling group holds: requests queued meanwhile go between groups
 
 
+def settle_pause_s(judge_within_s: float) -> float:
+    """How long the settling loop sleeps between looks: a quarter of the waiting window, at
+    most ``SETTLE_EVERY_S``. With no window (0: samples are judged in their own request) only
+    rails left unjudged by a stop are ever marked, and a pause of 0 would spin the event loop
+    on an empty look, taking a core's share from every request."""
+    if judge_within_s <= 0:
+        return SETTLE_EVERY_S
+    return min(SETTLE_EVERY_S, judge_within_s / 4)
+
+
 async def _settle_loop(group_commit: GroupCommit, tuning: Tuning) -> None:
     """Judge the samples of rails whose first waiting sample has waited ``judge_within_s``,
     a few rails a group through the group commit (one writer), so that requests queued
@@ -99,7 +109,7 @@ async def _settle_loop(group_commit: GroupCommit, tuning: Tuning) -> None:
             storing = asyncio.create_task(group_commit.settle(group))
         if storing is not None:
             await storing
-        await asyncio.sleep(min(SETTLE_EVERY_S, tuning.judge_within_s / 4))
+        await asyncio.sleep(settle_pause_s(tuning.judge_within_s))
 
 
 async def _partition_loop(settings: Settings, engine: Engine) -> None:

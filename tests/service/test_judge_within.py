@@ -17,6 +17,7 @@ from dataclasses import replace
 from typing import Any
 
 import httpx
+import numpy as np
 import pytest
 from fastapi import FastAPI
 from hypothesis import HealthCheck, given, settings
@@ -36,7 +37,7 @@ from phaseward.monitor.ingest import (
     ingest_rails,
     judge_ahead,
 )
-from phaseward.monitor.resident import Ahead, LiveStates, Resident, Waiting
+from phaseward.monitor.resident import SHORTEST_SHARE, Ahead, LiveStates, Resident, Waiting
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch
 
 pytestmark = pytest.mark.anyio
@@ -393,3 +394,34 @@ async def test_a_rail_judged_elsewhere_is_no_longer_due_here(
     settle(rail, here)
     assert here.waiting.due(clock.now, 0.0) == []
     assert rail.live()["sample"]["seq"] == 4
+
+
+def test_a_fleet_that_starts_together_falls_due_spread_then_runs_full_windows() -> None:
+    """Rails whose first windows open in the same second fall due spread over the window
+    (between SHORTEST_SHARE of it and all of it, fixed per rail), never later than the window;
+    a window that opens soon after the rail's last one (a steady rail) runs full length, and
+    the first window after a pause is spread again."""
+    waiting = Waiting()
+    rails = [f"rack-{k:03d}" for k in range(400)]
+    for rail in rails:
+        waiting.mark(rail, 100.0)
+    assert waiting.due(100.0 + SHORTEST_SHARE * WITHIN_S - 1e-9, WITHIN_S) == []
+    assert sorted(waiting.due(100.0 + WITHIN_S, WITHIN_S)) == sorted(rails)  # never late
+    grid = np.linspace(0.0, 1.0, 201)
+
+    def first_due(rail: str, opened: float) -> float:
+        """The share of the window after which the rail is first due, to 1/200."""
+        return min(k for k in grid if rail in waiting.due(opened + k * WITHIN_S, WITHIN_S))
+
+    shares = np.array([first_due(rail, 100.0) for rail in rails[:50]])
+    # evenly spread over [0.2, 1]: the quartiles within a tenth of uniform's
+    assert np.quantile(shares, [0.25, 0.5, 0.75]) == pytest.approx([0.4, 0.6, 0.8], abs=0.1)
+    first = rails[0]
+    waiting.mark(first, 100.0)  # marked again by the next request of the same window
+    assert first_due(first, 100.0) == shares[0]
+    waiting.clear(first)
+    waiting.mark(first, 106.0)  # the next window opens a second after the last was judged
+    assert first_due(first, 106.0) == 1.0
+    waiting.clear(first)
+    waiting.mark(first, 106.0 + 10 * WITHIN_S)  # back after a pause: spread again
+    assert first_due(first, 106.0 + 10 * WITHIN_S) == shares[0]

@@ -12,7 +12,9 @@ published only after their transaction commits, so readers see committed states 
 
 from __future__ import annotations
 
+import math
 import threading
+import zlib
 from collections import OrderedDict
 from dataclasses import dataclass
 from functools import cached_property
@@ -95,17 +97,36 @@ class LiveStates:
             self._held.pop(rail_id, None)
 
 
+# A window that opens within this many windows of the rail's previous one is a steady rail's
+# (its samples keep coming, each window opening as the last is judged): it runs full length.
+STEADY_GAP = 2.0
+SHORTEST_SHARE = 0.2  # of the window, for a rail's first window after a gap (see Waiting)
+
+
 class Waiting:
     """The rails with samples stored and not yet judged, and since when (monotonic s): what
-    the settling loop judges once they have waited ``judge_within_s``."""
+    the settling loop judges once they have waited ``judge_within_s``.
+
+    A rail's first window after a gap (a start, a restart, a rack back from a pause) is
+    shortened to a share of the window fixed per rail, between ``SHORTEST_SHARE`` and 1: a
+    fleet that starts together would otherwise fall due in the same second, and its first
+    passes, the heaviest (every model sent, every rail assessed), would run past the backstop.
+    Spread this way the rails' windows stay spread, since each opens as the last is judged.
+    Judging earlier is always allowed (the bound is an upper one); only these first windows
+    are shortened, so the steady rate of passes is unchanged."""
 
     def __init__(self) -> None:
-        self._since: dict[str, float] = {}
+        # Per waiting rail: since, and the gap between its window's opening and the last's.
+        self._since: dict[str, tuple[float, float]] = {}
+        self._opened: dict[str, float] = {}  # when each rail's last window opened
         self._lock = threading.Lock()
 
     def mark(self, rail_id: str, since: float) -> None:
         with self._lock:
-            self._since[rail_id] = since
+            if self._since.get(rail_id, (None,))[0] != since:  # a window opens
+                gap = since - self._opened.get(rail_id, -math.inf)
+                self._opened[rail_id] = since
+                self._since[rail_id] = (since, gap)
 
     def __contains__(self, rail_id: object) -> bool:
         with self._lock:
@@ -116,9 +137,24 @@ class Waiting:
             self._since.pop(rail_id, None)
 
     def due(self, now: float, within_s: float) -> list[str]:
-        """The rails whose first waiting sample arrived ``within_s`` or more before ``now``."""
+        """The rails whose first waiting sample arrived ``within_s`` (times the rail's share,
+        for a first window after a gap of ``STEADY_GAP`` windows or more) or more before
+        ``now``."""
         with self._lock:
-            return [r for r, since in self._since.items() if now - since >= within_s]
+            return [
+                r
+                for r, (since, gap) in self._since.items()
+                if now - since >= within_s * _share(r, gap, within_s)
+            ]
+
+
+def _share(rail_id: str, gap: float, within_s: float) -> float:
+    """A steady rail's window runs full length; one after a gap, a share fixed by the rail's
+    name, spread evenly over the rails."""
+    if not gap >= STEADY_GAP * within_s:  # NaN included: a window marked at -inf (a stop's)
+        return 1.0
+    spread = zlib.crc32(rail_id.encode()) / 2**32
+    return SHORTEST_SHARE + (1.0 - SHORTEST_SHARE) * spread
 
 
 class Ahead:

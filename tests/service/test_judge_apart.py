@@ -6,8 +6,12 @@ pass that fails in the helper fails in the server with the same exception."""
 
 from __future__ import annotations
 
+import gc
 import multiprocessing
+import pickle
+import weakref
 from collections.abc import Iterator
+from dataclasses import replace
 
 import httpx
 import pytest
@@ -20,7 +24,7 @@ from tests.service.test_cut_invariance import assert_same_state, new_rail, refer
 from phaseward.api.app import close, create_app
 from phaseward.monitor import rail_model
 from phaseward.monitor.ingest import TOLERANCES, Tuning, advance, ingest
-from phaseward.monitor.judge_apart import JudgeApart
+from phaseward.monitor.judge_apart import JudgeApart, Networks, shared_network
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.telemetry import SampleBatch, to_batch
 from phaseward.store import rails
@@ -137,3 +141,30 @@ async def test_the_setting_runs_the_passes_apart(make_settings: MakeSettings) ->
     assert judge._helper is not None  # the passes went to the helper
     close(app)
     assert judge._helper is None
+
+
+async def test_models_of_one_design_share_their_network_in_the_helper(
+    client: httpx.AsyncClient, app: FastAPI
+) -> None:
+    """Pickled, every model brings its own copy of its network; the helper keeps one network
+    per set of values (the physics caches its propagators and Riccati solutions per network
+    object), and lets it go with the last model that holds it."""
+    one, _ = await one_sample(client, app, "design-a-1")
+    two, _ = await one_sample(client, app, "design-a-2")
+    assert (
+        await client.post("/v1/rails", json=rail_spec(id="design-b", phase_count=6))
+    ).status_code == 201
+    with transaction(app.state.sessions) as session:
+        other = rail_model.build("design-b", 1, rails.spec(session, "design-b", 1))
+    arrived = [pickle.loads(pickle.dumps(m)) for m in (one, two, other)]
+    assert len({id(m.network) for m in arrived}) == 3
+    networks: Networks = weakref.WeakValueDictionary()
+    kept = [shared_network(m, networks) for m in arrived]
+    assert kept[0] is arrived[0]  # the first of its design keeps its own
+    assert kept[1].network is kept[0].network
+    assert kept[2].network is not kept[0].network
+    assert replace(kept[1], network=arrived[1].network) == arrived[1]  # nothing else changed
+    assert len(networks) == 2
+    del kept, arrived, one, two, other
+    gc.collect()
+    assert len(networks) == 0

@@ -11,6 +11,13 @@ same state and findings in either process, so events and verdicts do not change.
 Each pass sends the samples and the previous state (about 13 kB pickled for 12 phases); the
 rail model is sent once and kept in the helper by a serial number. Should the helper die, the
 pass runs in the server's process and the next pass starts a new helper.
+
+The physics keeps what it derives from a thermal network (the step's propagator, the Riccati
+solutions of the estimator and of the drift test) per network object, a few dozen networks
+at most. In the server, rails of one design share one network (built once per set of values);
+a pickled model arrives with a copy of its own, so the helper gives every model the network
+an equal one brought before (:func:`shared_network`), or a fleet of one design would solve
+the Riccati equation again on nearly every pass.
 """
 
 from __future__ import annotations
@@ -19,7 +26,9 @@ import logging
 import multiprocessing
 import signal
 import threading
+import weakref
 from collections import OrderedDict
+from dataclasses import replace
 from multiprocessing.connection import Connection
 from multiprocessing.reduction import ForkingPickler
 from typing import Any
@@ -30,6 +39,7 @@ from phaseward.monitor.conditions import Passed
 from phaseward.monitor.ingest import Tolerances, advance
 from phaseward.monitor.rail_model import RailModel
 from phaseward.monitor.telemetry import SampleBatch
+from phaseward.physics.thermal import ThermalNetwork
 
 _log = logging.getLogger(__name__)
 
@@ -131,13 +141,14 @@ def serve(connection: Connection, kept_models: int, blas_threads: int) -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # a Ctrl-C stops the server, which stops this
     threadpool_limits(limits=blas_threads, user_api="blas")
     models: OrderedDict[int, RailModel] = OrderedDict()
+    networks: Networks = weakref.WeakValueDictionary()
     while True:
         try:
             serial, model, batch, previous, tolerances = connection.recv()
         except EOFError:
             return
         if model is not None:
-            models[serial] = model
+            models[serial] = shared_network(model, networks)
             while len(models) > kept_models:
                 models.popitem(last=False)
         model = models.get(serial)
@@ -149,6 +160,22 @@ def serve(connection: Connection, kept_models: int, blas_threads: int) -> None:
             connection.send((_DONE, advance(model, batch, previous, tolerances)))
         except Exception as err:  # the pass's own failure, raised again in the server
             connection.send((_FAILED, _picklable(err)))
+
+
+Networks = weakref.WeakValueDictionary[tuple[bytes, ...], ThermalNetwork]
+
+
+def shared_network(model: RailModel, networks: Networks) -> RailModel:
+    """``model`` with the network of equal values that a model kept before brought, if any
+    (``networks``: by their arrays' bytes; a network goes once no kept model holds it)."""
+    net = model.network
+    key = (
+        *(a.tobytes() for a in (net.conductance_w_per_k, net.capacitance_j_per_k,
+                                net.ambient_conductance_w_per_k, net.junction_node)),
+        net.board_node.to_bytes(8, "little"),
+    )  # fmt: skip
+    kept = networks.setdefault(key, net)
+    return model if kept is net else replace(model, network=kept)
 
 
 def _picklable(err: Exception) -> Exception:

@@ -5,6 +5,8 @@ from __future__ import annotations
 from typing import Annotated
 
 from fastapi import APIRouter, Path, Query, Request, Response, status
+from sqlalchemy.orm import Session, sessionmaker
+from starlette.concurrency import run_in_threadpool
 
 from phaseward.api.auth import Admin, RailAdmin, RailReader, Reader
 from phaseward.api.deps import ClockDep, ReadSessionDep, SessionsDep, SettingsDep
@@ -15,6 +17,7 @@ from phaseward.api.schemas.rails import DefinitionWarning, RailBody, RailCreate,
 from phaseward.api.schemas.status import RailStatus
 from phaseward.errors import Forbidden
 from phaseward.monitor import rails as rail_service
+from phaseward.monitor.resident import LiveStates
 from phaseward.monitor.sanity import Notice
 from phaseward.monitor.status import rail_status
 from phaseward.store import rails as rail_store
@@ -99,9 +102,22 @@ def delete_rail(rail_id: RailId, sessions: SessionsDep, _: RailAdmin) -> None:
     rail_service.delete(sessions, rail_id)
 
 
-@router.get("/{rail_id}/status")
-def get_status(
-    rail_id: RailId, request: Request, session: ReadSessionDep, clock: ClockDep, _: RailReader
-) -> RailStatus:
-    live = request.app.state.live_states
-    return RailStatus.model_validate(rail_status(session, rail_id, now_s=clock(), live_states=live))
+@router.get("/{rail_id}/status", response_model=RailStatus)
+async def get_status(rail_id: RailId, request: Request, clock: ClockDep, _: RailReader) -> Response:
+    state = request.app.state
+    body = await run_in_threadpool(
+        _status_json, state.read_sessions, rail_id, clock(), state.live_states
+    )
+    return Response(body, media_type="application/json")
+
+
+def _status_json(
+    sessions: sessionmaker[Session], rail_id: str, now_s: float, live: LiveStates
+) -> bytes:
+    """The whole read in one turn of a worker thread: a fleet's status reads wait for the
+    server's interpreter at every crossing, and as a plain route with a session dependency a
+    read crossed it four times (the session opened, the route, the answer checked against its
+    model, the session closed)."""
+    with sessions() as session, session.begin():
+        found = rail_status(session, rail_id, now_s=now_s, live_states=live)
+    return RailStatus.model_validate(found).model_dump_json(by_alias=True).encode()

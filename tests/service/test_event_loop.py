@@ -1,13 +1,16 @@
 """Issue 17 item 4: a large trace upload and a large calibration do not stall the event loop.
 
-/healthz is polled while each runs; its worst latency is compared with what the work itself
-took and with an idle baseline measured in the same run (a generous bound, not a time)."""
+/healthz is polled while each runs, and polls must be answered while the heavy part (the CSV
+parse, the fit) runs: on the event loop it would hold every poll until it ends. Counted, not
+timed: under CI load a thread holding the interpreter can be descheduled for much of the
+work, and a bound on the worst poll's latency (at half the work) failed there with the parse
+correctly off the loop; a parse on the loop answers no poll while it runs."""
 
 from __future__ import annotations
 
-import statistics
 import time
 from collections.abc import AsyncIterator, Awaitable, Callable
+from typing import Any
 
 import anyio
 import httpx
@@ -17,11 +20,14 @@ from fastapi import FastAPI
 from tests.factories import SMALL_RAIL
 
 from phaseward.api.app import close, create_app
+from phaseward.api.routes import analyses as analyses_routes
+from phaseward.api.routes import traces as traces_routes
 from phaseward.settings import Settings
 
 pytestmark = pytest.mark.anyio
 ROWS = 120_000  # about 4 MB of CSV
 PAUSE_S = 0.02  # between polls of /healthz
+MIN_ANSWERED = 3  # polls answered while the heavy part runs (dozens on an idle machine)
 
 
 @pytest.fixture
@@ -33,17 +39,26 @@ async def big(settings: Settings) -> AsyncIterator[httpx.AsyncClient]:
     close(app)
 
 
-async def healthz_latency(c: httpx.AsyncClient) -> float:
-    started = time.perf_counter()
-    assert (await c.get("/healthz")).status_code == 200
-    return time.perf_counter() - started
+async def polls_answered_during(
+    c: httpx.AsyncClient,
+    work: Callable[[], Awaitable[httpx.Response]],
+    heavy: tuple[object, str],
+    monkeypatch: pytest.MonkeyPatch,
+) -> tuple[int, httpx.Response]:
+    """(how many /healthz polls were answered while the function ``heavy`` (module, name)
+    ran inside ``work``, the work's answer)."""
+    span: list[float] = []
+    real = getattr(*heavy)
 
+    def timed(*args: Any, **kw: Any) -> Any:
+        span.append(time.perf_counter())
+        try:
+            return real(*args, **kw)
+        finally:
+            span.append(time.perf_counter())
 
-async def worst_latency_during(
-    c: httpx.AsyncClient, work: Callable[[], Awaitable[httpx.Response]]
-) -> tuple[float, float, httpx.Response]:
-    """(worst /healthz latency while ``work`` ran, how long the work took, its answer)."""
-    latencies: list[float] = []
+    monkeypatch.setattr(*heavy, timed)
+    answered_at: list[float] = []
     answer: list[httpx.Response] = []
     done = anyio.Event()
 
@@ -51,23 +66,19 @@ async def worst_latency_during(
         answer.append(await work())
         done.set()
 
-    started = time.perf_counter()
     async with anyio.create_task_group() as tasks:
         tasks.start_soon(run)
         while not done.is_set():
-            # From when the poll is due (after its pause) to the answer: a stalled loop delays
-            # both the pause's end and the request.
-            due = time.perf_counter() + PAUSE_S
             await anyio.sleep(PAUSE_S)
-            await healthz_latency(c)
-            latencies.append(time.perf_counter() - due)
-    return max(latencies), time.perf_counter() - started, answer[0]
+            assert (await c.get("/healthz")).status_code == 200
+            answered_at.append(time.perf_counter())
+    assert len(span) == 2, "the heavy part did not run once"
+    return sum(span[0] < t < span[1] for t in answered_at), answer[0]
 
 
 async def test_healthz_answers_during_a_large_upload_and_calibration(
-    big: httpx.AsyncClient,
+    big: httpx.AsyncClient, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    idle = statistics.median([await healthz_latency(big) for _ in range(20)])
     rows = [f"{k},12,10,10,10,10" for k in range(ROWS)]
     csv_body = "time_s,vin_v,i0_a,i1_a,i2_a,i3_a\n" + "\n".join(rows)
 
@@ -76,13 +87,12 @@ async def test_healthz_answers_during_a_large_upload_and_calibration(
             "/v1/traces", content=csv_body.encode(), headers={"content-type": "text/csv"}
         )
 
-    worst, took, answer = await worst_latency_during(big, upload)
+    answered, answer = await polls_answered_during(
+        big, upload, (traces_routes, "_csv"), monkeypatch
+    )
     assert answer.status_code == 201, answer.text
     assert answer.json()["n_samples"] == ROWS
-    # Parsed on the event loop, /healthz waited for the whole upload. Off the loop it still
-    # waits its turn for the interpreter lock on a busy machine (a stall of a third of the
-    # upload was seen under CI load), so the line is drawn at half.
-    assert worst < max(50 * idle, 0.5 * took), (worst, took, idle)
+    assert answered >= MIN_ANSWERED  # parsed on the event loop: none
 
     assert (await big.post("/v1/rails", json=SMALL_RAIL)).status_code == 201
     t = np.linspace(0.0, 300.0, 1_500)
@@ -93,6 +103,8 @@ async def test_healthz_answers_during_a_large_upload_and_calibration(
     async def calibrate() -> httpx.Response:
         return await big.post("/v1/rails/bench-a/calibrations", json=curve)
 
-    worst, took, answer = await worst_latency_during(big, calibrate)
+    answered, answer = await polls_answered_during(
+        big, calibrate, (analyses_routes.calibrations, "calibrate"), monkeypatch
+    )
     assert answer.status_code == 200, answer.text
-    assert worst < max(50 * idle, 0.5 * took), (worst, took, idle)
+    assert answered >= MIN_ANSWERED

@@ -21,6 +21,7 @@ from phaseward.monitor.resident import LiveStates
 from phaseward.monitor.sanity import Notice
 from phaseward.monitor.status import rail_status
 from phaseward.store import rails as rail_store
+from phaseward.store.db import transaction
 from phaseward.store.models import Rail
 
 router = APIRouter(prefix="/v1/rails", tags=["rails"], responses=ERROR_RESPONSES)
@@ -118,6 +119,6 @@ def _status_json(
     server's interpreter at every crossing, and as a plain route with a session dependency a
     read crossed it four times (the session opened, the route, the answer checked against its
     model, the session closed)."""
-    with sessions() as session, session.begin():
+    with transaction(sessions) as session:
         found = rail_status(session, rail_id, now_s=now_s, live_states=live)
     return RailStatus.model_validate(found).model_dump_json(by_alias=True).encode()

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import errno
-import gc
 import os
 import socket
 import sys
@@ -17,6 +16,7 @@ from typing import TYPE_CHECKING
 import httpx
 
 from phaseward.cli_support import FAILED, CommandError, load_settings, usage
+from phaseward.collector import quiet_collector
 from phaseward.errors import PhasewardError
 from phaseward.operator_cli import add_commands
 from phaseward.settings import Settings
@@ -67,10 +67,7 @@ def _server(settings: Settings) -> uvicorn.Server:
         create_app(settings), host=settings.host, port=settings.port,
         log_level=settings.log_level, log_config=None,  # our JSON lines, not uvicorn's format
     )  # fmt: skip
-    # What exists now (libraries, schemas, the app) lives as long as the process: out of the
-    # collector's sight, a full collection walks only what requests leave behind (a full pass
-    # over everything paused every request for tens of milliseconds under load).
-    gc.freeze()
+    quiet_collector()
     return uvicorn.Server(config)
 
 
@@ -121,7 +118,7 @@ def worker_app() -> FastAPI:
     settings = Settings()
     configure_logging(settings.log_level)
     app = create_app(settings)
-    gc.freeze()  # as in _server: the start-up heap stays out of full collections
+    quiet_collector()
     return app
 
 

@@ -35,6 +35,7 @@ from typing import Any
 
 from threadpoolctl import threadpool_limits
 
+from phaseward.collector import quiet_collector
 from phaseward.monitor.conditions import Passed
 from phaseward.monitor.ingest import Tolerances, advance
 from phaseward.monitor.rail_model import RailModel
@@ -140,6 +141,7 @@ def serve(connection: Connection, kept_models: int, blas_threads: int) -> None:
     """The helper: judge what arrives until the server closes its end of the pipe."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # a Ctrl-C stops the server, which stops this
     threadpool_limits(limits=blas_threads, user_api="blas")
+    quiet_collector()  # a fleet's models live here as long as in the server
     models: OrderedDict[int, RailModel] = OrderedDict()
     networks: Networks = weakref.WeakValueDictionary()
     while True:

@@ -10,6 +10,7 @@ from typing import Any
 import pytest
 
 from phaseward import cli
+from phaseward.api import observability
 from phaseward.collector import FULL_COLLECTION_EVERY, quiet_collector
 from phaseward.settings import Settings
 
@@ -60,7 +61,9 @@ def test_full_collections_are_rare_under_churn() -> None:
 
 
 @pytest.mark.usefixtures("collector_restored")
-def test_the_server_keeps_the_schedule(settings: Settings) -> None:
+def test_the_server_keeps_the_schedule(settings: Settings, monkeypatch: pytest.MonkeyPatch) -> None:
+    # The server's log set-up would replace the test session's log handlers.
+    monkeypatch.setattr(observability, "configure_logging", lambda level: None)
     gc.set_threshold(700, 10, 10)
     cli._server(settings)
     assert gc.get_threshold() == (700, 10, FULL_COLLECTION_EVERY)

@@ -37,7 +37,14 @@ from phaseward.monitor.ingest import (
     ingest_rails,
     judge_ahead,
 )
-from phaseward.monitor.resident import SHORTEST_SHARE, Ahead, LiveStates, Resident, Waiting
+from phaseward.monitor.resident import (
+    SHORTEST_SHARE,
+    STEADY_GAP,
+    Ahead,
+    LiveStates,
+    Resident,
+    Waiting,
+)
 from phaseward.monitor.telemetry import IncomingSamples, SampleBatch
 
 pytestmark = pytest.mark.anyio
@@ -425,3 +432,29 @@ def test_a_fleet_that_starts_together_falls_due_spread_then_runs_full_windows() 
     waiting.clear(first)
     waiting.mark(first, 106.0 + 10 * WITHIN_S)  # back after a pause: spread again
     assert first_due(first, 106.0 + 10 * WITHIN_S) == shares[0]
+
+
+def test_rails_gone_quiet_are_forgotten_and_spread_again() -> None:
+    """The settling loop's look forgets the window openings of rails that have not waited for
+    STEADY_GAP windows (a fleet's rails come and go; deleted ones would otherwise be held for
+    the life of the process); such a rail's next window is spread as a new rail's, as it would
+    have been after that gap anyway, while a steady rail keeps its full window."""
+    waiting = Waiting()
+    gone = [f"bench-board-{k:04d}" for k in range(1000)]
+    for rail in gone:
+        waiting.mark(rail, 10.0)
+        waiting.clear(rail)
+    steady = "rack-steady"
+    waiting.mark(steady, 10.0 + 2 * WITHIN_S)
+    waiting.clear(steady)
+    assert waiting.due(10.0 + STEADY_GAP * WITHIN_S + 1.0, WITHIN_S) == []
+    assert waiting._opened.keys() == {steady}  # the only opening within STEADY_GAP windows
+    later = 10.0 + STEADY_GAP * WITHIN_S + 2.0
+    waiting.mark(steady, later)  # its window opens 2 s after the last: full length
+    waiting.mark(gone[0], later)  # forgotten: spread like a rail never seen
+    fresh = Waiting()
+    fresh.mark(gone[0], later)
+    for k in np.linspace(0.0, 1.0, 101):
+        now = later + k * WITHIN_S
+        assert (gone[0] in waiting.due(now, WITHIN_S)) == (gone[0] in fresh.due(now, WITHIN_S))
+        assert (steady in waiting.due(now, WITHIN_S)) == (k >= 1.0)

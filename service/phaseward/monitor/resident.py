@@ -118,7 +118,8 @@ class Waiting:
     def __init__(self) -> None:
         # Per waiting rail: since, and the gap between its window's opening and the last's.
         self._since: dict[str, tuple[float, float]] = {}
-        self._opened: dict[str, float] = {}  # when each rail's last window opened
+        self._opened: dict[str, float] = {}  # when each rail's last window opened (_forget)
+        self._forget_at = -math.inf  # when ``due`` next forgets windows opened long ago
         self._lock = threading.Lock()
 
     def mark(self, rail_id: str, since: float) -> None:
@@ -141,11 +142,24 @@ class Waiting:
         for a first window after a gap of ``STEADY_GAP`` windows or more) or more before
         ``now``."""
         with self._lock:
+            if within_s > 0 and math.isfinite(now) and now >= self._forget_at:
+                self._forget(now - STEADY_GAP * within_s)
+                self._forget_at = now + STEADY_GAP * within_s
             return [
                 r
                 for r, (since, gap) in self._since.items()
                 if now - since >= within_s * _share(r, gap, within_s)
             ]
+
+    def _forget(self, before: float) -> None:
+        """Drop the openings of rails not waiting whose last window opened before ``before``:
+        the next window of such a rail opens after a gap of ``STEADY_GAP`` windows or more
+        either way, so it is spread as a rail never seen is (a sample that arrived just before
+        and is marked just after may fall due earlier than otherwise: never later), and a
+        rail deleted or gone quiet is not remembered for the life of the process."""
+        old = [r for r, t in self._opened.items() if t < before and r not in self._since]
+        for r in old:
+            del self._opened[r]
 
 
 def _share(rail_id: str, gap: float, within_s: float) -> float:

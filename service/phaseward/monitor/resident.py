@@ -157,9 +157,7 @@ class Waiting:
         either way, so it is spread as a rail never seen is (a sample that arrived just before
         and is marked just after may fall due earlier than otherwise: never later), and a
         rail deleted or gone quiet is not remembered for the life of the process."""
-        old = [r for r, t in self._opened.items() if t < before and r not in self._since]
-        for r in old:
-            del self._opened[r]
+        self._opened = {r: t for r, t in self._opened.items() if t >= before or r in self._since}
 
 
 def _share(rail_id: str, gap: float, within_s: float) -> float:

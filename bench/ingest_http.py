@@ -10,7 +10,9 @@
    100-row batch (the durability the service gives each request). Target >= 0.5. Once as
    sample objects, once as the columnar body the batching senders post; beside them, the
    schema's share: what parsing and checking a 100-sample body costs in this process, per
-   form (objects, columns, CSV), against the server's CPU per request.
+   form (objects, columns, CSV), against the server's CPU per request; and the floor: the
+   same columnar bodies to a store-only endpoint (bench.store_only_app: HTTP, the schema, the
+   same rows stored durably, no monitor), which no design with a monitor can exceed.
 7. The server's peak resident memory after each, printed.
 
 Run: ``python -m bench.ingest_http [seconds]``.
@@ -78,11 +80,12 @@ def as_columns(body: str) -> str:
 
 def _load(
     port: int, pid: int, connections: int, per_request: int, seconds: float, *,
-    columns: bool = False,
+    columns: bool = False, most_per_s: int = 8000,
 ) -> dict[str, Any]:  # fmt: skip
-    """Closed-loop load; requests per second, statuses and server CPU per request."""
+    """Closed-loop load; requests per second, statuses and server CPU per request. Bodies
+    are built for ``most_per_s`` samples a second, more than the server can take."""
     t0 = time.time() - 3600
-    count = int(8000 * seconds / connections / per_request) + 50  # more than can be sent
+    count = int(most_per_s * seconds / connections / per_request) + 50
     streams = []
     for c in range(connections):
         bodies = loadgen.bodies(c, connections, count, per_request, t0)
@@ -131,6 +134,22 @@ def _phaseward(
     with sqlite3.connect(data_dir / "phaseward.db") as db:  # what was stored, not what was sent
         found["rows"] = db.execute("SELECT count(*) FROM samples").fetchone()[0]
     return found
+
+
+def _store_only(data_dir: Path, seconds: float) -> dict[str, Any]:
+    """Columnar batches to the store-only endpoint: HTTP, the schema and a durable insert."""
+    port = free_port()
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "bench.store_only_app", str(port), str(data_dir)]
+    )
+    try:
+        wait_until_healthy(proc, port)
+        return _load(
+            port, proc.pid, BATCH_CONNECTIONS, BATCH, seconds, columns=True, most_per_s=60_000
+        )
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)
 
 
 def _raw_rows(batches: int) -> list[list[tuple[Any, ...]]]:
@@ -202,10 +221,17 @@ def rows(seconds: float = 10.0) -> list[Row]:
         by_columns = _phaseward(
             Path(tmp, "columns"), BATCH_CONNECTIONS, BATCH, seconds, columns=True
         )
+        store_only = _store_only(Path(tmp, "store-only"), seconds)
         raw_rate = _raw_sqlite(Path(tmp, "raw"), _raw_rows(2000))
     schema = schema_ms()
     stored_per_s = batched["rows"] / seconds
     columns_per_s = by_columns["rows"] / seconds
+    floor_per_s = BATCH * store_only["rate"]
+    floor = (
+        f"; a store-only endpoint (HTTP, the columnar schema, the same rows stored durably, no "
+        f"monitor) {floor_per_s:.0f} rows/s, {floor_per_s / raw_rate:.3f} of executemany, at "
+        f"{store_only['cpu_ms_per_request']:.2f} ms per request"
+    )
     return [
         Row(
             f"single-sample ingest over HTTP, 12 phases, {SINGLE_CONNECTIONS} connections, "
@@ -238,6 +264,7 @@ def rows(seconds: float = 10.0) -> list[Row]:
                 f"server CPU per 100-sample request {by_columns['cpu_ms_per_request']:.2f} ms, "
                 f"of which the schema {schema['columns']:.2f} ms (CSV {schema['CSV']:.2f} ms); "
                 f"statuses {by_columns['statuses']}; peak RSS {by_columns['rss_mb']:.0f} MiB"
+                + floor
             ),
         ),
     ]  # fmt: skip

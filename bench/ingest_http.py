@@ -144,12 +144,16 @@ def _store_only(data_dir: Path, seconds: float) -> dict[str, Any]:
     )
     try:
         wait_until_healthy(proc, port)
-        return _load(
+        found = _load(
             port, proc.pid, BATCH_CONNECTIONS, BATCH, seconds, columns=True, most_per_s=60_000
         )
     finally:
         proc.terminate()
         proc.wait(timeout=20)
+    with sqlite3.connect(data_dir / "phaseward.db") as db:
+        stored = db.execute("SELECT count(*) FROM samples").fetchone()[0]
+    assert stored == BATCH * found["statuses"].get("200", 0), "the floor stored less than it said"
+    return found
 
 
 def _raw_rows(batches: int) -> list[list[tuple[Any, ...]]]:

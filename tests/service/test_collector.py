@@ -11,6 +11,7 @@ import pytest
 
 from phaseward import cli
 from phaseward.api import observability
+from phaseward.api.app import close
 from phaseward.collector import FULL_COLLECTION_EVERY, quiet_collector
 from phaseward.settings import Settings
 
@@ -69,6 +70,7 @@ def test_the_server_keeps_the_schedule(settings: Settings, monkeypatch: pytest.M
     # The server's log set-up would replace the test session's log handlers.
     monkeypatch.setattr(observability, "configure_logging", lambda level: None)
     gc.set_threshold(700, 10, 10)
-    cli._server(settings)
+    server = cli._server(settings)
+    close(server.config.app)  # its jobs and database pool; uvicorn never ran it
     assert gc.get_threshold() == (700, 10, FULL_COLLECTION_EVERY)
     assert gc.get_freeze_count() > 0  # the start-up heap frozen out of full collections

@@ -20,6 +20,7 @@ import numpy.typing as npt
 import pytest
 from scipy import linalg, signal
 
+from phaseward.physics import estimator
 from phaseward.physics.estimator import discrete_model, initial_state, kalman_run
 from phaseward.physics.thermal import (
     CauerStages,
@@ -242,3 +243,50 @@ def test_filter_beats_the_raw_lagged_noisy_sensor_on_the_exact_model() -> None:
     settled = slice(100, None)
     ratio = np.sqrt(np.mean(filter_error[settled] ** 2) / np.mean(std[1:][settled] ** 2))
     assert 0.7 < ratio < 1.4
+
+
+def textbook_update(
+    prior: FloatArray, cov: FloatArray, sensed: npt.NDArray[np.int64], var: FloatArray,
+    reading: FloatArray,
+) -> tuple[FloatArray, FloatArray]:  # fmt: skip
+    """The measurement update written out (Simon 2006, ch. 5, above) with an explicit H over
+    the present readings, the inverse of S, and the Joseph form of P+."""
+    seen = np.isfinite(reading)
+    h = np.zeros((int(seen.sum()), prior.size))
+    h[np.arange(h.shape[0]), sensed[seen]] = 1.0
+    r = np.diag(var[seen])
+    gain = cov @ h.T @ np.linalg.inv(h @ cov @ h.T + r)
+    keep = np.eye(prior.size) - gain @ h
+    return prior + gain @ (reading[seen] - h @ prior), keep @ cov @ keep.T + gain @ r @ gain.T
+
+
+@pytest.mark.parametrize("definite", [True, False])
+def test_measurement_update_matches_the_textbook_form(definite: bool) -> None:
+    """Every reading present, some missing, none; and (``definite`` False) a covariance whose
+    sensed block has lost definiteness, as a runaway leaves it, where the filter's Cholesky
+    solve cannot run: the update still is the textbook one."""
+    rng = np.random.default_rng(3)
+    model = discrete_model(NET, 1.0, process_noise_w=0.2, sensor_noise_k=[0.3, 0.5, 0.2],
+                           sensor_tau_s=[2.0, 3.0, 5.0])  # fmt: skip
+    size = model.n_states
+    root = rng.normal(size=(size, size))
+    cov = root @ root.T
+    if not definite:
+        sensed = model.sensor_state[:2]
+        cov[np.ix_(sensed, sensed)] = [[1.0, 4.0], [4.0, 1.0]]  # eigenvalues 5 and -3
+    prior = 40.0 + rng.normal(size=size)
+    for reading in ([41.0, 39.5, 43.0], [41.0, np.nan, 43.0], [np.nan, np.nan, np.nan]):
+        reading_c = np.array(reading)
+        mean, posterior, _ = estimator._condition(
+            prior, cov, model.sensor_state, model.sensor_var_k2, model.sensor_offset_k,
+            reading_c,
+        )  # fmt: skip
+        if np.isnan(reading_c).all():
+            assert mean is prior
+            assert posterior is cov
+            continue
+        want_mean, want_cov = textbook_update(
+            prior, cov, model.sensor_state, model.sensor_var_k2, reading_c
+        )
+        np.testing.assert_allclose(mean, want_mean, rtol=1e-10)
+        np.testing.assert_allclose(posterior, want_cov, rtol=1e-9, atol=1e-9 * np.abs(cov).max())

@@ -81,6 +81,7 @@ from typing import NamedTuple
 import numpy as np
 import numpy.typing as npt
 from scipy import linalg
+from scipy.linalg import lapack
 
 from phaseward.physics.steady_gain import SteadyGain, linear_recurrence, steady_gain
 from phaseward.physics.thermal import ThermalNetwork, ThermalRunaway
@@ -412,6 +413,9 @@ def _update(
     )
 
 
+_cholesky_solve = lapack.dposv
+
+
 def _condition(
     mean: FloatArray,
     cov: FloatArray,
@@ -429,15 +433,20 @@ def _condition(
         return mean, cov, z
     rows = sensor_state[seen]
     var = sensor_var_k2[seen]
-    innovation_cov = cov[rows[:, None], rows] + np.diag(var)
-    # K = P H^T S^-1 with H picking ``rows``: P H^T = P[:, rows], and S is symmetric. numpy's
-    # LU solve, not scipy's: this runs once per sample and scipy's checks cost twice the solve.
-    gain = np.linalg.solve(innovation_cov, cov[rows]).T
+    cross = cov[rows]  # H P, with H picking ``rows``
+    innovation_cov = cross[:, rows]
+    innovation_cov.flat[:: rows.size + 1] += var  # S = H P H^T + R
+    # K = P H^T S^-1 = (S^-1 H P)^T, S symmetric positive definite: LAPACK's Cholesky solve
+    # called bare (this runs once per sample; numpy's LU costs twice as much, scipy's checked
+    # wrapper more). LU where S has lost definiteness, so a runaway is reported, not masked.
+    _, solved, info = _cholesky_solve(innovation_cov, cross)
+    gain = (solved if info == 0 else np.linalg.solve(innovation_cov, cross)).T
     innovation = reading_c[seen] - sensor_offset_k[seen] - mean[rows]
-    keep = np.eye(mean.size)
-    keep[:, rows] -= gain
     z[seen] = innovation / np.sqrt(np.diag(innovation_cov))
-    cov = keep @ cov @ keep.T + (gain * var) @ gain.T
+    # Joseph form (I - K H) P (I - K H)^T + K R K^T, its products taken without the zeros of
+    # I - K H: the same sums, in a fifth of the work on a 12-phase network.
+    left = cov - gain @ cross
+    cov = left - left[:, rows] @ gain.T + (gain * var) @ gain.T
     return mean + gain @ innovation, 0.5 * (cov + cov.T), z
 
 

@@ -39,11 +39,10 @@ from tests.servers import free_port, start_server, wait_until_healthy
 
 from bench import loadgen
 from bench.common import Row, peak_rss_bytes, print_rows
+from bench.store_only_app import INSERT, open_store
 from phaseward.api.schemas.columns import COLUMNS_JSON, parse_columns
 from phaseward.api.schemas.columns_csv import parse_csv
 from phaseward.api.schemas.samples import SAMPLES, to_incoming
-from phaseward.settings import Settings
-from phaseward.store.db import build_engine, migrate
 
 SINGLE_CONNECTIONS = 64  # concurrent rigs, each posting its samples one by one
 BATCH_CONNECTIONS = 8
@@ -176,22 +175,12 @@ def _raw_rows(batches: int) -> list[list[tuple[Any, ...]]]:
 def _raw_sqlite(data_dir: Path, batches: list[list[tuple[Any, ...]]]) -> float:
     """Rows per second: executemany of each batch in its own transaction, into the service's
     schema with its pragmas (WAL, synchronous=FULL)."""
-    settings = Settings(data_dir=data_dir)
-    engine = build_engine(settings)
-    migrate(engine)
-    engine.dispose()
-    db = sqlite3.connect(data_dir / "phaseward.db", isolation_level=None)
-    db.execute("PRAGMA journal_mode=WAL")
-    db.execute(f"PRAGMA synchronous={settings.sqlite_synchronous}")
+    db = open_store(data_dir)
     db.execute("INSERT INTO rails (id, version, created_s, updated_s) VALUES (?, 1, 0, 0)", (RAIL,))
-    sql = (
-        "INSERT INTO samples (rail_id, seq, t_s, version, vin_v, vout_v, iout_a, ambient_c, "
-        "current_a, temp_c, flags) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
-    )
     started = time.perf_counter()
     for rows in batches:
         db.execute("BEGIN IMMEDIATE")
-        db.executemany(sql, rows)
+        db.executemany(INSERT, rows)
         db.execute("COMMIT")
     elapsed = time.perf_counter() - started
     stored = db.execute("SELECT count(*) FROM samples").fetchone()[0]
